@@ -1,0 +1,21 @@
+"""kickback: turn-off transients of transistor-switched inductive loads."""
+
+from __future__ import annotations
+
+__version__ = "0.1.0"
+
+__all__ = ["__version__", "load_case", "simulate"]
+
+
+def load_case(path_or_text):
+    """Load a case from a TOML file path or from TOML text; see :func:`kickback.caseio.load_case`."""
+    from kickback.caseio import load_case as _load
+
+    return _load(path_or_text)
+
+
+def simulate(case, **options):
+    """Simulate one turn-off of ``case``; returns a :class:`kickback.result.Result`."""
+    from kickback.simulate import simulate as _simulate
+
+    return _simulate(case, **options)

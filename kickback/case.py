@@ -1,0 +1,113 @@
+"""The case: what is simulated, as frozen dataclasses in SI units.
+
+Loading and validation of the TOML case file live in :mod:`kickback.caseio`;
+this module holds the data types and the error type only.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from kickback.errors import CaseError  # noqa: F401  (re-exported)
+
+#: Element types a clamp chain may hold.
+ELEMENT_TYPES = ("diode", "zener", "tvs", "resistor", "capacitor", "varistor")
+SWITCH_TYPES = ("ideal", "bjt", "mosfet")
+ACROSS = ("coil", "switch")
+
+
+@dataclass(frozen=True)
+class Supply:
+    voltage: float  # [V]
+
+
+@dataclass(frozen=True)
+class Coil:
+    inductance: float  # [H]
+    resistance: float  # [ohm]
+    capacitance: float = 0.0  # [F] winding capacitance, + to sw
+    release_current: float | None = None  # [A]
+    release_delay: float = 0.0  # [s]
+    initial_current: float | None = None  # [A]; None: DC on-state
+
+
+@dataclass(frozen=True)
+class Switch:
+    type: str  # ideal | bjt | mosfet
+    on_resistance: float = 0.0  # [ohm] mosfet
+    saturation_voltage: float = 0.0  # [V] bjt
+    fall_time: float = 0.0  # [s]; 0: instant
+    capacitance: float = 0.0  # [F] output capacitance sw -> ground
+    breakdown_voltage: float | None = None  # [V]; None: never breaks down
+    avalanche_resistance: float = 0.0  # [ohm] slope above breakdown
+    body_diode_voltage: float | None = None  # [V] mosfet reverse conduction (None: 0.7 V)
+    rated_voltage: float | None = None  # [V]
+    rated_avalanche_energy: float | None = None  # [J] single pulse; None: not rated
+
+
+@dataclass(frozen=True)
+class Element:
+    """One two-terminal element of a clamp chain; fields unused by a type stay None."""
+
+    type: str
+    name: str | None = None
+    # diode
+    model: str = "shockley"  # shockley | constant-drop
+    forward_voltage: float | None = None  # [V] diode terminal point / drop; zener/tvs forward drop
+    at_current: float | None = None  # [A] diode: current of the terminal point; varistor: 1 mA
+    ideality: float | None = None
+    saturation_current: float | None = None  # [A]
+    series_resistance: float = 0.0  # [ohm]
+    temperature: float | None = None  # [K] junction temperature for V_T; None: 25 degC
+    rated_reverse_voltage: float | None = None  # [V]
+    rated_surge_current: float | None = None  # [A]
+    # zener / tvs / varistor
+    voltage: float | None = None  # [V] breakdown (zener/tvs) or voltage at at_current (varistor)
+    dynamic_resistance: float = 0.0  # [ohm]
+    bidirectional: bool = False
+    rated_pulse_energy: float | None = None  # [J]
+    rated_peak_power: float | None = None  # [W]
+    rated_pulse_width: float | None = None  # [s]
+    exponent: float | None = None  # varistor alpha
+    # resistor / varistor
+    resistance: float | None = None  # [ohm]
+    rated_energy: float | None = None  # [J]
+    # capacitor
+    capacitance: float | None = None  # [F]
+    rated_voltage: float | None = None  # [V]
+    #: key path in the case file, e.g. "clamp[0].element[1]" (for messages)
+    path: str = ""
+
+
+@dataclass(frozen=True)
+class Clamp:
+    name: str
+    across: str  # coil | switch
+    elements: tuple[Element, ...]
+    path: str = ""
+
+
+@dataclass(frozen=True)
+class Checks:
+    derating: float = 0.8  # fraction of voltage/current ratings allowed (common practice, no source)
+    energy_derating: float | None = None  # fraction of energy ratings allowed; None: same as derating
+    max_release_time: float | None = None  # [s]
+    max_peak_voltage: float | None = None  # [V]
+    max_decay_time: float | None = None  # [s] to zero
+    max_clamp_energy: float | None = None  # [J] per clamp
+
+    @property
+    def energy_fraction(self) -> float:
+        return self.derating if self.energy_derating is None else self.energy_derating
+
+
+@dataclass(frozen=True)
+class Case:
+    title: str
+    supply: Supply
+    coil: Coil
+    switch: Switch
+    clamps: tuple[Clamp, ...] = ()
+    checks: Checks = field(default_factory=Checks)
+    source: str = "<case>"  # file name used in messages
+    text: str = ""  # the case text as loaded

@@ -1,0 +1,161 @@
+"""A clamp chain: elements in series, its current for a given chain voltage."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import brentq
+
+from kickback.case import Clamp
+from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, element_law
+from kickback.models.base import PiecewiseLinearLaw
+
+
+def regularized(pieces: LinearPieces, r_min: float) -> LinearPieces:
+    """``pieces`` with every zero conduction resistance raised to ``r_min`` [Ω]."""
+    if r_min <= 0:
+        return pieces
+    return LinearPieces(pieces.v_fwd, pieces.r_fwd if pieces.r_fwd > 0 else r_min,
+                        pieces.v_rev, pieces.r_rev if pieces.r_rev > 0 else r_min)
+
+
+@dataclass
+class Chain:
+    """One clamp as used by the circuit.
+
+    Parameters
+    ----------
+    clamp : Clamp — the case's clamp
+    r_min : float — [Ω] resistance given to zero-resistance pieces (0: exact, vertical)
+    """
+
+    clamp: Clamp
+    r_min: float = 0.0
+    laws: list[ElementLaw | None] = field(init=False)
+    capacitance: float | None = field(init=False)
+
+    def __post_init__(self):
+        self.laws = []
+        self.capacitance = None
+        for el in self.clamp.elements:
+            law = element_law(el)
+            if law is None:
+                self.capacitance = el.capacitance
+            elif self.r_min > 0 and law.pieces() is not None:
+                p = regularized(law.pieces(), self.r_min)
+                law = PiecewiseLinearLaw(p, law.description)
+            self.laws.append(law)
+        self.reference = 1.0 if self.clamp.across == "coil" else 0.0  # × supply voltage
+        active = [law for law in self.laws if law is not None]
+        pw = [law.pieces() for law in active]
+        self.pieces: LinearPieces | None = None
+        self._smooth: tuple[ElementLaw, LinearPieces] | None = None
+        if active and all(p is not None for p in pw):
+            total = pw[0]
+            for p in pw[1:]:
+                total = total + p
+            self.pieces = total
+        else:
+            smooth = [law for law, p in zip(active, pw, strict=True) if p is None]
+            rest = LinearPieces(0.0, 0.0, 0.0, 0.0)
+            for p in pw:
+                if p is not None:
+                    rest = rest + p
+            if len(smooth) == 1:
+                self._smooth = (smooth[0], rest)
+                if isinstance(smooth[0], ShockleyDiode):
+                    d = smooth[0]
+                    self._fwd = ShockleyDiode(d.n, d.i_s, d.r_s + rest.r_fwd, d.a / d.n)
+                    self._rev = ShockleyDiode(d.n, d.i_s, d.r_s + rest.r_rev, d.a / d.n)
+        self.active = active
+        self.band = (sum(law.band[0] for law in active), sum(law.band[1] for law in active))
+        self.piecewise_linear = self.pieces is not None
+
+    @property
+    def name(self) -> str:
+        return self.clamp.name
+
+    @property
+    def capacitor_only(self) -> bool:
+        return not self.active
+
+    def thresholds(self) -> list[float]:
+        """Chain voltages [V] at which the chain's law is vertical (exact ideal elements)."""
+        out = []
+        if self.pieces is not None:
+            if self.pieces.r_fwd == 0 and math.isfinite(self.pieces.v_fwd):
+                out.append(self.pieces.v_fwd)
+            if self.pieces.r_rev == 0 and math.isfinite(self.pieces.v_rev):
+                out.append(self.pieces.v_rev)
+        return out
+
+    def current(self, voltage, v_cap=0.0):
+        """Chain current [A] (from ``sw`` to the chain's far end) at chain voltage [V]."""
+        vx = np.asarray(voltage, dtype=float) - v_cap
+        if self.pieces is not None:
+            return self.pieces.current(vx)
+        if self._smooth is not None:
+            law, rest = self._smooth
+            if isinstance(law, ShockleyDiode):
+                fwd = self._fwd.current(np.maximum(vx - rest.v_fwd, 0.0))
+                if math.isfinite(rest.v_rev):
+                    rev = self._rev.current(np.minimum(vx - rest.v_rev, 0.0))
+                else:
+                    rev = 0.0
+                return np.where(vx > rest.v_fwd, fwd, np.where(vx < rest.v_rev, rev, 0.0))
+            if rest == LinearPieces(0.0, 0.0, 0.0, 0.0):
+                return law.current(vx)
+        return np.vectorize(self._solve_numeric, otypes=[float])(vx)
+
+    def _total_voltage(self, i: float) -> float:
+        return float(sum(float(law.voltage(i)) for law in self.active))
+
+    def _solve_numeric(self, vx: float) -> float:
+        lo, hi = self.band
+        if lo <= vx <= hi:
+            return 0.0
+        sign = 1.0 if vx > hi else -1.0
+        floor = max(law.i_floor for law in self.active)
+        if sign < 0 and floor == 0.0:
+            return 0.0
+        a, b = 0.0, sign * 1e-6
+        while (self._total_voltage(b) - vx) * sign < 0:
+            a, b = b, b * 4.0
+            if sign < 0 and b < floor:
+                b = 0.5 * (a + floor)
+            if abs(b) > 1e12:
+                raise ArithmeticError("chain current unbounded")
+        return brentq(lambda x: self._total_voltage(x) - vx, min(a, b), max(a, b), xtol=1e-15, rtol=1e-13)
+
+    def element_voltages(self, current, voltage, v_cap=0.0) -> list[np.ndarray]:
+        """Voltage [V] across each element (capacitors included) at chain current [A].
+
+        With no current, the chain voltage is shared by the elements that block it, in chain
+        order, each up to the edge of its zero-current band.
+        """
+        i = np.asarray(current, dtype=float)
+        vx = np.asarray(voltage, dtype=float) - v_cap
+        out = []
+        for law in self.laws:
+            if law is None:
+                out.append(np.broadcast_to(np.asarray(v_cap, dtype=float), i.shape).copy())
+            else:
+                out.append(np.where(i != 0, law.voltage(np.where(i != 0, i, 1.0)), 0.0))
+        if self._smooth is not None:
+            # the one nonlinear element takes what the linear ones leave (exact, also in reverse,
+            # where its own law has lost all precision near -I_s)
+            k = self.laws.index(self._smooth[0])
+            others = sum(out[j] for j, law in enumerate(self.laws) if j != k)
+            out[k] = np.where(i != 0, vx + (v_cap if self.capacitance is not None else 0.0) - others, out[k])
+        # share the held-off voltage among blocking elements where the chain carries no current
+        rest = np.where(i == 0, vx, 0.0)
+        for k, law in enumerate(self.laws):
+            if law is None:
+                continue
+            lo, hi = law.band
+            take = np.clip(rest, lo, hi)
+            out[k] = np.where(i == 0, out[k] + take, out[k])
+            rest = rest - take
+        return out

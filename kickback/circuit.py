@@ -1,0 +1,370 @@
+"""From a :class:`~kickback.case.Case` to state equations, on-state and bookkeeping.
+
+State vector (capacitive node, ``C_node > 0``)::
+
+    [i, v, v_C1 … v_Cm, E_R, E_supply, E_channel, E_avalanche, E_body, E_el1 … E_elK]
+
+With no node capacitance the node voltage ``v`` is algebraic (solved from the node's current
+balance at every evaluation, exactly, vertical ideal laws included) and is left out.
+The energies are integrals carried as states so that the ledger is as accurate as the solve.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import brentq
+
+from kickback.case import Case
+from kickback.chain import Chain, regularized
+from kickback.errors import CaseError, SolverError
+from kickback.models.switch import switch_law
+
+N_ENERGY_FIXED = 5  # E_R, E_supply, E_channel, E_avalanche, E_body
+#: relative size of the resistance given to zero-resistance laws when the node has capacitance
+REGULARIZATION = 1e-7
+
+
+@dataclass(frozen=True)
+class OnState:
+    """DC on-state before turn-off.
+
+    Parameters
+    ----------
+    coil_current : float — [A]
+    node_voltage : float — [V] switch-node voltage
+    switch_current : float — [A] channel current
+    chain_currents : tuple of float — [A] each clamp chain's current (from sw to its far end)
+    chain_voltages : tuple of float — [V] each chain's voltage (sw minus its far end)
+    """
+
+    coil_current: float
+    node_voltage: float
+    switch_current: float
+    chain_currents: tuple[float, ...]
+    chain_voltages: tuple[float, ...]
+
+
+class Circuit:
+    """The turn-off circuit of one case, ready for an engine."""
+
+    def __init__(self, case: Case):
+        self.case = case
+        c, s = case.coil, case.switch
+        self.L, self.R, self.Vs = c.inductance, c.resistance, case.supply.voltage
+        merged_coil = sum(el.capacitance for cl in case.clamps if _cap_only(cl) and cl.across == "coil"
+                          for el in cl.elements)
+        merged_sw = sum(el.capacitance for cl in case.clamps if _cap_only(cl) and cl.across == "switch"
+                        for el in cl.elements)
+        self.C_plus = c.capacitance + merged_coil  # capacitance sw -> +
+        self.C_gnd = s.capacitance + merged_sw  # capacitance sw -> ground
+        self.C_node = self.C_plus + self.C_gnd
+        self.capacitive = self.C_node > 0
+        exact_switch = switch_law(s.type, on_resistance=s.on_resistance,
+                                  saturation_voltage=s.saturation_voltage, fall_time=s.fall_time,
+                                  breakdown_voltage=s.breakdown_voltage,
+                                  avalanche_resistance=s.avalanche_resistance,
+                                  body_diode_voltage=s.body_diode_voltage)
+        exact_chains = [Chain(cl) for cl in case.clamps]
+        for ch in exact_chains:
+            _check_chain(case, ch)
+        self.switch = exact_switch
+        self.chains = exact_chains
+        self.on = self._on_state()
+        self.i0 = self.on.coil_current
+        if self.i0 <= 0:
+            raise CaseError("the coil carries no current before turn-off (expected a positive "
+                            "on-state current)", source=case.source, key="coil")
+        self.v_scale = max(self.Vs, *(abs(x) for x in self._finite_thresholds()), 1.0)
+        self.r_min = REGULARIZATION * self.v_scale / self.i0 if self.capacitive else 0.0
+        self.pin_points = self._pin_points() if self.capacitive else []
+        self.pin: tuple[float, int, int] | None = None
+        if self.r_min > 0:
+            self.switch = switch_law(s.type, on_resistance=s.on_resistance,
+                                     saturation_voltage=s.saturation_voltage, fall_time=s.fall_time,
+                                     breakdown_voltage=s.breakdown_voltage,
+                                     avalanche_resistance=s.avalanche_resistance,
+                                     body_diode_voltage=s.body_diode_voltage)
+            object.__setattr__(self.switch, "on_state", regularized(self.switch.on_state, self.r_min))
+            object.__setattr__(self.switch, "off_state", regularized(self.switch.off_state, self.r_min))
+            self.chains = [Chain(cl, self.r_min) for cl in case.clamps]
+        self.g_leak = 0.0 if self.capacitive else 1e-12 * self.i0 / self.v_scale
+        self.active_chains = [k for k, ch in enumerate(self.chains) if not ch.capacitor_only]
+        self.cap_chains = [k for k in self.active_chains if self.chains[k].capacitance is not None]
+        # element energy slots: one per non-capacitor element of every active chain
+        self.energy_slots: list[tuple[int, int]] = [
+            (k, j) for k in self.active_chains for j, law in enumerate(self.chains[k].laws) if law is not None]
+        nv = 1 if self.capacitive else 0
+        self.iv = 1 if self.capacitive else None
+        self.icap = {k: 1 + nv + n for n, k in enumerate(self.cap_chains)}
+        self.ie = 1 + nv + len(self.cap_chains)
+        self.n_states = self.ie + N_ENERGY_FIXED + len(self.energy_slots)
+        self.i_on = self.on.switch_current
+
+    # ----------------------------------------------------------------- on-state
+    def _pin_points(self) -> list[tuple[float, int, int]]:
+        """Exact vertical laws as (node voltage [V], branch index, side ±1).
+
+        Branch 1 is the switch's off-state law, 2… the active chains. With node capacitance the
+        node is *pinned* at such a voltage while the vertical law takes the current.
+        """
+        out = []
+        off = self.switch.off_state
+        if off.r_fwd == 0 and math.isfinite(off.v_fwd):
+            out.append((off.v_fwd, 1, 1))
+        if off.r_rev == 0 and math.isfinite(off.v_rev):
+            out.append((off.v_rev, 1, -1))
+        n = 0
+        for ch in self.chains:
+            if ch.capacitor_only:
+                continue
+            p = ch.pieces
+            ref = self.Vs * ch.reference
+            if p is not None and p.r_fwd == 0 and math.isfinite(p.v_fwd):
+                out.append((ref + p.v_fwd, 2 + n, 1))
+            if p is not None and p.r_rev == 0 and math.isfinite(p.v_rev):
+                out.append((ref + p.v_rev, 2 + n, -1))
+            n += 1
+        return out
+
+    def _finite_thresholds(self) -> list[float]:
+        out = [self.switch.off_state.v_fwd] if math.isfinite(self.switch.off_state.v_fwd) else []
+        for ch in self.chains:
+            if ch.pieces is not None:
+                ref = self.Vs * ch.reference
+                out += [ref + x for x in (ch.pieces.v_fwd,) if math.isfinite(x)]
+        return out
+
+    def _on_state(self) -> OnState:
+        """Solve the DC on-state: coil, switch on-state law and every resistive chain."""
+        given = self.case.coil.initial_current
+        on = self.switch.on_state
+
+        def branches(v):
+            out = [float(on.current(v))]
+            out += [0.0 if ch.capacitance is not None else float(ch.current(v - self.Vs * ch.reference))
+                    for ch in self.chains]
+            return out
+
+        def coil(v):
+            return given if given is not None else (self.Vs - v) / self.R
+
+        def resid(v):
+            return sum(branches(v)) - coil(v)
+
+        thresholds = [on.v_fwd] + ([on.v_rev] if math.isfinite(on.v_rev) else [])
+        for ch in self.chains:
+            thresholds += [t + self.Vs * ch.reference for t in ch.thresholds()] if ch.capacitance is None else []
+        v = _solve_monotone(resid, thresholds, self.Vs)
+        cur = branches(v)
+        i_coil = coil(v)
+        # a vertical on-state law takes what the others leave
+        i_sw = i_coil - sum(cur[1:]) if on.r_fwd == 0 and abs(v - on.v_fwd) < 1e-12 * max(1, abs(v)) \
+            else cur[0]
+        chain_v = tuple(v - self.Vs * ch.reference for ch in self.chains)
+        return OnState(i_coil, v, i_sw, tuple(cur[1:]), chain_v)
+
+    def initial_state(self) -> np.ndarray:
+        y = np.zeros(self.n_states)
+        y[0] = self.i0
+        if self.capacitive:
+            y[1] = self.on.node_voltage
+        for k in self.cap_chains:
+            ch = self.chains[k]
+            lo, hi = ch.band
+            vx = self.on.chain_voltages[k]
+            y[self.icap[k]] = vx - float(np.clip(0.0, lo, hi)) if not (lo <= 0 <= hi) else vx
+        return y
+
+    # ---------------------------------------------------------------- currents
+    def branch_currents(self, t, v, y):
+        """Channel, off-state (avalanche/body diode) and chain currents [A] at node voltage v."""
+        sw = self.switch
+        if sw.fall_time > 0:
+            ich = sw.channel_current(v, t, self.i_on)
+        else:
+            ich = np.zeros_like(np.asarray(v, dtype=float))
+        ich = ich + self.g_leak * v
+        ioff = sw.off_state.current(v)
+        ichains = []
+        for k in self.active_chains:
+            ch = self.chains[k]
+            vcap = y[self.icap[k]] if k in self.icap else 0.0
+            ichains.append(ch.current(v - self.Vs * ch.reference, vcap))
+        return ich, ioff, ichains
+
+    def node_voltage(self, t: float, y: np.ndarray) -> float:
+        """Switch-node voltage [V]: the state, or solved from the node current balance."""
+        if self.capacitive:
+            return float(y[1])
+        i = float(y[0])
+
+        def resid(v):
+            ich, ioff, ichains = self.branch_currents(t, v, y)
+            return float(ich + ioff + sum(ichains)) - i
+
+        thresholds = []
+        if self.switch.fall_time > 0 and t < self.switch.fall_time:
+            thresholds.append(self.switch.on_state.v_fwd)
+            if math.isfinite(self.switch.on_state.v_rev):
+                thresholds.append(self.switch.on_state.v_rev)
+        if math.isfinite(self.switch.off_state.v_fwd) and self.switch.off_state.r_fwd == 0:
+            thresholds.append(self.switch.off_state.v_fwd)
+        for k in self.active_chains:
+            ch = self.chains[k]
+            thresholds += [x + self.Vs * ch.reference for x in ch.thresholds()]
+        return _solve_monotone(resid, thresholds, self.v_scale)
+
+    def split_currents(self, t: float, v: float, y: np.ndarray):
+        """Branch currents at a solved node voltage; a vertical law takes what the others leave."""
+        ich, ioff, ichains = self.branch_currents(t, v, y)
+        vals = [float(ich), float(ioff)] + [float(x) for x in ichains]
+        if self.capacitive:
+            if self.pin is not None:
+                n = self.pin[1]
+                vals[n] = 0.0
+                vals[n] = float(y[0]) - sum(vals)
+            return vals[0], vals[1], vals[2:]
+        vertical = self._vertical_at(t, v)
+        if vertical:
+            rest = float(y[0]) - sum(x for n, x in enumerate(vals) if n not in vertical)
+            for n in vertical:
+                vals[n] = rest / len(vertical)
+        return vals[0], vals[1], vals[2:]
+
+    def _vertical_at(self, t: float, v: float) -> list[int]:
+        """Indices (channel 0, off-state 1, chains 2…) of branches whose law is vertical at v."""
+        def at(x):
+            return math.isfinite(x) and abs(v - x) <= 1e-12 * max(1.0, abs(x))
+
+        out = []
+        on = self.switch.on_state
+        if self.switch.fall_time > 0 and t < self.switch.fall_time and (
+                (on.r_fwd == 0 and at(on.v_fwd)) or (on.r_rev == 0 and at(on.v_rev))):
+            out.append(0)
+        off = self.switch.off_state
+        if (off.r_fwd == 0 and at(off.v_fwd)) or (off.r_rev == 0 and at(off.v_rev)):
+            out.append(1)
+        for n, k in enumerate(self.active_chains):
+            ch = self.chains[k]
+            if any(at(x + self.Vs * ch.reference) for x in ch.thresholds()):
+                out.append(2 + n)
+        return out
+
+    # ---------------------------------------------------------------- equations
+    def rhs(self, t: float, y: np.ndarray) -> np.ndarray:
+        v = self.node_voltage(t, y)
+        ich, ioff, ichains = self.split_currents(t, v, y)
+        i = y[0]
+        d = np.zeros_like(y)
+        d[0] = (self.Vs - v - self.R * i) / self.L
+        inet = i - ich - ioff - sum(ichains)
+        dv = inet / self.C_node if self.capacitive and self.pin is None else 0.0
+        if self.capacitive:
+            d[1] = dv
+        i_supply = i - self.C_plus * dv
+        for n, k in enumerate(self.active_chains):
+            ch = self.chains[k]
+            if ch.reference:
+                i_supply -= ichains[n]
+            if k in self.icap:
+                d[self.icap[k]] = ichains[n] / ch.capacitance
+        e = self.ie
+        d[e] = self.R * i * i
+        d[e + 1] = self.Vs * i_supply
+        d[e + 2] = v * ich
+        d[e + 3] = v * max(ioff, 0.0)
+        d[e + 4] = v * min(ioff, 0.0)
+        pos = {k: n for n, k in enumerate(self.active_chains)}
+        for m, (k, j) in enumerate(self.energy_slots):
+            ic = ichains[pos[k]]
+            if ic != 0.0:
+                d[e + N_ENERGY_FIXED + m] = float(self.chains[k].laws[j].voltage(ic)) * ic
+        return d
+
+    def capacitor_energy(self, v, y) -> float:
+        """Energy [J] in every capacitor at node voltage v and state y."""
+        w = 0.5 * self.C_gnd * v * v + 0.5 * self.C_plus * (self.Vs - v) ** 2
+        for k in self.cap_chains:
+            w = w + 0.5 * self.chains[k].capacitance * y[self.icap[k]] ** 2
+        return w
+
+    def final_capacitor_voltages(self) -> tuple[float, dict[int, float]]:
+        """Node and snubber-capacitor voltages [V] once everything has settled (switch off)."""
+        vcaps = {}
+        for k in self.cap_chains:
+            ch = self.chains[k]
+            vcaps[k] = self.Vs - self.Vs * ch.reference
+        return self.Vs, vcaps
+
+
+def _cap_only(clamp) -> bool:
+    return all(el.type == "capacitor" for el in clamp.elements)
+
+
+def _check_chain(case: Case, ch: Chain) -> None:
+    if ch.capacitance is None or ch.capacitor_only:
+        return
+    p = ch.pieces
+    if p is not None and (p.r_fwd <= 0 or (math.isfinite(p.v_rev) and p.r_rev <= 0)):
+        raise CaseError("a capacitor in series with elements of zero resistance has no defined current "
+                        "(expected a resistor or a series_resistance in this chain)",
+                        source=case.source, key=ch.clamp.path or ch.name)
+
+
+def _solve_monotone(resid, thresholds, scale: float) -> float:
+    """Root of a nondecreasing function that may jump to ±inf at known vertical points.
+
+    Returns the threshold itself when the root sits on a vertical segment.
+    """
+    cands = sorted({float(x) for x in thresholds if math.isfinite(x)})
+    lower = -math.inf
+    for t in cands:
+        d = 1e-12 * max(1.0, abs(t))
+        below, above = resid(t - d), resid(t + d)
+        if below > 0:
+            return _bracketed(resid, lower, t - d, scale)
+        if above >= 0:
+            return t
+        lower = t + d
+    return _bracketed(resid, lower, math.inf, scale)
+
+
+def _bracketed(resid, a: float, b: float, scale: float) -> float:
+    span = max(scale, 1.0)
+    if not math.isfinite(a) and not math.isfinite(b):
+        a, b = -span, span
+        ra, rb = resid(a), resid(b)
+    elif not math.isfinite(a):
+        rb = resid(b)
+        a = b - span
+        ra = resid(a)
+    elif not math.isfinite(b):
+        ra = resid(a)
+        b = a + span
+        rb = resid(b)
+    else:
+        ra, rb = resid(a), resid(b)
+    grow = span
+    for _ in range(200):
+        if ra <= 0 <= rb:
+            break
+        grow *= 2.0
+        if ra > 0:
+            b, rb = a, ra
+            a -= grow
+            ra = resid(a)
+        else:
+            a, ra = b, rb
+            b += grow
+            rb = resid(b)
+    else:
+        raise SolverError("no conducting path takes the coil current (the switch-node voltage "
+                          "would be unbounded): add a clamp, a breakdown voltage or a capacitance")
+    if ra == 0:
+        return a
+    if rb == 0:
+        return b
+    return brentq(resid, a, b, xtol=1e-14 * max(1.0, abs(a), abs(b)), rtol=4 * np.finfo(float).eps)

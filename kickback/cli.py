@@ -1,0 +1,103 @@
+"""Command line: parse options, call the library, choose output paths. No physics here."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from kickback import __version__
+
+TEMPLATES = ("relay", "valve", "motor")
+
+
+def _die(message: str) -> None:
+    click.echo(message, err=True)
+    sys.exit(2)
+
+
+def _load(path: str):
+    from kickback.caseio import load_case
+    from kickback.errors import CaseError
+
+    try:
+        return load_case(Path(path))
+    except CaseError as err:
+        _die(str(err))
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="kickback")
+def main() -> None:
+    """kickback: the turn-off transient of a transistor-switched coil and its clamp.
+
+    Peak switch-node voltage, where the coil's energy goes, decay and release times, and
+    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input.
+    """
+
+
+@main.command()
+@click.argument("case", metavar="CASE.toml")
+@click.option("--json", "as_json", is_flag=True, help="Print the result as JSON (the result contract) only.")
+@click.option("--out", "out_dir", metavar="DIR", help="Write result.json, waveforms.csv and plots into DIR.")
+@click.option("--no-plot", is_flag=True, help="With --out: skip the waveform plots.")
+@click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-6, show_default=True,
+              help="Relative tolerance of the detailed engine.")
+def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: float) -> None:
+    """Simulate one turn-off of CASE and check it against the ratings."""
+    from kickback.errors import KickbackError
+    from kickback.outputs.jsonout import to_json
+    from kickback.outputs.table import result_table
+    from kickback.simulate import simulate
+
+    c = _load(case)
+    try:
+        result = simulate(c, rtol=rtol)
+    except KickbackError as err:
+        _die(f"{c.source}: {err}")
+    payload = to_json(result.to_dict())
+    if out_dir is not None:
+        _write_outputs(result, payload, Path(out_dir), plot=not no_plot)
+    if as_json:
+        click.echo(payload, nl=False)
+    else:
+        click.echo(result_table(result), nl=False)
+    for finding in result.figures.findings:
+        click.echo(f"warning: {finding}", err=True)
+    sys.exit(0 if result.passed else 1)
+
+
+def _write_outputs(result, payload: str, out: Path, plot: bool) -> None:
+    """Build every file in memory first, then write each atomically."""
+    from kickback.outputs.csvout import waveforms_csv
+    from kickback.outputs.files import write_atomic
+
+    if out.exists() and not out.is_dir():
+        _die(f"{out}: --out must name a directory (expected a folder, found a file)")
+    files = {"result.json": payload, "waveforms.csv": waveforms_csv(result)}
+    if plot:
+        from kickback.outputs.plots import figure_bytes
+
+        fig, _ = result.plot()
+        for fmt in ("png", "svg"):
+            files[f"waveforms.{fmt}"] = figure_bytes(fig, fmt)
+        import matplotlib.pyplot as plt
+
+        plt.close(fig)
+    for name, data in files.items():
+        write_atomic(out / name, data)
+    click.echo(f"wrote {', '.join(str(out / n) for n in files)}", err=True)
+
+
+@main.command()
+@click.argument("kind", type=click.Choice(TEMPLATES))
+def new(kind: str) -> None:
+    """Print a commented starter case for a relay, a solenoid valve or a small DC motor."""
+    from importlib.resources import files
+
+    click.echo(files("kickback").joinpath("templates", f"{kind}.toml").read_text(encoding="utf-8"), nl=False)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

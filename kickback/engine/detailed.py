@@ -1,0 +1,331 @@
+"""The detailed engine: stiff implicit integration (Radau IIA, order 5) of the full circuit.
+
+The run is split at the end of the current fall (a short, finely stepped edge phase), then
+integrates the decay until the coil current first reaches zero, then — when capacitances can
+still ring — until the remaining oscillating energy is below 1e-6 of the start (0.1 % in
+amplitude), or until a time bound derived from L/R. Energies are integrated as states.
+
+References
+----------
+E. Hairer and G. Wanner, Solving Ordinary Differential Equations II, 2nd ed., Springer 1996
+(Radau IIA); scipy.integrate.solve_ivp(method="Radau").
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.integrate import solve_ivp
+
+from kickback.circuit import Circuit
+from kickback.errors import SolverError
+
+#: current below which the coil counts as "at zero", relative to the initial current
+ZERO_FRACTION = 1e-9
+#: energy still oscillating (coil plus capacitors, relative to the start) below which a run ends
+RING_END_FRACTION = 1e-3
+MAX_RHS_CALLS = 400_000
+
+
+@dataclass(frozen=True)
+class Phase:
+    name: str
+    t0: float
+    t1: float
+    sol: object  # scipy OdeSolution
+    t_steps: np.ndarray
+    pin: tuple | None = None  # node pinned at a vertical law: (voltage, branch, side)
+
+
+@dataclass
+class Waveforms:
+    """Sampled turn-off waveforms and the solver's account of the run.
+
+    Attributes
+    ----------
+    t : ndarray — [s] sample times (solver steps plus interpolated points)
+    y : ndarray — state vector at each sample, shape (n_states, n)
+    v : ndarray — [V] switch-node voltage
+    i_channel, i_offstate : ndarray — [A] switch channel and avalanche/body-diode currents
+    i_chains : list of ndarray — [A] each active clamp chain's current
+    events : dict — first times [s] of "10%", "1%", "zero" (None when not reached)
+    peak_times : list of float — [s] local maxima of v found as events
+    bound_hit : bool — the run stopped at its time bound
+    """
+
+    circuit: Circuit
+    t: np.ndarray
+    y: np.ndarray
+    v: np.ndarray
+    i_channel: np.ndarray
+    i_offstate: np.ndarray
+    i_chains: list
+    events: dict
+    peak_times: list
+    bound_hit: bool
+    phases: list = field(default_factory=list)
+    rtol: float = 1e-6
+    n_rhs: int = 0
+    engine: str = "detailed"
+
+    @property
+    def y_end(self) -> np.ndarray:
+        return self.y[:, -1]
+
+    def state(self, t: float) -> np.ndarray:
+        """Interpolated state at time t [s] (dense output of the phase holding t)."""
+        for ph in self.phases:
+            if ph.t0 <= t <= ph.t1:
+                return ph.sol(t)
+        return self.y[:, -1] if t > self.t[-1] else self.y[:, 0]
+
+
+def integrate(circuit: Circuit, *, rtol: float = 1e-6, samples_per_step: int = 3) -> Waveforms:
+    """Integrate the turn-off transient of ``circuit``.
+
+    Parameters
+    ----------
+    circuit : Circuit
+    rtol : float — relative tolerance of every state; absolute tolerances are scaled to the
+        initial current, the voltage scale and the stored energy
+    samples_per_step : int — interpolated samples added inside each solver step
+
+    Returns
+    -------
+    Waveforms
+
+    Raises
+    ------
+    SolverError — when the solver cannot finish; the message says why.
+    """
+    c = circuit
+    i0 = c.i0
+    e0 = 0.5 * c.L * i0 * i0 + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
+    atol = np.empty(c.n_states)
+    atol[0] = rtol * 1e-6 * i0
+    if c.capacitive:
+        atol[1] = rtol * 1e-3 * c.v_scale
+    for idx in c.icap.values():
+        atol[idx] = rtol * 1e-3 * c.v_scale
+    atol[c.ie:] = rtol * 1e-6 * e0
+    zero = ZERO_FRACTION * i0
+    calls = [0]
+
+    def rhs(t, y):
+        calls[0] += 1
+        if calls[0] > MAX_RHS_CALLS:
+            raise SolverError(f"the solver did not finish within {MAX_RHS_CALLS} evaluations "
+                              f"(reached t = {t:.3g} s); the case is too stiff or ill-posed")
+        return c.rhs(t, y)
+
+    # energies never feed back: only the dynamic columns of the Jacobian are non-zero
+    sparsity = np.zeros((c.n_states, c.n_states))
+    sparsity[:, : c.ie] = 1.0
+
+    def ev_frac(f):
+        def g(t, y):
+            return y[0] - f * i0
+        g.direction = -1
+        return g
+
+    ev10, ev1 = ev_frac(0.1), ev_frac(0.01)
+
+    def ev_zero(t, y):
+        return y[0] - zero
+    ev_zero.direction = -1
+    ev_zero.terminal = True
+
+    v_fin, _ = c.final_capacitor_voltages()
+    dyn_caps = [k for k in c.cap_chains if c.chains[k].band == (0.0, 0.0)]
+
+    def dyn_energy(y):
+        v = y[1] if c.capacitive else v_fin
+        w = 0.5 * c.L * y[0] ** 2 + 0.5 * c.C_node * (v - v_fin) ** 2
+        for k in dyn_caps:
+            target = c.Vs - c.Vs * c.chains[k].reference
+            w += 0.5 * c.chains[k].capacitance * (y[c.icap[k]] - target) ** 2
+        return w
+
+    def ev_rest(t, y):
+        return dyn_energy(y) - RING_END_FRACTION * e0
+    ev_rest.direction = -1
+    ev_rest.terminal = True
+
+    def ev_peak(t, y):
+        v = y[1]
+        ich, ioff, ichains = c.split_currents(t, v, y)
+        return y[0] - ich - ioff - sum(ichains)
+    ev_peak.direction = -1
+
+    tf = c.switch.fall_time
+    tau = c.L / c.R if c.R > 0 else c.L * i0 / c.Vs
+    t_bound = tf + 60.0 * tau
+    y = c.initial_state()
+    t = 0.0
+    phases: list[Phase] = []
+    ev_times = {"10%": None, "1%": None, "zero": None}
+    peaks: list[float] = []
+    bound_hit = False
+
+    def pin_events():
+        evs = []
+        if c.pin is None:
+            for p in c.pin_points:
+                def g(t, y, p=p):
+                    return y[1] - p[0]
+                g.direction = p[2]
+                g.terminal = True
+                g.pin = p
+                evs.append(g)
+        else:
+            side = c.pin[2]
+
+            def g(t, y):
+                ich, ioff, ichains = c.split_currents(t, y[1], y)
+                return side * ([ich, ioff] + list(ichains))[c.pin[1]]
+            g.direction = -1
+            g.terminal = True
+            g.pin = None
+            evs.append(g)
+        return evs
+
+    def solve(name, t_end, events, kw):
+        pe = pin_events()
+        evs = list(events) + pe + ([ev_peak] if c.capacitive and c.pin is None else [])
+        try:
+            sol = solve_ivp(rhs, (t, t_end), y, method="Radau", rtol=rtol, atol=atol, jac_sparsity=sparsity,
+                            dense_output=True, events=evs, **kw)
+        except SolverError:
+            raise
+        except (ValueError, ArithmeticError, FloatingPointError) as exc:
+            raise SolverError(f"the solver failed in the {name} phase at t ≈ {t:.3g} s: {exc}") from exc
+        if sol.status < 0:
+            raise SolverError(f"the solver failed in the {name} phase at t = {sol.t[-1]:.3g} s: {sol.message}")
+        if not np.all(np.isfinite(sol.y)):
+            raise SolverError(f"the solution became non-finite in the {name} phase")
+        return sol, evs, pe
+
+    def run(name, t_end, events, **kw):
+        """Integrate to t_end or a terminal event of ``events``, switching pin modes on the way."""
+        nonlocal y, t
+        switches = 0
+        while True:
+            sol, evs, pe = solve(name, t_end, events, kw)
+            fired_pin = None
+            for ev, times in zip(evs, sol.t_events, strict=True):
+                if not len(times):
+                    continue
+                if ev is ev10 and ev_times["10%"] is None:
+                    ev_times["10%"] = float(times[0])
+                elif ev is ev1 and ev_times["1%"] is None:
+                    ev_times["1%"] = float(times[0])
+                elif ev is ev_zero and ev_times["zero"] is None:
+                    ev_times["zero"] = float(times[0])
+                elif ev is ev_peak:
+                    peaks.extend(float(x) for x in times)
+                elif ev in pe:
+                    fired_pin = ev
+            phases.append(Phase(name, t, float(sol.t[-1]), sol.sol, sol.t, c.pin))
+            t = float(sol.t[-1])
+            y = sol.y[:, -1].copy()
+            if sol.status == 1 and fired_pin is not None:
+                if c.pin is None:
+                    peaks.append(t)
+                old = c.pin
+                c.pin = fired_pin.pin
+                y[1] = (c.pin or old)[0]
+                switches += 1
+                if switches > 10_000:
+                    raise SolverError(f"the node voltage chatters at a clamp threshold near t = {t:.3g} s")
+                kw.pop("first_step", None)
+                if t < t_end:
+                    continue
+            return sol
+
+    c.pin = None
+    if tf > 0:
+        run("edge", tf, [ev10, ev1, ev_zero], first_step=tf / 1000, max_step=tf / 20)
+    if ev_times["zero"] is None:
+        first = tf / 1000 if tf > 0 else min(tau, c.L * i0 / c.v_scale) * 1e-6
+        run("decay", t_bound, [ev10, ev1, ev_zero], first_step=first)
+        bound_hit = ev_times["zero"] is None
+    rings = c.capacitive or bool(dyn_caps)
+    if not bound_hit and rings and dyn_energy(y) > RING_END_FRACTION * e0 and t < t_bound:
+        run("ring", t_bound, [ev10, ev1, ev_rest])
+        bound_hit = not (dyn_energy(y) <= RING_END_FRACTION * e0 * 1.0001)
+    c.pin = None
+    return _sample(c, phases, ev_times, peaks, bound_hit, rtol, calls[0], samples_per_step)
+
+
+def _sample(c: Circuit, phases, ev_times, peaks, bound_hit, rtol, n_rhs, per_step) -> Waveforms:
+    ts = []
+    for ph in phases:
+        steps = np.asarray(ph.t_steps)
+        ts.append(steps)
+        if per_step > 0 and len(steps) > 1:
+            frac = np.arange(1, per_step + 1) / (per_step + 1)
+            ts.append((steps[:-1, None] + np.diff(steps)[:, None] * frac[None, :]).ravel())
+    extra = [x for x in [*ev_times.values(), *peaks] if x is not None]
+    t = np.unique(np.concatenate(ts + [np.asarray(extra, dtype=float)]))
+    y = np.empty((c.n_states, t.size))
+    pins = np.zeros(t.size, dtype=int)
+    for n, ph in enumerate(phases):
+        m = (t >= ph.t0) & (t <= ph.t1)
+        y[:, m] = ph.sol(t[m])
+        pins[m] = n
+    parts = [derived_with_pin(c, ph.pin, t[pins == n], y[:, pins == n]) for n, ph in enumerate(phases)]
+    v = np.concatenate([p[0] for p in parts])
+    ich = np.concatenate([p[1] for p in parts])
+    ioff = np.concatenate([p[2] for p in parts])
+    chains = [np.concatenate([p[3][k] for p in parts]) for k in range(len(c.active_chains))]
+    return Waveforms(c, t, y, v, ich, ioff, chains, ev_times, peaks, bound_hit, phases, rtol, n_rhs)
+
+
+def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray):
+    """:func:`derived` with the circuit's pin mode set as it was when ``t`` was integrated."""
+    c.pin = pin
+    try:
+        out = derived(c, t, y)
+        if pin is not None:
+            rest = y[0] - out[1] - out[2] - sum(out[3])
+            branches = [out[1], out[2], *out[3]]
+            branches[pin[1]] = branches[pin[1]] + rest
+            out = (out[0], branches[0], branches[1], branches[2:])
+        return out
+    finally:
+        c.pin = None
+
+
+def derived(c: Circuit, t: np.ndarray, y: np.ndarray):
+    """Node voltage and branch currents [V, A] at sample times ``t`` with states ``y``."""
+    n = t.size
+    if c.capacitive:
+        v = y[1].copy()
+        ich, ioff, chains = c.branch_currents(t, v, _StateView(y, c))
+        return v, np.broadcast_to(ich, (n,)).astype(float), np.broadcast_to(ioff, (n,)).astype(float), \
+            [np.broadcast_to(x, (n,)).astype(float) for x in chains]
+    v = np.empty(n)
+    ich = np.empty(n)
+    ioff = np.empty(n)
+    chains = [np.empty(n) for _ in c.active_chains]
+    for k in range(n):
+        yk = y[:, k]
+        v[k] = c.node_voltage(float(t[k]), yk)
+        a, b, cs = c.split_currents(float(t[k]), v[k], yk)
+        ich[k], ioff[k] = a, b
+        for j, x in enumerate(cs):
+            chains[j][k] = x
+    return v, ich, ioff, chains
+
+
+class _StateView:
+    """Index a (n_states, n) array like a state vector, giving rows."""
+
+    def __init__(self, y, c):
+        self.y = y
+
+    def __getitem__(self, k):
+        return self.y[k]
+
+

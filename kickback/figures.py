@@ -1,0 +1,203 @@
+"""From :class:`~kickback.engine.Waveforms` to the reported figures (DESIGN.md §6)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from kickback.engine.detailed import ZERO_FRACTION, Waveforms
+
+#: a chain counts as conducting above this fraction of the initial coil current
+CONDUCTION_FRACTION = 1e-6
+#: a clamp conducting more than this fraction of the coil current in the on-state is reported
+ON_STATE_FRACTION = 1e-4
+
+
+@dataclass(frozen=True)
+class ElementFigures:
+    type: str
+    name: str
+    description: str
+    energy_J: float
+    peak_voltage_V: float
+    peak_current_A: float
+    standoff_voltage_V: float
+    peak_power_W: float
+    pulse_width_s: float | None
+
+
+@dataclass(frozen=True)
+class ClampFigures:
+    name: str
+    across: str
+    energy_J: float
+    peak_current_A: float
+    conduction_s: float
+    on_state_current_A: float
+    elements: tuple[ElementFigures, ...]
+
+
+@dataclass(frozen=True)
+class Figures:
+    """Every reported figure of one turn-off, SI units; a time that does not occur is None."""
+
+    initial_current_A: float
+    stored_energy_J: float
+    initial_capacitor_energy_J: float
+    resistance_energy_J: float
+    to_10_percent_s: float | None
+    to_1_percent_s: float | None
+    to_zero_s: float | None
+    release_s: float | None
+    peak_voltage_V: float
+    peak_time_s: float
+    crossover_energy_J: float
+    avalanche_energy_J: float
+    body_diode_energy_J: float
+    supply_energy_J: float
+    clamps: tuple[ClampFigures, ...]
+    left_in_capacitors_J: float
+    left_in_coil_J: float
+    energy_balance_error: float
+    end_time_s: float
+    bound_hit: bool
+    findings: tuple[str, ...]
+    models: tuple[str, ...]
+
+
+def first_crossing_below(t: np.ndarray, x: np.ndarray, level: float) -> float | None:
+    """Last time [s] at which ``x`` falls below ``level`` and stays there (linear interpolation)."""
+    above = np.nonzero(np.abs(x) >= level)[0]
+    if above.size == 0:
+        return None
+    k = int(above[-1])
+    if k == x.size - 1:
+        return None
+    x0, x1 = abs(x[k]), abs(x[k + 1])
+    return float(t[k] + (t[k + 1] - t[k]) * (x0 - level) / (x0 - x1)) if x0 != x1 else float(t[k])
+
+
+def _duration_above(t: np.ndarray, x: np.ndarray, level: float) -> float:
+    on = np.abs(x) > level
+    if not on.any():
+        return 0.0
+    dt = np.diff(t)
+    both = on[:-1] & on[1:]
+    return float(np.sum(dt[both]) + 0.5 * np.sum(dt[on[:-1] ^ on[1:]]))
+
+
+def chain_signals(w: Waveforms, k: int):
+    """Current [A], chain voltage [V] and element voltages [V] of clamp chain ``k`` over time.
+
+    A lone capacitor (merged into the node capacitance by the circuit) carries C·dv/dt.
+    """
+    c = w.circuit
+    ch = c.chains[k]
+    vchain = w.v - c.Vs * ch.reference
+    if k in c.active_chains:
+        ic = w.i_chains[c.active_chains.index(k)]
+        vcap = w.y[c.icap[k]] if k in c.icap else 0.0
+    else:
+        dvdt = np.gradient(w.v, w.t) if w.t.size > 2 else np.zeros_like(w.v)
+        ic = sum(el.capacitance for el in ch.clamp.elements) * dvdt
+        vcap = vchain
+    return np.asarray(ic, dtype=float), vchain, ch.element_voltages(ic, vchain, vcap)
+
+
+def compute_figures(w: Waveforms) -> Figures:
+    """Figures of one turn-off from its waveforms.
+
+    Parameters
+    ----------
+    w : Waveforms
+
+    Returns
+    -------
+    Figures
+    """
+    c = w.circuit
+    case = c.case
+    i0 = c.i0
+    y0 = c.initial_state()
+    e = w.y_end[c.ie:]
+    stored = 0.5 * c.L * i0 * i0
+    cap0 = float(c.capacitor_energy(c.on.node_voltage, y0))
+    v_end = float(w.v[-1])
+    cap_end = float(c.capacitor_energy(v_end, w.y_end))
+    coil_end = 0.5 * c.L * float(w.y_end[0]) ** 2
+    e_r, e_sup, e_ch, e_av, e_bd = (float(x) for x in e[:5])
+    e_el = [float(x) for x in e[5:]]
+    total_in = stored + cap0 + max(e_sup, 0.0)
+    out = e_r + e_ch + e_av + e_bd + sum(e_el) + cap_end + coil_end
+    balance = (stored + cap0 + e_sup - out) / total_in
+
+    k_pk = int(np.argmax(w.v))
+    peak_v = float(w.v[k_pk])
+    peak_t = float(w.t[k_pk])
+
+    clamps = []
+    findings = []
+    slot = {kj: m for m, kj in enumerate(c.energy_slots)}
+    for k, ch in enumerate(c.chains):
+        ic, _, ev = chain_signals(w, k)
+        els = []
+        for j, el in enumerate(ch.clamp.elements):
+            law = ch.laws[j]
+            vj = ev[j]
+            p = vj * ic
+            energy = e_el[slot[(k, j)]] if (k, j) in slot else 0.0
+            blocking = np.abs(ic) <= CONDUCTION_FRACTION * i0
+            if el.type == "diode":
+                held = np.where(blocking, -vj, 0.0)
+                on_blocks = abs(c.on.chain_currents[k]) <= CONDUCTION_FRACTION * i0
+                on_hold = max(0.0, -(c.on.chain_voltages[k])) if on_blocks else 0.0
+            else:
+                held = np.where(blocking, np.abs(vj), 0.0)
+                on_hold = 0.0
+            standoff = max(float(np.max(held, initial=0.0)), on_hold)
+            pk_p = float(np.max(p, initial=0.0))
+            width = energy / pk_p if pk_p > 0 and energy > 0 else None
+            els.append(ElementFigures(el.type, el.name or f"{el.type} {j + 1}",
+                                      law.description if law is not None else
+                                      f"capacitor ({el.capacitance:.4g} F)",
+                                      energy, float(np.max(np.abs(vj), initial=0.0)),
+                                      float(np.max(np.abs(ic), initial=0.0)), standoff, pk_p, width))
+        on_i = float(c.on.chain_currents[k]) if k < len(c.on.chain_currents) else 0.0
+        if abs(on_i) > ON_STATE_FRACTION * i0:
+            findings.append(f"clamp '{ch.name}' conducts {abs(on_i):.3g} A while the switch is on "
+                            f"({abs(on_i * c.on.chain_voltages[k]):.3g} W in the clamp, extra switch current)")
+        clamps.append(ClampFigures(ch.name, ch.clamp.across, sum(x.energy_J for x in els),
+                                   float(np.max(np.abs(ic), initial=0.0)),
+                                   _duration_above(w.t, ic, CONDUCTION_FRACTION * i0), on_i, tuple(els)))
+
+    i = w.y[0]
+    rel = case.coil.release_current
+    release = None
+    if rel is not None:
+        if i0 < rel:
+            findings.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
+                            "the armature may never pull in")
+        else:
+            t_rel = first_crossing_below(w.t, i, rel)
+            release = None if t_rel is None else t_rel + case.coil.release_delay
+    if w.bound_hit:
+        findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")
+    if e_av > 1e-9 * stored:
+        findings.append(f"the switch avalanches: {e_av:.3g} J at up to {peak_v:.4g} V")
+    models = [c.switch.description] + [law.description for ch in c.chains for law in ch.laws if law is not None]
+    if c.r_min > 0 and any(p for p in c.pin_points):
+        models.append("ideal (zero-resistance) laws hold the node exactly at their voltage")
+    models.append(f"detailed engine: Radau IIA, rtol {w.rtol:g}; current 'at zero' below "
+                  f"{ZERO_FRACTION:g} × initial")
+    if not math.isfinite(balance):
+        raise ArithmeticError("energy balance is not finite")
+    return Figures(
+        initial_current_A=i0, stored_energy_J=stored, initial_capacitor_energy_J=cap0,
+        resistance_energy_J=e_r, to_10_percent_s=w.events["10%"], to_1_percent_s=w.events["1%"],
+        to_zero_s=w.events["zero"], release_s=release, peak_voltage_V=peak_v, peak_time_s=peak_t,
+        crossover_energy_J=e_ch, avalanche_energy_J=e_av, body_diode_energy_J=e_bd,
+        supply_energy_J=e_sup, clamps=tuple(clamps), left_in_capacitors_J=cap_end,
+        left_in_coil_J=coil_end, energy_balance_error=float(balance), end_time_s=float(w.t[-1]),
+        bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models))

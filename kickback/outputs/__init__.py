@@ -1,0 +1,1 @@
+"""Outputs: text tables, JSON, CSV, figures; files are written atomically."""

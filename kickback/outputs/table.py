@@ -1,0 +1,100 @@
+"""The readable text table of one result (stdout of ``kickback run``)."""
+
+from __future__ import annotations
+
+from kickback.units import format_quantity as q
+
+CAUTIONS = (
+    "Cautions: switch-node voltages can be many times the supply voltage. These figures are an "
+    "engineering estimate from device models; confirm them on hardware with suitable probes "
+    "(differential or high-voltage, rated for the node). Mains-connected and safety-related "
+    "equipment follows local codes and licensed practice."
+)
+
+
+def _pct(x: float | None) -> str:
+    return "—" if x is None else f"{100 * x:+.1f} %"
+
+
+def _grid(rows: list[list[str]], indent: str = "  ") -> list[str]:
+    widths = [max(len(r[k]) for r in rows) for k in range(len(rows[0]))]
+    out = []
+    for r in rows:
+        cells = [r[0].ljust(widths[0])] + [c.rjust(w) for c, w in zip(r[1:], widths[1:], strict=True)]
+        out.append(indent + "  ".join(cells).rstrip())
+    return out
+
+
+def check_rows(checks) -> list[list[str]]:
+    rows = [["part", "quantity", "value", "limit", "margin", "verdict"]]
+    for ck in checks:
+        rows.append([ck.part, ck.quantity, q(ck.value, ck.unit), q(ck.limit, ck.unit), _pct(ck.margin),
+                     "pass" if ck.passed else "FAIL"])
+    return rows
+
+
+def result_table(result) -> str:
+    """Plain-text report of a result: on-state, peak, decay, energy ledger, clamps, checks."""
+    f = result.figures
+    c = result.waveforms.circuit
+    lines = [f"{result.case.title}", ""]
+    lines += _grid([
+        ["on-state", "coil current", q(f.initial_current_A, "A"), "switch node", q(c.on.node_voltage, "V")],
+        ["", "stored in coil", q(f.stored_energy_J, "J"), "supply", q(c.Vs, "V")],
+        ["switch node", "peak", q(f.peak_voltage_V, "V"), "at", q(f.peak_time_s, "s")],
+        ["decay", "to 10 %", q(f.to_10_percent_s, "s"), "to 1 %", q(f.to_1_percent_s, "s")],
+        ["", "to zero", q(f.to_zero_s, "s"), "release", q(f.release_s, "s")],
+    ])
+    lines += ["", "energy ledger"]
+    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
+
+    def row(label, x):
+        return [label, q(x, "J"), f"{100 * x / total:.1f} %"]
+
+    ledger = [["", "energy", "share"],
+              ["in: stored in coil", q(f.stored_energy_J, "J"), ""],
+              ["in: stored in capacitors", q(f.initial_capacitor_energy_J, "J"), ""],
+              ["in: from supply", q(f.supply_energy_J, "J"), ""],
+              row("out: coil resistance", f.resistance_energy_J),
+              row("out: switch turn-off crossover", f.crossover_energy_J),
+              row("out: switch avalanche", f.avalanche_energy_J)]
+    if f.body_diode_energy_J:
+        ledger.append(row("out: switch body diode", f.body_diode_energy_J))
+    for cl in f.clamps:
+        ledger += [row(f"out: {cl.name} / {el.name}", el.energy_J) for el in cl.elements if el.type != "capacitor"]
+    ledger.append(row("left in capacitors", f.left_in_capacitors_J))
+    if f.left_in_coil_J > 1e-6 * total:
+        ledger.append(row("left in coil", f.left_in_coil_J))
+    ledger.append(["balance residual", f"{f.energy_balance_error:.1e}", ""])
+    lines += _grid(ledger)
+    if f.clamps:
+        lines += ["", "clamps"]
+        rows = [["name", "across", "energy", "peak current", "conduction", "on-state current"]]
+        for cl in f.clamps:
+            rows.append([cl.name, cl.across, q(cl.energy_J, "J"), q(cl.peak_current_A, "A"), q(cl.conduction_s, "s"),
+                         q(cl.on_state_current_A, "A")])
+            for el in cl.elements:
+                rows.append([f"  {el.name}", el.type, q(el.energy_J, "J"), q(el.peak_current_A, "A"),
+                             f"peak {q(el.peak_voltage_V, 'V')}", f"stand-off {q(el.standoff_voltage_V, 'V')}"])
+        lines += _grid(rows)
+    else:
+        lines += ["", "clamps: none"]
+    lines += ["", "checks"]
+    if result.checks:
+        lines += _grid(check_rows(result.checks))
+    else:
+        lines.append("  no ratings given: nothing to check")
+    n_fail = sum(not ck.passed for ck in result.checks)
+    verdict = "PASS" if result.passed else f"FAIL ({n_fail} of {len(result.checks)} checks fail)"
+    lines += ["", f"verdict: {verdict}"]
+    if f.findings:
+        lines += ["", "findings"] + [f"  - {x}" for x in f.findings]
+    lines += ["", "models"] + [f"  - {x}" for x in f.models]
+    lines += ["", _wrap(CAUTIONS)]
+    return "\n".join(lines) + "\n"
+
+
+def _wrap(text: str, width: int = 100) -> str:
+    import textwrap
+
+    return "\n".join(textwrap.wrap(text, width))

@@ -1,0 +1,108 @@
+"""Checks of the figures against the parts' ratings, with derating, and the verdict."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from kickback.case import Case
+from kickback.figures import Figures
+
+
+@dataclass(frozen=True)
+class Check:
+    """One rating check.
+
+    Attributes
+    ----------
+    part : str — which part ("switch", "clamp 'D1' diode 1", "case")
+    quantity : str — what is checked, with its unit in words
+    value : float or None — the figure [SI]; None when it does not occur
+    limit : float or None — the allowed value after derating [SI]; None: no rating (fails)
+    margin : float or None — (limit − value)/limit; negative when failing
+    passed : bool
+    unit : str — SI unit symbol of value and limit
+    note : str — how the limit was formed
+    """
+
+    part: str
+    quantity: str
+    value: float | None
+    limit: float | None
+    margin: float | None
+    passed: bool
+    unit: str
+    note: str = ""
+
+    def to_dict(self) -> dict:
+        return {"part": self.part, "quantity": self.quantity, "value": self.value, "limit": self.limit,
+                "margin": self.margin, "pass": self.passed}
+
+
+def _check(part, quantity, value, rating, fraction, unit, note="") -> Check:
+    limit = rating * fraction
+    margin = (limit - value) / limit if limit > 0 else None
+    return Check(part, quantity, float(value), float(limit), margin, bool(value <= limit), unit, note)
+
+
+def rating_checks(case: Case, fig: Figures) -> list[Check]:
+    """Every applicable check, one row each.
+
+    Voltage and current ratings are multiplied by ``checks.derating``, energy and power
+    ratings by ``checks.energy_derating`` (default: the same fraction). Derating to 80 % is
+    common practice, no source.
+    """
+    ck = case.checks
+    dv, de = ck.derating, ck.energy_fraction
+    vnote = f"rating × {dv:g}"
+    enote = f"rating × {de:g}"
+    out: list[Check] = []
+    s = case.switch
+    if s.rated_voltage is not None:
+        out.append(_check("switch", "peak voltage", fig.peak_voltage_V, s.rated_voltage, dv, "V", vnote))
+    if fig.avalanche_energy_J > 1e-9 * fig.stored_energy_J:
+        if s.rated_avalanche_energy is None:
+            out.append(Check("switch", "avalanche energy", fig.avalanche_energy_J, None, None, False, "J",
+                             "the switch avalanches but has no avalanche rating"))
+        else:
+            out.append(_check("switch", "avalanche energy", fig.avalanche_energy_J,
+                              s.rated_avalanche_energy, de, "J", enote))
+    for cl, cf in zip(case.clamps, fig.clamps, strict=True):
+        for el, ef in zip(cl.elements, cf.elements, strict=True):
+            part = f"{cl.name}: {ef.name}"
+            if el.type == "diode":
+                if el.rated_reverse_voltage is not None:
+                    out.append(_check(part, "reverse voltage", ef.standoff_voltage_V,
+                                      el.rated_reverse_voltage, dv, "V", vnote))
+                if el.rated_surge_current is not None:
+                    out.append(_check(part, "peak current", ef.peak_current_A, el.rated_surge_current, dv,
+                                      "A", vnote))
+            elif el.type in ("zener", "tvs"):
+                if el.rated_pulse_energy is not None:
+                    out.append(_check(part, "pulse energy", ef.energy_J, el.rated_pulse_energy, de, "J", enote))
+                if el.rated_peak_power is not None:
+                    w = "" if el.rated_pulse_width is None else f" (rated at {el.rated_pulse_width:.3g} s pulses)"
+                    out.append(_check(part, "peak power", ef.peak_power_W, el.rated_peak_power, de, "W",
+                                      enote + w))
+            elif el.type in ("resistor", "varistor"):
+                if el.rated_energy is not None:
+                    out.append(_check(part, "pulse energy", ef.energy_J, el.rated_energy, de, "J", enote))
+            elif el.type == "capacitor" and el.rated_voltage is not None:
+                out.append(_check(part, "peak voltage", ef.peak_voltage_V, el.rated_voltage, dv, "V", vnote))
+        if ck.max_clamp_energy is not None:
+            out.append(_check(cl.name, "clamp energy", cf.energy_J, ck.max_clamp_energy, 1.0, "J", "case limit"))
+    if ck.max_peak_voltage is not None:
+        out.append(_check("case", "peak switch voltage", fig.peak_voltage_V, ck.max_peak_voltage, 1.0, "V",
+                          "case limit"))
+    if ck.max_release_time is not None:
+        if fig.release_s is None:
+            out.append(Check("case", "release time", None, ck.max_release_time, None, False, "s",
+                             "no release time (no release_current, or the current never fell below it)"))
+        else:
+            out.append(_check("case", "release time", fig.release_s, ck.max_release_time, 1.0, "s", "case limit"))
+    if ck.max_decay_time is not None:
+        if fig.to_zero_s is None:
+            out.append(Check("case", "decay to zero", None, ck.max_decay_time, None, False, "s",
+                             "the current did not reach zero in the run"))
+        else:
+            out.append(_check("case", "decay to zero", fig.to_zero_s, ck.max_decay_time, 1.0, "s", "case limit"))
+    return out
