@@ -7,11 +7,11 @@ __version__ = "0.1.0"
 __all__ = ["__version__", "load_case", "simulate"]
 
 
-def load_case(path_or_text):
+def load_case(path_or_text, **options):
     """Load a case from a TOML file path or from TOML text; see :func:`kickback.caseio.load_case`."""
     from kickback.caseio import load_case as _load
 
-    return _load(path_or_text)
+    return _load(path_or_text, **options)
 
 
 def simulate(case, **options):

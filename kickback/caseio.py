@@ -1,0 +1,401 @@
+"""Load a case file (TOML) and validate it into a :class:`kickback.case.Case`.
+
+Every problem is a :class:`kickback.errors.CaseError` whose text reads
+``FILE:LINE: key.path: what is wrong (expected …)``. Lines come from
+:class:`kickback.tomlpos.LineLocator`; a missing key points at its table header (line 1 if the
+table itself is missing). Quantities are read by :func:`kickback.units.parse_quantity`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import os
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from kickback.case import (
+    ACROSS,
+    ELEMENT_TYPES,
+    SWITCH_TYPES,
+    Case,
+    Checks,
+    Clamp,
+    Coil,
+    Element,
+    Supply,
+    Switch,
+)
+from kickback.errors import CaseError
+from kickback.tomlpos import KeyPath, LineLocator, format_path
+from kickback.units import UnitError, example, format_quantity, parse_quantity
+
+__all__ = ["load_case"]
+
+# Boltzmann constant and elementary charge, exact in the SI since 2019 (BIPM SI brochure, 9th ed.)
+_K_B = 1.380649e-23  # [J/K]
+_Q_E = 1.602176634e-19  # [C]
+_T_DEFAULT = 298.15  # [K] 25 degC
+
+_CONDITIONS = {
+    ">0": (lambda v: v > 0, "> 0"),
+    ">=0": (lambda v: v >= 0, ">= 0"),
+    ">1": (lambda v: v > 1, "> 1"),
+    "(0,1]": (lambda v: 0 < v <= 1, "in (0, 1]"),
+    "[0.5,10]": (lambda v: 0.5 <= v <= 10, "in [0.5, 10]"),
+    "": (lambda v: True, ""),
+}
+
+
+@dataclass(frozen=True)
+class _Field:
+    """What one key holds: kind q(uantity) n(umber) s(tring) b(ool) c(hoice) t(ables)."""
+
+    kind: str
+    unit: str = ""
+    cond: str = ""
+    required: bool = False
+    choices: tuple[str, ...] = ()
+
+    def expected(self) -> str:
+        cond = _CONDITIONS[self.cond][1]
+        if self.kind == "q":
+            return f"a value in {self.unit}{' ' + cond if cond else ''}, e.g. '{example(self.unit)}'"
+        if self.kind == "n":
+            return f"a plain number{' ' + cond if cond else ''}"
+        if self.kind == "c":
+            return "one of: " + ", ".join(self.choices)
+        return {"s": "a string in quotes", "b": "true or false", "t": "an array of tables"}[self.kind]
+
+
+def _q(unit: str, cond: str = ">0", required: bool = False) -> _Field:
+    return _Field("q", unit, cond, required)
+
+
+_STRING, _BOOL = _Field("s"), _Field("b")
+
+_SUPPLY = {"voltage": _q("V", required=True)}
+_COIL = {"inductance": _q("H", required=True), "resistance": _q("Ω", ">=0", True),
+         "capacitance": _q("F", ">=0"), "release_current": _q("A"), "release_delay": _q("s", ">=0"),
+         "initial_current": _q("A")}
+_SWITCH = {"type": _Field("c", required=True, choices=SWITCH_TYPES), "on_resistance": _q("Ω"),
+           "saturation_voltage": _q("V", ">=0"), "fall_time": _q("s", ">=0"), "capacitance": _q("F", ">=0"),
+           "breakdown_voltage": _q("V"), "avalanche_resistance": _q("Ω", ">=0"),
+           "body_diode_voltage": _q("V"), "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J")}
+_SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_diode_voltage": "mosfet"}
+_CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
+          "element": _Field("t", required=True)}
+_CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
+           "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
+           "max_clamp_energy": _q("J")}
+_TOP = ("title", "supply", "coil", "switch", "clamp", "checks")
+
+_COMMON = {"type": _Field("c", required=True, choices=ELEMENT_TYPES), "name": _STRING}
+_BREAKDOWN = {"voltage": _q("V", required=True), "dynamic_resistance": _q("Ω", ">=0"),
+              "forward_voltage": _q("V"), "rated_pulse_energy": _q("J"), "rated_peak_power": _q("W"),
+              "rated_pulse_width": _q("s")}
+_ELEMENTS: dict[str, dict[str, _Field]] = {
+    "diode": {"model": _Field("c", choices=("shockley", "constant-drop")), "forward_voltage": _q("V"),
+              "at_current": _q("A"), "ideality": _Field("n", cond="[0.5,10]"),
+              "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"), "temperature": _q("K"),
+              "rated_reverse_voltage": _q("V"), "rated_surge_current": _q("A")},
+    "zener": _BREAKDOWN,
+    "tvs": {**_BREAKDOWN, "bidirectional": _BOOL},
+    "resistor": {"resistance": _q("Ω", required=True), "rated_energy": _q("J")},
+    "capacitor": {"capacitance": _q("F", required=True), "rated_voltage": _q("V")},
+    "varistor": {"voltage": _q("V", required=True), "at_current": _q("A"),
+                 "exponent": _Field("n", cond=">1", required=True), "rated_energy": _q("J")},
+}
+_ELEMENTS = {t: {**_COMMON, **spec} for t, spec in _ELEMENTS.items()}
+_ANY_ELEMENT_KEY = {k for spec in _ELEMENTS.values() for k in spec}
+_SYNTAX_RE = re.compile(r"(?P<msg>.*?) \(at (?:line (?P<line>\d+), column (?P<col>\d+)|end of document)\)")
+
+
+def _kind_of(value: Any) -> str:
+    """TOML name of a value's type, for messages."""
+    for kind, name in ((bool, "a boolean"), (int, "an integer"), (float, "a float"), (str, "a string"),
+                       (dict, "a table"), (list, "an array")):
+        if isinstance(value, kind):
+            return name
+    return "a date/time"
+
+
+class _Context:
+    """File name and line locator, to build located errors."""
+
+    def __init__(self, source: str, text: str):
+        self.source = source
+        self.where = LineLocator(text)
+
+    def error(self, path: KeyPath, message: str) -> CaseError:
+        line = self.where.line_of(path) or 1
+        return CaseError(message, source=self.source, line=line, key=format_path(path))
+
+    def missing(self, path: KeyPath, expected: str, what: str = "key") -> CaseError:
+        return self.error(path, f"missing required {what} (expected {expected})")
+
+
+def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
+    """Check and convert one value according to its field."""
+    def wrong() -> CaseError:
+        return ctx.error(path, f"got {_kind_of(raw)} (expected {field.expected()})")
+
+    if field.kind == "q":
+        if isinstance(raw, bool) or not isinstance(raw, int | float | str):
+            raise wrong()
+        try:
+            value = parse_quantity(raw, field.unit)
+        except UnitError as err:
+            raise ctx.error(path, err.message) from None
+        shown = format_quantity(value, field.unit)
+    elif field.kind == "n":
+        if isinstance(raw, bool) or not isinstance(raw, int | float):
+            raise wrong()
+        if not math.isfinite(raw):
+            raise ctx.error(path, f"{raw} is not a finite number (expected {field.expected()})")
+        value, shown = float(raw), f"{raw}"
+    elif field.kind == "c":
+        if not isinstance(raw, str):
+            raise wrong()
+        if raw not in field.choices:
+            raise ctx.error(path, f"{raw!r} is not allowed (expected {field.expected()})")
+        return raw
+    elif field.kind == "t":
+        if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
+            raise wrong()
+        if not raw:
+            raise ctx.error(path, "empty array (expected at least one [[clamp.element]] table)")
+        return raw
+    else:
+        if not isinstance(raw, bool if field.kind == "b" else str):
+            raise wrong()
+        return raw
+    check, text = _CONDITIONS[field.cond]
+    if not check(value):
+        raise ctx.error(path, f"must be {text}, got {shown} (expected {field.expected()})")
+    return value
+
+
+def _unknown(ctx: _Context, path: KeyPath, allowed: dict[str, _Field], what: str) -> CaseError:
+    key = str(path[-1])
+    close = difflib.get_close_matches(key, list(allowed), n=1)
+    hint = f"; did you mean '{close[0]}'?" if close else ""
+    return ctx.error(path, f"unknown key in {what}{hint} (allowed keys: {', '.join(allowed)})")
+
+
+def _table(ctx: _Context, path: KeyPath, raw: Any, spec: dict[str, _Field], what: str) -> dict[str, Any]:
+    """Check a table against ``spec``; return the converted values of the keys present."""
+    if not isinstance(raw, dict):
+        raise ctx.error(path, f"got {_kind_of(raw)} (expected a table {what})")
+    out: dict[str, Any] = {}
+    for key, value in raw.items():
+        if key not in spec:
+            raise _unknown(ctx, path + (key,), spec, what)
+        out[key] = _value(ctx, path + (key,), spec[key], value)
+    for key, field in spec.items():
+        if field.required and key not in raw:
+            raise ctx.missing(path + (key,), field.expected())
+    return out
+
+
+def _switch(ctx: _Context, raw: Any, supply_voltage: float) -> Switch:
+    path: KeyPath = ("switch",)
+    v = _table(ctx, path, raw, _SWITCH, "[switch]")
+    kind = v["type"]
+    for key, owner in _SWITCH_ONLY.items():
+        if key in v and kind != owner:
+            raise ctx.error(path + (key,), f"applies to a {owner} switch, not to type '{kind}' "
+                                           f"(expected no {key} for type '{kind}')")
+    for key, owner in (("on_resistance", "mosfet"), ("saturation_voltage", "bjt")):
+        if kind == owner and key not in v:
+            raise ctx.missing(path + (key,), f"{_SWITCH[key].expected()}, for type '{owner}'")
+    vs = format_quantity(supply_voltage, "V")
+    if kind == "bjt" and v["saturation_voltage"] >= supply_voltage:
+        raise ctx.error(path + ("saturation_voltage",), f"must be below the supply voltage {vs}, got "
+                        f"{format_quantity(v['saturation_voltage'], 'V')} (expected e.g. '0.2 V')")
+    breakdown = v.get("breakdown_voltage")
+    if breakdown is not None and breakdown <= supply_voltage:
+        raise ctx.error(path + ("breakdown_voltage",), f"must exceed the supply voltage {vs}, got "
+                        f"{format_quantity(breakdown, 'V')} (expected a value in V above {vs})")
+    if "avalanche_resistance" in v and breakdown is None:
+        raise ctx.error(path + ("avalanche_resistance",),
+                        "needs breakdown_voltage (expected breakdown_voltage in [switch] as well)")
+    return Switch(**v)
+
+
+def _check_diode(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
+    """Model-specific rules of a diode element: which parameters determine the law."""
+    if v.get("model", "shockley") == "constant-drop":
+        for key in ("at_current", "ideality", "saturation_current"):
+            if key in v:
+                raise ctx.error(path + (key,), "not used by model 'constant-drop' "
+                                "(expected forward_voltage and optional series_resistance only)")
+        if "forward_voltage" not in v:
+            raise ctx.missing(path + ("forward_voltage",), "the forward drop in V, e.g. '0.7 V', "
+                              "for model 'constant-drop'")
+        return
+    point = "forward_voltage" in v and "at_current" in v
+    if "forward_voltage" in v and not point:
+        raise ctx.error(path + ("forward_voltage",), "needs at_current, the current at which the diode "
+                        "drops forward_voltage (expected e.g. at_current = '1 A')")
+    if "at_current" in v and not point:
+        raise ctx.error(path + ("at_current",), "needs forward_voltage, the drop at at_current "
+                        "(expected e.g. forward_voltage = '0.85 V')")
+    given = point + ("ideality" in v) + ("saturation_current" in v)
+    if given == 3:
+        raise ctx.error(path + ("saturation_current",), "over-determined: forward_voltage with at_current, "
+                        "ideality and saturation_current are all given (expected two of the three)")
+    if given < 2:
+        raise ctx.error(path, "a shockley diode needs two of: forward_voltage with at_current, ideality, "
+                        "saturation_current (expected e.g. forward_voltage = '0.85 V', at_current = '1 A', "
+                        "ideality = 1.9)")
+    if not point:
+        return
+    vf, i_at, rs = v["forward_voltage"], v["at_current"], v.get("series_resistance", 0.0)
+    if rs * i_at >= vf:
+        raise ctx.error(path + ("series_resistance",), "series_resistance × at_current = "
+                        f"{format_quantity(rs * i_at, 'V')} leaves no junction drop below forward_voltage "
+                        f"{format_quantity(vf, 'V')} "
+                        "(expected series_resistance < forward_voltage / at_current)")
+    if "saturation_current" in v:  # n = (V_f - R_s I) / (V_T ln(1 + I/I_s)), Shockley law with V_T = kT/q
+        vt = _K_B * v.get("temperature", _T_DEFAULT) / _Q_E
+        n = (vf - rs * i_at) / (vt * math.log1p(i_at / v["saturation_current"]))
+        if not 0.5 <= n <= 10:
+            raise ctx.error(path + ("saturation_current",), f"with forward_voltage and at_current it gives "
+                            f"ideality n = {n:.3g} (expected a saturation_current giving n in [0.5, 10])")
+
+
+def _element(ctx: _Context, path: KeyPath, raw: dict[str, Any]) -> Element:
+    if "type" not in raw:
+        raise ctx.missing(path + ("type",), _COMMON["type"].expected())
+    kind = _value(ctx, path + ("type",), _COMMON["type"], raw["type"])
+    spec = _ELEMENTS[kind]
+    for key in raw:
+        if key not in spec:
+            if key in _ANY_ELEMENT_KEY:
+                raise ctx.error(path + (key,), f"does not apply to a {kind} element "
+                                f"(allowed keys: {', '.join(spec)})")
+            raise _unknown(ctx, path + (key,), spec, f"a {kind} element")
+    v = _table(ctx, path, raw, spec, f"a {kind} element")
+    if kind == "diode":
+        _check_diode(ctx, path, v)
+    elif kind == "varistor":
+        v.setdefault("at_current", 1e-3)  # varistor voltage is conventionally stated at 1 mA
+    return Element(**v, path=format_path(path))
+
+
+def _clamps(ctx: _Context, raw: Any) -> tuple[Clamp, ...]:
+    if raw is None:
+        return ()
+    if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
+        raise ctx.error(("clamp",), f"got {_kind_of(raw)} (expected an array of tables [[clamp]])")
+    clamps = []
+    for i, item in enumerate(raw):
+        path: KeyPath = ("clamp", i)
+        v = _table(ctx, path, item, _CLAMP, "[[clamp]]")
+        elements = tuple(_element(ctx, path + ("element", j), e) for j, e in enumerate(v["element"]))
+        capacitors = [j for j, e in enumerate(elements) if e.type == "capacitor"]
+        if len(capacitors) > 1:
+            raise ctx.error(path + ("element", capacitors[1]), "a second capacitor in one chain (expected "
+                            f"at most one; the first is {elements[capacitors[0]].path})")
+        clamps.append(Clamp(name=v.get("name", f"clamp {i + 1}"), across=v["across"], elements=elements,
+                            path=format_path(path)))
+    return tuple(clamps)
+
+
+def _read(path_or_text: str | os.PathLike[str], source: str | None) -> tuple[str, str]:
+    """Return (text, source name) for a file path or for TOML text."""
+    if isinstance(path_or_text, str):
+        text = path_or_text
+        if "\n" in text or not (text.strip().endswith(".toml") or os.path.isfile(text)):
+            return text, source or "<text>"
+    elif not isinstance(path_or_text, os.PathLike):
+        raise TypeError(f"expected a path or TOML text, got {type(path_or_text).__name__}")
+    name = source or os.fspath(path_or_text)
+    try:
+        data = Path(path_or_text).read_bytes()
+    except FileNotFoundError:
+        raise CaseError("file not found (expected a TOML case file)", source=name) from None
+    except IsADirectoryError:
+        raise CaseError("is a directory (expected a TOML case file)", source=name) from None
+    except OSError as err:
+        raise CaseError(f"cannot read the file: {err.strerror} (expected a readable TOML file)",
+                        source=name) from None
+    try:
+        return data.decode("utf-8").removeprefix("\ufeff"), name
+    except UnicodeDecodeError as err:
+        raise CaseError("not UTF-8 text (expected a UTF-8 encoded TOML file)", source=name,
+                        line=data[:err.start].count(b"\n") + 1) from None
+
+
+def _syntax_error(err: tomllib.TOMLDecodeError, text: str, source: str) -> CaseError:
+    m = _SYNTAX_RE.fullmatch(str(err).splitlines()[0] if str(err) else "")
+    if m is None:
+        return CaseError(str(err).replace("\n", " "), source=source, line=None, key="TOML syntax")
+    if m["line"] is None:
+        return CaseError(f"{m['msg']} (at end of file)", source=source, line=max(1, len(text.splitlines())),
+                         key="TOML syntax")
+    return CaseError(f"{m['msg']} (at column {m['col']})", source=source, line=int(m["line"]),
+                     key="TOML syntax")
+
+
+def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None) -> Case:
+    """Load and validate a case from a TOML file or TOML text.
+
+    Parameters
+    ----------
+    path_or_text : str or os.PathLike
+        A path (a :class:`pathlib.Path`, or a one-line string naming an existing file or ending in
+        ".toml"), or the TOML text itself.
+    source : str, optional
+        Name used in messages and stored in ``Case.source``; default the path as given, or
+        ``"<text>"`` for text.
+
+    Returns
+    -------
+    Case
+        The validated case, all quantities in SI units ([V], [H], [Ω], [F], [s], [A], [J], [W], [K]).
+
+    Raises
+    ------
+    CaseError
+        On a missing file, a TOML syntax error or any invalid key or value; ``str(err)`` reads
+        ``FILE:LINE: key.path: what is wrong (expected …)``.
+
+    References
+    ----------
+    TOML v1.0.0 specification, https://toml.io/en/v1.0.0 (syntax of the case file).
+    """
+    text, name = _read(path_or_text, source)
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise _syntax_error(err, text, name) from None
+    ctx = _Context(name, text)
+    top = {key: _Field("s") for key in _TOP}
+    for key in doc:
+        if key not in _TOP:
+            raise _unknown(ctx, (key,), top, "the top level")
+    if "title" not in doc:
+        raise ctx.missing(("title",), "a string, e.g. title = \"Relay driver, 12 V\"")
+    title = _value(ctx, ("title",), _STRING, doc["title"])
+    if not title.strip():
+        raise ctx.error(("title",), "empty title (expected a short description of the case)")
+    tables = {}
+    for key in ("supply", "coil", "switch"):
+        if key not in doc:
+            raise ctx.missing((key,), f"a [{key}] table", "table")
+        tables[key] = doc[key]
+    supply = Supply(**_table(ctx, ("supply",), tables["supply"], _SUPPLY, "[supply]"))
+    coil_values = _table(ctx, ("coil",), tables["coil"], _COIL, "[coil]")
+    switch = _switch(ctx, tables["switch"], supply.voltage)
+    if coil_values["resistance"] == 0 and "initial_current" not in coil_values and switch.type != "mosfet":
+        raise ctx.error(("coil", "resistance"), "zero resistance gives an unbounded on-state current; give "
+                        "coil.initial_current (expected a resistance > 0 or an initial_current)")
+    clamps = _clamps(ctx, doc.get("clamp"))
+    checks = Checks(**_table(ctx, ("checks",), doc.get("checks", {}), _CHECKS, "[checks]"))
+    return Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
+                checks=checks, source=name, text=text)
