@@ -109,6 +109,47 @@ class Chain:
                 return law.current(vx)
         return np.vectorize(self._solve_numeric, otypes=[float])(vx)
 
+    def current_at(self, voltage: float, v_cap: float = 0.0) -> float:
+        """Scalar :meth:`current`, for the engine's inner loop."""
+        vx = voltage - v_cap
+        if self.pieces is not None:
+            return self.pieces.current_at(vx)
+        if self._smooth is not None and isinstance(self._smooth[0], ShockleyDiode):
+            rest = self._smooth[1]
+            if vx > rest.v_fwd:
+                return float(self._fwd.current(vx - rest.v_fwd))
+            if vx < rest.v_rev:
+                return float(self._rev.current(vx - rest.v_rev))
+            return 0.0
+        return float(self.current(vx))
+
+    def conductance_at(self, voltage: float, v_cap: float = 0.0) -> float:
+        """Incremental conductance di/dV [S] of the chain at chain voltage [V]."""
+        vx = voltage - v_cap
+        if self.pieces is not None:
+            return self.pieces.slope_at(vx)
+        if self._smooth is not None and isinstance(self._smooth[0], ShockleyDiode):
+            rest = self._smooth[1]
+            if vx > rest.v_fwd:
+                d = self._fwd
+            elif vx < rest.v_rev:
+                d = self._rev
+            else:
+                return 0.0
+            i = self.current_at(voltage, v_cap)
+            return 1.0 / (d.a / max(d.i_s + i, 1e-300) + d.r_s)
+        h = 1e-6 * max(abs(vx), 1.0)
+        return (self.current_at(vx + h) - self.current_at(vx - h)) / (2 * h)
+
+    def power_at(self, k: int, current: float) -> float:
+        """Power [W] in element ``k`` of the chain at chain current [A] (0 for a capacitor)."""
+        law = self.laws[k]
+        if law is None or current == 0.0:
+            return 0.0
+        p = law.pieces()
+        v = p.voltage_at(current) if p is not None else float(law.voltage(current))
+        return v * current
+
     def _total_voltage(self, i: float) -> float:
         return float(sum(float(law.voltage(i)) for law in self.active))
 

@@ -102,6 +102,7 @@ class Circuit:
         self.ie = 1 + nv + len(self.cap_chains)
         self.n_states = self.ie + N_ENERGY_FIXED + len(self.energy_slots)
         self.i_on = self.on.switch_current
+        self._pos = {k: n for n, k in enumerate(self.active_chains)}
 
     # ----------------------------------------------------------------- on-state
     def _pin_points(self) -> list[tuple[float, int, int]]:
@@ -254,35 +255,104 @@ class Circuit:
         return out
 
     # ---------------------------------------------------------------- equations
+    def _currents_at(self, t: float, v: float, y) -> list[float]:
+        """Scalar branch currents [A]: channel, off-state, then each active chain."""
+        sw = self.switch
+        tf = sw.fall_time
+        ich = min(sw.on_state.current_at(v), self.i_on * (1.0 - t / tf)) if 0 < tf and t < tf else 0.0
+        vals = [ich + self.g_leak * v, sw.off_state.current_at(v)]
+        for k in self.active_chains:
+            ch = self.chains[k]
+            vals.append(ch.current_at(v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0))
+        return vals
+
     def rhs(self, t: float, y: np.ndarray) -> np.ndarray:
-        v = self.node_voltage(t, y)
-        ich, ioff, ichains = self.split_currents(t, v, y)
-        i = y[0]
+        """Time derivative of the state vector (see the module docstring for the layout)."""
+        i = float(y[0])
+        if self.capacitive:
+            v = float(y[1])
+            vals = self._currents_at(t, v, y)
+            if self.pin is not None:
+                vals[self.pin[1]] = 0.0
+                vals[self.pin[1]] = i - sum(vals)
+        else:
+            v = self.node_voltage(t, y)
+            ich, ioff, ichains = self.split_currents(t, v, y)
+            vals = [ich, ioff, *ichains]
         d = np.zeros_like(y)
         d[0] = (self.Vs - v - self.R * i) / self.L
-        inet = i - ich - ioff - sum(ichains)
-        dv = inet / self.C_node if self.capacitive and self.pin is None else 0.0
+        dv = (i - sum(vals)) / self.C_node if self.capacitive and self.pin is None else 0.0
         if self.capacitive:
             d[1] = dv
         i_supply = i - self.C_plus * dv
         for n, k in enumerate(self.active_chains):
             ch = self.chains[k]
+            ic = vals[2 + n]
             if ch.reference:
-                i_supply -= ichains[n]
+                i_supply -= ic
             if k in self.icap:
-                d[self.icap[k]] = ichains[n] / ch.capacitance
+                d[self.icap[k]] = ic / ch.capacitance
         e = self.ie
+        ioff = vals[1]
         d[e] = self.R * i * i
         d[e + 1] = self.Vs * i_supply
-        d[e + 2] = v * ich
-        d[e + 3] = v * max(ioff, 0.0)
-        d[e + 4] = v * min(ioff, 0.0)
-        pos = {k: n for n, k in enumerate(self.active_chains)}
+        d[e + 2] = v * vals[0]
+        d[e + 3] = v * ioff if ioff > 0 else 0.0
+        d[e + 4] = v * ioff if ioff < 0 else 0.0
         for m, (k, j) in enumerate(self.energy_slots):
-            ic = ichains[pos[k]]
-            if ic != 0.0:
-                d[e + N_ENERGY_FIXED + m] = float(self.chains[k].laws[j].voltage(ic)) * ic
+            d[e + N_ENERGY_FIXED + m] = self.chains[k].power_at(j, vals[2 + self._pos[k]])
         return d
+
+    def jacobian(self, t: float, y: np.ndarray) -> np.ndarray:
+        """Analytic Jacobian of :meth:`rhs` in its dynamic block (coil current, node and
+        capacitor voltages). The energy rows are left zero: energies never feed back, so the
+        Newton iteration of an implicit method still converges on them."""
+        n = self.n_states
+        jm = np.zeros((n, n))
+        sw = self.switch
+        tf = sw.fall_time
+        v = float(y[1]) if self.capacitive else self.node_voltage(t, y)
+        # conductance of each branch at v
+        g_ch = self.g_leak
+        if 0 < tf and t < tf and sw.on_state.current_at(v) < self.i_on * (1.0 - t / tf):
+            g_ch += sw.on_state.slope_at(v)
+        g = [g_ch, sw.off_state.slope_at(v)]
+        for k in self.active_chains:
+            ch = self.chains[k]
+            g.append(ch.conductance_at(v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0))
+        if self.pin is not None:
+            g[self.pin[1]] = math.inf
+        elif not self.capacitive:
+            for b in self._vertical_at(t, v):
+                g[b] = math.inf
+        G = sum(g)
+        L = self.L
+        if self.capacitive:
+            jm[0, 0] = -self.R / L
+            jm[0, 1] = -1.0 / L
+            if self.pin is None:
+                C = self.C_node
+                jm[1, 0] = 1.0 / C
+                jm[1, 1] = -G / C
+                for k in self.cap_chains:
+                    jm[1, self.icap[k]] = g[2 + self._pos[k]] / C
+            for k in self.cap_chains:
+                gk, ck = g[2 + self._pos[k]], self.chains[k].capacitance
+                jm[self.icap[k], 1] = gk / ck
+                jm[self.icap[k], self.icap[k]] = -gk / ck
+            return jm
+        # algebraic node: v follows i and the capacitor voltages
+        finite = math.isfinite(G) and G > 0
+        dv_di = 1.0 / G if finite else 0.0
+        dv_dcap = {k: (g[2 + self._pos[k]] / G if finite else 0.0) for k in self.cap_chains}
+        jm[0, 0] = -(self.R + dv_di) / L
+        for k in self.cap_chains:
+            jm[0, self.icap[k]] = -dv_dcap[k] / L
+            gk, ck = g[2 + self._pos[k]], self.chains[k].capacitance
+            jm[self.icap[k], 0] = gk * dv_di / ck
+            for m in self.cap_chains:
+                jm[self.icap[k], self.icap[m]] = gk * (dv_dcap[m] - (1.0 if m == k else 0.0)) / ck
+        return jm
 
     def capacitor_energy(self, v, y) -> float:
         """Energy [J] in every capacitor at node voltage v and state y."""

@@ -65,6 +65,30 @@ class LinearPieces:
             rev = self.v_rev + self.r_rev * i if math.isfinite(self.v_rev) else np.full_like(i, -np.inf)
         return np.where(i > 0, fwd, np.where(i < 0, rev, np.clip(0.0, self.v_rev, self.v_fwd)))
 
+    def current_at(self, v: float) -> float:
+        """Scalar :meth:`current` (exact), for the engine's inner loop."""
+        if v > self.v_fwd:
+            return (v - self.v_fwd) / self.r_fwd if self.r_fwd > 0 else math.inf
+        if v < self.v_rev:
+            return (v - self.v_rev) / self.r_rev if self.r_rev > 0 else -math.inf
+        return 0.0
+
+    def slope_at(self, v: float) -> float:
+        """Incremental conductance di/dv [S] at voltage ``v`` [V] (inf on a vertical piece)."""
+        if v > self.v_fwd:
+            return 1.0 / self.r_fwd if self.r_fwd > 0 else math.inf
+        if v < self.v_rev:
+            return 1.0 / self.r_rev if self.r_rev > 0 else math.inf
+        return 0.0
+
+    def voltage_at(self, i: float) -> float:
+        """Scalar :meth:`voltage` for a non-zero current [A]."""
+        if i > 0:
+            return self.v_fwd + self.r_fwd * i
+        if i < 0:
+            return self.v_rev + self.r_rev * i
+        return min(max(0.0, self.v_rev), self.v_fwd)
+
     def current(self, v, r_min: float = 0.0):
         """Current at voltage ``v`` [V]; zero resistances are raised to ``r_min`` [Ω] (0: exact)."""
         v = np.asarray(v, dtype=float)
