@@ -117,9 +117,9 @@ class Chain:
         if self._smooth is not None and isinstance(self._smooth[0], ShockleyDiode):
             rest = self._smooth[1]
             if vx > rest.v_fwd:
-                return float(self._fwd.current(vx - rest.v_fwd))
+                return self._fwd.current_at(vx - rest.v_fwd)
             if vx < rest.v_rev:
-                return float(self._rev.current(vx - rest.v_rev))
+                return self._rev.current_at(vx - rest.v_rev)
             return 0.0
         return float(self.current(vx))
 
@@ -147,8 +147,11 @@ class Chain:
         if law is None or current == 0.0:
             return 0.0
         p = law.pieces()
-        v = p.voltage_at(current) if p is not None else float(law.voltage(current))
-        return v * current
+        if p is not None:
+            return p.voltage_at(current) * current
+        if isinstance(law, ShockleyDiode):
+            return law.voltage_at(current) * current
+        return float(law.voltage(current)) * current
 
     def _total_voltage(self, i: float) -> float:
         return float(sum(float(law.voltage(i)) for law in self.active))

@@ -72,6 +72,10 @@ class Circuit:
             _check_chain(case, ch)
         self.switch = exact_switch
         self.chains = exact_chains
+        if not self.capacitive and not case.clamps and s.breakdown_voltage is None:
+            raise CaseError("no conducting path takes the coil current at turn-off: the switch-node voltage "
+                            "would be unbounded (expected a clamp, switch.breakdown_voltage or "
+                            "switch.capacitance)", source=case.source, key="switch")
         self.on = self._on_state()
         self.i0 = self.on.coil_current
         if self.i0 <= 0:
@@ -255,7 +259,7 @@ class Circuit:
         return out
 
     # ---------------------------------------------------------------- equations
-    def _currents_at(self, t: float, v: float, y) -> list[float]:
+    def currents_at(self, t: float, v: float, y) -> list[float]:
         """Scalar branch currents [A]: channel, off-state, then each active chain."""
         sw = self.switch
         tf = sw.fall_time
@@ -271,7 +275,7 @@ class Circuit:
         i = float(y[0])
         if self.capacitive:
             v = float(y[1])
-            vals = self._currents_at(t, v, y)
+            vals = self.currents_at(t, v, y)
             if self.pin is not None:
                 vals[self.pin[1]] = 0.0
                 vals[self.pin[1]] = i - sum(vals)

@@ -42,7 +42,7 @@ def main() -> None:
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON (the result contract) only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write result.json, waveforms.csv and plots into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the waveform plots.")
-@click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-6, show_default=True,
+@click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
               help="Relative tolerance of the detailed engine.")
 def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: float) -> None:
     """Simulate one turn-off of CASE and check it against the ratings."""

@@ -4,13 +4,13 @@ from __future__ import annotations
 
 from kickback.case import Case
 from kickback.circuit import Circuit
-from kickback.engine.detailed import integrate
+from kickback.engine.detailed import DEFAULT_RTOL, integrate
 from kickback.figures import compute_figures
 from kickback.ratings import rating_checks
 from kickback.result import Result
 
 
-def simulate(case: Case, *, rtol: float = 1e-6, engine: str = "detailed") -> Result:
+def simulate(case: Case, *, rtol: float = DEFAULT_RTOL, engine: str = "detailed") -> Result:
     """Simulate the turn-off of ``case``.
 
     Parameters

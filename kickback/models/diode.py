@@ -92,6 +92,7 @@ class ShockleyDiode(ElementLaw):
         self.a = ideality * v_t
         self.band = (0.0, 0.0)
         self.i_floor = -saturation_current
+        self._log_k = math.log(series_resistance * saturation_current / self.a) if series_resistance > 0 else 0.0
         self.description = (f"Shockley diode (n = {ideality:.3g}, I_s = {saturation_current:.3g} A, "
                             f"R_s = {series_resistance:.3g} Ω)")
 
@@ -108,6 +109,18 @@ class ShockleyDiode(ElementLaw):
                 return self.i_s * np.expm1(v / self.a)
         z = math.log(self.r_s * self.i_s / self.a) + (v + self.r_s * self.i_s) / self.a
         return self.a / self.r_s * np.real(wrightomega(z)) - self.i_s
+
+    def current_at(self, v: float) -> float:
+        """Scalar :meth:`current` [A] at terminal voltage ``v`` [V]."""
+        if self.r_s == 0.0:
+            x = v / self.a
+            return self.i_s * math.expm1(x) if x < 700 else math.inf
+        z = self._log_k + (v + self.r_s * self.i_s) / self.a
+        return self.a / self.r_s * float(wrightomega(z).real) - self.i_s
+
+    def voltage_at(self, i: float) -> float:
+        """Scalar :meth:`voltage` [V] at current ``i`` [A]."""
+        return self.a * math.log1p(max(i / self.i_s, -1.0 + 1e-16)) + self.r_s * i
 
     def slope(self, i):
         """Incremental resistance dv/di [Ω] at current ``i`` [A]."""
