@@ -38,9 +38,11 @@ class Chain:
 
     def __post_init__(self):
         self.laws = []
+        self.exact_pieces: list[LinearPieces | None] = []
         self.capacitance = None
         for el in self.clamp.elements:
             law = element_law(el)
+            self.exact_pieces.append(law.pieces() if law is not None else None)
             if law is None:
                 self.capacitance = el.capacitance
             elif self.r_min > 0 and law.pieces() is not None:
@@ -141,12 +143,16 @@ class Chain:
         h = 1e-6 * max(abs(vx), 1.0)
         return (self.current_at(vx + h) - self.current_at(vx - h)) / (2 * h)
 
-    def power_at(self, k: int, current: float) -> float:
-        """Power [W] in element ``k`` of the chain at chain current [A] (0 for a capacitor)."""
+    def power_at(self, k: int, current: float, exact: bool = False) -> float:
+        """Power [W] in element ``k`` of the chain at chain current [A] (0 for a capacitor).
+
+        ``exact``: use the law without its regularizing resistance (the node is pinned at the
+        law's exact voltage).
+        """
         law = self.laws[k]
         if law is None or current == 0.0:
             return 0.0
-        p = law.pieces()
+        p = self.exact_pieces[k] if exact else law.pieces()
         if p is not None:
             return p.voltage_at(current) * current
         if isinstance(law, ShockleyDiode):

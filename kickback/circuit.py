@@ -107,6 +107,7 @@ class Circuit:
         self.n_states = self.ie + N_ENERGY_FIXED + len(self.energy_slots)
         self.i_on = self.on.switch_current
         self._pos = {k: n for n, k in enumerate(self.active_chains)}
+        self._thresholds = self._node_thresholds()
 
     # ----------------------------------------------------------------- on-state
     def _pin_points(self) -> list[tuple[float, int, int]]:
@@ -207,20 +208,24 @@ class Circuit:
         i = float(y[0])
 
         def resid(v):
-            ich, ioff, ichains = self.branch_currents(t, v, y)
-            return float(ich + ioff + sum(ichains)) - i
+            return sum(self.currents_at(t, v, y)) - i
 
-        thresholds = []
-        if self.switch.fall_time > 0 and t < self.switch.fall_time:
-            thresholds.append(self.switch.on_state.v_fwd)
-            if math.isfinite(self.switch.on_state.v_rev):
-                thresholds.append(self.switch.on_state.v_rev)
-        if math.isfinite(self.switch.off_state.v_fwd) and self.switch.off_state.r_fwd == 0:
-            thresholds.append(self.switch.off_state.v_fwd)
+        in_fall = self.switch.fall_time > 0 and t < self.switch.fall_time
+        return _solve_monotone(resid, self._thresholds[in_fall], self.v_scale)
+
+    def _node_thresholds(self) -> dict[bool, list[float]]:
+        """Node voltages [V] of vertical laws, after the fall (False) and during it (True)."""
+        after = []
+        off = self.switch.off_state
+        if math.isfinite(off.v_fwd) and off.r_fwd == 0:
+            after.append(off.v_fwd)
         for k in self.active_chains:
             ch = self.chains[k]
-            thresholds += [x + self.Vs * ch.reference for x in ch.thresholds()]
-        return _solve_monotone(resid, thresholds, self.v_scale)
+            after += [x + self.Vs * ch.reference for x in ch.thresholds()]
+        during = list(after)
+        on = self.switch.on_state
+        during += [x for x in (on.v_fwd, on.v_rev) if math.isfinite(x)]
+        return {False: after, True: during}
 
     def split_currents(self, t: float, v: float, y: np.ndarray):
         """Branch currents at a solved node voltage; a vertical law takes what the others leave."""
@@ -303,8 +308,10 @@ class Circuit:
         d[e + 2] = v * vals[0]
         d[e + 3] = v * ioff if ioff > 0 else 0.0
         d[e + 4] = v * ioff if ioff < 0 else 0.0
+        pinned = self.pin[1] if self.pin is not None else -1
         for m, (k, j) in enumerate(self.energy_slots):
-            d[e + N_ENERGY_FIXED + m] = self.chains[k].power_at(j, vals[2 + self._pos[k]])
+            n = 2 + self._pos[k]
+            d[e + N_ENERGY_FIXED + m] = self.chains[k].power_at(j, vals[n], exact=n == pinned)
         return d
 
     def jacobian(self, t: float, y: np.ndarray) -> np.ndarray:

@@ -80,12 +80,18 @@ def first_crossing_below(t: np.ndarray, x: np.ndarray, level: float) -> float | 
 
 
 def _duration_above(t: np.ndarray, x: np.ndarray, level: float) -> float:
-    on = np.abs(x) > level
+    """Total time [s] with ``|x| > level``, crossings located by linear interpolation."""
+    a = np.abs(np.asarray(x, dtype=float)) - level
+    on = a > 0
     if not on.any():
         return 0.0
     dt = np.diff(t)
     both = on[:-1] & on[1:]
-    return float(np.sum(dt[both]) + 0.5 * np.sum(dt[on[:-1] ^ on[1:]]))
+    total = float(np.sum(dt[both]))
+    for k in np.nonzero(on[:-1] ^ on[1:])[0]:
+        frac = a[k] / (a[k] - a[k + 1])  # where the excess crosses zero inside the step
+        total += float(dt[k] * ((1.0 - frac) if not on[k] else frac))
+    return total
 
 
 def chain_signals(w: Waveforms, k: int):

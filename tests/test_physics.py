@@ -384,9 +384,6 @@ def test_rc_snubber_waveforms_match_state_space(rs, cs):
     assert abs(f.energy_balance_error) < 1e-6, f"energy balance {f.energy_balance_error:.2e}"
 
 
-@pytest.mark.xfail(strict=True, reason="engine: with no node capacitance (algebraic node voltage) the peak is "
-                   "the largest sampled value, not located by a dv/dt = 0 event, so an RC snubber's peak is "
-                   "off by up to ~2e-4 (depending on where the steps fall) instead of within 1e-6")
 def test_rc_snubber_peak_exact():
     """The RC snubber's peak node voltage against the exact solution (scipy.linalg.eig/expm, minimize_scalar).
 

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.integrate import solve_ivp
+from scipy.optimize import minimize_scalar
 
 from kickback.circuit import Circuit
 from kickback.errors import SolverError
@@ -163,8 +164,13 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
             w += 0.5 * c.chains[k].capacitance * (y[c.icap[k]] - target) ** 2
         return w
 
+    rest_level = RING_END_FRACTION * e0
+    if c.case.coil.release_current is not None:
+        # follow the ringing until its amplitude is well below the release current
+        rest_level = min(rest_level, 0.5 * c.L * (0.5 * c.case.coil.release_current) ** 2)
+
     def ev_rest(t, y):
-        return dyn_energy(y) - RING_END_FRACTION * e0
+        return dyn_energy(y) - rest_level
     ev_rest.direction = -1
     ev_rest.terminal = True
 
@@ -270,9 +276,9 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         run("decay", t_bound, [ev10, ev1, ev_zero], first_step=first)
         bound_hit = ev_times["zero"] is None
     rings = c.capacitive or bool(dyn_caps)
-    if not bound_hit and rings and dyn_energy(y) > RING_END_FRACTION * e0 and t < t_bound:
+    if not bound_hit and rings and dyn_energy(y) > rest_level and t < t_bound:
         run("ring", t_bound, [ev10, ev1, ev_rest])
-        bound_hit = not (dyn_energy(y) <= RING_END_FRACTION * e0 * 1.0001)
+        bound_hit = not (dyn_energy(y) <= rest_level * 1.0001)
         if not bound_hit and abs(y[0]) > RING_END_FRACTION * i0 and t < t_bound:
             # end on a zero of the coil current, so that it too is below 0.1 % of the start
             run("ring", t_bound, [ev_cross])
@@ -302,7 +308,41 @@ def _sample(c: Circuit, phases, ev_times, peaks, bound_hit, rtol, n_rhs, per_ste
     ich = np.concatenate([p[1] for p in parts])
     ioff = np.concatenate([p[2] for p in parts])
     chains = [np.concatenate([p[3][k] for p in parts]) for k in range(len(c.active_chains))]
-    return Waveforms(c, t, y, v, ich, ioff, chains, ev_times, peaks, bound_hit, phases, rtol, n_rhs)
+    w = Waveforms(c, t, y, v, ich, ioff, chains, ev_times, peaks, bound_hit, phases, rtol, n_rhs)
+    if not c.capacitive:
+        _refine_peak(w)
+    return w
+
+
+def _refine_peak(w: Waveforms) -> None:
+    """Add the exact maximum of an algebraic node voltage between samples (no dv/dt event there)."""
+    k = int(np.argmax(w.v))
+    if k == 0 or k == w.t.size - 1:
+        return
+    lo, hi = float(w.t[k - 1]), float(w.t[k + 1])
+    ph = next((p for p in w.phases if p.t0 <= lo and hi <= p.t1), None)
+    if ph is None:
+        return
+    c = w.circuit
+
+    def neg_v(tt):
+        return -c.node_voltage(tt, ph.sol(tt))
+
+    res = minimize_scalar(neg_v, bounds=(lo, hi), method="bounded",
+                          options={"xatol": 1e-12 * max(hi, 1e-300)})
+    if not res.success or -res.fun <= w.v[k] or res.x in w.t:
+        return
+    tp = float(res.x)
+    yp = ph.sol(tp)[:, None]
+    vp, a, b, cs = derived_with_pin(c, ph.pin, np.array([tp]), yp)
+    j = int(np.searchsorted(w.t, tp))
+    w.t = np.insert(w.t, j, tp)
+    w.y = np.insert(w.y, j, yp[:, 0], axis=1)
+    w.v = np.insert(w.v, j, vp[0])
+    w.i_channel = np.insert(w.i_channel, j, a[0])
+    w.i_offstate = np.insert(w.i_offstate, j, b[0])
+    w.i_chains = [np.insert(x, j, z[0]) for x, z in zip(w.i_chains, cs, strict=True)]
+    w.peak_times.append(tp)
 
 
 def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray):
