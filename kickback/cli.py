@@ -82,9 +82,6 @@ def _write_outputs(result, payload: str, out: Path, plot: bool) -> None:
         fig, _ = result.plot()
         for fmt in ("png", "svg"):
             files[f"waveforms.{fmt}"] = figure_bytes(fig, fmt)
-        import matplotlib.pyplot as plt
-
-        plt.close(fig)
     for name, data in files.items():
         write_atomic(out / name, data)
     click.echo(f"wrote {', '.join(str(out / n) for n in files)}", err=True)

@@ -6,20 +6,11 @@ from kickback.units import format_quantity as q
 
 
 def _setup():
-    import matplotlib
-
-    if matplotlib.get_backend().lower() not in ("agg", "svg", "pdf") and not _interactive():
-        matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    """Figure class and formatter; no pyplot (faster to import, and no GUI state is touched)."""
+    from matplotlib.figure import Figure
     from matplotlib.ticker import EngFormatter
 
-    return plt, EngFormatter
-
-
-def _interactive() -> bool:
-    import sys
-
-    return hasattr(sys, "ps1")
+    return Figure, EngFormatter
 
 
 def edge_window(result) -> float | None:
@@ -88,19 +79,20 @@ def plot_result(result, ax=None):
     -------
     (figure, dict of axes)
     """
-    plt, _ = _setup()
+    Figure, _ = _setup()
     if ax is not None:
         ax_i = ax.twinx()
         _draw(ax, ax_i, result)
         return ax.figure, {"voltage": ax, "current": ax_i}
     zoom = edge_window(result)
     if zoom is None:
-        fig, (av, ai) = plt.subplots(2, 1, sharex=True, figsize=(8, 6), layout="constrained")
+        fig = Figure(figsize=(8, 6), layout="constrained")
+        av, ai = fig.subplots(2, 1, sharex=True)
         axes = {"voltage": av, "current": ai}
         _draw(av, ai, result)
     else:
-        fig, grid = plt.subplots(2, 2, sharex="col", figsize=(11, 6), layout="constrained",
-                                 gridspec_kw={"width_ratios": [1, 1.6]})
+        fig = Figure(figsize=(11, 6), layout="constrained")
+        grid = fig.subplots(2, 2, sharex="col", gridspec_kw={"width_ratios": [1, 1.6]})
         _draw(grid[0, 0], grid[1, 0], result, t_end=zoom, annotate=False)
         _draw(grid[0, 1], grid[1, 1], result)
         grid[0, 0].set_title("turn-off edge", fontsize=10)
