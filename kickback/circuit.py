@@ -15,12 +15,12 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq
 
 from kickback.case import Case
 from kickback.chain import Chain, regularized
-from kickback.errors import CaseError, SolverError
+from kickback.errors import CaseError
 from kickback.models.switch import switch_law
+from kickback.nodebalance import solve_monotone as _solve_monotone
 
 N_ENERGY_FIXED = 5  # E_R, E_supply, E_channel, E_avalanche, E_body
 #: relative size of the resistance given to zero-resistance laws when the node has capacitance
@@ -393,59 +393,3 @@ def _check_chain(case: Case, ch: Chain) -> None:
         raise CaseError("a capacitor in series with elements of zero resistance has no defined current "
                         "(expected a resistor or a series_resistance in this chain)",
                         source=case.source, key=ch.clamp.path or ch.name)
-
-
-def _solve_monotone(resid, thresholds, scale: float) -> float:
-    """Root of a nondecreasing function that may jump to ±inf at known vertical points.
-
-    Returns the threshold itself when the root sits on a vertical segment.
-    """
-    cands = sorted({float(x) for x in thresholds if math.isfinite(x)})
-    lower = -math.inf
-    for t in cands:
-        d = 1e-12 * max(1.0, abs(t))
-        below, above = resid(t - d), resid(t + d)
-        if below > 0:
-            return _bracketed(resid, lower, t - d, scale)
-        if above >= 0:
-            return t
-        lower = t + d
-    return _bracketed(resid, lower, math.inf, scale)
-
-
-def _bracketed(resid, a: float, b: float, scale: float) -> float:
-    span = max(scale, 1.0)
-    if not math.isfinite(a) and not math.isfinite(b):
-        a, b = -span, span
-        ra, rb = resid(a), resid(b)
-    elif not math.isfinite(a):
-        rb = resid(b)
-        a = b - span
-        ra = resid(a)
-    elif not math.isfinite(b):
-        ra = resid(a)
-        b = a + span
-        rb = resid(b)
-    else:
-        ra, rb = resid(a), resid(b)
-    grow = span
-    for _ in range(200):
-        if ra <= 0 <= rb:
-            break
-        grow *= 2.0
-        if ra > 0:
-            b, rb = a, ra
-            a -= grow
-            ra = resid(a)
-        else:
-            a, ra = b, rb
-            b += grow
-            rb = resid(b)
-    else:
-        raise SolverError("no conducting path takes the coil current (the switch-node voltage "
-                          "would be unbounded): add a clamp, a breakdown voltage or a capacitance")
-    if ra == 0:
-        return a
-    if rb == 0:
-        return b
-    return brentq(resid, a, b, xtol=1e-14 * max(1.0, abs(a), abs(b)), rtol=4 * np.finfo(float).eps)
