@@ -66,6 +66,24 @@ def time_engine(case: Case, rtol: float, repeat: int) -> tuple[float, object]:
     return statistics.median(times), res
 
 
+def _baseline_figures(c: Circuit, y0, t, y, e):
+    """Figures and energy balance of a hand-written solve (states y at times t, energies e)."""
+    i0 = c.i0
+    v = y[1] if c.capacitive else np.array([c.node_voltage(tk, y[:, k]) for k, tk in enumerate(t)])
+    stored = 0.5 * c.L * i0 * i0 + float(c.capacitor_energy(c.on.node_voltage, y0))
+    left = float(c.capacitor_energy(v[-1], y[:, -1])) + 0.5 * c.L * y[0, -1] ** 2
+    balance = (stored + e[1] - e[0] - e[2:].sum() - left) / (stored + max(e[1], 0.0))
+    below = np.nonzero(y[0] <= 1e-9 * i0)[0]
+    t_zero = None
+    if below.size:
+        k = int(below[0])
+        t_zero = float(t[k - 1] + (t[k] - t[k - 1]) * (y[0, k - 1] - 1e-9 * i0) / (y[0, k - 1] - y[0, k]))
+    figs = {"peak_voltage_V": float(v.max()), "to_zero_s": t_zero, "resistance_energy_J": float(e[0]),
+            "supply_energy_J": float(e[1]), "crossover_energy_J": float(e[2]), "avalanche_energy_J": float(e[3]),
+            "clamp_energy_J": float(e[5:].sum())}
+    return figs, float(balance)
+
+
 def hand_written(case: Case, t_end: float, method: str, rtol=1e-3, atol=1e-6, wall: float = 10.0,
                  n_eval: int = 20001):
     """The circuit as a user would solve it by hand: one solve_ivp over [0, t_end] on the
@@ -102,19 +120,7 @@ def hand_written(case: Case, t_end: float, method: str, rtol=1e-3, atol=1e-6, wa
     power = np.array([c.rhs(t, y[:, k])[nd:] for k, t in enumerate(sol.t)]).T
     e = np.trapezoid(power, sol.t, axis=1)
     dt = time.perf_counter() - start
-    i0 = c.i0
-    v = y[1] if c.capacitive else np.array([c.node_voltage(t, y[:, k]) for k, t in enumerate(sol.t)])
-    stored = 0.5 * c.L * i0 * i0 + float(c.capacitor_energy(c.on.node_voltage, y0))
-    left = float(c.capacitor_energy(v[-1], y[:, -1])) + 0.5 * c.L * y[0, -1] ** 2
-    balance = (stored + e[1] - e[0] - e[2:].sum() - left) / (stored + max(e[1], 0.0))
-    below = np.nonzero(y[0] <= 1e-9 * i0)[0]
-    t_zero = None
-    if below.size:
-        k = int(below[0])
-        t_zero = float(sol.t[k - 1] + (sol.t[k] - sol.t[k - 1]) * (y[0, k - 1] - 1e-9 * i0) / (y[0, k - 1] - y[0, k]))
-    figs = {"peak_voltage_V": float(v.max()), "to_zero_s": t_zero, "resistance_energy_J": float(e[0]),
-            "supply_energy_J": float(e[1]), "crossover_energy_J": float(e[2]), "avalanche_energy_J": float(e[3]),
-            "clamp_energy_J": float(e[5:].sum())}
+    figs, balance = _baseline_figures(c, y0, sol.t, y, e)
     return dt, figs, float(balance), f"{sol.t.size} points"
 
 
@@ -143,21 +149,7 @@ def hand_written_states(case: Case, t_end: float, method: str, rtol=1e-3, atol=1
     dt = time.perf_counter() - start
     if not sol.success:
         return dt, None, None, f"failed: {sol.message}"
-    y = sol.y
-    e = y[c.ie:, -1]
-    i0 = c.i0
-    v = y[1] if c.capacitive else np.array([c.node_voltage(t, y[:, k]) for k, t in enumerate(sol.t)])
-    stored = 0.5 * c.L * i0 * i0 + float(c.capacitor_energy(c.on.node_voltage, y0))
-    left = float(c.capacitor_energy(v[-1], y[:, -1])) + 0.5 * c.L * y[0, -1] ** 2
-    balance = (stored + e[1] - e[0] - e[2:].sum() - left) / (stored + max(e[1], 0.0))
-    below = np.nonzero(y[0] <= 1e-9 * i0)[0]
-    t_zero = None
-    if below.size:
-        k = int(below[0])
-        t_zero = float(sol.t[k - 1] + (sol.t[k] - sol.t[k - 1]) * (y[0, k - 1] - 1e-9 * i0) / (y[0, k - 1] - y[0, k]))
-    figs = {"peak_voltage_V": float(v.max()), "to_zero_s": t_zero, "resistance_energy_J": float(e[0]),
-            "supply_energy_J": float(e[1]), "crossover_energy_J": float(e[2]), "avalanche_energy_J": float(e[3]),
-            "clamp_energy_J": float(e[5:].sum())}
+    figs, balance = _baseline_figures(c, y0, sol.t, sol.y, sol.y[c.ie:, -1])
     return dt, figs, float(balance), f"{sol.t.size} steps"
 
 
