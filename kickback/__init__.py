@@ -16,6 +16,6 @@ def load_case(path_or_text, **options):
 
 def simulate(case, **options):
     """Simulate one turn-off of ``case``; returns a :class:`kickback.result.Result`."""
-    from kickback.simulate import simulate as _simulate
+    from kickback.simulation import simulate as _simulate
 
     return _simulate(case, **options)

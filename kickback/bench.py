@@ -26,7 +26,7 @@ from scipy.integrate import solve_ivp
 from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
 from kickback.caseio import load_case
 from kickback.circuit import Circuit
-from kickback.simulate import simulate
+from kickback.simulation import simulate
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 DEMOS = ["irrigation_valve", "relay_board", "conveyor_brake", "unclamped_mosfet", "motor_snubber",

@@ -88,6 +88,14 @@ class Clamp:
 
 
 @dataclass(frozen=True)
+class Option:
+    """An alternative clamp set for comparison (``[[option]]`` in the case file)."""
+
+    name: str
+    clamps: tuple[Clamp, ...] = ()
+
+
+@dataclass(frozen=True)
 class Checks:
     derating: float = 0.8  # fraction of voltage/current ratings allowed (common practice, no source)
     energy_derating: float | None = None  # fraction of energy ratings allowed; None: same as derating
@@ -111,3 +119,4 @@ class Case:
     checks: Checks = field(default_factory=Checks)
     source: str = "<case>"  # file name used in messages
     text: str = ""  # the case text as loaded
+    options: tuple[Option, ...] = ()  # alternative clamp sets to compare

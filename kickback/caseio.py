@@ -26,6 +26,7 @@ from kickback.case import (
     Clamp,
     Coil,
     Element,
+    Option,
     Supply,
     Switch,
 )
@@ -91,7 +92,8 @@ _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
            "max_clamp_energy": _q("J")}
-_TOP = ("title", "supply", "coil", "switch", "clamp", "checks")
+_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks")
+_OPTION = {"name": _Field("s", required=True), "clamp": _Field("t")}
 
 _COMMON = {"type": _Field("c", required=True, choices=ELEMENT_TYPES), "name": _STRING}
 _BREAKDOWN = {"voltage": _q("V", required=True), "dynamic_resistance": _q("Ω", ">=0"),
@@ -287,14 +289,31 @@ def _element(ctx: _Context, path: KeyPath, raw: dict[str, Any]) -> Element:
     return Element(**v, path=format_path(path))
 
 
-def _clamps(ctx: _Context, raw: Any) -> tuple[Clamp, ...]:
+def _options(ctx: _Context, raw: Any) -> tuple[Option, ...]:
+    """Alternative clamp sets ``[[option]]`` (name, and its own ``[[option.clamp]]`` chains)."""
     if raw is None:
         return ()
     if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
-        raise ctx.error(("clamp",), f"got {_kind_of(raw)} (expected an array of tables [[clamp]])")
+        raise ctx.error(("option",), f"got {_kind_of(raw)} (expected an array of tables [[option]])")
+    out = []
+    for i, item in enumerate(raw):
+        v = _table(ctx, ("option", i), item, _OPTION, "[[option]]")
+        out.append(Option(v["name"], _clamps(ctx, item.get("clamp"), ("option", i, "clamp"))))
+    names = [o.name for o in out]
+    for i, name in enumerate(names):
+        if name in names[:i]:
+            raise ctx.error(("option", i, "name"), f"option name {name!r} used twice (expected unique names)")
+    return tuple(out)
+
+
+def _clamps(ctx: _Context, raw: Any, where: KeyPath = ("clamp",)) -> tuple[Clamp, ...]:
+    if raw is None:
+        return ()
+    if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
+        raise ctx.error(where, f"got {_kind_of(raw)} (expected an array of tables [[{format_path(where)}]])")
     clamps = []
     for i, item in enumerate(raw):
-        path: KeyPath = ("clamp", i)
+        path: KeyPath = where + (i,)
         v = _table(ctx, path, item, _CLAMP, "[[clamp]]")
         elements = tuple(_element(ctx, path + ("element", j), e) for j, e in enumerate(v["element"]))
         capacitors = [j for j, e in enumerate(elements) if e.type == "capacitor"]
@@ -396,6 +415,7 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
         raise ctx.error(("coil", "resistance"), "zero resistance gives an unbounded on-state current; give "
                         "coil.initial_current (expected a resistance > 0 or an initial_current)")
     clamps = _clamps(ctx, doc.get("clamp"))
+    options = _options(ctx, doc.get("option"))
     checks = Checks(**_table(ctx, ("checks",), doc.get("checks", {}), _CHECKS, "[checks]"))
     return Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
-                checks=checks, source=name, text=text)
+                checks=checks, source=name, text=text, options=options)

@@ -49,7 +49,7 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     from kickback.errors import KickbackError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.table import result_table
-    from kickback.simulate import simulate
+    from kickback.simulation import simulate
 
     c = _load(case)
     try:
@@ -71,10 +71,7 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
 def _write_outputs(result, payload: str, out: Path, plot: bool) -> None:
     """Build every file in memory first, then write each atomically."""
     from kickback.outputs.csvout import waveforms_csv
-    from kickback.outputs.files import write_atomic
 
-    if out.exists() and not out.is_dir():
-        _die(f"{out}: --out must name a directory (expected a folder, found a file)")
     files = {"result.json": payload, "waveforms.csv": waveforms_csv(result)}
     if plot:
         from kickback.outputs.plots import figure_bytes
@@ -82,6 +79,52 @@ def _write_outputs(result, payload: str, out: Path, plot: bool) -> None:
         fig, _ = result.plot()
         for fmt in ("png", "svg"):
             files[f"waveforms.{fmt}"] = figure_bytes(fig, fmt)
+    _write_files(out, files)
+
+
+@main.command()
+@click.argument("case", metavar="CASE.toml")
+@click.option("--json", "as_json", is_flag=True, help="Print the comparison as JSON only.")
+@click.option("--out", "out_dir", metavar="DIR", help="Write compare.json and the overlay plot into DIR.")
+@click.option("--no-plot", is_flag=True, help="With --out: skip the overlay plot.")
+def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> None:
+    """Compare the case's clamp with alternative clamp options on the same coil and switch.
+
+    Alternatives come from the case's [[option]] sets or, when it lists none, from built-in
+    families sized to the derated switch voltage. Exit status follows the case's own clamp.
+    """
+    from kickback.errors import KickbackError
+    from kickback.outputs.comparison import comparison_table
+    from kickback.outputs.jsonout import to_json
+    from kickback.studies.compare import compare as run_compare
+
+    c = _load(case)
+    try:
+        cmp = run_compare(c)
+    except KickbackError as err:
+        _die(str(err))
+    payload = to_json(cmp.to_dict())
+    if out_dir is not None:
+        files = {"compare.json": payload}
+        if not no_plot:
+            from kickback.outputs.comparison import comparison_figure
+            from kickback.outputs.plots import figure_bytes
+
+            fig = comparison_figure(cmp)
+            files |= {f"compare.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+        _write_files(Path(out_dir), files)
+    click.echo(payload if as_json else comparison_table(cmp), nl=False)
+    own = cmp.own
+    if own.result is None:
+        _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
+    sys.exit(0 if own.result.passed else 1)
+
+
+def _write_files(out: Path, files: dict) -> None:
+    from kickback.outputs.files import write_atomic
+
+    if out.exists() and not out.is_dir():
+        _die(f"{out}: --out must name a directory (expected a folder, found a file)")
     for name, data in files.items():
         write_atomic(out / name, data)
     click.echo(f"wrote {', '.join(str(out / n) for n in files)}", err=True)

@@ -163,3 +163,11 @@ def test_help_imports_no_numerics():
             "bad = [m for m in ('numpy', 'scipy', 'matplotlib') if m in sys.modules]; print(bad)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+
+
+def test_package_simulate_stays_a_function():
+    # a submodule named like the public function would replace it on the package once imported
+    import kickback
+    import kickback.simulation  # noqa: F401
+
+    assert callable(kickback.simulate) and kickback.simulate.__module__ == "kickback"

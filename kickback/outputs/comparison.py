@@ -1,0 +1,73 @@
+"""Tables and the overlay figure of a clamp comparison."""
+
+from __future__ import annotations
+
+from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.units import format_quantity as q
+
+
+def comparison_table(cmp) -> str:
+    """One row per clamp option: peak, clamp energy and current, decay, release, verdict."""
+    rows = [["option", "peak switch V", "clamp energy", "clamp peak I", "to 10 %", "to zero", "release",
+             "verdict"]]
+    for r in cmp.rows:
+        d = r.to_dict()
+        name = ("* " if r.own else "  ") + r.name
+        if r.result is None:
+            rows.append([name, "—", "—", "—", "—", "—", "—", f"cannot simulate: {r.error}"])
+            continue
+        verdict = "pass" if d["pass"] else "FAIL: " + ", ".join(d["failing_checks"])
+        rows.append([name, q(d["peak_voltage_V"], "V"), q(d["clamp_energy_J"], "J"),
+                     q(d["clamp_peak_current_A"], "A"), q(d["to_10_percent_s"], "s"), q(d["to_zero_s"], "s"),
+                     q(d["release_s"], "s"), verdict])
+    lines = [cmp.case.title, ""]
+    table = _grid([r[:-1] for r in rows])
+    lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
+    lines += ["", "* the case's own clamp set (sets the exit status)"]
+    if cmp.builtin:
+        lines.append("  other options: built-in families sized to the derated switch voltage (generic diode "
+                     "0.9 V at 1 A; ideal Zener/TVS); give your own parts as [[option]] in the case")
+    lines += ["", _wrap(CAUTIONS)]
+    return "\n".join(lines) + "\n"
+
+
+def comparison_figure(cmp):
+    """Switch-node voltage and coil current of every option on a logarithmic time axis."""
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import EngFormatter
+
+    fig = Figure(figsize=(10, 7), layout="constrained")
+    av, ai = fig.subplots(2, 1, sharex=True)
+    case = cmp.case
+    t_min = None
+    for n, r in enumerate(cmp.rows):
+        if r.result is None:
+            continue
+        w = r.result.waveforms
+        m = w.t > 0
+        style = {"lw": 2.2 if r.own else 1.2, "color": f"C{n % 10}", "ls": "-" if r.own else "-"}
+        label = r.name + ("" if r.result.passed else " (fails)")
+        av.plot(w.t[m], w.v[m], label=label, **style)
+        ai.plot(w.t[m], w.y[0][m], **style)
+        t_min = w.t[m][0] if t_min is None else min(t_min, w.t[m][0])
+    if case.switch.rated_voltage is not None:
+        lim = case.switch.rated_voltage * case.checks.derating
+        av.axhline(lim, color="k", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g} = {q(lim, 'V')}")
+    if case.coil.release_current is not None:
+        ai.axhline(case.coil.release_current, color="k", ls=":", lw=1, label="release current")
+        ai.legend(fontsize=8, loc="lower left")
+    for ax, unit, label in ((av, "V", "switch-node voltage"), (ai, "A", "coil current")):
+        ax.set_xscale("log")
+        ax.yaxis.set_major_formatter(EngFormatter(unit=unit))
+        ax.xaxis.set_major_formatter(EngFormatter(unit="s"))
+        ax.grid(True, which="both", lw=0.3, alpha=0.6)
+        ax.set_ylabel(label)
+    if t_min is not None:
+        edge = case.switch.fall_time or min(r.result.figures.peak_time_s for r in cmp.rows if r.result) or t_min
+        av.set_xlim(left=max(t_min, 0.02 * edge))
+    ai.set_xlabel("time after turn-off (logarithmic)")
+    av.legend(fontsize=8, loc="center left")
+    fig.suptitle(f"{case.title} — clamp options", fontsize=11)
+    return fig
+
+

@@ -1,0 +1,1 @@
+"""Studies built from the layers above: compare clamp options, sweeps, choice, tolerances."""

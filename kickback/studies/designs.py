@@ -1,0 +1,88 @@
+"""Built-in clamp options sized for a case's coil and switch (used when the case lists none).
+
+Each family is sized to the switch's derated voltage ``V_allow = derating × rated_voltage``:
+
+* plain diode — the node sits a diode drop above the supply;
+* diode + resistor — ``R`` the E12 value below ``(V_allow − V_s − V_f)/i_0``;
+* diode + Zener — ``V_Z`` the E24 value below ``V_allow − V_s − V_f``;
+* TVS from the switch node to ground — ``V_BR`` the E24 value below ``V_allow``;
+* RC snubber across the switch — ``C`` from the allowed overshoot by energy, the node ringing
+  about the supply: ``½ L i_0² = ½ C (V_allow − V_s)²``, rounded up to E12, and
+  ``R ≈ √(L/C)`` (nearest E12);
+* no clamp.
+
+The generic diode (0.9 V at 1 A, n = 1.8, R_s = 50 mΩ) and the ideal Zener/TVS (zero
+dynamic resistance) are stated assumptions, not parts: put your own parts in ``[[option]]``.
+
+References
+----------
+N. Mohan, T. M. Undeland and W. P. Robbins, Power Electronics, 3rd ed., Wiley 2003, ch. 27
+(snubber circuits: C from the overshoot by energy balance, R near the characteristic
+impedance √(L/C)).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+from kickback.case import Case, Clamp, Element, Option
+from kickback.errors import CaseError
+from kickback.studies.eseries import nearest, round_down, round_up
+
+GENERIC_DIODE = dict(type="diode", model="shockley", forward_voltage=0.9, at_current=1.0, ideality=1.8,
+                     series_resistance=0.05)
+DIODE_DROP = 0.9  # [V] used for sizing only
+
+
+def allowed_voltage(case: Case) -> float:
+    """The switch voltage the built-in options are sized to [V]."""
+    s = case.switch
+    rated = s.rated_voltage if s.rated_voltage is not None else s.breakdown_voltage
+    if rated is None:
+        raise CaseError("sizing the built-in clamp options needs switch.rated_voltage (expected a voltage "
+                        "rating, or [[option]] clamp sets in the case)", source=case.source, key="switch")
+    return case.checks.derating * rated
+
+
+def on_current(case: Case) -> float:
+    """The coil's on-state current [A] (the case's own clamps ignored)."""
+    from kickback.circuit import Circuit
+
+    probe = Clamp("probe", "coil", (Element(**GENERIC_DIODE),))
+    return Circuit(replace(case, clamps=(probe,), options=())).i0
+
+
+def builtin_options(case: Case) -> tuple[Option, ...]:
+    """The built-in families, sized for ``case`` (see the module docstring)."""
+    v_allow = allowed_voltage(case)
+    vs = case.supply.voltage
+    i0 = on_current(case)
+    L = case.coil.inductance
+    head = v_allow - vs - DIODE_DROP
+    d = Element(**GENERIC_DIODE, name="D")
+    opts = [Option("plain diode", (Clamp("D", "coil", (d,)),))]
+    if head > 0:
+        r = round_down(head / i0, "E12")
+        opts.append(Option(f"diode + {_eng(r, 'Ω')}", (Clamp("D+R", "coil", (d, Element(
+            "resistor", name="R", resistance=r))),)))
+        vz = round_down(head, "E24")
+        opts.append(Option(f"diode + {_eng(vz, 'V')} Zener", (Clamp("D+Z", "coil", (d, Element(
+            "zener", name="Z", voltage=vz))),)))
+    if v_allow > 1.1 * vs:
+        vt = round_down(v_allow, "E24")
+        if vt > 1.05 * vs:
+            opts.append(Option(f"TVS {_eng(vt, 'V')} to ground", (Clamp("TVS", "switch", (Element(
+                "tvs", name="TVS", voltage=vt),)),)))
+        c = round_up(L * i0 * i0 / (v_allow - vs) ** 2, "E12")
+        r = nearest(math.sqrt(L / c), "E12")
+        opts.append(Option(f"RC {_eng(r, 'Ω')} + {_eng(c, 'F')} across switch", (Clamp("RC", "switch", (
+            Element("resistor", name="R", resistance=r), Element("capacitor", name="C", capacitance=c))),)))
+    opts.append(Option("no clamp", ()))
+    return tuple(opts)
+
+
+def _eng(x: float, unit: str) -> str:
+    from kickback.units import format_quantity
+
+    return format_quantity(x, unit, digits=3)
