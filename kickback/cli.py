@@ -120,6 +120,63 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
     sys.exit(0 if own.result.passed else 1)
 
 
+@main.command()
+@click.argument("case", metavar="CASE.toml")
+@click.option("--vary", "varies", multiple=True, required=True, metavar="KEY=FROM:TO[:N]",
+              help="A case value by its key path, e.g. clamp[0].element[1].voltage=12V:36V:13 (once or twice).")
+@click.option("--log", is_flag=True, help="Space the points logarithmically.")
+@click.option("--workers", type=click.IntRange(1, 64), default=None,
+              help="Worker processes (default: the machine's cores).")
+@click.option("--json", "as_json", is_flag=True, help="Print the sweep as JSON only.")
+@click.option("--out", "out_dir", metavar="DIR", help="Write sweep.csv, sweep.json and the plot into DIR.")
+@click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
+def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+    """Run CASE over a range of one or two of its values and tabulate the figures.
+
+    Exit status: 0 when every point passes its checks, 1 when one fails, 2 on bad input.
+    """
+    import os
+
+    from kickback.errors import CaseError
+    from kickback.outputs.jsonout import to_json
+    from kickback.outputs.sweeps import sweep_csv, sweep_table
+    from kickback.studies.sweep import parse_vary, run_sweep
+
+    c = _load(case)
+    try:
+        axes = tuple(parse_vary(v, log) for v in varies)
+        n = 1
+        for ax in axes:
+            n *= len(ax.values)
+        bar = click.progressbar(length=n, label="sweep", file=sys.stderr) if n >= 10 else None
+        workers = workers or min(os.cpu_count() or 1, 8)
+        if bar is not None:
+            with bar:
+                done = [0]
+
+                def progress(k):
+                    bar.update(k - done[0])
+                    done[0] = k
+
+                sw = run_sweep(c, axes, workers=workers, progress=progress)
+        else:
+            sw = run_sweep(c, axes, workers=workers)
+    except CaseError as err:
+        _die(f"{c.source}: {err.key}: {err.message}" if err.key else f"{c.source}: {err.message}")
+    payload = to_json(sw.to_dict())
+    if out_dir is not None:
+        files = {"sweep.csv": sweep_csv(sw), "sweep.json": payload}
+        if not no_plot:
+            from kickback.outputs.plots import figure_bytes
+            from kickback.outputs.sweeps import sweep_figure
+
+            fig = sweep_figure(sw)
+            files |= {f"sweep.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+        _write_files(Path(out_dir), files)
+    click.echo(payload if as_json else sweep_table(sw), nl=False)
+    sys.exit(0 if sw.passed.all() else 1)
+
+
 def _write_files(out: Path, files: dict) -> None:
     from kickback.outputs.files import write_atomic
 

@@ -1,0 +1,121 @@
+"""Table, CSV and figures of a sweep."""
+
+from __future__ import annotations
+
+import csv
+import io
+
+import numpy as np
+
+from kickback.outputs.table import _grid
+from kickback.studies.sweep import COLUMNS
+from kickback.units import format_quantity as q
+
+LABELS = {"peak_voltage_V": "peak switch V", "clamp_energy_J": "clamp energy", "avalanche_energy_J": "avalanche",
+          "to_10_percent_s": "to 10 %", "to_zero_s": "to zero", "release_s": "release"}
+
+
+def sweep_table(sw) -> str:
+    head = [a.path for a in sw.axes] + [LABELS[c] for c, _ in COLUMNS] + ["verdict"]
+    rows = [head]
+    for k, p in enumerate(sw.points):
+        cells = [q(x, a.unit) if a.unit else f"{x:.4g}" for x, a in zip(p, sw.axes, strict=True)]
+        if sw.errors[k]:
+            rows.append(cells + ["—"] * len(COLUMNS) + [f"cannot simulate: {sw.errors[k]}"])
+            continue
+        cells += [q(sw.figures[c][k], u) for c, u in COLUMNS]
+        cells.append("pass" if sw.passed[k] else "FAIL: " + ", ".join(sw.failing[k]))
+        rows.append(cells)
+    table = _grid([r[:-1] for r in rows])
+    lines = [f"{sw.case.title} — sweep ({sw.engine} engine, {len(sw.points)} points)", ""]
+    lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
+    return "\n".join(lines) + "\n"
+
+
+def sweep_csv(sw) -> str:
+    buf = io.StringIO()
+    wr = csv.writer(buf, lineterminator="\n")
+    wr.writerow([f"{a.path} [{a.unit or '1'}]" for a in sw.axes] + [f"{c.rsplit('_', 1)[0]} [{u}]"
+                                                                     for c, u in COLUMNS] + ["pass", "note"])
+    for k, p in enumerate(sw.points):
+        vals = ["" if sw.figures[c][k] is None else f"{sw.figures[c][k]:.9g}" for c, _ in COLUMNS]
+        note = sw.errors[k] or "; ".join(sw.failing[k])
+        wr.writerow([f"{x:.9g}" for x in p] + vals + [str(bool(sw.passed[k])).lower(), note])
+    return buf.getvalue()
+
+
+def _arr(sw, col):
+    return np.array([np.nan if x is None else x for x in sw.figures[col]], dtype=float)
+
+
+def _eng_axis(axis, a) -> None:
+    """Engineering-unit ticks; on a log axis majors at 1, 2, 5 × 10^k and no minor labels."""
+    from matplotlib.ticker import EngFormatter, LogLocator, NullFormatter
+
+    if a.log:
+        axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+        axis.set_minor_formatter(NullFormatter())
+    axis.set_major_formatter(EngFormatter(unit=a.unit))
+
+
+def sweep_figure(sw):
+    """1 value: figures against it (failing points marked); 2 values: filled contours."""
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import EngFormatter
+
+    case = sw.case
+    limit_v = case.switch.rated_voltage * case.checks.derating if case.switch.rated_voltage else None
+    if len(sw.axes) == 1:
+        ax0 = sw.axes[0]
+        x = sw.points[:, 0]
+        fig = Figure(figsize=(9, 7), layout="constrained")
+        a1, a2, a3 = fig.subplots(3, 1, sharex=True)
+        a1.plot(x, _arr(sw, "peak_voltage_V"), "o-", ms=3, label="peak switch-node voltage")
+        if limit_v:
+            a1.axhline(limit_v, color="C3", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g}")
+        a2.plot(x, _arr(sw, "to_zero_s"), "o-", ms=3, label="decay to zero")
+        if any(v is not None for v in sw.figures["release_s"]):
+            a2.plot(x, _arr(sw, "release_s"), "s-", ms=3, label="release")
+        if case.checks.max_release_time:
+            a2.axhline(case.checks.max_release_time, color="C3", ls="--", lw=1, label="max release time")
+        a3.plot(x, _arr(sw, "clamp_energy_J"), "o-", ms=3, label="clamp energy")
+        a3.plot(x, _arr(sw, "avalanche_energy_J"), "^-", ms=3, label="avalanche energy")
+        fails = ~sw.passed
+        for ax, col in ((a1, "peak_voltage_V"), (a2, "to_zero_s"), (a3, "clamp_energy_J")):
+            if fails.any():
+                ax.plot(x[fails], _arr(sw, col)[fails], "x", color="C3", ms=8, label="fails a check")
+            ax.legend(fontsize=8)
+            ax.grid(True, lw=0.3)
+        for ax, u in ((a1, "V"), (a2, "s"), (a3, "J")):
+            ax.yaxis.set_major_formatter(EngFormatter(unit=u))
+        if ax0.log:
+            a3.set_xscale("log")
+        _eng_axis(a3.xaxis, ax0)
+        a3.set_xlabel(ax0.path)
+    else:
+        ax0, ax1 = sw.axes
+        n0, n1 = len(ax0.values), len(ax1.values)
+        fig = Figure(figsize=(11, 4.8), layout="constrained")
+        panels = fig.subplots(1, 2)
+        for ax, col, unit, title in ((panels[0], "peak_voltage_V", "V", "peak switch-node voltage"),
+                                     (panels[1], "release_s" if any(v is not None for v in sw.figures["release_s"])
+                                      else "to_zero_s", "s", "release time")):
+            z = _arr(sw, col).reshape(n0, n1)
+            cs = ax.contourf(ax1.values, ax0.values, z, levels=14, cmap="viridis")
+            cb = fig.colorbar(cs, ax=ax, format=EngFormatter(unit=unit))
+            cb.set_label(title if col != "to_zero_s" else "decay to zero")
+            ok = sw.passed.reshape(n0, n1).astype(float)
+            if 0 < ok.sum() < ok.size:
+                ax.contour(ax1.values, ax0.values, ok, levels=[0.5], colors="w", linewidths=2)
+            ax.plot(*np.meshgrid(ax1.values, ax0.values)[::1], "k.", ms=1.5)
+            ax.set_xlabel(ax1.path)
+            ax.set_ylabel(ax0.path)
+            if ax1.log:
+                ax.set_xscale("log")
+            if ax0.log:
+                ax.set_yscale("log")
+            for axis, a in ((ax.xaxis, ax1), (ax.yaxis, ax0)):
+                _eng_axis(axis, a)
+        panels[0].set_title("white line: boundary of passing designs", fontsize=9)
+    fig.suptitle(f"{case.title} — sweep", fontsize=11)
+    return fig

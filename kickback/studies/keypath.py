@@ -1,0 +1,105 @@
+"""Case values by key path: ``supply.voltage``, ``coil.inductance``, ``clamp[0].element[1].voltage``.
+
+The paths are the case file's own keys, so a sweep or a tolerance names a value the way the
+case file does.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+
+from kickback.case import Case
+from kickback.errors import CaseError
+
+_PART = re.compile(r"([a-z_]+)(?:\[(\d+)\])?$")
+#: unit of each numeric key, for parsing FROM:TO strings and labelling axes
+UNITS = {
+    "voltage": "V", "inductance": "H", "resistance": "Ω", "capacitance": "F", "release_current": "A",
+    "release_delay": "s", "initial_current": "A", "on_resistance": "Ω", "saturation_voltage": "V",
+    "fall_time": "s", "breakdown_voltage": "V", "avalanche_resistance": "Ω", "body_diode_voltage": "V",
+    "rated_voltage": "V", "rated_avalanche_energy": "J", "forward_voltage": "V", "at_current": "A",
+    "saturation_current": "A", "series_resistance": "Ω", "temperature": "K", "rated_reverse_voltage": "V",
+    "rated_surge_current": "A", "dynamic_resistance": "Ω", "rated_pulse_energy": "J", "rated_peak_power": "W",
+    "rated_pulse_width": "s", "rated_energy": "J", "max_release_time": "s", "max_peak_voltage": "V",
+    "max_decay_time": "s", "max_clamp_energy": "J", "ideality": "", "exponent": "", "derating": "",
+    "energy_derating": "",
+}
+_TABLES = {"supply": "supply", "coil": "coil", "switch": "switch", "checks": "checks"}
+
+
+def _split(path: str) -> list[tuple[str, int | None]]:
+    parts = []
+    for raw in path.split("."):
+        m = _PART.fullmatch(raw.strip())
+        if m is None:
+            raise CaseError(f"cannot read the key path {path!r} (expected e.g. 'coil.inductance' or "
+                            "'clamp[0].element[1].voltage')", key=path)
+        parts.append((m[1], None if m[2] is None else int(m[2])))
+    return parts
+
+
+def unit_of(path: str) -> str:
+    """The unit symbol of the value a key path names ('' for a plain number)."""
+    leaf = _split(path)[-1][0]
+    if leaf not in UNITS:
+        raise CaseError(f"{leaf!r} is not a numeric case value (expected one of: {', '.join(sorted(UNITS))})",
+                        key=path)
+    return UNITS[leaf]
+
+
+def get_value(case: Case, path: str) -> float | None:
+    """The value at ``path`` in ``case``."""
+    obj = case
+    for name, index in _split(path):
+        obj = _step(obj, name, index, path)
+    return obj
+
+
+def set_value(case: Case, path: str, value: float) -> Case:
+    """A copy of ``case`` with the value at ``path`` replaced (frozen dataclasses, rebuilt upwards)."""
+    unit_of(path)
+    return _set(case, _split(path), float(value), path)
+
+
+def _field_name(obj, name: str) -> str:
+    if isinstance(obj, Case):
+        if name == "clamp":
+            return "clamps"
+        if name in _TABLES:
+            return _TABLES[name]
+    if name == "element":
+        return "elements"
+    return name
+
+
+def _step(obj, name, index, path):
+    attr = _field_name(obj, name)
+    if not dataclasses.is_dataclass(obj) or attr not in {f.name for f in dataclasses.fields(obj)}:
+        raise CaseError(f"no key {name!r} here (expected a key of the case file)", key=path)
+    val = getattr(obj, attr)
+    if index is None:
+        if isinstance(val, tuple):
+            raise CaseError(f"{name!r} is a list (expected an index, e.g. {name}[0])", key=path)
+        return val
+    if not isinstance(val, tuple) or not 0 <= index < len(val):
+        n = len(val) if isinstance(val, tuple) else 0
+        raise CaseError(f"index {index} out of range (the case has {n} {name} entries)", key=path)
+    return val[index]
+
+
+def _set(obj, parts, value, path):
+    (name, index), rest = parts[0], parts[1:]
+    attr = _field_name(obj, name)
+    child = _step(obj, name, index, path)
+    if rest:
+        new_child = _set(child, rest, value, path)
+    else:
+        if isinstance(child, bool) or (child is not None and not isinstance(child, float | int)):
+            raise CaseError(f"{name!r} is not a numeric value", key=path)
+        new_child = value
+    if index is None:
+        return dataclasses.replace(obj, **{attr: new_child})
+    items = list(getattr(obj, attr))
+    items[index] = new_child
+    return dataclasses.replace(obj, **{attr: tuple(items)})

@@ -1,0 +1,153 @@
+"""Sweeps: any numeric case value (one or two of them) over a range, every point simulated."""
+
+from __future__ import annotations
+
+import itertools
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from kickback.case import Case
+from kickback.errors import CaseError, KickbackError
+from kickback.studies.keypath import get_value, set_value, unit_of
+
+#: figures reported per point: column name, unit
+COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
+           ("to_10_percent_s", "s"), ("to_zero_s", "s"), ("release_s", "s"))
+_SPEC = re.compile(r"(?P<key>[^=]+)=(?P<lo>[^:]+):(?P<hi>[^:]+)(?::(?P<n>\d+))?$")
+
+
+@dataclass(frozen=True)
+class Axis:
+    """One swept value: key path, the values [SI], unit symbol, logarithmic spacing."""
+
+    path: str
+    values: np.ndarray
+    unit: str
+    log: bool = False
+
+
+def parse_vary(spec: str, log: bool = False, default_n: int = 11) -> Axis:
+    """Read ``KEY=FROM:TO[:N]``; FROM and TO as quantities ("12 V") or plain SI numbers.
+
+    Raises
+    ------
+    CaseError — with key "--vary" and what was expected.
+    """
+    from kickback.units import parse_quantity
+
+    m = _SPEC.fullmatch(spec.strip())
+    if m is None:
+        raise CaseError(f"cannot read {spec!r} (expected KEY=FROM:TO[:N], e.g. "
+                        "clamp[0].element[1].voltage=12V:36V:13)", key="--vary")
+    key = m["key"].strip()
+    unit = unit_of(key)
+    try:
+        lo, hi = (parse_quantity(_number_or_text(m[x]), unit or "1", key=key) if unit else float(m[x])
+                  for x in ("lo", "hi"))
+    except ValueError as err:
+        raise CaseError(str(err), key="--vary") from None
+    n = int(m["n"]) if m["n"] else default_n
+    if n < 2 or n > 100_000:
+        raise CaseError(f"N = {n} points (expected 2 to 100000)", key="--vary")
+    if lo <= 0 or hi <= 0:
+        raise CaseError(f"{key}: FROM and TO must be positive (got {lo:g} and {hi:g})", key="--vary")
+    values = np.geomspace(lo, hi, n) if log else np.linspace(lo, hi, n)
+    return Axis(key, values, unit, log)
+
+
+def _number_or_text(text: str):
+    text = text.strip()
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
+@dataclass(frozen=True)
+class SweepResult:
+    """Figures at every point of the sweep grid (first axis varies slowest)."""
+
+    case: Case
+    axes: tuple[Axis, ...]
+    points: np.ndarray  # (n_points, n_axes) [SI]
+    figures: dict  # column → array (NaN-free: None where a time does not occur)
+    passed: np.ndarray  # bool per point
+    failing: list  # list of failing check names per point
+    errors: list  # None or the message why a point could not be simulated
+    engine: str
+
+    def rows(self) -> list[dict]:
+        out = []
+        for k in range(len(self.points)):
+            row = {ax.path: float(self.points[k, j]) for j, ax in enumerate(self.axes)}
+            row |= {c: self.figures[c][k] for c, _ in COLUMNS}
+            row |= {"pass": bool(self.passed[k]), "failing_checks": self.failing[k], "error": self.errors[k]}
+            out.append(row)
+        return out
+
+    def to_dict(self) -> dict:
+        return {"title": self.case.title, "engine": self.engine,
+                "axes": [{"key": a.path, "unit": a.unit, "log": a.log, "values": a.values.tolist()}
+                         for a in self.axes], "points": self.rows()}
+
+
+def point_figures(case: Case) -> dict:
+    """Simulate one point (detailed engine) and keep only the sweep's columns (picklable)."""
+    from kickback.simulation import simulate
+
+    try:
+        r = simulate(case)
+    except KickbackError as err:
+        return {"error": getattr(err, "message", None) or str(err)}
+    f = r.figures
+    return {"peak_voltage_V": f.peak_voltage_V, "clamp_energy_J": sum(c.energy_J for c in f.clamps),
+            "avalanche_energy_J": f.avalanche_energy_J, "to_10_percent_s": f.to_10_percent_s,
+            "to_zero_s": f.to_zero_s, "release_s": f.release_s, "pass": r.passed,
+            "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed], "error": None}
+
+
+def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=None) -> SweepResult:
+    """Simulate every grid point of ``axes`` (one or two).
+
+    Parameters
+    ----------
+    case : Case
+    axes : tuple of Axis — one or two
+    workers : int — worker processes for the detailed engine (1: in this process)
+    progress : callable(n_done) or None — called as points finish
+
+    Returns
+    -------
+    SweepResult — a point that cannot be simulated carries its message; the others come back.
+    """
+    if not 1 <= len(axes) <= 2:
+        raise CaseError(f"{len(axes)} swept values (expected one or two --vary)", key="--vary")
+    for ax in axes:
+        get_value(case, ax.path)  # raises for a path the case does not have
+    points = np.array(list(itertools.product(*(ax.values for ax in axes))), dtype=float)
+    variants = []
+    for p in points:
+        c = case
+        for ax, x in zip(axes, p, strict=True):
+            c = set_value(c, ax.path, x)
+        variants.append(c)
+    if workers > 1 and len(variants) > 1:
+        from concurrent.futures import ProcessPoolExecutor
+
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            out = []
+            for k, res in enumerate(pool.map(point_figures, variants, chunksize=max(1, len(variants) // 64))):
+                out.append(res)
+                if progress:
+                    progress(k + 1)
+    else:
+        out = []
+        for k, c in enumerate(variants):
+            out.append(point_figures(c))
+            if progress:
+                progress(k + 1)
+    figs = {c: [o.get(c) for o in out] for c, _ in COLUMNS}
+    return SweepResult(case, tuple(axes), points, figs, np.array([bool(o.get("pass")) for o in out]),
+                       [o.get("failing_checks", []) for o in out], [o.get("error") for o in out], "detailed")
