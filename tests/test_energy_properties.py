@@ -25,7 +25,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
-from kickback.simulate import simulate
+from kickback.simulation import simulate
 
 FAMILIES = ("shockley", "diode-zener", "tvs-to-ground", "rc-snubber")
 

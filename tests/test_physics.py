@@ -27,7 +27,7 @@ import pytest
 from scipy import constants, integrate, linalg, optimize, signal
 
 from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
-from kickback.simulate import simulate
+from kickback.simulation import simulate
 
 # ---------------------------------------------------------------------------------------------
 # closed forms of the first-order decay against a constant clamp voltage
