@@ -177,6 +177,46 @@ def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot
     sys.exit(0 if sw.passed.all() else 1)
 
 
+@main.command()
+@click.argument("case", metavar="CASE.toml")
+@click.option("--workers", type=click.IntRange(1, 64), default=None,
+              help="Worker processes (default: the machine's cores).")
+@click.option("--json", "as_json", is_flag=True, help="Print the choice as JSON only.")
+@click.option("--out", "out_dir", metavar="DIR", help="Write choose.json and the trade-off plot into DIR.")
+@click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
+def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+    """Search clamp families over standard values (E24 voltages, E12 R and C) against the case's
+    constraints and rank the feasible choices.
+
+    Exit status: 0 when a feasible choice exists, 1 when none does, 2 on bad input.
+    """
+    import os
+
+    from kickback.errors import CaseError
+    from kickback.outputs.choice import choice_table
+    from kickback.outputs.jsonout import to_json
+    from kickback.studies.choose import choose as run_choose
+
+    c = _load(case)
+    workers = workers or min(os.cpu_count() or 1, 8)
+    try:
+        ch = run_choose(c, workers=workers)
+    except CaseError as err:
+        _die(str(err))
+    payload = to_json(ch.to_dict())
+    if out_dir is not None:
+        files = {"choose.json": payload}
+        if not no_plot:
+            from kickback.outputs.choice import tradeoff_figure
+            from kickback.outputs.plots import figure_bytes
+
+            fig = tradeoff_figure(ch)
+            files |= {f"tradeoff.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+        _write_files(Path(out_dir), files)
+    click.echo(payload if as_json else choice_table(ch), nl=False)
+    sys.exit(0 if ch.ranked else 1)
+
+
 def _write_files(out: Path, files: dict) -> None:
     from kickback.outputs.files import write_atomic
 

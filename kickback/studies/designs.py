@@ -86,3 +86,53 @@ def _eng(x: float, unit: str) -> str:
     from kickback.units import format_quantity
 
     return format_quantity(x, unit, digits=3)
+
+
+def _rated_like(case: Case, kind: str) -> dict:
+    """Ratings of the case's own element of this type, carried over to candidates of the type."""
+    keys = ("rated_reverse_voltage", "rated_surge_current", "rated_pulse_energy", "rated_peak_power",
+            "rated_pulse_width", "rated_energy", "rated_voltage")
+    for cl in case.clamps:
+        for el in cl.elements:
+            if el.type == kind:
+                return {k: getattr(el, k) for k in keys if getattr(el, k) is not None}
+    return {}
+
+
+def family_candidates(case: Case) -> dict[str, list[tuple[float, str, Option]]]:
+    """Each family's candidates over standard values: family → [(sizing value, unit, option)].
+
+    Zener and TVS voltages run over E24, resistors and capacitors over E12, from well inside to
+    somewhat beyond the derated switch voltage, so that the trade-off shows both sides of the
+    limit. Ratings given on the case's own elements of a type are carried over to candidates.
+    """
+    from kickback.studies.eseries import values_between
+
+    v_allow = allowed_voltage(case)
+    vs = case.supply.voltage
+    i0 = on_current(case)
+    L = case.coil.inductance
+    head = max(v_allow - vs - DIODE_DROP, 0.1 * vs)
+    d = Element(**(GENERIC_DIODE | _rated_like(case, "diode")), name="D")
+    out: dict[str, list] = {"plain diode": [(0.0, "", Option("plain diode", (Clamp("D", "coil", (d,)),)))]}
+    out["diode + resistor"] = [
+        (r, "Ω", Option(f"diode + {_eng(r, 'Ω')}", (Clamp("D+R", "coil", (d, Element(
+            "resistor", name="R", resistance=r, **_rated_like(case, "resistor")))),)))
+        for r in values_between(0.05 * head / i0, 1.3 * head / i0, "E12")]
+    out["diode + Zener"] = [
+        (vz, "V", Option(f"diode + {_eng(vz, 'V')} Zener", (Clamp("D+Z", "coil", (d, Element(
+            "zener", name="Z", voltage=vz, **_rated_like(case, "zener")))),)))
+        for vz in values_between(max(0.1 * vs, 2.0), 1.3 * head, "E24")]
+    out["TVS to ground"] = [
+        (vt, "V", Option(f"TVS {_eng(vt, 'V')} to ground", (Clamp("TVS", "switch", (Element(
+            "tvs", name="TVS", voltage=vt, **_rated_like(case, "tvs")),)),)))
+        for vt in values_between(1.1 * vs, 1.3 * v_allow, "E24")]
+    c_rule = L * i0 * i0 / max(v_allow - vs, 0.05 * vs) ** 2
+    rc = []
+    for c in values_between(0.1 * c_rule, 10 * c_rule, "E12"):
+        r = nearest(math.sqrt(L / c), "E12")
+        rc.append((c, "F", Option(f"RC {_eng(r, 'Ω')} + {_eng(c, 'F')} across switch", (Clamp("RC", "switch", (
+            Element("resistor", name="R", resistance=r, **_rated_like(case, "resistor")),
+            Element("capacitor", name="C", capacitance=c, **_rated_like(case, "capacitor")))),))))
+    out["RC snubber"] = rc
+    return out

@@ -1,0 +1,103 @@
+"""Table of ranked clamp choices and the release-versus-voltage trade-off figure."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.units import format_quantity as q
+
+
+def choice_table(ch, n_show: int = 12) -> str:
+    lines = [ch.case.title, "", f"feasible choices ({len(ch.ranked)} of {len(ch.ranked) + len(ch.rejected)}), "
+             "fastest release first, then switch-voltage margin, then fewest parts:"]
+    rows = [["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"]]
+    for k, c in enumerate(ch.ranked[:n_show]):
+        f = c.figures
+        rows.append([str(k + 1), c.option.name, q(f["peak_voltage_V"], "V"), f"{100 * c.margin:.1f} %",
+                     q(c.release, "s"), q(f["clamp_energy_J"], "J"), str(c.parts)])
+    lines += _grid(rows)
+    if len(ch.ranked) > n_show:
+        lines.append(f"  … {len(ch.ranked) - n_show} more feasible (see --json)")
+    if ch.top:
+        lines += ["", "top choices simulated again with the detailed engine:"]
+        for k, r in enumerate(ch.top):
+            f = r.figures
+            lines.append(f"  {k + 1}. {ch.ranked[k].option.name}: peak {q(f.peak_voltage_V, 'V')}, "
+                         f"release {q(f.release_s, 's')}, to zero {q(f.to_zero_s, 's')}, "
+                         f"clamp energy {q(sum(c.energy_J for c in f.clamps), 'J')}, "
+                         f"{'pass' if r.passed else 'FAIL'}")
+    lines += ["", "why the others fail:"]
+    by_family: dict[str, list] = {}
+    for c in ch.rejected:
+        by_family.setdefault(c.family, []).append(c)
+    for fam, cs in by_family.items():
+        reasons = {}
+        for c in cs:
+            reasons.setdefault(c.why_not, []).append(c.option.name)
+        for why, names in reasons.items():
+            shown = ", ".join(names[:4]) + (f" … ({len(names)})" if len(names) > 4 else "")
+            lines.append(f"  {fam}: {shown} — {why}")
+    lines += ["", "Candidates use a generic diode (0.9 V at 1 A) and ideal Zener/TVS; ratings of the case's own",
+              "elements of each type are carried over. Choose real parts and check them with `kickback run`.",
+              "", _wrap(CAUTIONS)]
+    return "\n".join(lines) + "\n"
+
+
+def tradeoff_figure(ch):
+    """Release time (or decay to zero) against peak switch voltage, one line per family."""
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import EngFormatter
+
+    from kickback.studies.designs import allowed_voltage
+
+    case = ch.case
+    fig = Figure(figsize=(10, 6.5), layout="constrained")
+    ax = fig.subplots()
+    cands = list(ch.ranked) + list(ch.rejected)
+    fams = list(dict.fromkeys(c.family for c in cands))
+    e_max = max((c.figures.get("clamp_energy_J") or 0.0) for c in cands) or 1.0
+    for n, fam in enumerate(fams):
+        cs = sorted((c for c in cands if c.family == fam and c.figures.get("error") is None),
+                    key=lambda c: c.value)
+        if not cs:
+            continue
+        x = np.array([c.figures["peak_voltage_V"] for c in cs])
+        y = np.array([c.release for c in cs], dtype=float)
+        size = 15 + 160 * np.array([(c.figures.get("clamp_energy_J") or 0.0) for c in cs]) / e_max
+        ok = np.array([c.ok for c in cs])
+        color = f"C{n}"
+        ax.plot(x, y, "-", color=color, lw=1, alpha=0.7)
+        ax.scatter(x[ok], y[ok], s=size[ok], color=color, label=fam, zorder=3)
+        ax.scatter(x[~ok], y[~ok], s=size[~ok], facecolors="none", edgecolors=color, zorder=3)
+    v_allow = allowed_voltage(case)
+    ax.axvline(v_allow, color="k", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g}")
+    t_max = case.checks.max_release_time
+    if t_max:
+        ax.axhline(t_max, color="k", ls=":", lw=1, label="max release time")
+    x0, x1 = ax.get_xlim()
+    y0, y1 = ax.get_ylim()
+    ax.fill_between([x0, v_allow], y0, t_max if t_max else y1, color="C2", alpha=0.08, lw=0,
+                    label="feasible region")
+    ax.set_xlim(x0, x1)
+    ax.set_ylim(y0, y1)
+    if ch.ranked:
+        best = ch.ranked[0]
+        ax.annotate(f"best: {best.option.name}", (best.figures["peak_voltage_V"], best.release),
+                    textcoords="offset points", xytext=(-20, 25), fontsize=9,
+                    arrowprops={"arrowstyle": "->", "lw": 0.8})
+    from matplotlib.ticker import LogLocator, NullFormatter
+
+    ax.set_yscale("log")
+    ax.yaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 3.0, 5.0, 7.0)))
+    ax.xaxis.set_major_formatter(EngFormatter(unit="V"))
+    ax.yaxis.set_major_formatter(EngFormatter(unit="s"))
+    ax.yaxis.set_minor_formatter(NullFormatter())
+    has_release = case.coil.release_current is not None
+    ax.set_xlabel("peak switch-node voltage")
+    ax.set_ylabel(("release time" if has_release else "decay to zero") + " (logarithmic)")
+    ax.grid(True, lw=0.3)
+    ax.legend(fontsize=8, loc="upper right", title="filled: passes; open: fails; size: clamp energy",
+              title_fontsize=8)
+    fig.suptitle(f"{case.title} — release against switch voltage", fontsize=11)
+    return fig
