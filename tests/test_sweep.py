@@ -13,7 +13,7 @@ from click.testing import CliRunner
 from kickback import load_case
 from kickback.cli import main
 from kickback.errors import CaseError
-from kickback.studies.keypath import get_value, set_value
+from kickback.keypath import get_value, set_value
 from kickback.studies.sweep import parse_vary, run_sweep
 
 CASES = Path(__file__).resolve().parent.parent / "cases"

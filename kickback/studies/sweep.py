@@ -10,7 +10,7 @@ import numpy as np
 
 from kickback.case import Case
 from kickback.errors import CaseError, KickbackError
-from kickback.studies.keypath import get_value, set_value, unit_of
+from kickback.keypath import get_value, set_value, unit_of
 
 #: figures reported per point: column name, unit
 COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
