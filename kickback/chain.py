@@ -163,21 +163,30 @@ class Chain:
         return float(sum(float(law.voltage(i)) for law in self.active))
 
     def _solve_numeric(self, vx: float) -> float:
+        """Series solve for chains of several nonlinear laws: the current at chain voltage ``vx``."""
         lo, hi = self.band
         if lo <= vx <= hi:
             return 0.0
-        sign = 1.0 if vx > hi else -1.0
+
+        def g(x):
+            return self._total_voltage(x) - vx
+
         floor = max(law.i_floor for law in self.active)
-        if sign < 0 and floor == 0.0:
-            return 0.0
+        if vx < lo and math.isfinite(floor):
+            if floor == 0.0:
+                return 0.0
+            # reverse, towards a diode's saturation current: the root lies in (floor, 0)
+            edge = floor * (1.0 - 1e-12)
+            if g(edge) >= 0.0:
+                return edge  # the chain is saturated: within 1e-12 of its reverse current limit
+            return brentq(g, edge, 0.0, xtol=1e-15 * abs(floor), rtol=1e-13)
+        sign = 1.0 if vx > hi else -1.0
         a, b = 0.0, sign * 1e-6
-        while (self._total_voltage(b) - vx) * sign < 0:
+        for _ in range(200):
+            if g(b) * sign >= 0:
+                return brentq(g, min(a, b), max(a, b), xtol=1e-15 * abs(b), rtol=1e-13)
             a, b = b, b * 4.0
-            if sign < 0 and b < floor:
-                b = 0.5 * (a + floor)
-            if abs(b) > 1e12:
-                raise ArithmeticError("chain current unbounded")
-        return brentq(lambda x: self._total_voltage(x) - vx, min(a, b), max(a, b), xtol=1e-15, rtol=1e-13)
+        raise ArithmeticError(f"no chain current reaches {vx:g} V")
 
     def element_voltages(self, current, voltage, v_cap=0.0) -> list[np.ndarray]:
         """Voltage [V] across each element (capacitors included) at chain current [A].
@@ -199,6 +208,14 @@ class Chain:
             k = self.laws.index(self._smooth[0])
             others = sum(out[j] for j, law in enumerate(self.laws) if j != k)
             out[k] = np.where(i != 0, vx + (v_cap if self.capacitance is not None else 0.0) - others, out[k])
+        elif self.pieces is None and self.active:
+            # several nonlinear laws: a saturated reverse diode holds what its clipped law cannot
+            # show; give the residual to the law with the smallest reverse current
+            k = max(range(len(self.laws)), key=lambda j: self.laws[j].i_floor if self.laws[j] is not None
+                    else -math.inf)
+            total = sum(out)
+            chain_v = vx + (v_cap if self.capacitance is not None else 0.0)
+            out[k] = np.where(i != 0, out[k] + (chain_v - total), out[k])
         # share the held-off voltage among blocking elements where the chain carries no current
         rest = np.where(i == 0, vx, 0.0)
         for k, law in enumerate(self.laws):

@@ -68,30 +68,60 @@ class Figures:
 
 
 def first_crossing_below(t: np.ndarray, x: np.ndarray, level: float) -> float | None:
-    """Last time [s] at which ``x`` falls below ``level`` and stays there (linear interpolation)."""
+    """Last time [s] at which ``|x|`` falls below ``level`` and stays there.
+
+    ``x`` is taken as linear between samples (it may change sign inside a step); None when it
+    never falls below for good within the record.
+    """
+    x = np.asarray(x, dtype=float)
     above = np.nonzero(np.abs(x) >= level)[0]
     if above.size == 0:
         return None
     k = int(above[-1])
     if k == x.size - 1:
         return None
-    x0, x1 = abs(x[k]), abs(x[k + 1])
-    return float(t[k] + (t[k + 1] - t[k]) * (x0 - level) / (x0 - x1)) if x0 != x1 else float(t[k])
+    x0, x1 = x[k], x[k + 1]
+    edge = level if x0 >= level else -level  # the side it leaves from
+    frac = (x0 - edge) / (x0 - x1) if x0 != x1 else 0.0
+    return float(t[k] + (t[k + 1] - t[k]) * frac)
 
 
 def _duration_above(t: np.ndarray, x: np.ndarray, level: float) -> float:
-    """Total time [s] with ``|x| > level``, crossings located by linear interpolation."""
-    a = np.abs(np.asarray(x, dtype=float)) - level
-    on = a > 0
-    if not on.any():
-        return 0.0
+    """Total time [s] with ``|x| > level``, ``x`` linear between samples (sign changes included)."""
+    x = np.asarray(x, dtype=float)
+    x0, x1 = x[:-1], x[1:]
+    d = x1 - x0
     dt = np.diff(t)
-    both = on[:-1] & on[1:]
-    total = float(np.sum(dt[both]))
-    for k in np.nonzero(on[:-1] ^ on[1:])[0]:
-        frac = a[k] / (a[k] - a[k + 1])  # where the excess crosses zero inside the step
-        total += float(dt[k] * ((1.0 - frac) if not on[k] else frac))
-    return total
+
+    def share_above(lim):  # fraction of each step with x > lim
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = (lim - x0) / d
+        return np.where(d > 0, np.clip(1.0 - s, 0.0, 1.0),
+                        np.where(d < 0, np.clip(s, 0.0, 1.0), (x0 > lim).astype(float)))
+
+    share_below = 1.0 - share_above(-level)  # fraction with x < -level (ties have no length)
+    return float(np.sum(dt * (share_above(level) + share_below)))
+
+
+def refine_crossing(w: Waveforms, t_guess: float, signal, level: float) -> float:
+    """A crossing time [s] of ``|signal(state)| = level`` located on the dense solution near
+    ``t_guess`` (from the samples), to the solver's accuracy rather than the sample spacing."""
+    from scipy.optimize import brentq
+
+    k = int(np.searchsorted(w.t, t_guess))
+    lo, hi = float(w.t[max(k - 1, 0)]), float(w.t[min(k, w.t.size - 1)])
+    if not lo < hi:
+        return t_guess
+
+    def g(tt):
+        return abs(float(signal(w.state(tt)))) - level
+
+    try:
+        if g(lo) * g(hi) < 0:
+            return float(brentq(g, lo, hi, xtol=1e-15 * max(hi, 1e-300), rtol=1e-14))
+    except ValueError:
+        pass
+    return t_guess
 
 
 def chain_signals(w: Waveforms, k: int):
@@ -187,6 +217,8 @@ def compute_figures(w: Waveforms) -> Figures:
                             "the armature may never pull in")
         else:
             t_rel = first_crossing_below(w.t, i, rel)
+            if t_rel is not None:
+                t_rel = refine_crossing(w, t_rel, lambda y: y[0], rel)
             release = None if t_rel is None else t_rel + case.coil.release_delay
     if w.bound_hit:
         findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")
