@@ -96,6 +96,23 @@ class Option:
 
 
 @dataclass(frozen=True)
+class Tolerance:
+    """The spread of one case value (``[tolerance."key.path"]``) or of the coil temperature.
+
+    ``low``/``high`` are the band's absolute ends [SI]; a normal distribution puts them at
+    ``±k_sigma`` standard deviations about their midpoint.
+    """
+
+    path: str  # case key path, or "coil_temperature"
+    low: float
+    high: float
+    distribution: str = "uniform"  # uniform | normal
+    k_sigma: float = 3.0
+    reference: float | None = None  # [K] coil_temperature only: temperature of coil.resistance
+    line: int | None = None  # where it was given, for messages
+
+
+@dataclass(frozen=True)
 class Checks:
     derating: float = 0.8  # fraction of voltage/current ratings allowed (common practice, no source)
     energy_derating: float | None = None  # fraction of energy ratings allowed; None: same as derating
@@ -120,3 +137,4 @@ class Case:
     source: str = "<case>"  # file name used in messages
     text: str = ""  # the case text as loaded
     options: tuple[Option, ...] = ()  # alternative clamp sets to compare
+    tolerances: tuple[Tolerance, ...] = ()  # spreads for the tolerance study

@@ -92,7 +92,7 @@ _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
            "max_clamp_energy": _q("J")}
-_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks")
+_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance")
 _OPTION = {"name": _Field("s", required=True), "clamp": _Field("t")}
 
 _COMMON = {"type": _Field("c", required=True, choices=ELEMENT_TYPES), "name": _STRING}
@@ -417,5 +417,12 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
     clamps = _clamps(ctx, doc.get("clamp"))
     options = _options(ctx, doc.get("option"))
     checks = Checks(**_table(ctx, ("checks",), doc.get("checks", {}), _CHECKS, "[checks]"))
-    return Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
+    case = Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
                 checks=checks, source=name, text=text, options=options)
+    if "tolerance" in doc:
+        from dataclasses import replace
+
+        from kickback.caseio_tol import tolerances
+
+        case = replace(case, tolerances=tolerances(ctx, doc["tolerance"], case))
+    return case

@@ -105,7 +105,10 @@ def point_figures(case: Case) -> dict:
     return {"peak_voltage_V": f.peak_voltage_V, "clamp_energy_J": sum(c.energy_J for c in f.clamps),
             "avalanche_energy_J": f.avalanche_energy_J, "to_10_percent_s": f.to_10_percent_s,
             "to_zero_s": f.to_zero_s, "release_s": f.release_s, "pass": r.passed,
-            "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed], "error": None}
+            "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed], "error": None,
+            "checks": [(f"{c.part} {c.quantity}", c.value, c.limit, c.margin, c.passed) for c in r.checks],
+            "stored_energy_J": f.stored_energy_J, "energy_balance_error": f.energy_balance_error} | {
+                f"clamp[{k}].energy_J": c.energy_J for k, c in enumerate(f.clamps)}
 
 
 def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=None) -> SweepResult:

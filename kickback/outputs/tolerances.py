@@ -1,0 +1,127 @@
+"""Table, sample CSV and histograms of a tolerance study."""
+
+from __future__ import annotations
+
+import csv
+import io
+
+import numpy as np
+
+from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.studies.tolerance import PERCENTILES
+from kickback.units import format_quantity as q
+
+LABELS = {"peak_voltage_V": "peak switch V", "clamp_energy_J": "clamp energy",
+          "avalanche_energy_J": "avalanche energy", "to_zero_s": "decay to zero", "release_s": "release"}
+
+
+def _label(tr, f: str) -> str:
+    if f.startswith("clamp["):
+        k = int(f[6:f.index("]")])
+        return f"clamp '{tr.case.clamps[k].name}' energy"
+    return LABELS[f]
+
+
+def _unit(path: str) -> str:
+    if path == "coil_temperature":
+        return "K"
+    from kickback.keypath import unit_of
+
+    return unit_of(path)
+
+
+def _params(d: dict) -> str:
+    parts = []
+    for k, v in d.items():
+        if k == "coil_temperature":
+            parts.append(f"{k} {v - 273.15:.1f} °C")
+        else:
+            u = _unit(k)
+            parts.append(f"{k} {q(v, u) if u else f'{v:.4g}'}")
+    return ", ".join(parts)
+
+
+def tolerance_table(tr) -> str:
+    lines = [f"{tr.case.title} — tolerance study: {len(tr.samples)} samples, seed {tr.seed}, "
+             f"{tr.engine} engine", ""]
+    lo, hi = tr.yield_ci
+    n_fail = int((~tr.passed).sum())
+    lines.append(f"yield: {100 * tr.yield_:.2f} % of samples pass every check "
+                 f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, exact binomial); {n_fail} fail")
+    errs = sum(e is not None for e in tr.errors)
+    if errs:
+        lines.append(f"{errs} samples could not be simulated (counted as failing)")
+    lines += ["", "percentiles"]
+    rows = [["figure"] + [f"{p:g} %" if p not in (0.0, 100.0) else ("min" if p == 0 else "max")
+                          for p in PERCENTILES]]
+    for f, unit, _ in tr.figure_list:
+        d = tr.percentiles.get(f, {})
+        if all(v is None for v in d.values()):
+            continue
+        rows.append([_label(tr, f)] + [q(d[p], unit) for p in PERCENTILES])
+    lines += _grid(rows)
+    if tr.worst_per_check:
+        lines += ["", "worst sample per check"]
+        for name, w in tr.worst_per_check.items():
+            m = "—" if w["margin"] is None else f"{100 * w['margin']:+.1f} %"
+            lines.append(f"  {name}: margin {m} at {_params(w['params'])}")
+    if tr.corners:
+        lines += ["", "worst case: band corners and a search inside the bands"]
+        for f, unit, _ in tr.figure_list:
+            c, s = tr.corners.get(f), tr.search.get(f)
+            if c is None or s is None:
+                continue
+            note = "  (inside the bands: the corners miss it)" if s["interior"] else ""
+            lines.append(f"  {_label(tr, f)}: corners up to {q(c['max'], unit)}, search {q(s['max'], unit)}{note}")
+            lines.append(f"      at {_params(s['params'])}")
+    lines += ["", "sensitivity (change of each figure as one value runs over its band, the others nominal)"]
+    for f, unit, _ in tr.figure_list:
+        sw = tr.sensitivity.get(f)
+        if not sw or all(abs(x) == 0 for _, x in sw):
+            continue
+        top = ", ".join(f"{n} {q(x, unit)}" for n, x in sw[:4])
+        lines.append(f"  {_label(tr, f)}: {top}")
+    lines += ["", _wrap(CAUTIONS)]
+    return "\n".join(lines) + "\n"
+
+
+def samples_csv(tr) -> str:
+    buf = io.StringIO()
+    wr = csv.writer(buf, lineterminator="\n")
+    wr.writerow([f"{n} [{_unit(n) or '1'}]" for n in tr.names] + [f"{f} [{u}]".replace(f"_{u} [", " [")
+                                                                  for f, u, _ in tr.figure_list] + ["pass", "note"])
+    for k, row in enumerate(tr.samples):
+        figs = ["" if np.isnan(tr.figures[f][k]) else f"{tr.figures[f][k]:.9g}" for f, _, _ in tr.figure_list]
+        wr.writerow([f"{x:.9g}" for x in row] + figs + [str(bool(tr.passed[k])).lower(), tr.errors[k] or ""])
+    return buf.getvalue()
+
+
+def tolerance_figure(tr):
+    """Histograms of the figures with their limits drawn."""
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import EngFormatter
+
+    case = tr.case
+    shown = [(f, u) for f, u, _ in tr.figure_list if np.isfinite(tr.figures[f]).any() and np.nanmax(tr.figures[f]) > 0]
+    fig = Figure(figsize=(10, 2.6 * max(1, (len(shown) + 1) // 2)), layout="constrained")
+    axes = np.atleast_1d(fig.subplots((len(shown) + 1) // 2, 2)).ravel()
+    limits = {"peak_voltage_V": case.switch.rated_voltage * case.checks.derating if case.switch.rated_voltage
+              else None, "release_s": case.checks.max_release_time, "to_zero_s": case.checks.max_decay_time,
+              "clamp_energy_J": case.checks.max_clamp_energy}
+    for ax, (f, u) in zip(axes, shown, strict=False):
+        a = tr.figures[f][np.isfinite(tr.figures[f])]
+        ax.hist(a, bins=min(60, max(10, int(np.sqrt(a.size)))), color="C0", alpha=0.8)
+        lim = limits.get(f)
+        if lim:
+            ax.axvline(lim, color="C3", ls="--", lw=1.2, label=f"limit {q(lim, u)}")
+            ax.legend(fontsize=8)
+        c = tr.corners.get(f)
+        if c:
+            ax.axvline(c["max"], color="k", ls=":", lw=1, label="worst corner")
+        ax.set_title(_label(tr, f), fontsize=9)
+        ax.xaxis.set_major_formatter(EngFormatter(unit=u))
+        ax.set_ylabel("samples")
+    for ax in axes[len(shown):]:
+        ax.set_visible(False)
+    fig.suptitle(f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} %", fontsize=11)
+    return fig

@@ -1,0 +1,165 @@
+"""Tolerance study: copper coefficient, sampling, yield interval, corners, worst-case search,
+reproducibility, the [tolerance] section's errors and the CLI."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from scipy import stats
+
+from kickback import load_case
+from kickback.cli import main
+from kickback.errors import CaseError
+from kickback.models.passive import copper_resistance
+from kickback.studies.tolerance import apply, clopper_pearson, run_tolerance, sample
+
+DATA = Path(__file__).resolve().parent / "data"
+BASE = '''title = "tolerance test (demo data)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "100 mH"
+resistance = "30 Ω"
+[switch]
+type = "ideal"
+[[clamp]]
+across = "coil"
+[[clamp.element]]
+type = "diode"
+model = "constant-drop"
+forward_voltage = "0.7 V"
+[[clamp.element]]
+type = "zener"
+voltage = "20 V"
+[checks]
+max_peak_voltage = "47 V"
+'''
+TOL = BASE + '''[tolerance."coil.inductance"]
+band = "10 %"
+distribution = "normal"
+[tolerance."supply.voltage"]
+min = "21.6 V"
+max = "26.4 V"
+[tolerance."clamp[0].element[1].voltage"]
+band = "±1 V"
+[tolerance.coil_temperature]
+min = "-20 °C"
+max = "85 °C"
+'''
+
+
+def test_copper_coefficient_iec_60028():
+    # IEC 60028: α20 = 0.00393 /K; 100 Ω at 20 °C → 125.545 Ω at 85 °C
+    assert copper_resistance(100.0, 358.15, 293.15) == pytest.approx(125.545, rel=1e-12)
+    case = load_case(TOL)
+    hot = apply(case, [0.1, 24.0, 20.0, 358.15])
+    assert hot.coil.resistance == pytest.approx(30.0 * 1.25545, rel=1e-12)
+
+
+def test_section_parsed_to_absolute_bands():
+    tols = {t.path: t for t in load_case(TOL).tolerances}
+    assert (tols["coil.inductance"].low, tols["coil.inductance"].high) == pytest.approx((0.09, 0.11))
+    assert tols["coil.inductance"].distribution == "normal" and tols["coil.inductance"].k_sigma == 3.0
+    assert (tols["clamp[0].element[1].voltage"].low, tols["clamp[0].element[1].voltage"].high) == (19.0, 21.0)
+    assert tols["coil_temperature"].low == pytest.approx(253.15) and tols["coil_temperature"].reference == 293.15
+
+
+@pytest.mark.parametrize("extra, words", [
+    ('[tolerance."coil.colour"]\nband = "5 %"\n', "not a numeric"),
+    ('[tolerance."coil.inductance"]\nband = "5 V"\n', "wrong unit"),
+    ('[tolerance."coil.inductance"]\nmin = "2 H"\nmax = "1 H"\n', "empty range"),
+    ('[tolerance."coil.inductance"]\nband = "5 %"\ndistribution = "cauchy"\n', "uniform or normal"),
+    ('[tolerance."coil.inductance"]\nspread = "5 %"\n', "unknown key"),
+    ('[tolerance."coil.release_current"]\nband = "5 %"\n', "gives no value"),
+], ids=["unknown-value", "wrong-unit", "empty-range", "distribution", "unknown-key", "unset-value"])
+def test_bad_tolerance_entries(extra, words):
+    with pytest.raises(CaseError, match=words) as err:
+        load_case(BASE + extra, source="tol.toml")
+    assert str(err.value).startswith("tol.toml:") and "tolerance" in str(err.value)
+
+
+def test_sampling_distributions():
+    case = load_case(TOL)
+    x = sample(case, 20000, np.random.default_rng(7))
+    L, vs = x[:, 0], x[:, 1]
+    # normal with the band at ±3σ: σ = 0.01/3 H; uniform: within the band, mean at the middle
+    assert np.std(L) == pytest.approx(0.01 / 3, rel=0.03) and np.mean(L) == pytest.approx(0.1, rel=1e-3)
+    assert vs.min() >= 21.6 and vs.max() <= 26.4 and np.mean(vs) == pytest.approx(24.0, rel=0.01)
+    # Kolmogorov–Smirnov against the uniform law (scipy.stats)
+    assert stats.kstest((vs - 21.6) / 4.8, "uniform").pvalue > 1e-3
+
+
+@pytest.mark.parametrize("k, n", [(0, 50), (37, 50), (50, 50), (990, 1000)], ids=["none", "most", "all", "many"])
+def test_yield_interval_matches_scipy_binomial(k, n):
+    # reference: scipy.stats.binomtest(...).proportion_ci(method="exact") (Clopper–Pearson)
+    ref = stats.binomtest(k, n).proportion_ci(confidence_level=0.95, method="exact")
+    lo, hi = clopper_pearson(k, n)
+    assert lo == pytest.approx(ref.low, abs=1e-12) and hi == pytest.approx(ref.high, abs=1e-12)
+
+
+@pytest.fixture(scope="module")
+def study():
+    return run_tolerance(load_case(TOL), 120, seed=11, workers=2, search_budget=20)
+
+
+def test_corners_bracket_every_sample_of_a_monotone_figure(study):
+    # the clamped peak is Vs + Vd + Vz (first-order clamp, monotone in each value)
+    pk = study.figures["peak_voltage_V"]
+    c = study.corners["peak_voltage_V"]
+    assert np.all(pk <= c["max"] + 1e-9) and np.all(pk >= c["min"] - 1e-9)
+    assert c["max"] == pytest.approx(26.4 + 0.7 + 21.0, rel=1e-9)
+
+
+def test_yield_counts_the_failing_check(study):
+    # fails exactly when Vs + 0.7 + Vz > 47 V: count it independently from the samples
+    x = study.samples
+    expect = (x[:, 1] + 0.7 + x[:, 2]) <= 47.0
+    assert np.array_equal(study.passed, expect)
+    assert study.yield_ == pytest.approx(expect.mean())
+    assert "case peak switch voltage" in study.worst_per_check
+
+
+def test_same_seed_same_numbers(study):
+    again = run_tolerance(load_case(TOL), 120, seed=11, workers=1, search_budget=20)
+    assert np.array_equal(again.samples, study.samples)
+    assert json.dumps(again.to_dict(), sort_keys=True) == json.dumps(study.to_dict(), sort_keys=True)
+    other = run_tolerance(load_case(TOL), 120, seed=12, workers=2, search_budget=20)
+    assert not np.array_equal(other.samples, study.samples)
+
+
+def test_sensitivity_ranks_supply_first_for_the_peak(study):
+    # peak = Vs + Vd + Vz: the supply's band (4.8 V) beats the Zener's (2 V); L does not enter
+    ranked = study.sensitivity["peak_voltage_V"]
+    assert ranked[0][0] == "supply.voltage" and ranked[0][1] == pytest.approx(4.8, rel=1e-9)
+    assert dict(ranked)["coil.inductance"] == pytest.approx(0.0, abs=1e-9)
+
+
+def test_search_finds_an_interior_maximum_the_corners_miss():
+    case = load_case(DATA / "interior_maximum.toml")
+    tr = run_tolerance(case, 40, seed=3, workers=2, search_budget=40)
+    s = tr.search["clamp[1].energy_J"]
+    assert s["interior"], s
+    assert s["max"] > 1.05 * tr.corners["clamp[1].energy_J"]["max"]
+    r = s["params"]["clamp[1].element[0].resistance"]
+    assert 5.0 < r < 400.0, "the worst resistance lies inside the band"
+
+
+def test_cli_tolerance(tmp_path):
+    p = tmp_path / "tol.toml"
+    p.write_text(TOL)
+    res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "30", "--seed", "5", "--workers", "2",
+                                    "--out", str(tmp_path / "o")])
+    assert res.exit_code in (0, 1), res.output
+    assert "yield" in res.stdout and "percentiles" in res.stdout
+    names = sorted(q.name for q in (tmp_path / "o").iterdir())
+    assert names == ["samples.csv", "tolerance.json", "tolerance.png", "tolerance.svg"]
+    lines = (tmp_path / "o" / "samples.csv").read_text().splitlines()
+    assert len(lines) == 31 and lines[0].startswith("coil.inductance [H]")
+    no_tol = tmp_path / "plain.toml"
+    no_tol.write_text(BASE)
+    res = CliRunner().invoke(main, ["tolerance", str(no_tol)])
+    assert res.exit_code == 2 and "no [tolerance]" in res.stderr
