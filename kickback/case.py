@@ -29,6 +29,7 @@ class Coil:
     release_current: float | None = None  # [A]
     release_delay: float = 0.0  # [s]
     initial_current: float | None = None  # [A]; None: DC on-state
+    saturation_current: float | None = None  # [A] Frölich–Kennelly saturation; None: linear coil
 
 
 @dataclass(frozen=True)

@@ -81,7 +81,7 @@ _STRING, _BOOL = _Field("s"), _Field("b")
 _SUPPLY = {"voltage": _q("V", required=True)}
 _COIL = {"inductance": _q("H", required=True), "resistance": _q("Ω", ">=0", True),
          "capacitance": _q("F", ">=0"), "release_current": _q("A"), "release_delay": _q("s", ">=0"),
-         "initial_current": _q("A")}
+         "initial_current": _q("A"), "saturation_current": _q("A")}
 _SWITCH = {"type": _Field("c", required=True, choices=SWITCH_TYPES), "on_resistance": _q("Ω"),
            "saturation_voltage": _q("V", ">=0"), "fall_time": _q("s", ">=0"), "capacitance": _q("F", ">=0"),
            "breakdown_voltage": _q("V"), "avalanche_resistance": _q("Ω", ">=0"),

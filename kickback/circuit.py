@@ -54,6 +54,9 @@ class Circuit:
         self.case = case
         c, s = case.coil, case.switch
         self.L, self.R, self.Vs = c.inductance, c.resistance, case.supply.voltage
+        #: saturating coil: the first state is the flux linkage λ [Wb] instead of the current
+        self.i_sat = c.saturation_current
+        self.flux = self.i_sat is not None
         merged_coil = sum(el.capacitance for cl in case.clamps if _cap_only(cl) and cl.across == "coil"
                           for el in cl.elements)
         merged_sw = sum(el.capacitance for cl in case.clamps if _cap_only(cl) and cl.across == "switch"
@@ -172,9 +175,49 @@ class Circuit:
         chain_v = tuple(v - self.Vs * ch.reference for ch in self.chains)
         return OnState(i_coil, v, i_sw, tuple(cur[1:]), chain_v)
 
+    # ------------------------------------------------------------------- coil
+    def coil_current(self, x0):
+        """Coil current [A] from the first state (the current itself, or the flux linkage)."""
+        if not self.flux:
+            return x0
+        from kickback.models.coil import current_from_flux, incremental_inductance
+
+        # the law ends at |λ| = L0·I_sat; trial states of an implicit step may go past it, so
+        # continue it linearly there (no physical state comes near)
+        lam_max = 0.999 * self.L * self.i_sat
+        x = np.asarray(x0, dtype=float)
+        xc = np.clip(x, -lam_max, lam_max)
+        ic = current_from_flux(xc, self.L, self.i_sat)
+        out = np.where(x == xc, ic, ic + (x - xc) / incremental_inductance(ic, self.L, self.i_sat))
+        return float(out) if np.ndim(out) == 0 else out
+
+    def coil_state(self, i):
+        """The first state for a coil current [A]."""
+        if not self.flux:
+            return i
+        from kickback.models.coil import flux_linkage
+
+        return float(flux_linkage(i, self.L, self.i_sat))
+
+    def coil_energy(self, i):
+        """Energy stored in the coil [J] at current ``i`` [A]: ½·L·i², or ∫ i dλ when saturating."""
+        if not self.flux:
+            return 0.5 * self.L * i * i
+        from kickback.models.coil import stored_energy
+
+        return float(stored_energy(i, self.L, self.i_sat))
+
+    def _state_gain(self, i: float) -> tuple[float, float]:
+        """(di/dx0, dx0/dt per volt across the coil): (1, 1/L) linear; (1/L_inc, 1) in flux."""
+        if not self.flux:
+            return 1.0, 1.0 / self.L
+        from kickback.models.coil import incremental_inductance
+
+        return 1.0 / float(incremental_inductance(i, self.L, self.i_sat)), 1.0
+
     def initial_state(self) -> np.ndarray:
         y = np.zeros(self.n_states)
-        y[0] = self.i0
+        y[0] = self.coil_state(self.i0)
         if self.capacitive:
             y[1] = self.on.node_voltage
         for k in self.cap_chains:
@@ -205,7 +248,7 @@ class Circuit:
         """Switch-node voltage [V]: the state, or solved from the node current balance."""
         if self.capacitive:
             return float(y[1])
-        i = float(y[0])
+        i = float(self.coil_current(y[0]))
 
         def resid(v):
             return sum(self.currents_at(t, v, y)) - i
@@ -235,11 +278,11 @@ class Circuit:
             if self.pin is not None:
                 n = self.pin[1]
                 vals[n] = 0.0
-                vals[n] = float(y[0]) - sum(vals)
+                vals[n] = float(self.coil_current(y[0])) - sum(vals)
             return vals[0], vals[1], vals[2:]
         vertical = self._vertical_at(t, v)
         if vertical:
-            rest = float(y[0]) - sum(x for n, x in enumerate(vals) if n not in vertical)
+            rest = float(self.coil_current(y[0])) - sum(x for n, x in enumerate(vals) if n not in vertical)
             for n in vertical:
                 vals[n] = rest / len(vertical)
         return vals[0], vals[1], vals[2:]
@@ -277,7 +320,7 @@ class Circuit:
 
     def rhs(self, t: float, y: np.ndarray) -> np.ndarray:
         """Time derivative of the state vector (see the module docstring for the layout)."""
-        i = float(y[0])
+        i = float(self.coil_current(y[0]))
         if self.capacitive:
             v = float(y[1])
             vals = self.currents_at(t, v, y)
@@ -289,7 +332,7 @@ class Circuit:
             ich, ioff, ichains = self.split_currents(t, v, y)
             vals = [ich, ioff, *ichains]
         d = np.zeros_like(y)
-        d[0] = (self.Vs - v - self.R * i) / self.L
+        d[0] = (self.Vs - v - self.R * i) * (self._state_gain(i)[1] if self.flux else 1.0 / self.L)
         dv = (i - sum(vals)) / self.C_node if self.capacitive and self.pin is None else 0.0
         if self.capacitive:
             d[1] = dv
@@ -337,13 +380,14 @@ class Circuit:
             for b in self._vertical_at(t, v):
                 g[b] = math.inf
         G = sum(g)
-        L = self.L
+        # chain rule through the first state: di/dx0 = g0; dx0/dt = k0 × (coil voltage)
+        g0, k0 = self._state_gain(float(self.coil_current(y[0])))
         if self.capacitive:
-            jm[0, 0] = -self.R / L
-            jm[0, 1] = -1.0 / L
+            jm[0, 0] = -k0 * self.R * g0
+            jm[0, 1] = -k0
             if self.pin is None:
                 C = self.C_node
-                jm[1, 0] = 1.0 / C
+                jm[1, 0] = g0 / C
                 jm[1, 1] = -G / C
                 for k in self.cap_chains:
                     jm[1, self.icap[k]] = g[2 + self._pos[k]] / C
@@ -356,11 +400,11 @@ class Circuit:
         finite = math.isfinite(G) and G > 0
         dv_di = 1.0 / G if finite else 0.0
         dv_dcap = {k: (g[2 + self._pos[k]] / G if finite else 0.0) for k in self.cap_chains}
-        jm[0, 0] = -(self.R + dv_di) / L
+        jm[0, 0] = -k0 * (self.R + dv_di) * g0
         for k in self.cap_chains:
-            jm[0, self.icap[k]] = -dv_dcap[k] / L
+            jm[0, self.icap[k]] = -k0 * dv_dcap[k]
             gk, ck = g[2 + self._pos[k]], self.chains[k].capacitance
-            jm[self.icap[k], 0] = gk * dv_di / ck
+            jm[self.icap[k], 0] = gk * dv_di * g0 / ck
             for m in self.cap_chains:
                 jm[self.icap[k], self.icap[m]] = gk * (dv_dcap[m] - (1.0 if m == k else 0.0)) / ck
         return jm

@@ -158,11 +158,11 @@ def compute_figures(w: Waveforms) -> Figures:
     i0 = c.i0
     y0 = c.initial_state()
     e = w.y_end[c.ie:]
-    stored = 0.5 * c.L * i0 * i0
+    stored = c.coil_energy(i0)
     cap0 = float(c.capacitor_energy(c.on.node_voltage, y0))
     v_end = float(w.v[-1])
     cap_end = float(c.capacitor_energy(v_end, w.y_end))
-    coil_end = 0.5 * c.L * float(w.y_end[0]) ** 2
+    coil_end = c.coil_energy(float(w.i_coil[-1]))
     e_r, e_sup, e_ch, e_av, e_bd = (float(x) for x in e[:5])
     e_el = [float(x) for x in e[5:]]
     total_in = stored + cap0 + max(e_sup, 0.0)
@@ -208,7 +208,7 @@ def compute_figures(w: Waveforms) -> Figures:
                                    float(np.max(np.abs(ic), initial=0.0)),
                                    _duration_above(w.t, ic, CONDUCTION_FRACTION * i0), on_i, tuple(els)))
 
-    i = w.y[0]
+    i = w.i_coil
     rel = case.coil.release_current
     release = None
     if rel is not None:
@@ -218,7 +218,7 @@ def compute_figures(w: Waveforms) -> Figures:
         else:
             t_rel = first_crossing_below(w.t, i, rel)
             if t_rel is not None:
-                t_rel = refine_crossing(w, t_rel, lambda y: y[0], rel)
+                t_rel = refine_crossing(w, t_rel, lambda y: c.coil_current(y[0]), rel)
             release = None if t_rel is None else t_rel + case.coil.release_delay
     if w.bound_hit:
         findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")

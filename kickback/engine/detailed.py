@@ -109,6 +109,11 @@ class Waveforms:
     engine: str = "detailed"
 
     @property
+    def i_coil(self) -> np.ndarray:
+        """[A] coil current at each sample (the first state, or from the flux linkage)."""
+        return np.asarray(self.circuit.coil_current(self.y[0]), dtype=float)
+
+    @property
     def y_end(self) -> np.ndarray:
         return self.y[:, -1]
 
@@ -141,9 +146,9 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
     c = circuit
     rtol = DEFAULT_RTOL if rtol is None else rtol
     i0 = c.i0
-    e0 = 0.5 * c.L * i0 * i0 + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
+    e0 = c.coil_energy(i0) + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
     atol = np.empty(c.n_states)
-    atol[0] = rtol * 1e-6 * i0
+    atol[0] = rtol * 1e-6 * abs(c.coil_state(i0))
     if c.capacitive:
         atol[1] = rtol * 1e-3 * c.v_scale
     for idx in c.icap.values():
@@ -174,15 +179,19 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         return jm
 
     def ev_frac(f):
+        level = c.coil_state(f * i0)  # the first state is monotone in the coil current
+
         def g(t, y):
-            return y[0] - f * i0
+            return y[0] - level
         g.direction = -1
         return g
 
     ev10, ev1 = ev_frac(0.1), ev_frac(0.01)
 
+    zero_state = c.coil_state(zero)
+
     def ev_zero(t, y):
-        return y[0] - zero
+        return y[0] - zero_state
     ev_zero.direction = -1
     ev_zero.terminal = True
 
@@ -191,7 +200,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
 
     def dyn_energy(y):
         v = y[1] if c.capacitive else v_fin
-        w = 0.5 * c.L * y[0] ** 2 + 0.5 * c.C_node * (v - v_fin) ** 2
+        w = c.coil_energy(c.coil_current(y[0])) + 0.5 * c.C_node * (v - v_fin) ** 2
         for k in dyn_caps:
             target = c.Vs - c.Vs * c.chains[k].reference
             w += 0.5 * c.chains[k].capacitance * (y[c.icap[k]] - target) ** 2
@@ -212,7 +221,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
     ev_cross.terminal = True
 
     def ev_peak(t, y):
-        return y[0] - sum(c.currents_at(t, float(y[1]), y))
+        return c.coil_current(y[0]) - sum(c.currents_at(t, float(y[1]), y))
     ev_peak.direction = -1
 
     tf = c.switch.fall_time
@@ -241,7 +250,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
             def g(t, y):
                 vals = c.currents_at(t, float(y[1]), y)
                 vals[c.pin[1]] = 0.0
-                return side * (float(y[0]) - sum(vals))
+                return side * (float(c.coil_current(y[0])) - sum(vals))
             g.direction = -1
             g.terminal = True
             g.pin = None
@@ -312,10 +321,10 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
     if not bound_hit and rings and dyn_energy(y) > rest_level and t < t_bound:
         run("ring", t_bound, [ev10, ev1, ev_rest])
         bound_hit = not (dyn_energy(y) <= rest_level * 1.0001)
-        if not bound_hit and abs(y[0]) > RING_END_FRACTION * i0 and t < t_bound:
+        if not bound_hit and abs(c.coil_current(y[0])) > RING_END_FRACTION * i0 and t < t_bound:
             # end on a zero of the coil current, so that it too is below 0.1 % of the start
             run("ring", t_bound, [ev_cross])
-            bound_hit = abs(y[0]) > RING_END_FRACTION * i0
+            bound_hit = abs(c.coil_current(y[0])) > RING_END_FRACTION * i0
     c.pin = None
     return _sample(c, phases, ev_times, peaks, bound_hit, rtol, calls[0], samples_per_step)
 
@@ -384,7 +393,7 @@ def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray):
     try:
         out = derived(c, t, y)
         if pin is not None:
-            rest = y[0] - out[1] - out[2] - sum(out[3])
+            rest = c.coil_current(y[0]) - out[1] - out[2] - sum(out[3])
             branches = [out[1], out[2], *out[3]]
             branches[pin[1]] = branches[pin[1]] + rest
             out = (out[0], branches[0], branches[1], branches[2:])

@@ -48,7 +48,7 @@ def comparison_figure(cmp):
         style = {"lw": 2.2 if r.own else 1.2, "color": f"C{n % 10}", "ls": "-" if r.own else "-"}
         label = r.name + ("" if r.result.passed else " (fails)")
         av.plot(w.t[m], w.v[m], label=label, **style)
-        ai.plot(w.t[m], w.y[0][m], **style)
+        ai.plot(w.t[m], w.i_coil[m], **style)
         t_min = w.t[m][0] if t_min is None else min(t_min, w.t[m][0])
     if case.switch.rated_voltage is not None:
         lim = case.switch.rated_voltage * case.checks.derating

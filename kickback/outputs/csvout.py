@@ -14,7 +14,7 @@ def waveform_columns(result) -> list[tuple[str, np.ndarray]]:
     """Named columns (header with unit) of a result's waveforms."""
     w = result.waveforms
     c = w.circuit
-    cols = [("time [s]", w.t), ("coil current [A]", w.y[0]), ("switch node [V]", w.v),
+    cols = [("time [s]", w.t), ("coil current [A]", w.i_coil), ("switch node [V]", w.v),
             ("switch current [A]", w.i_channel + w.i_offstate)]
     for k, ch in enumerate(c.chains):
         ic, _, volts = chain_signals(w, k)

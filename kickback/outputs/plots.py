@@ -32,7 +32,7 @@ def _draw(ax_v, ax_i, result, t_end=None, annotate=True):
     m = slice(None) if t_end is None else w.t <= t_end * 1.0001
     t = w.t[m]
     ax_v.plot(t, w.v[m], color="C0", lw=1.4, label="switch node")
-    ax_i.plot(t, w.y[0][m], color="C1", lw=1.4, label="coil current")
+    ax_i.plot(t, w.i_coil[m], color="C1", lw=1.4, label="coil current")
     if t_end is not None:
         ax_i.plot(t, (w.i_channel + w.i_offstate)[m], color="C4", lw=1.0, ls="--", label="switch current")
     for n, k in enumerate(w.circuit.active_chains):

@@ -1,0 +1,61 @@
+"""A saturating coil (Frölich–Kennelly λ(i) = L0·i/(1 + |i|/I_sat)) integrated in flux."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from kickback import load_case, simulate
+from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
+
+D = Element("diode", model="constant-drop", forward_voltage=0.7)
+Z = Element("zener", voltage=20.0)
+
+
+def lam(i, L0, isat):
+    return L0 * i / (1 + abs(i) / isat)
+
+
+def test_stored_energy_is_the_flux_integral():
+    # W = ∫ i dλ = L0·I_sat²·(ln U + 1/U − 1), U = 1 + I/I_sat (derived); 0.1 H, 0.2 A, 0.12 A → 0.38001 mJ
+    case = Case("sat (demo data)", Supply(24.0), Coil(0.1, 0.0, initial_current=0.12, saturation_current=0.2),
+                Switch("ideal"), (Clamp("DZ", "coil", (D, Z)),))
+    f = simulate(case).figures
+    u = 1 + 0.12 / 0.2
+    assert f.stored_energy_J == pytest.approx(0.1 * 0.2 ** 2 * (math.log(u) + 1 / u - 1), rel=1e-12)
+    assert f.stored_energy_J == pytest.approx(0.38001e-3, rel=1e-4)
+    assert f.stored_energy_J < 0.5 * 0.1 * 0.12 ** 2, "less than ½·L0·i² for a saturating core"
+    # R = 0 and a constant clamp Vc: dλ/dt = −Vc, so the time to zero is λ(i0)/Vc (derived)
+    assert f.to_zero_s == pytest.approx(lam(0.12, 0.1, 0.2) / 20.7, rel=1e-8)
+    # all of it goes into the clamp: E = Vc·∫ i dt = stored energy
+    assert f.clamps[0].energy_J == pytest.approx(f.stored_energy_J, rel=1e-8)
+    assert abs(f.energy_balance_error) < 1e-8
+
+
+def test_saturation_shortens_the_decay_and_keeps_the_ledger():
+    diode = Element("diode", forward_voltage=0.85, at_current=1.0, ideality=1.9, series_resistance=0.05)
+    sw = Switch("mosfet", on_resistance=0.05, fall_time=2e-7, capacitance=3e-10)
+
+    def run(isat):
+        return simulate(Case("c (demo data)", Supply(24.0), Coil(0.1, 30.0, saturation_current=isat), sw,
+                             (Clamp("D", "coil", (diode,)),))).figures
+
+    linear, soft, hard = run(None), run(3.0), run(0.3)
+    # less flux at the same current: less energy and a faster decay as I_sat falls
+    assert hard.stored_energy_J < soft.stored_energy_J < linear.stored_energy_J
+    assert hard.to_zero_s < soft.to_zero_s < linear.to_zero_s
+    for f in (linear, soft, hard):
+        assert abs(f.energy_balance_error) < 1e-6
+
+
+def test_case_key(tmp_path):
+    p = tmp_path / "c.toml"
+    p.write_text('title = "sat (demo data)"\n[supply]\nvoltage = "12 V"\n[coil]\ninductance = "50 mH"\n'
+                 'resistance = "20 Ω"\nsaturation_current = "0.4 A"\n[switch]\ntype = "ideal"\n'
+                 '[[clamp]]\nacross = "coil"\n[[clamp.element]]\ntype = "diode"\nmodel = "constant-drop"\n'
+                 'forward_voltage = "0.7 V"\n')
+    assert load_case(p).coil.saturation_current == 0.4
+    p.write_text(p.read_text().replace('"0.4 A"', '"0.4 V"'))
+    with pytest.raises(ValueError, match="saturation_current"):
+        load_case(p)
