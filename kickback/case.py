@@ -44,6 +44,9 @@ class Switch:
     body_diode_voltage: float | None = None  # [V] mosfet reverse conduction (None: 0.7 V)
     rated_voltage: float | None = None  # [V]
     rated_avalanche_energy: float | None = None  # [J] single pulse; None: not rated
+    thermal_resistance: tuple[float, ...] | None = None  # [K/W] Foster stages
+    thermal_tau: tuple[float, ...] | None = None  # [s] Foster time constants
+    max_junction_temperature: float | None = None  # [K]
 
 
 @dataclass(frozen=True)
@@ -76,6 +79,9 @@ class Element:
     # capacitor
     capacitance: float | None = None  # [F]
     rated_voltage: float | None = None  # [V]
+    thermal_resistance: tuple[float, ...] | None = None  # [K/W] Foster stages
+    thermal_tau: tuple[float, ...] | None = None  # [s] Foster time constants
+    max_junction_temperature: float | None = None  # [K]
     #: key path in the case file, e.g. "clamp[0].element[1]" (for messages)
     path: str = ""
 
@@ -121,6 +127,7 @@ class Checks:
     max_peak_voltage: float | None = None  # [V]
     max_decay_time: float | None = None  # [s] to zero
     max_clamp_energy: float | None = None  # [J] per clamp
+    ambient_temperature: float = 298.15  # [K] for junction temperatures (25 °C unless given)
 
     @property
     def energy_fraction(self) -> float:

@@ -11,10 +11,8 @@ from __future__ import annotations
 import difflib
 import math
 import os
-import re
 import tomllib
-from dataclasses import dataclass
-from pathlib import Path
+from dataclasses import dataclass, replace
 from typing import Any
 
 from kickback.case import (
@@ -30,6 +28,8 @@ from kickback.case import (
     Supply,
     Switch,
 )
+from kickback.casetext import read_text as _read
+from kickback.casetext import syntax_error as _syntax_error
 from kickback.errors import CaseError
 from kickback.tomlpos import KeyPath, LineLocator, format_path
 from kickback.units import UnitError, example, format_quantity, parse_quantity
@@ -65,6 +65,8 @@ class _Field:
         cond = _CONDITIONS[self.cond][1]
         if self.kind == "q":
             return f"a value in {self.unit}{' ' + cond if cond else ''}, e.g. '{example(self.unit)}'"
+        if self.kind == "l":
+            return f"an array of values in {self.unit}, e.g. ['{example(self.unit)}']"
         if self.kind == "n":
             return f"a plain number{' ' + cond if cond else ''}"
         if self.kind == "c":
@@ -77,6 +79,9 @@ def _q(unit: str, cond: str = ">0", required: bool = False) -> _Field:
 
 
 _STRING, _BOOL = _Field("s"), _Field("b")
+#: a Foster thermal network of a part: stage resistances and time constants, and its Tj limit
+_THERMAL = {"thermal_resistance": _Field("l", "K/W", ">0"), "thermal_tau": _Field("l", "s", ">0"),
+            "max_junction_temperature": _q("K")}
 
 _SUPPLY = {"voltage": _q("V", required=True)}
 _COIL = {"inductance": _q("H", required=True), "resistance": _q("Ω", ">=0", True),
@@ -85,13 +90,14 @@ _COIL = {"inductance": _q("H", required=True), "resistance": _q("Ω", ">=0", Tru
 _SWITCH = {"type": _Field("c", required=True, choices=SWITCH_TYPES), "on_resistance": _q("Ω"),
            "saturation_voltage": _q("V", ">=0"), "fall_time": _q("s", ">=0"), "capacitance": _q("F", ">=0"),
            "breakdown_voltage": _q("V"), "avalanche_resistance": _q("Ω", ">=0"),
-           "body_diode_voltage": _q("V"), "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J")}
+           "body_diode_voltage": _q("V"), "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J"),
+           **_THERMAL}
 _SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_diode_voltage": "mosfet"}
 _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
           "element": _Field("t", required=True)}
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
-           "max_clamp_energy": _q("J")}
+           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K")}
 _TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance")
 _OPTION = {"name": _Field("s", required=True), "clamp": _Field("t")}
 
@@ -111,9 +117,8 @@ _ELEMENTS: dict[str, dict[str, _Field]] = {
     "varistor": {"voltage": _q("V", required=True), "at_current": _q("A"),
                  "exponent": _Field("n", cond=">1", required=True), "rated_energy": _q("J")},
 }
-_ELEMENTS = {t: {**_COMMON, **spec} for t, spec in _ELEMENTS.items()}
+_ELEMENTS = {t: {**_COMMON, **spec, **(_THERMAL if t != "capacitor" else {})} for t, spec in _ELEMENTS.items()}
 _ANY_ELEMENT_KEY = {k for spec in _ELEMENTS.values() for k in spec}
-_SYNTAX_RE = re.compile(r"(?P<msg>.*?) \(at (?:line (?P<line>\d+), column (?P<col>\d+)|end of document)\)")
 
 
 def _kind_of(value: Any) -> str:
@@ -165,6 +170,11 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
         if raw not in field.choices:
             raise ctx.error(path, f"{raw!r} is not allowed (expected {field.expected()})")
         return raw
+    elif field.kind == "l":
+        if not isinstance(raw, list) or not raw:
+            raise ctx.error(path, f"got {_kind_of(raw)} (expected a non-empty array of values in {field.unit}, "
+                            f"e.g. ['{example(field.unit)}'])")
+        return tuple(_value(ctx, path, replace(field, kind="q"), x) for x in raw)
     elif field.kind == "t":
         if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
             raise wrong()
@@ -225,7 +235,21 @@ def _switch(ctx: _Context, raw: Any, supply_voltage: float) -> Switch:
     if "avalanche_resistance" in v and breakdown is None:
         raise ctx.error(path + ("avalanche_resistance",),
                         "needs breakdown_voltage (expected breakdown_voltage in [switch] as well)")
+    _check_thermal(ctx, path, v)
     return Switch(**v)
+
+
+def _check_thermal(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
+    """A Foster network needs as many time constants as resistances; a Tj limit needs a network."""
+    r, tau = v.get("thermal_resistance"), v.get("thermal_tau")
+    if (r is None) != (tau is None):
+        key = "thermal_tau" if tau is None else "thermal_resistance"
+        raise ctx.missing(path + (key,), "thermal_resistance and thermal_tau together (a Foster network)")
+    if r is not None and len(r) != len(tau):
+        raise ctx.error(path + ("thermal_tau",), f"{len(tau)} time constants for {len(r)} resistances "
+                        "(expected one per Foster stage)")
+    if "max_junction_temperature" in v and r is None:
+        raise ctx.missing(path + ("thermal_resistance",), "a Foster network to compute the junction temperature")
 
 
 def _check_diode(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
@@ -282,6 +306,7 @@ def _element(ctx: _Context, path: KeyPath, raw: dict[str, Any]) -> Element:
                                 f"(allowed keys: {', '.join(spec)})")
             raise _unknown(ctx, path + (key,), spec, f"a {kind} element")
     v = _table(ctx, path, raw, spec, f"a {kind} element")
+    _check_thermal(ctx, path, v)
     if kind == "diode":
         _check_diode(ctx, path, v)
     elif kind == "varistor":
@@ -323,42 +348,6 @@ def _clamps(ctx: _Context, raw: Any, where: KeyPath = ("clamp",)) -> tuple[Clamp
         clamps.append(Clamp(name=v.get("name", f"clamp {i + 1}"), across=v["across"], elements=elements,
                             path=format_path(path)))
     return tuple(clamps)
-
-
-def _read(path_or_text: str | os.PathLike[str], source: str | None) -> tuple[str, str]:
-    """Return (text, source name) for a file path or for TOML text."""
-    if isinstance(path_or_text, str):
-        text = path_or_text
-        if "\n" in text or not (text.strip().endswith(".toml") or os.path.isfile(text)):
-            return text, source or "<text>"
-    elif not isinstance(path_or_text, os.PathLike):
-        raise TypeError(f"expected a path or TOML text, got {type(path_or_text).__name__}")
-    name = source or os.fspath(path_or_text)
-    try:
-        data = Path(path_or_text).read_bytes()
-    except FileNotFoundError:
-        raise CaseError("file not found (expected a TOML case file)", source=name) from None
-    except IsADirectoryError:
-        raise CaseError("is a directory (expected a TOML case file)", source=name) from None
-    except OSError as err:
-        raise CaseError(f"cannot read the file: {err.strerror} (expected a readable TOML file)",
-                        source=name) from None
-    try:
-        return data.decode("utf-8").removeprefix("\ufeff"), name
-    except UnicodeDecodeError as err:
-        raise CaseError("not UTF-8 text (expected a UTF-8 encoded TOML file)", source=name,
-                        line=data[:err.start].count(b"\n") + 1) from None
-
-
-def _syntax_error(err: tomllib.TOMLDecodeError, text: str, source: str) -> CaseError:
-    m = _SYNTAX_RE.fullmatch(str(err).splitlines()[0] if str(err) else "")
-    if m is None:
-        return CaseError(str(err).replace("\n", " "), source=source, line=None, key="TOML syntax")
-    if m["line"] is None:
-        return CaseError(f"{m['msg']} (at end of file)", source=source, line=max(1, len(text.splitlines())),
-                         key="TOML syntax")
-    return CaseError(f"{m['msg']} (at column {m['col']})", source=source, line=int(m["line"]),
-                     key="TOML syntax")
 
 
 def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None) -> Case:

@@ -25,7 +25,8 @@ class ElementFigures:
     peak_current_A: float
     standoff_voltage_V: float
     peak_power_W: float
-    pulse_width_s: float | None
+    pulse_width_s: float | None  # equivalent rectangular pulse: energy / peak power
+    junction_peak_K: float | None = None  # with a Foster network: ambient + peak rise
 
 
 @dataclass(frozen=True)
@@ -65,6 +66,7 @@ class Figures:
     bound_hit: bool
     findings: tuple[str, ...]
     models: tuple[str, ...]
+    switch_junction_peak_K: float | None = None  # with a Foster network on the switch
 
 
 def first_crossing_below(t: np.ndarray, x: np.ndarray, level: float) -> float | None:
@@ -122,6 +124,16 @@ def refine_crossing(w: Waveforms, t_guess: float, signal, level: float) -> float
     except ValueError:
         pass
     return t_guess
+
+
+def junction_peak(t, p, r, tau, ambient: float) -> float | None:
+    """Peak junction temperature [K] for the power waveform p(t) [W] through a Foster network
+    (None without one): ambient plus the largest rise, exact for p linear between samples."""
+    if r is None:
+        return None
+    from kickback.models.thermal import foster_response
+
+    return float(ambient + np.max(foster_response(t, np.clip(p, 0.0, None), r, tau), initial=0.0))
 
 
 def chain_signals(w: Waveforms, k: int):
@@ -195,11 +207,12 @@ def compute_figures(w: Waveforms) -> Figures:
             standoff = max(float(np.max(held, initial=0.0)), on_hold)
             pk_p = float(np.max(p, initial=0.0))
             width = energy / pk_p if pk_p > 0 and energy > 0 else None
+            tj = junction_peak(w.t, p, el.thermal_resistance, el.thermal_tau, case.checks.ambient_temperature)
             els.append(ElementFigures(el.type, el.name or f"{el.type} {j + 1}",
                                       law.description if law is not None else
                                       f"capacitor ({el.capacitance:.4g} F)",
                                       energy, float(np.max(np.abs(vj), initial=0.0)),
-                                      float(np.max(np.abs(ic), initial=0.0)), standoff, pk_p, width))
+                                      float(np.max(np.abs(ic), initial=0.0)), standoff, pk_p, width, tj))
         on_i = float(c.on.chain_currents[k]) if k < len(c.on.chain_currents) else 0.0
         if abs(on_i) > ON_STATE_FRACTION * i0:
             findings.append(f"clamp '{ch.name}' conducts {abs(on_i):.3g} A while the switch is on "
@@ -224,6 +237,9 @@ def compute_figures(w: Waveforms) -> Figures:
         findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")
     if e_av > 1e-9 * stored:
         findings.append(f"the switch avalanches: {e_av:.3g} J at up to {peak_v:.4g} V")
+    s = case.switch
+    sw_tj = junction_peak(w.t, w.v * (w.i_channel + w.i_offstate), s.thermal_resistance, s.thermal_tau,
+                          case.checks.ambient_temperature)
     models = [c.switch.description] + [law.description for ch in c.chains for law in ch.laws if law is not None]
     if c.r_min > 0 and any(p for p in c.pin_points):
         models.append("ideal (zero-resistance) laws hold the node exactly at their voltage")
@@ -238,4 +254,4 @@ def compute_figures(w: Waveforms) -> Figures:
         crossover_energy_J=e_ch, avalanche_energy_J=e_av, body_diode_energy_J=e_bd,
         supply_energy_J=e_sup, clamps=tuple(clamps), left_in_capacitors_J=cap_end,
         left_in_coil_J=coil_end, energy_balance_error=float(balance), end_time_s=float(w.t[-1]),
-        bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models))
+        bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models), switch_junction_peak_K=sw_tj)

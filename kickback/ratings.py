@@ -44,6 +44,27 @@ def _check(part, quantity, value, rating, fraction, unit, note="") -> Check:
     return Check(part, quantity, float(value), float(limit), margin, bool(value <= limit), unit, note)
 
 
+def _junction_check(part: str, value: float, limit: float, ambient: float) -> Check:
+    """Junction temperature; the margin is the share of the allowed rise above ambient left."""
+    span = limit - ambient
+    margin = (limit - value) / span if span > 0 else None
+    return Check(part, "junction temperature", float(value), float(limit), margin, bool(value <= limit), "K",
+                 f"Foster network from {ambient - 273.15:.1f} °C ambient; margin of the allowed rise")
+
+
+def _peak_power_check(part: str, el, ef, fraction: float) -> Check:
+    """Peak pulse power against its rating; a rating at another pulse width is moved to this
+    pulse's equivalent rectangular width by P ∝ t^(−1/2) (Wunsch and Bell 1968, an approximation)."""
+    rating, note = el.rated_peak_power, f"rating × {fraction:g}"
+    if el.rated_pulse_width is not None and ef.pulse_width_s:
+        from kickback.models.thermal import wunsch_bell_rating
+
+        rating = wunsch_bell_rating(el.rated_peak_power, el.rated_pulse_width, ef.pulse_width_s)
+        note = (f"rated {el.rated_peak_power:.4g} W at {el.rated_pulse_width:.3g} s, moved to the "
+                f"{ef.pulse_width_s:.3g} s equivalent pulse by P ∝ t^-1/2 (Wunsch–Bell, approximate) × {fraction:g}")
+    return _check(part, "peak power", ef.peak_power_W, rating, fraction, "W", note)
+
+
 def rating_checks(case: Case, fig: Figures) -> list[Check]:
     """Every applicable check, one row each.
 
@@ -80,16 +101,20 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
                 if el.rated_pulse_energy is not None:
                     out.append(_check(part, "pulse energy", ef.energy_J, el.rated_pulse_energy, de, "J", enote))
                 if el.rated_peak_power is not None:
-                    w = "" if el.rated_pulse_width is None else f" (rated at {el.rated_pulse_width:.3g} s pulses)"
-                    out.append(_check(part, "peak power", ef.peak_power_W, el.rated_peak_power, de, "W",
-                                      enote + w))
+                    out.append(_peak_power_check(part, el, ef, de))
             elif el.type in ("resistor", "varistor"):
                 if el.rated_energy is not None:
                     out.append(_check(part, "pulse energy", ef.energy_J, el.rated_energy, de, "J", enote))
             elif el.type == "capacitor" and el.rated_voltage is not None:
                 out.append(_check(part, "peak voltage", ef.peak_voltage_V, el.rated_voltage, dv, "V", vnote))
+            if ef.junction_peak_K is not None and el.max_junction_temperature is not None:
+                out.append(_junction_check(part, ef.junction_peak_K, el.max_junction_temperature,
+                                           case.checks.ambient_temperature))
         if ck.max_clamp_energy is not None:
             out.append(_check(cl.name, "clamp energy", cf.energy_J, ck.max_clamp_energy, 1.0, "J", "case limit"))
+    if fig.switch_junction_peak_K is not None and s.max_junction_temperature is not None:
+        out.append(_junction_check("switch", fig.switch_junction_peak_K, s.max_junction_temperature,
+                                   ck.ambient_temperature))
     if ck.max_peak_voltage is not None:
         out.append(_check("case", "peak switch voltage", fig.peak_voltage_V, ck.max_peak_voltage, 1.0, "V",
                           "case limit"))

@@ -35,7 +35,7 @@ PREFIXES: dict[str, int] = {
 }
 
 #: Canonical unit symbols kickback knows.
-UNITS = ("V", "A", "Ω", "H", "F", "s", "W", "J", "Hz", "K")
+UNITS = ("V", "A", "Ω", "H", "F", "s", "W", "J", "Hz", "K", "K/W")
 
 #: Spellings accepted for each unit symbol (after an optional prefix).
 _ALIASES: dict[str, str] = {u: u for u in UNITS}
@@ -46,14 +46,14 @@ _CELSIUS = ("°C", "degC", "\u2103")
 _KELVIN_AT_0_CELSIUS = Decimal("273.15")  # exact by definition of the degree Celsius
 
 _EXAMPLES = {"V": "24 V", "A": "500 mA", "Ω": "4.7 kΩ", "H": "80 mH", "F": "220 pF", "s": "200 ns",
-             "W": "600 W", "J": "30 mJ", "Hz": "20 kHz", "K": "25 °C"}
+             "W": "600 W", "J": "30 mJ", "Hz": "20 kHz", "K": "25 °C", "K/W": "2.5 K/W"}
 
 _NUMBER = r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
 _QUANTITY_RE = re.compile(rf"(?P<num>{_NUMBER})\s*(?P<unit>.*)", re.DOTALL)
 # resistor/capacitor code with the prefix letter as decimal mark: 4k7, 2R2, R47, 1n5, 4K7Ω
 _RKM_RE = re.compile(r"[+-]?(?P<int>\d*)(?P<letter>[RrKkMGTmunpfµμ])(?P<frac>\d+)\s*\S*")
 _NONFINITE_RE = re.compile(r"[+-]?(?:nan|inf(?:inity)?)\b.*", re.IGNORECASE | re.DOTALL)
-_UNIT_TOKEN_RE = re.compile(r"(?:[^\W\d_]|°)+")
+_UNIT_TOKEN_RE = re.compile(r"(?:[^\W\d_]|°|/)+")
 
 
 class UnitError(KickbackError, ValueError):

@@ -25,11 +25,18 @@ def _grid(rows: list[list[str]], indent: str = "  ") -> list[str]:
     return out
 
 
+def check_value(x: float | None, unit: str) -> str:
+    """A check value in engineering notation; temperatures in °C."""
+    if unit == "K" and x is not None:
+        return f"{x - 273.15:.1f} °C"
+    return q(x, unit)
+
+
 def check_rows(checks) -> list[list[str]]:
     rows = [["part", "quantity", "value", "limit", "margin", "verdict"]]
     for ck in checks:
-        rows.append([ck.part, ck.quantity, q(ck.value, ck.unit), q(ck.limit, ck.unit), _pct(ck.margin),
-                     "pass" if ck.passed else "FAIL"])
+        rows.append([ck.part, ck.quantity, check_value(ck.value, ck.unit), check_value(ck.limit, ck.unit),
+                     _pct(ck.margin), "pass" if ck.passed else "FAIL"])
     return rows
 
 
