@@ -47,6 +47,14 @@ class Switch:
     thermal_resistance: tuple[float, ...] | None = None  # [K/W] Foster stages
     thermal_tau: tuple[float, ...] | None = None  # [s] Foster time constants
     max_junction_temperature: float | None = None  # [K]
+    # on-state drive (optional): BJT base drive, MOSFET gate drive
+    gain: float | None = None  # BJT current gain β at the on-state current
+    drive_voltage: float | None = None  # [V] BJT base drive source
+    base_resistance: float | None = None  # [Ω]
+    base_emitter_voltage: float = 0.7  # [V] (common practice, no source)
+    overdrive: float = 1.5  # required I_B / (I_C/β) (common practice 1.5–2, no source)
+    gate_voltage: float | None = None  # [V] MOSFET gate drive
+    on_resistance_gate_voltage: float | None = None  # [V] gate voltage R_on is specified at
 
 
 @dataclass(frozen=True)

@@ -91,8 +91,12 @@ _SWITCH = {"type": _Field("c", required=True, choices=SWITCH_TYPES), "on_resista
            "saturation_voltage": _q("V", ">=0"), "fall_time": _q("s", ">=0"), "capacitance": _q("F", ">=0"),
            "breakdown_voltage": _q("V"), "avalanche_resistance": _q("Ω", ">=0"),
            "body_diode_voltage": _q("V"), "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J"),
-           **_THERMAL}
-_SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_diode_voltage": "mosfet"}
+           "gain": _Field("n", cond=">1"), "drive_voltage": _q("V"), "base_resistance": _q("Ω"),
+           "base_emitter_voltage": _q("V"), "overdrive": _Field("n", cond=">1"), "gate_voltage": _q("V"),
+           "on_resistance_gate_voltage": _q("V"), **_THERMAL}
+_SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_diode_voltage": "mosfet",
+                "gain": "bjt", "drive_voltage": "bjt", "base_resistance": "bjt", "base_emitter_voltage": "bjt",
+                "overdrive": "bjt", "gate_voltage": "mosfet", "on_resistance_gate_voltage": "mosfet"}
 _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
           "element": _Field("t", required=True)}
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),

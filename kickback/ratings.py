@@ -44,6 +44,28 @@ def _check(part, quantity, value, rating, fraction, unit, note="") -> Check:
     return Check(part, quantity, float(value), float(limit), margin, bool(value <= limit), unit, note)
 
 
+def _at_least(part, quantity, value, minimum, unit, note) -> Check:
+    """A check that passes when ``value ≥ minimum``; margin (value − minimum)/minimum."""
+    margin = (value - minimum) / minimum if minimum > 0 else None
+    return Check(part, quantity, float(value), float(minimum), margin, bool(value >= minimum), unit, note)
+
+
+def drive_checks(case: Case, fig: Figures) -> list[Check]:
+    """On-state drive: BJT base current against overdrive × I_C/β; MOSFET gate voltage against the
+    gate voltage its on-resistance is specified at."""
+    s = case.switch
+    out = []
+    if s.type == "bjt" and s.gain is not None and s.drive_voltage is not None and s.base_resistance is not None:
+        i_b = (s.drive_voltage - s.base_emitter_voltage) / s.base_resistance
+        need = s.overdrive * fig.initial_current_A / s.gain
+        out.append(_at_least("switch", "base current", i_b, need, "A",
+                             f"needs {s.overdrive:g} × I_C/β (overdrive: common practice 1.5–2, no source)"))
+    if s.type == "mosfet" and s.gate_voltage is not None and s.on_resistance_gate_voltage is not None:
+        out.append(_at_least("switch", "gate voltage", s.gate_voltage, s.on_resistance_gate_voltage, "V",
+                             "at least the gate voltage the on-resistance is specified at"))
+    return out
+
+
 def _junction_check(part: str, value: float, limit: float, ambient: float) -> Check:
     """Junction temperature; the margin is the share of the allowed rise above ambient left."""
     span = limit - ambient
@@ -115,6 +137,7 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
     if fig.switch_junction_peak_K is not None and s.max_junction_temperature is not None:
         out.append(_junction_check("switch", fig.switch_junction_peak_K, s.max_junction_temperature,
                                    ck.ambient_temperature))
+    out += drive_checks(case, fig)
     if ck.max_peak_voltage is not None:
         out.append(_check("case", "peak switch voltage", fig.peak_voltage_V, ck.max_peak_voltage, 1.0, "V",
                           "case limit"))
