@@ -109,6 +109,10 @@ class Circuit:
         self.ie = 1 + nv + len(self.cap_chains)
         self.n_states = self.ie + N_ENERGY_FIXED + len(self.energy_slots)
         self.i_on = self.on.switch_current
+        #: switch state for repetitive switching: conducting (on-state law) or turning off at
+        #: ``t_turnoff`` (the current falls from ``i_on`` over the fall time, then the switch is off)
+        self.conducting = False
+        self.t_turnoff = 0.0
         self._pos = {k: n for n, k in enumerate(self.active_chains)}
         self._thresholds = self._node_thresholds()
 
@@ -231,8 +235,10 @@ class Circuit:
     def branch_currents(self, t, v, y):
         """Channel, off-state (avalanche/body diode) and chain currents [A] at node voltage v."""
         sw = self.switch
-        if sw.fall_time > 0:
-            ich = sw.channel_current(v, t, self.i_on)
+        if self.conducting:
+            ich = sw.on_state.current(v)
+        elif sw.fall_time > 0:
+            ich = sw.channel_current(v, np.asarray(t) - self.t_turnoff, self.i_on)
         else:
             ich = np.zeros_like(np.asarray(v, dtype=float))
         ich = ich + self.g_leak * v
@@ -253,7 +259,7 @@ class Circuit:
         def resid(v):
             return sum(self.currents_at(t, v, y)) - i
 
-        in_fall = self.switch.fall_time > 0 and t < self.switch.fall_time
+        in_fall = self.conducting or self._in_fall(t)
         return _solve_monotone(resid, self._thresholds[in_fall], self.v_scale)
 
     def _node_thresholds(self) -> dict[bool, list[float]]:
@@ -294,7 +300,7 @@ class Circuit:
 
         out = []
         on = self.switch.on_state
-        if self.switch.fall_time > 0 and t < self.switch.fall_time and (
+        if (self.conducting or self._in_fall(t)) and (
                 (on.r_fwd == 0 and at(on.v_fwd)) or (on.r_rev == 0 and at(on.v_rev))):
             out.append(0)
         off = self.switch.off_state
@@ -307,11 +313,25 @@ class Circuit:
         return out
 
     # ---------------------------------------------------------------- equations
+    def _in_fall(self, t: float) -> bool:
+        tf = self.switch.fall_time
+        return 0 < tf and 0 <= t - self.t_turnoff < tf
+
+    def _limit(self, t: float) -> float:
+        """[A] channel current ceiling during the fall."""
+        return self.i_on * (1.0 - (t - self.t_turnoff) / self.switch.fall_time)
+
+    def _channel_at(self, t: float, v: float) -> float:
+        """Scalar channel current [A]: on-state law while conducting, limited during the fall."""
+        on = self.switch.on_state.current_at(v)
+        if self.conducting:
+            return on
+        return min(on, self._limit(t)) if self._in_fall(t) else 0.0
+
     def currents_at(self, t: float, v: float, y) -> list[float]:
         """Scalar branch currents [A]: channel, off-state, then each active chain."""
         sw = self.switch
-        tf = sw.fall_time
-        ich = min(sw.on_state.current_at(v), self.i_on * (1.0 - t / tf)) if 0 < tf and t < tf else 0.0
+        ich = self._channel_at(t, v)
         vals = [ich + self.g_leak * v, sw.off_state.current_at(v)]
         for k in self.active_chains:
             ch = self.chains[k]
@@ -364,11 +384,10 @@ class Circuit:
         n = self.n_states
         jm = np.zeros((n, n))
         sw = self.switch
-        tf = sw.fall_time
         v = float(y[1]) if self.capacitive else self.node_voltage(t, y)
         # conductance of each branch at v
         g_ch = self.g_leak
-        if 0 < tf and t < tf and sw.on_state.current_at(v) < self.i_on * (1.0 - t / tf):
+        if self.conducting or (self._in_fall(t) and sw.on_state.current_at(v) < self._limit(t)):
             g_ch += sw.on_state.slope_at(v)
         g = [g_ch, sw.off_state.slope_at(v)]
         for k in self.active_chains:

@@ -124,6 +124,139 @@ class Waveforms:
         return self.y[:, -1] if t > self.t[-1] else self.y[:, 0]
 
 
+def tolerances(c: Circuit, rtol: float) -> np.ndarray:
+    """Absolute tolerance per state, scaled to the initial current, the voltage scale and the
+    stored energy."""
+    e0 = c.coil_energy(c.i0) + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
+    atol = np.empty(c.n_states)
+    atol[0] = rtol * 1e-6 * abs(c.coil_state(c.i0))
+    if c.capacitive:
+        atol[1] = rtol * 1e-3 * c.v_scale
+    for idx in c.icap.values():
+        atol[idx] = rtol * 1e-3 * c.v_scale
+    atol[c.ie:] = rtol * 1e-6 * e0
+    return atol
+
+
+class PhaseRunner:
+    """Integrates a circuit phase by phase with Radau, switching the node's pin mode at the
+    vertical laws' events; records the phases (dense solutions) and the node's voltage peaks."""
+
+    def __init__(self, c: Circuit, rtol: float, y0: np.ndarray, t0: float = 0.0):
+        self.c = c
+        self.rtol = rtol
+        self.atol = tolerances(c, rtol)
+        self.scale = np.maximum(self.atol / rtol, 1e-300)
+        self.calls = 0
+        self.t = t0
+        self.y = np.array(y0, dtype=float)
+        self.phases: list[Phase] = []
+        self.peaks: list[float] = []
+        c.pin = None
+
+        def ev_peak(t, y):
+            return c.coil_current(y[0]) - sum(c.currents_at(t, float(y[1]), y))
+        ev_peak.direction = -1
+        self.ev_peak = ev_peak
+
+    def rhs(self, t, y):
+        self.calls += 1
+        if self.calls > MAX_RHS_CALLS:
+            raise SolverError(f"the solver did not finish within {MAX_RHS_CALLS} evaluations "
+                              f"(reached t = {t:.3g} s); the case is too stiff or ill-posed")
+        return self.c.rhs(t, y)
+
+    def jac(self, t, y):
+        # analytic dynamic block; the energy rows (powers) by forward differences
+        c = self.c
+        n_dyn = c.ie
+        jm = c.jacobian(t, y)
+        f0 = self.rhs(t, y)
+        for j in range(n_dyn):
+            h = 1e-8 * max(abs(y[j]), self.scale[j])
+            yp = y.copy()
+            yp[j] += h
+            jm[n_dyn:, j] = (self.rhs(t, yp)[n_dyn:] - f0[n_dyn:]) / h
+        return jm
+
+    def _pin_events(self):
+        c = self.c
+        evs = []
+        if c.pin is None:
+            for p in c.pin_points:
+                def g(t, y, p=p):
+                    return y[1] - p[0]
+                g.direction = p[2]
+                g.terminal = True
+                g.pin = p
+                evs.append(g)
+        else:
+            side = c.pin[2]
+
+            def g(t, y):
+                vals = c.currents_at(t, float(y[1]), y)
+                vals[c.pin[1]] = 0.0
+                return side * (float(c.coil_current(y[0])) - sum(vals))
+            g.direction = -1
+            g.terminal = True
+            g.pin = None
+            evs.append(g)
+        return evs
+
+    def _solve(self, name, t_end, events, kw):
+        c = self.c
+        pe = self._pin_events()
+        evs = list(events) + pe + ([self.ev_peak] if c.capacitive and c.pin is None else [])
+        try:
+            sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
+                            jac=self.jac, dense_output=True, events=evs, **kw)
+        except SolverError:
+            raise
+        except (ValueError, ArithmeticError, FloatingPointError) as exc:
+            raise SolverError(f"the solver failed in the {name} phase at t ≈ {self.t:.3g} s: {exc}") from exc
+        if sol.status < 0:
+            raise SolverError(f"the solver failed in the {name} phase at t = {sol.t[-1]:.3g} s: {sol.message}")
+        if not np.all(np.isfinite(sol.y)):
+            raise SolverError(f"the solution became non-finite in the {name} phase")
+        return sol, evs, pe
+
+    def run(self, name, t_end, events, record=None, **kw):
+        """Integrate to ``t_end`` or a terminal event of ``events``, switching pin modes on the way.
+
+        ``record(event, times)`` is called for every event of ``events`` that occurred.
+        """
+        c = self.c
+        switches = 0
+        while True:
+            sol, evs, pe = self._solve(name, t_end, events, kw)
+            fired_pin = None
+            for ev, times in zip(evs, sol.t_events, strict=True):
+                if not len(times):
+                    continue
+                if ev is self.ev_peak:
+                    self.peaks.extend(float(x) for x in times)
+                elif ev in pe:
+                    fired_pin = ev
+                elif record is not None:
+                    record(ev, times)
+            self.phases.append(Phase(name, self.t, float(sol.t[-1]), sol.sol, sol.t, c.pin))
+            self.t = float(sol.t[-1])
+            self.y = sol.y[:, -1].copy()
+            if sol.status == 1 and fired_pin is not None:
+                if c.pin is None:
+                    self.peaks.append(self.t)
+                old = c.pin
+                c.pin = fired_pin.pin
+                self.y[1] = (c.pin or old)[0]
+                switches += 1
+                if switches > 10_000:
+                    raise SolverError(f"the node voltage chatters at a clamp threshold near t = {self.t:.3g} s")
+                kw.pop("first_step", None)
+                if self.t < t_end:
+                    continue
+            return sol
+
+
 def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: int = 3) -> Waveforms:
     """Integrate the turn-off transient of ``circuit``.
 
@@ -145,37 +278,9 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
     c = circuit
     rtol = DEFAULT_RTOL if rtol is None else rtol
     i0 = c.i0
+    runner = PhaseRunner(c, rtol, c.initial_state())
     e0 = c.coil_energy(i0) + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
-    atol = np.empty(c.n_states)
-    atol[0] = rtol * 1e-6 * abs(c.coil_state(i0))
-    if c.capacitive:
-        atol[1] = rtol * 1e-3 * c.v_scale
-    for idx in c.icap.values():
-        atol[idx] = rtol * 1e-3 * c.v_scale
-    atol[c.ie:] = rtol * 1e-6 * e0
     zero = ZERO_FRACTION * i0
-    calls = [0]
-
-    def rhs(t, y):
-        calls[0] += 1
-        if calls[0] > MAX_RHS_CALLS:
-            raise SolverError(f"the solver did not finish within {MAX_RHS_CALLS} evaluations "
-                              f"(reached t = {t:.3g} s); the case is too stiff or ill-posed")
-        return c.rhs(t, y)
-
-    n_dyn = c.ie
-    scale = np.maximum(atol / rtol, 1e-300)
-
-    def jac(t, y):
-        # analytic dynamic block; the energy rows (powers) by forward differences
-        jm = c.jacobian(t, y)
-        f0 = rhs(t, y)
-        for j in range(n_dyn):
-            h = 1e-8 * max(abs(y[j]), scale[j])
-            yp = y.copy()
-            yp[j] += h
-            jm[n_dyn:, j] = (rhs(t, yp)[n_dyn:] - f0[n_dyn:]) / h
-        return jm
 
     def ev_frac(f):
         level = c.coil_state(f * i0)  # the first state is monotone in the coil current
@@ -186,7 +291,6 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         return g
 
     ev10, ev1 = ev_frac(0.1), ev_frac(0.01)
-
     zero_state = c.coil_state(zero)
 
     def ev_zero(t, y):
@@ -219,112 +323,33 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         return y[0]
     ev_cross.terminal = True
 
-    def ev_peak(t, y):
-        return c.coil_current(y[0]) - sum(c.currents_at(t, float(y[1]), y))
-    ev_peak.direction = -1
+    ev_times = {"10%": None, "1%": None, "zero": None}
+    names = {ev10: "10%", ev1: "1%", ev_zero: "zero"}
+
+    def record(ev, times):
+        key = names.get(ev)
+        if key is not None and ev_times[key] is None:
+            ev_times[key] = float(times[0])
 
     tf = c.switch.fall_time
     tau = c.L / c.R if c.R > 0 else c.L * i0 / c.Vs
     t_bound = tf + 60.0 * tau
-    y = c.initial_state()
-    t = 0.0
-    phases: list[Phase] = []
-    ev_times = {"10%": None, "1%": None, "zero": None}
-    peaks: list[float] = []
     bound_hit = False
-
-    def pin_events():
-        evs = []
-        if c.pin is None:
-            for p in c.pin_points:
-                def g(t, y, p=p):
-                    return y[1] - p[0]
-                g.direction = p[2]
-                g.terminal = True
-                g.pin = p
-                evs.append(g)
-        else:
-            side = c.pin[2]
-
-            def g(t, y):
-                vals = c.currents_at(t, float(y[1]), y)
-                vals[c.pin[1]] = 0.0
-                return side * (float(c.coil_current(y[0])) - sum(vals))
-            g.direction = -1
-            g.terminal = True
-            g.pin = None
-            evs.append(g)
-        return evs
-
-    def solve(name, t_end, events, kw):
-        pe = pin_events()
-        evs = list(events) + pe + ([ev_peak] if c.capacitive and c.pin is None else [])
-        try:
-            sol = solve_ivp(rhs, (t, t_end), y, method=_Radau, rtol=rtol, atol=atol, jac=jac,
-                            dense_output=True, events=evs, **kw)
-        except SolverError:
-            raise
-        except (ValueError, ArithmeticError, FloatingPointError) as exc:
-            raise SolverError(f"the solver failed in the {name} phase at t ≈ {t:.3g} s: {exc}") from exc
-        if sol.status < 0:
-            raise SolverError(f"the solver failed in the {name} phase at t = {sol.t[-1]:.3g} s: {sol.message}")
-        if not np.all(np.isfinite(sol.y)):
-            raise SolverError(f"the solution became non-finite in the {name} phase")
-        return sol, evs, pe
-
-    def run(name, t_end, events, **kw):
-        """Integrate to t_end or a terminal event of ``events``, switching pin modes on the way."""
-        nonlocal y, t
-        switches = 0
-        while True:
-            sol, evs, pe = solve(name, t_end, events, kw)
-            fired_pin = None
-            for ev, times in zip(evs, sol.t_events, strict=True):
-                if not len(times):
-                    continue
-                if ev is ev10 and ev_times["10%"] is None:
-                    ev_times["10%"] = float(times[0])
-                elif ev is ev1 and ev_times["1%"] is None:
-                    ev_times["1%"] = float(times[0])
-                elif ev is ev_zero and ev_times["zero"] is None:
-                    ev_times["zero"] = float(times[0])
-                elif ev is ev_peak:
-                    peaks.extend(float(x) for x in times)
-                elif ev in pe:
-                    fired_pin = ev
-            phases.append(Phase(name, t, float(sol.t[-1]), sol.sol, sol.t, c.pin))
-            t = float(sol.t[-1])
-            y = sol.y[:, -1].copy()
-            if sol.status == 1 and fired_pin is not None:
-                if c.pin is None:
-                    peaks.append(t)
-                old = c.pin
-                c.pin = fired_pin.pin
-                y[1] = (c.pin or old)[0]
-                switches += 1
-                if switches > 10_000:
-                    raise SolverError(f"the node voltage chatters at a clamp threshold near t = {t:.3g} s")
-                kw.pop("first_step", None)
-                if t < t_end:
-                    continue
-            return sol
-
-    c.pin = None
     if tf > 0:
-        run("edge", tf, [ev10, ev1, ev_zero], first_step=tf / 1000, max_step=tf / EDGE_STEPS)
+        runner.run("edge", tf, [ev10, ev1, ev_zero], record, first_step=tf / 1000, max_step=tf / EDGE_STEPS)
     if ev_times["zero"] is None:
         first = tf / 1000 if tf > 0 else min(tau, c.L * i0 / c.v_scale) * 1e-6
-        run("decay", t_bound, [ev10, ev1, ev_zero], first_step=first)
+        runner.run("decay", t_bound, [ev10, ev1, ev_zero], record, first_step=first)
         bound_hit = ev_times["zero"] is None
     rings = c.capacitive or bool(dyn_caps)
-    if not bound_hit and rings and dyn_energy(y) > rest_level and t < t_bound:
-        run("ring", t_bound, [ev10, ev1, ev_rest])
-        bound_hit = not (dyn_energy(y) <= rest_level * 1.0001)
-        if not bound_hit and abs(c.coil_current(y[0])) > RING_END_FRACTION * i0 and t < t_bound:
+    if not bound_hit and rings and dyn_energy(runner.y) > rest_level and runner.t < t_bound:
+        runner.run("ring", t_bound, [ev10, ev1, ev_rest], record)
+        bound_hit = not (dyn_energy(runner.y) <= rest_level * 1.0001)
+        if not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 and runner.t < t_bound:
             # end on a zero of the coil current, so that it too is below 0.1 % of the start
-            run("ring", t_bound, [ev_cross])
-            bound_hit = abs(c.coil_current(y[0])) > RING_END_FRACTION * i0
+            runner.run("ring", t_bound, [ev_cross], record)
+            bound_hit = abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0
     c.pin = None
     from kickback.engine.sampling import sample_run
 
-    return sample_run(c, phases, ev_times, peaks, bound_hit, rtol, calls[0], samples_per_step)
+    return sample_run(c, runner.phases, ev_times, runner.peaks, bound_hit, rtol, runner.calls, samples_per_step)
