@@ -47,6 +47,7 @@ class Switch:
     thermal_resistance: tuple[float, ...] | None = None  # [K/W] Foster stages
     thermal_tau: tuple[float, ...] | None = None  # [s] Foster time constants
     max_junction_temperature: float | None = None  # [K]
+    rated_repetitive_avalanche_energy: float | None = None  # [J] per cycle
     # on-state drive (optional): BJT base drive, MOSFET gate drive
     gain: float | None = None  # BJT current gain β at the on-state current
     drive_voltage: float | None = None  # [V] BJT base drive source
@@ -73,6 +74,7 @@ class Element:
     temperature: float | None = None  # [K] junction temperature for V_T; None: 25 degC
     rated_reverse_voltage: float | None = None  # [V]
     rated_surge_current: float | None = None  # [A]
+    rated_average_current: float | None = None  # [A] repetitive switching
     # zener / tvs / varistor
     voltage: float | None = None  # [V] breakdown (zener/tvs) or voltage at at_current (varistor)
     dynamic_resistance: float = 0.0  # [ohm]
@@ -108,6 +110,15 @@ class Option:
 
     name: str
     clamps: tuple[Clamp, ...] = ()
+
+
+@dataclass(frozen=True)
+class Drive:
+    """Repetitive switching (``[drive]``): the periodic steady state at each duty."""
+
+    frequency: float  # [Hz]
+    duties: tuple[float, ...]  # on-time fraction(s) of the period, in (0, 1)
+    final_turn_off: bool = True  # also simulate the last turn-off from the steady-state peak
 
 
 @dataclass(frozen=True)
@@ -154,3 +165,4 @@ class Case:
     text: str = ""  # the case text as loaded
     options: tuple[Option, ...] = ()  # alternative clamp sets to compare
     tolerances: tuple[Tolerance, ...] = ()  # spreads for the tolerance study
+    drive: Drive | None = None  # repetitive switching

@@ -23,6 +23,7 @@ from kickback.case import (
     Checks,
     Clamp,
     Coil,
+    Drive,
     Element,
     Option,
     Supply,
@@ -93,7 +94,7 @@ _SWITCH = {"type": _Field("c", required=True, choices=SWITCH_TYPES), "on_resista
            "body_diode_voltage": _q("V"), "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J"),
            "gain": _Field("n", cond=">1"), "drive_voltage": _q("V"), "base_resistance": _q("Ω"),
            "base_emitter_voltage": _q("V"), "overdrive": _Field("n", cond=">1"), "gate_voltage": _q("V"),
-           "on_resistance_gate_voltage": _q("V"), **_THERMAL}
+           "on_resistance_gate_voltage": _q("V"), "rated_repetitive_avalanche_energy": _q("J"), **_THERMAL}
 _SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_diode_voltage": "mosfet",
                 "gain": "bjt", "drive_voltage": "bjt", "base_resistance": "bjt", "base_emitter_voltage": "bjt",
                 "overdrive": "bjt", "gate_voltage": "mosfet", "on_resistance_gate_voltage": "mosfet"}
@@ -102,7 +103,9 @@ _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
            "max_clamp_energy": _q("J"), "ambient_temperature": _q("K")}
-_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance")
+_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive")
+_DRIVE = {"frequency": _q("Hz", required=True), "duty": _Field("n"), "duties": _Field("ln"),
+          "final_turn_off": _BOOL}
 _OPTION = {"name": _Field("s", required=True), "clamp": _Field("t")}
 
 _COMMON = {"type": _Field("c", required=True, choices=ELEMENT_TYPES), "name": _STRING}
@@ -113,7 +116,7 @@ _ELEMENTS: dict[str, dict[str, _Field]] = {
     "diode": {"model": _Field("c", choices=("shockley", "constant-drop")), "forward_voltage": _q("V"),
               "at_current": _q("A"), "ideality": _Field("n", cond="[0.5,10]"),
               "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"), "temperature": _q("K"),
-              "rated_reverse_voltage": _q("V"), "rated_surge_current": _q("A")},
+              "rated_reverse_voltage": _q("V"), "rated_surge_current": _q("A"), "rated_average_current": _q("A")},
     "zener": _BREAKDOWN,
     "tvs": {**_BREAKDOWN, "bidirectional": _BOOL},
     "resistor": {"resistance": _q("Ω", required=True), "rated_energy": _q("J")},
@@ -174,6 +177,11 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
         if raw not in field.choices:
             raise ctx.error(path, f"{raw!r} is not allowed (expected {field.expected()})")
         return raw
+    elif field.kind == "ln":
+        if not isinstance(raw, list) or not raw or any(isinstance(x, bool) or not isinstance(x, int | float)
+                                                       for x in raw):
+            raise ctx.error(path, f"got {_kind_of(raw)} (expected a non-empty array of plain numbers)")
+        return tuple(float(x) for x in raw)
     elif field.kind == "l":
         if not isinstance(raw, list) or not raw:
             raise ctx.error(path, f"got {_kind_of(raw)} (expected a non-empty array of values in {field.unit}, "
@@ -241,6 +249,18 @@ def _switch(ctx: _Context, raw: Any, supply_voltage: float) -> Switch:
                         "needs breakdown_voltage (expected breakdown_voltage in [switch] as well)")
     _check_thermal(ctx, path, v)
     return Switch(**v)
+
+
+def _drive(ctx: _Context, raw: Any) -> Drive:
+    v = _table(ctx, ("drive",), raw, _DRIVE, "[drive]")
+    if ("duty" in v) == ("duties" in v):
+        raise ctx.missing(("drive", "duty"), "duty = 0.5 or duties = [0.2, 0.5, 0.8] (one of them)")
+    duties = (v["duty"],) if "duty" in v else v["duties"]
+    for d in duties:
+        if not 0 < d < 1:
+            key = ("drive", "duty" if "duty" in v else "duties")
+            raise ctx.error(key, f"duty {d:g} outside (0, 1) (expected the on-time fraction of the period)")
+    return Drive(v["frequency"], duties, v.get("final_turn_off", True))
 
 
 def _check_thermal(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
@@ -409,9 +429,10 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
                         "coil.initial_current (expected a resistance > 0 or an initial_current)")
     clamps = _clamps(ctx, doc.get("clamp"))
     options = _options(ctx, doc.get("option"))
+    drive = _drive(ctx, doc["drive"]) if "drive" in doc else None
     checks = Checks(**_table(ctx, ("checks",), doc.get("checks", {}), _CHECKS, "[checks]"))
     case = Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
-                checks=checks, source=name, text=text, options=options)
+                checks=checks, source=name, text=text, options=options, drive=drive)
     if "tolerance" in doc:
         from dataclasses import replace
 

@@ -154,3 +154,31 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
         else:
             out.append(_check("case", "decay to zero", fig.to_zero_s, ck.max_decay_time, 1.0, "s", "case limit"))
     return out
+
+
+def pwm_checks(case: Case, pf) -> list[Check]:
+    """Checks of one duty's steady state: junction temperatures (periodic peak), diode average
+    current, repetitive avalanche energy per cycle."""
+    ck, s = case.checks, case.switch
+    tag = f" (duty {pf.duty:g})"
+    out: list[Check] = []
+    if pf.switch_junction_peak_K is not None and s.max_junction_temperature is not None:
+        out.append(_junction_check("switch" + tag, pf.switch_junction_peak_K, s.max_junction_temperature,
+                                   ck.ambient_temperature))
+    if pf.avalanche_energy_J > 1e-12:
+        if s.rated_repetitive_avalanche_energy is None:
+            out.append(Check("switch" + tag, "repetitive avalanche energy", pf.avalanche_energy_J, None, None,
+                             False, "J", "the switch avalanches every cycle but has no repetitive rating"))
+        else:
+            out.append(_check("switch" + tag, "repetitive avalanche energy", pf.avalanche_energy_J,
+                              s.rated_repetitive_avalanche_energy, ck.energy_fraction, "J", "per cycle"))
+    flat = [(cl, el) for cl in case.clamps for el in cl.elements]
+    for (cl, el), ef in zip(flat, pf.elements, strict=True):
+        part = f"{cl.name}: {ef['element']}{tag}"
+        if el.type == "diode" and el.rated_average_current is not None:
+            out.append(_check(part, "average current", abs(ef["mean_A"]), el.rated_average_current,
+                              ck.derating, "A", f"rating × {ck.derating:g}"))
+        if ef["junction_peak_K"] is not None and el.max_junction_temperature is not None:
+            out.append(_junction_check(part, ef["junction_peak_K"], el.max_junction_temperature,
+                                       ck.ambient_temperature))
+    return out

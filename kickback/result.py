@@ -30,6 +30,7 @@ class Result:
     figures: Figures
     checks: tuple[Check, ...]
     waveforms: Waveforms = field(repr=False)
+    pwm: tuple = ()  # PwmFigures per duty of the case's [drive]
 
     @property
     def passed(self) -> bool:
@@ -68,7 +69,7 @@ class Result:
             "energy_balance_error": f.energy_balance_error,
             "checks": [ck.to_dict() for ck in self.checks],
             "pass": self.passed,
-        }
+        } | ({"pwm": [p.to_dict() for p in self.pwm]} if self.pwm else {})
 
     def details(self) -> dict:
         """Figures beyond the contract: findings, models, the ledger's small terms."""

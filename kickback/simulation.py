@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 from kickback.case import Case
 from kickback.circuit import Circuit
 from kickback.engine.detailed import DEFAULT_RTOL, integrate
@@ -30,8 +32,31 @@ def simulate(case: Case, *, rtol: float = DEFAULT_RTOL, engine: str = "detailed"
     """
     if engine != "detailed":
         raise ValueError(f"unknown engine {engine!r} (expected 'detailed')")
+    pwm = ()
+    extra_checks = []
+    if case.drive is not None:
+        pwm, extra_checks = _repetitive(case, rtol)
+        if case.drive.final_turn_off:
+            # the last turn-off starts from the highest steady-state current
+            peak = max(p.max_current_A for p in pwm)
+            case = replace(case, coil=replace(case.coil, initial_current=peak))
     circuit = Circuit(case)
     waveforms = integrate(circuit, rtol=rtol)
     figures = compute_figures(waveforms)
-    checks = rating_checks(case, figures)
-    return Result(case, figures, tuple(checks), waveforms)
+    checks = rating_checks(case, figures) + extra_checks
+    return Result(case, figures, tuple(checks), waveforms, pwm)
+
+
+def _repetitive(case: Case, rtol: float):
+    """Steady state at every duty of the case's [drive]: figures and their checks."""
+    from kickback.engine.periodic import steady_state
+    from kickback.pwmfigures import pwm_figures
+    from kickback.ratings import pwm_checks
+
+    circuit = Circuit(case)
+    out, checks = [], []
+    for duty in case.drive.duties:
+        pf = pwm_figures(steady_state(circuit, duty, case.drive.frequency, rtol=rtol))
+        out.append(pf)
+        checks += pwm_checks(case, pf)
+    return tuple(out), checks

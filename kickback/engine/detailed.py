@@ -74,6 +74,8 @@ class Phase:
     sol: object  # scipy OdeSolution
     t_steps: np.ndarray
     pin: tuple | None = None  # node pinned at a vertical law: (voltage, branch, side)
+    conducting: bool = False  # the switch was on (repetitive switching)
+    t_turnoff: float = 0.0  # [s] when the switch was told to turn off
 
 
 @dataclass
@@ -239,7 +241,8 @@ class PhaseRunner:
                     fired_pin = ev
                 elif record is not None:
                     record(ev, times)
-            self.phases.append(Phase(name, self.t, float(sol.t[-1]), sol.sol, sol.t, c.pin))
+            self.phases.append(Phase(name, self.t, float(sol.t[-1]), sol.sol, sol.t, c.pin, c.conducting,
+                                     c.t_turnoff))
             self.t = float(sol.t[-1])
             self.y = sol.y[:, -1].copy()
             if sol.status == 1 and fired_pin is not None:

@@ -26,7 +26,7 @@ def sample_run(c: Circuit, phases, ev_times, peaks, bound_hit, rtol, n_rhs, per_
         m = (t >= ph.t0) & (t <= ph.t1)
         y[:, m] = ph.sol(t[m])
         pins[m] = n
-    parts = [derived_with_pin(c, ph.pin, t[pins == n], y[:, pins == n]) for n, ph in enumerate(phases)]
+    parts = [derived_with_pin(c, ph.pin, t[pins == n], y[:, pins == n], ph) for n, ph in enumerate(phases)]
     v = np.concatenate([p[0] for p in parts])
     ich = np.concatenate([p[1] for p in parts])
     ioff = np.concatenate([p[2] for p in parts])
@@ -57,7 +57,7 @@ def _refine_peak(w: Waveforms) -> None:
         return
     tp = float(res.x)
     yp = ph.sol(tp)[:, None]
-    vp, a, b, cs = derived_with_pin(c, ph.pin, np.array([tp]), yp)
+    vp, a, b, cs = derived_with_pin(c, ph.pin, np.array([tp]), yp, ph)
     j = int(np.searchsorted(w.t, tp))
     w.t = np.insert(w.t, j, tp)
     w.y = np.insert(w.y, j, yp[:, 0], axis=1)
@@ -68,9 +68,12 @@ def _refine_peak(w: Waveforms) -> None:
     w.peak_times.append(tp)
 
 
-def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray):
-    """:func:`derived` with the circuit's pin mode set as it was when ``t`` was integrated."""
+def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray, phase=None):
+    """:func:`derived` with the circuit's pin (and switch) mode set as it was when ``t`` was
+    integrated."""
     c.pin = pin
+    if phase is not None:
+        c.conducting, c.t_turnoff = phase.conducting, phase.t_turnoff
     try:
         out = derived(c, t, y)
         if pin is not None:
@@ -81,6 +84,7 @@ def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray):
         return out
     finally:
         c.pin = None
+        c.conducting, c.t_turnoff = False, 0.0
 
 
 def derived(c: Circuit, t: np.ndarray, y: np.ndarray):

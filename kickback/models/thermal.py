@@ -70,3 +70,20 @@ def wunsch_bell_rating(rated_power: float, rated_width: float, width: float) -> 
     """A peak pulse power rating moved to another rectangular pulse width [W], P ∝ t^(−1/2)
     (Wunsch and Bell 1968; an approximation for adiabatic heating of a junction)."""
     return rated_power * np.sqrt(rated_width / width)
+
+
+def foster_periodic(t, p, r, tau) -> np.ndarray:
+    """Periodic steady-state temperature rise [K] over one period ``t[0] … t[-1]`` for a power
+    waveform repeated every period, exact for a Foster network (p linear between samples).
+
+    Each stage's start value satisfies ``T0 = a·T0 + T_1(T)`` with ``a = e^{-T/τ}`` and
+    ``T_1`` the response from zero, so ``T0 = T_1(T)/(1 − a)``.
+    """
+    t = np.asarray(t, dtype=float)
+    period = t[-1] - t[0]
+    out = np.zeros_like(t)
+    for rk, tk in zip(r, tau, strict=True):
+        first = foster_response(t, p, (rk,), (tk,))
+        t0 = first[-1] / -np.expm1(-period / tk)
+        out += first + t0 * np.exp(-(t - t[0]) / tk)
+    return out

@@ -86,6 +86,8 @@ def result_table(result) -> str:
         lines += _grid(rows)
     else:
         lines += ["", "clamps: none"]
+    if result.pwm:
+        lines += ["", pwm_section(result)]
     lines += ["", "checks"]
     if result.checks:
         lines += _grid(check_rows(result.checks))
@@ -105,3 +107,32 @@ def _wrap(text: str, width: int = 100) -> str:
     import textwrap
 
     return "\n".join(textwrap.wrap(text, width))
+
+
+def _tj(x):
+    return "—" if x is None else f"{x - 273.15:.1f} °C"
+
+
+def pwm_section(result) -> str:
+    """The repetitive-switching figures, one row per duty."""
+    d = result.case.drive
+    lines = [f"repetitive switching at {q(d.frequency, 'Hz')} (periodic steady state by shooting)"]
+    rows = [["duty", "ripple", "mean I", "RMS I", "conduction", "crossover", "clamp", "avalanche/cycle",
+             "switch Tj peak"]]
+    for p in result.pwm:
+        clamp_w = sum(e["power_W"] for e in p.elements)
+        rows.append([f"{p.duty:g}", q(p.ripple_A, "A"), q(p.mean_current_A, "A"), q(p.rms_current_A, "A"),
+                     q(p.conduction_loss_W, "W"), q(p.crossover_loss_W, "W"), q(clamp_w, "W"),
+                     q(p.avalanche_energy_J, "J"), _tj(p.switch_junction_peak_K)])
+    lines += _grid(rows)
+    for p in result.pwm:
+        brute = "—" if p.brute_force_cycles is None else f"{p.brute_force_cycles}"
+        lines.append(f"  duty {p.duty:g}: {p.cycle_solves} cycle solves; plain repetition from zero would need "
+                     f"{brute} cycles (contraction {p.contraction:.4f} per cycle); residual {p.residual:.1e}")
+        for e in p.elements:
+            tj = "" if e["junction_peak_K"] is None else f", Tj peak {_tj(e['junction_peak_K'])}"
+            lines.append(f"    {e['clamp']} / {e['element']}: mean {q(e['mean_A'], 'A')}, RMS {q(e['rms_A'], 'A')}, "
+                         f"{q(e['energy_J'], 'J')} per cycle = {q(e['power_W'], 'W')}{tj}")
+    if result.case.drive.final_turn_off:
+        lines.append("  the turn-off figures above start from the highest steady-state current (final turn-off)")
+    return "\n".join(lines)

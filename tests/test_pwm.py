@@ -1,0 +1,102 @@
+"""Repetitive switching: periodic steady state by shooting against closed forms and brute force."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from kickback import load_case, simulate
+from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
+from kickback.circuit import Circuit
+from kickback.cli import main
+from kickback.engine.periodic import one_cycle, steady_state
+from kickback.models.thermal import foster_periodic
+from kickback.pwmfigures import pwm_figures
+
+CASES = Path(__file__).resolve().parent.parent / "cases"
+L, R, VS, F = 1e-3, 10.0, 24.0, 20e3
+
+
+def _case(vd=0.0, fall=0.0):
+    d = Element("diode", model="constant-drop", forward_voltage=vd)
+    sw = Switch("ideal", fall_time=fall)
+    return Case("pwm (demo data)", Supply(VS), Coil(L, R), sw, (Clamp("D", "coil", (d,)),))
+
+
+def _exact_extremes(duty, vd):
+    """Steady state of the two exponential segments (derived, first-order RL):
+    on: i → Vs/R with τ = L/R from i_min; off: i → −Vd/R from i_max."""
+    T, tau = 1 / F, L / R
+    a_on, a_off = math.exp(-duty * T / tau), math.exp(-(1 - duty) * T / tau)
+    # i_max = Vs/R + (i_min − Vs/R)·a_on ; i_min = −Vd/R + (i_max + Vd/R)·a_off
+    i_max = (VS / R * (1 - a_on) + a_on * (-vd / R * (1 - a_off))) / (1 - a_on * a_off)
+    i_min = -vd / R + (i_max + vd / R) * a_off
+    return i_min, i_max
+
+
+@pytest.mark.parametrize("duty, vd", [(0.5, 0.0), (0.25, 0.7), (0.8, 0.7)], ids=["D0.5", "D0.25-diode", "D0.8-diode"])
+def test_ripple_against_exponential_segments(duty, vd):
+    pf = pwm_figures(steady_state(Circuit(_case(vd)), duty, F))
+    i_min, i_max = _exact_extremes(duty, vd)
+    assert pf.min_current_A == pytest.approx(i_min, rel=1e-7)
+    assert pf.max_current_A == pytest.approx(i_max, rel=1e-7)
+    assert pf.ripple_A == pytest.approx(i_max - i_min, rel=1e-5)
+    assert pf.residual <= 1e-9
+
+
+def test_ripple_long_time_constant_limit():
+    # τ ≫ T: ΔI → V·D·(1−D)/(L·f) (Batarseh & Harb, Power Electronics, §4.5); here τ/T = 2000
+    case = Case("slow (demo data)", Supply(VS), Coil(1.0, 10.0), Switch("ideal"),
+                (Clamp("D", "coil", (Element("diode", model="constant-drop", forward_voltage=0.0),)),))
+    pf = pwm_figures(steady_state(Circuit(case), 0.4, F))
+    assert pf.ripple_A == pytest.approx(VS * 0.4 * 0.6 / (1.0 * F), rel=2e-3)
+
+
+def test_crossover_loss_half_v_i_tf():
+    # linear current fall into a clamped node: E = ½·V·I·t_f per cycle (Mohan, Undeland & Robbins, ch. 2)
+    tf = 200e-9
+    pf = pwm_figures(steady_state(Circuit(_case(0.7, tf)), 0.5, F))
+    expect = 0.5 * (VS + 0.7) * pf.max_current_A * tf
+    assert pf.crossover_energy_J == pytest.approx(expect, rel=1e-4)
+    assert pf.crossover_loss_W == pytest.approx(expect * F, rel=1e-4)
+
+
+def test_shooting_matches_brute_force_cycling():
+    c = Circuit(_case(0.7))
+    ss = steady_state(c, 0.3, F)
+    x = np.array([c.coil_state(0.0)])
+    n = ss.brute_force_cycles
+    for _ in range(n + 5):
+        x = one_cycle(c, x, 0.3, F, 1e-9)[0]
+    assert x[0] == pytest.approx(ss.x[0], rel=1e-8)
+    # fewer cycle solves than plain repetition needs
+    assert ss.cycle_solves < n
+
+
+def test_foster_periodic_square_wave():
+    # one stage under a square power wave, periodic: T_peak = P·R·(1 − a_on)/(1 − a_on·a_off) (derived)
+    r, tau, p0, T, duty = 3.0, 2e-4, 10.0, 1e-4, 0.4
+    t = np.linspace(0, T, 40001)
+    p = np.where(t <= duty * T, p0, 0.0)
+    rise = foster_periodic(t, p, [r], [tau])
+    a_on, a_off = math.exp(-duty * T / tau), math.exp(-(1 - duty) * T / tau)
+    assert rise.max() == pytest.approx(p0 * r * (1 - a_on) / (1 - a_on * a_off), rel=1e-3)
+    assert rise[0] == pytest.approx(rise[-1], rel=1e-9), "periodic"
+
+
+def test_demo_pwm_case_and_cli(tmp_path):
+    res = simulate(load_case(CASES / "valve_pwm_hold.toml"))
+    assert len(res.pwm) == 2 and res.passed
+    a, b = res.pwm
+    assert a.mean_current_A < b.mean_current_A, "more duty, more current"
+    # the final turn-off starts from the steady-state peak
+    assert res.figures.initial_current_A == pytest.approx(max(a.max_current_A, b.max_current_A))
+    out = CliRunner().invoke(main, ["run", str(CASES / "valve_pwm_hold.toml"), "--json"])
+    assert out.exit_code == 0
+    d = json.loads(out.stdout)
+    assert [p["duty"] for p in d["pwm"]] == [0.3, 0.5] and "ripple_A" in d["pwm"][0]
