@@ -44,7 +44,11 @@ def main() -> None:
 @click.option("--no-plot", is_flag=True, help="With --out: skip the waveform plots.")
 @click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
               help="Relative tolerance of the detailed engine.")
-def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: float) -> None:
+@click.option("--measured", metavar="TRACE.csv", default=None,
+              help="A measured coil current (unit A) or switch-node voltage (unit V) with t = 0 at "
+                   "turn-off: overlay it (measured.png/svg with --out) and print the differences.")
+def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: float,
+        measured: str | None) -> None:
     """Simulate one turn-off of CASE and check it against the ratings."""
     from kickback.errors import KickbackError
     from kickback.outputs.jsonout import to_json
@@ -52,23 +56,27 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     from kickback.simulation import simulate
 
     c = _load(case)
+    trace = _read_measured(measured) if measured is not None else None
     try:
         result = simulate(c, rtol=rtol)
     except KickbackError as err:
         _die(f"{c.source}: {err}")
     payload = to_json(result.to_dict())
+    extra, report = ({}, None) if trace is None else _measured_outputs(result, trace, plot=not no_plot)
     if out_dir is not None:
-        _write_outputs(result, payload, Path(out_dir), plot=not no_plot)
+        _write_outputs(result, payload, Path(out_dir), plot=not no_plot, extra=extra)
     if as_json:
         click.echo(payload, nl=False)
     else:
         click.echo(result_table(result), nl=False)
+    if report is not None:
+        click.echo(report, nl=False, err=as_json)
     for finding in result.figures.findings:
         click.echo(f"warning: {finding}", err=True)
     sys.exit(0 if result.passed else 1)
 
 
-def _write_outputs(result, payload: str, out: Path, plot: bool) -> None:
+def _write_outputs(result, payload: str, out: Path, plot: bool, extra: dict | None = None) -> None:
     """Build every file in memory first, then write each atomically."""
     from kickback.outputs.csvout import waveforms_csv
 
@@ -79,6 +87,13 @@ def _write_outputs(result, payload: str, out: Path, plot: bool) -> None:
         fig, _ = result.plot()
         for fmt in ("png", "svg"):
             files[f"waveforms.{fmt}"] = figure_bytes(fig, fmt)
+        if result.pwm:
+            from kickback.outputs.pwmplots import pwm_figure
+
+            pfig = pwm_figure(result)
+            for fmt in ("png", "svg"):
+                files[f"pwm.{fmt}"] = figure_bytes(pfig, fmt)
+    files |= extra or {}
     _write_files(out, files)
 
 
@@ -217,6 +232,117 @@ def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
     sys.exit(0 if ch.ranked else 1)
 
 
+@main.command()
+@click.argument("case", metavar="CASE.toml")
+@click.option("-o", "--output", metavar="FILE.html",
+              help="Where to write the report (default: <case stem>-report.html in the current folder).")
+@click.option("--compare", "with_compare", is_flag=True,
+              help="Add the clamp comparison (always added when the case has [[option]] sets).")
+@click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
+              help="Relative tolerance of the detailed engine.")
+def report(case: str, output: str | None, with_compare: bool, rtol: float) -> None:
+    """Write one self-contained HTML review file of CASE: schematic, inputs, checks, energy
+    ledger, waveforms, assumptions, cautions and how to reproduce it (printable, no external files).
+
+    Exit status: 0 all checks pass, 1 a check fails, 2 bad input.
+    """
+    import shlex
+
+    from kickback.errors import KickbackError
+    from kickback.outputs.files import write_atomic
+    from kickback.outputs.report import report_html, verdict
+    from kickback.simulation import simulate
+    from kickback.studies.compare import compare as run_compare
+
+    c = _load(case)
+    target = Path(output) if output else Path.cwd() / f"{Path(case).stem}-report.html"
+    if target.is_dir():
+        _die(f"{target}: -o must name a file (expected FILE.html, found a folder)")
+    cmp = None
+    try:
+        if with_compare or c.options:
+            cmp = run_compare(c, rtol=rtol)
+            if cmp.own.result is None:
+                _die(f"{c.source}: the case's own clamp cannot be simulated: {cmp.own.error}")
+            result = cmp.own.result
+        else:
+            result = simulate(c, rtol=rtol)
+    except KickbackError as err:
+        _die(f"{c.source}: {err}")
+    words = ["kickback", "report", case] + (["-o", output] if output else []) + (["--compare"] if with_compare else [])
+    words += [] if rtol == 1e-5 else ["--rtol", f"{rtol:g}"]
+    html = report_html(result, comparison=cmp, command=shlex.join(words), date=_report_date())
+    write_atomic(target, html)
+    word, _, line = verdict(result)
+    click.echo(f"{c.title}: {word} ({line})")
+    for finding in result.figures.findings:
+        click.echo(f"warning: {finding}", err=True)
+    click.echo(f"wrote {target}", err=True)
+    sys.exit(0 if result.passed else 1)
+
+
+def _report_date() -> str:
+    """Now, in UTC to the second; SOURCE_DATE_EPOCH (seconds) when set, for reproducible builds."""
+    import os
+    from datetime import UTC, datetime
+
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    when = datetime.fromtimestamp(int(epoch), UTC) if epoch and epoch.isdigit() else datetime.now(UTC)
+    return when.strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+@main.command()
+@click.argument("case", metavar="CASE.toml")
+@click.option("--samples", type=click.IntRange(1, 10_000_000), default=1000, show_default=True,
+              help="Monte Carlo samples.")
+@click.option("--seed", type=int, default=1, show_default=True, help="Random state: same seed, same numbers.")
+@click.option("--workers", type=click.IntRange(1, 64), default=None,
+              help="Worker processes (default: the machine's cores).")
+@click.option("--json", "as_json", is_flag=True, help="Print the study as JSON only.")
+@click.option("--out", "out_dir", metavar="DIR", help="Write tolerance.json, samples.csv and histograms into DIR.")
+@click.option("--no-plot", is_flag=True, help="With --out: skip the histograms.")
+def tolerance(case: str, samples: int, seed: int, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+    """Monte Carlo over the case's [tolerance] bands: percentiles, yield, worst cases, sensitivity.
+
+    Exit status: 0 when every sample passes, 1 when any fails, 2 on bad input.
+    """
+    import os
+
+    from kickback.errors import CaseError
+    from kickback.outputs.jsonout import to_json
+    from kickback.outputs.tolerances import samples_csv, tolerance_table
+    from kickback.studies.tolerance import run_tolerance
+
+    c = _load(case)
+    workers = workers or min(os.cpu_count() or 1, 8)
+    try:
+        if samples >= 20:
+            with click.progressbar(length=samples, label="samples", file=sys.stderr) as bar:
+                done = [0]
+
+                def progress(k):
+                    bar.update(k - done[0])
+                    done[0] = k
+
+                tr = run_tolerance(c, samples, seed, workers=workers, progress=progress)
+        else:
+            tr = run_tolerance(c, samples, seed, workers=workers)
+    except CaseError as err:
+        _die(str(err))
+    payload = to_json(tr.to_dict())
+    if out_dir is not None:
+        files = {"tolerance.json": payload, "samples.csv": samples_csv(tr)}
+        if not no_plot:
+            from kickback.outputs.plots import figure_bytes
+            from kickback.outputs.tolerances import tolerance_figure
+
+            fig = tolerance_figure(tr)
+            files |= {f"tolerance.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+        _write_files(Path(out_dir), files)
+    click.echo(payload if as_json else tolerance_table(tr), nl=False)
+    sys.exit(0 if tr.passed.all() else 1)
+
+
 def _write_files(out: Path, files: dict) -> None:
     from kickback.outputs.files import write_atomic
 
@@ -225,6 +351,133 @@ def _write_files(out: Path, files: dict) -> None:
     for name, data in files.items():
         write_atomic(out / name, data)
     click.echo(f"wrote {', '.join(str(out / n) for n in files)}", err=True)
+
+
+# ---- measured traces: `run --measured` and `fit` -------------------------------------------------
+
+
+def _read_measured(path: str):
+    """The --measured trace of `run` (units from its header), or exit 2 with a one-line message."""
+    from kickback.errors import KickbackError
+    from kickback.traceio import TraceError, read_trace
+
+    try:
+        return read_trace(path)
+    except TraceError as err:
+        _die(f"{err.source}: --measured: {err.message}")
+    except KickbackError as err:
+        _die(f"{path}: --measured: {err}")
+
+
+def _measured_outputs(result, trace, plot: bool) -> tuple[dict, str]:
+    """The comparison text and, when plotting, measured.png/svg (in memory, written with the rest)."""
+    from kickback.outputs.fitreport import comparison_text
+    from kickback.studies.measured import compare_measured
+
+    cmp = compare_measured(result, trace)
+    files = {}
+    if plot:
+        from kickback.outputs.fitplots import measured_figure
+        from kickback.outputs.plots import figure_bytes
+
+        fig = measured_figure(result, trace, cmp)
+        files = {f"measured.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+    return files, "\n" + comparison_text(cmp)
+
+
+def _quantity_option(source: str, option: str, value, unit: str) -> float | None:
+    from kickback.units import UnitError, parse_quantity
+
+    if value is None:
+        return None
+    try:
+        return parse_quantity(value, unit)
+    except UnitError as err:
+        _die(f"{source}: {option}: {err.message}")
+
+
+def _unit_option(source: str, option: str, value, bases) -> str | None:
+    from kickback.traceio import unit_scale
+    from kickback.units import UnitError
+
+    if value is not None:
+        try:
+            unit_scale(value, bases)
+        except UnitError as err:
+            _die(f"{source}: {option}: {err.message}")
+    return value
+
+
+@main.command()
+@click.argument("trace", metavar="TRACE.csv")
+@click.option("--kind", type=click.Choice(("rise", "decay")), required=True,
+              help="rise: current at switch-on (fits L, R); decay: at switch-off (fits L, R and the clamp voltage).")
+@click.option("--supply", metavar="V", help="Voltage across the coil and its resistance while on, e.g. '24 V' "
+                                             "(needed to tell L and R apart).")
+@click.option("--shunt", metavar="R", help="The value column is the voltage across this shunt, e.g. '0.1 ohm'.")
+@click.option("--time-col", metavar="NAME|N", help="Time column by header name or number (default: the one "
+                                                    "with a time unit, or named t/time).")
+@click.option("--value-col", metavar="NAME|N", help="Current (or shunt-voltage) column by name or number.")
+@click.option("--time-unit", metavar="UNIT", help="Unit of the time column, e.g. 'ms' (overrides the header).")
+@click.option("--value-unit", metavar="UNIT",
+              help="Unit of the value column, e.g. 'mA' or 'mV' (overrides the header).")
+@click.option("--trigger", metavar="T", help="Time in the trace of the switching instant, e.g. '1.2 ms'; "
+                                             "it becomes t = 0.")
+@click.option("--saturating", is_flag=True, help="With --kind rise: fit a saturating coil, "
+                                                 "λ(i) = L0·i/(1 + |i|/I_sat).")
+@click.option("--json", "as_json", is_flag=True, help="Print the fit as JSON only.")
+@click.option("--out", "out_dir", metavar="DIR", help="Write fit.json and the residual plot fit.png/svg into DIR.")
+@click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
+def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, value_unit, trigger,
+        saturating: bool, as_json: bool, out_dir, no_plot: bool) -> None:
+    """Fit a coil's inductance and resistance to a measured current trace (generic CSV).
+
+    Prints each value with its 95 % interval, the residual, and a [coil] block to paste into
+    a case. Exit status: 0 fitted, 2 bad input or a trace that cannot be fitted.
+    """
+    from kickback.errors import KickbackError
+    from kickback.outputs.fitreport import fit_table
+    from kickback.outputs.jsonout import to_json
+    from kickback.studies.fit import fit_trace
+    from kickback.traceio import read_trace
+
+    if saturating and kind != "rise":
+        _die(f"{trace}: --saturating: fits a rise only (expected --kind rise)")
+    v = _quantity_option(trace, "--supply", supply, "V")
+    if v is None:
+        _die(f"{trace}: --supply: needed to tell L and R apart (expected the voltage across the coil "
+             "while on, e.g. '24 V')")
+    if not v > 0:
+        _die(f"{trace}: --supply: must be positive (expected e.g. '24 V')")
+    r_shunt = _quantity_option(trace, "--shunt", shunt, "Ω")
+    if r_shunt is not None and not r_shunt > 0:
+        _die(f"{trace}: --shunt: must be positive (expected e.g. '0.1 ohm')")
+    t0 = _quantity_option(trace, "--trigger", trigger, "s") or 0.0
+    _unit_option(trace, "--time-unit", time_unit, ("s",))
+    _unit_option(trace, "--value-unit", value_unit, ("A", "V"))
+    try:
+        tr = read_trace(trace, time_col=time_col, value_col=value_col, time_unit=time_unit,
+                        value_unit=value_unit, trigger=t0, shunt=r_shunt, want="current")
+        result = fit_trace(tr, kind=kind, supply=v, saturating=saturating)
+    except KickbackError as err:
+        _die(str(err))
+    payload = to_json(result.to_dict())
+    if out_dir is not None:
+        files = {"fit.json": payload}
+        if not no_plot:
+            from kickback.outputs.fitplots import fit_figure
+            from kickback.outputs.plots import figure_bytes
+
+            fig = fit_figure(result)
+            files |= {f"fit.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+        _write_files(Path(out_dir), files)
+    click.echo(f"trace: {tr.source}, time {tr.time_column!r}, current {tr.value_column!r}", err=True)
+    for note in result.notes:
+        click.echo(f"note: {note}", err=True)
+    click.echo(payload if as_json else fit_table(result), nl=False)
+
+
+# ---- end of measured traces -----------------------------------------------------------------------
 
 
 @main.command()
