@@ -123,12 +123,14 @@ def test_yield_counts_the_failing_check(study):
     assert "case peak switch voltage" in study.worst_per_check
 
 
-def test_same_seed_same_numbers(study):
-    again = run_tolerance(load_case(TOL), 120, seed=11, workers=1, search_budget=20)
-    assert np.array_equal(again.samples, study.samples)
-    assert json.dumps(again.to_dict(), sort_keys=True) == json.dumps(study.to_dict(), sort_keys=True)
-    other = run_tolerance(load_case(TOL), 120, seed=12, workers=2, search_budget=20)
-    assert not np.array_equal(other.samples, study.samples)
+def test_same_seed_same_numbers():
+    # the same seed gives the same study, whatever the number of worker processes
+    a = run_tolerance(load_case(TOL), 24, seed=11, workers=2, search_budget=6)
+    b = run_tolerance(load_case(TOL), 24, seed=11, workers=1, search_budget=6)
+    assert np.array_equal(a.samples, b.samples)
+    assert json.dumps(a.to_dict(), sort_keys=True) == json.dumps(b.to_dict(), sort_keys=True)
+    other = sample(load_case(TOL), 24, np.random.default_rng(12))
+    assert not np.array_equal(other, a.samples)
 
 
 def test_sensitivity_ranks_supply_first_for_the_peak(study):
@@ -140,7 +142,7 @@ def test_sensitivity_ranks_supply_first_for_the_peak(study):
 
 def test_search_finds_an_interior_maximum_the_corners_miss():
     case = load_case(DATA / "interior_maximum.toml")
-    tr = run_tolerance(case, 40, seed=3, workers=2, search_budget=40)
+    tr = run_tolerance(case, 12, seed=3, workers=2, search_budget=30)
     s = tr.search["clamp[1].energy_J"]
     assert s["interior"], s
     assert s["max"] > 1.05 * tr.corners["clamp[1].energy_J"]["max"]
