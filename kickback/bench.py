@@ -80,7 +80,7 @@ def _baseline_figures(c: Circuit, y0, t, y, e):
         t_zero = float(t[k - 1] + (t[k] - t[k - 1]) * (y[0, k - 1] - 1e-9 * i0) / (y[0, k - 1] - y[0, k]))
     figs = {"peak_voltage_V": float(v.max()), "to_zero_s": t_zero, "resistance_energy_J": float(e[0]),
             "supply_energy_J": float(e[1]), "crossover_energy_J": float(e[2]), "avalanche_energy_J": float(e[3]),
-            "clamp_energy_J": float(e[5:].sum())}
+            "clamp_energy_J": float(e[5:5 + len(c.energy_slots)].sum())}
     return figs, float(balance)
 
 

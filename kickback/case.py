@@ -113,6 +113,25 @@ class Option:
 
 
 @dataclass(frozen=True)
+class Motor:
+    """A DC motor winding (``[motor]``): back-EMF k·ω in series with the coil's L and R.
+
+    Either a fixed ``speed`` or a mechanical model (``inertia``, ``viscous_friction``,
+    ``load_torque``) whose speed follows J·dω/dt = k·i − B·ω − T_L.
+    """
+
+    back_emf_constant: float  # [V·s/rad] = [N·m/A]
+    speed: float | None = None  # [rad/s] fixed
+    inertia: float | None = None  # [kg·m²]
+    viscous_friction: float = 0.0  # [N·m·s/rad]
+    load_torque: float = 0.0  # [N·m]
+
+    @property
+    def mechanical(self) -> bool:
+        return self.inertia is not None
+
+
+@dataclass(frozen=True)
 class Drive:
     """Repetitive switching (``[drive]``): the periodic steady state at each duty."""
 
@@ -166,3 +185,4 @@ class Case:
     options: tuple[Option, ...] = ()  # alternative clamp sets to compare
     tolerances: tuple[Tolerance, ...] = ()  # spreads for the tolerance study
     drive: Drive | None = None  # repetitive switching
+    motor: Motor | None = None  # the coil is a DC motor winding

@@ -25,6 +25,7 @@ from kickback.case import (
     Coil,
     Drive,
     Element,
+    Motor,
     Option,
     Supply,
     Switch,
@@ -103,7 +104,11 @@ _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
            "max_clamp_energy": _q("J"), "ambient_temperature": _q("K")}
-_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive")
+_TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive", "motor")
+#: plain SI numbers: V·s/rad, rad/s, kg·m², N·m·s/rad, N·m
+_MOTOR = {"back_emf_constant": _Field("n", cond=">0", required=True), "speed": _Field("n", cond=">=0"),
+          "inertia": _Field("n", cond=">0"), "viscous_friction": _Field("n", cond=">=0"),
+          "load_torque": _Field("n", cond=">=0")}
 _DRIVE = {"frequency": _q("Hz", required=True), "duty": _Field("n"), "duties": _Field("ln"),
           "final_turn_off": _BOOL}
 _OPTION = {"name": _Field("s", required=True), "clamp": _Field("t")}
@@ -249,6 +254,16 @@ def _switch(ctx: _Context, raw: Any, supply_voltage: float) -> Switch:
                         "needs breakdown_voltage (expected breakdown_voltage in [switch] as well)")
     _check_thermal(ctx, path, v)
     return Switch(**v)
+
+
+def _motor(ctx: _Context, raw: Any) -> Motor:
+    v = _table(ctx, ("motor",), raw, _MOTOR, "[motor]")
+    if ("speed" in v) == ("inertia" in v):
+        raise ctx.missing(("motor", "speed"), "a fixed speed [rad/s] or an inertia [kg·m²] (one of them)")
+    if "speed" in v and ("viscous_friction" in v or "load_torque" in v):
+        key = "viscous_friction" if "viscous_friction" in v else "load_torque"
+        raise ctx.error(("motor", key), "applies to the mechanical model (expected inertia instead of speed)")
+    return Motor(**v)
 
 
 def _drive(ctx: _Context, raw: Any) -> Drive:
@@ -430,9 +445,10 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
     clamps = _clamps(ctx, doc.get("clamp"))
     options = _options(ctx, doc.get("option"))
     drive = _drive(ctx, doc["drive"]) if "drive" in doc else None
+    motor = _motor(ctx, doc["motor"]) if "motor" in doc else None
     checks = Checks(**_table(ctx, ("checks",), doc.get("checks", {}), _CHECKS, "[checks]"))
     case = Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
-                checks=checks, source=name, text=text, options=options, drive=drive)
+                checks=checks, source=name, text=text, options=options, drive=drive, motor=motor)
     if "tolerance" in doc:
         from dataclasses import replace
 

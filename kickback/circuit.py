@@ -57,6 +57,10 @@ class Circuit:
         #: saturating coil: the first state is the flux linkage λ [Wb] instead of the current
         self.i_sat = c.saturation_current
         self.flux = self.i_sat is not None
+        #: DC motor: back-EMF k·ω in series with the coil; ω a state with a mechanical model
+        self.motor = case.motor
+        self.k_emf = case.motor.back_emf_constant if case.motor else 0.0
+        self.mech = bool(case.motor and case.motor.mechanical)
         merged_coil = sum(el.capacitance for cl in case.clamps if _cap_only(cl) and cl.across == "coil"
                           for el in cl.elements)
         merged_sw = sum(el.capacitance for cl in case.clamps if _cap_only(cl) and cl.across == "switch"
@@ -106,8 +110,10 @@ class Circuit:
         nv = 1 if self.capacitive else 0
         self.iv = 1 if self.capacitive else None
         self.icap = {k: 1 + nv + n for n, k in enumerate(self.cap_chains)}
-        self.ie = 1 + nv + len(self.cap_chains)
-        self.n_states = self.ie + N_ENERGY_FIXED + len(self.energy_slots)
+        self.iw = 1 + nv + len(self.cap_chains) if self.mech else None  # motor speed ω [rad/s]
+        self.ie = 1 + nv + len(self.cap_chains) + (1 if self.mech else 0)
+        #: the motor's electrical-to-mechanical energy ∫ k·ω·i dt is the last state
+        self.n_states = self.ie + N_ENERGY_FIXED + len(self.energy_slots) + (1 if self.motor else 0)
         self.i_on = self.on.switch_current
         #: switch state for repetitive switching: conducting (on-state law) or turning off at
         #: ``t_turnoff`` (the current falls from ``i_on`` over the fall time, then the switch is off)
@@ -161,8 +167,20 @@ class Circuit:
                     for ch in self.chains]
             return out
 
+        m = self.case.motor
+
         def coil(v):
-            return given if given is not None else (self.Vs - v) / self.R
+            if given is not None:
+                return given
+            if m is None:
+                return (self.Vs - v) / self.R
+            if not m.mechanical:
+                return (self.Vs - v - m.back_emf_constant * m.speed) / self.R
+            k, b, tl = m.back_emf_constant, m.viscous_friction, m.load_torque
+            if b == 0:
+                return tl / k  # no friction: the speed settles where the torque meets the load
+            # k·i = B·ω + T_L and V − v = R·i + k·ω (DC machine in steady state)
+            return (self.Vs - v + k * tl / b) / (self.R + k * k / b)
 
         def resid(v):
             return sum(branches(v)) - coil(v)
@@ -219,9 +237,28 @@ class Circuit:
 
         return 1.0 / float(incremental_inductance(i, self.L, self.i_sat)), 1.0
 
+    def speed_of(self, y) -> float:
+        """Motor speed [rad/s] in state ``y`` (the fixed speed, or the state)."""
+        if self.motor is None:
+            return 0.0
+        return float(y[self.iw]) if self.mech else self.motor.speed
+
+    def on_speed(self) -> float:
+        """Motor speed [rad/s] in the on-state."""
+        m = self.motor
+        if m is None:
+            return 0.0
+        if not m.mechanical:
+            return m.speed
+        if m.viscous_friction == 0:
+            return (self.Vs - self.on.node_voltage - self.R * self.i0) / m.back_emf_constant
+        return (m.back_emf_constant * self.i0 - m.load_torque) / m.viscous_friction
+
     def initial_state(self) -> np.ndarray:
         y = np.zeros(self.n_states)
         y[0] = self.coil_state(self.i0)
+        if self.mech:
+            y[self.iw] = self.on_speed()
         if self.capacitive:
             y[1] = self.on.node_voltage
         for k in self.cap_chains:
@@ -352,7 +389,14 @@ class Circuit:
             ich, ioff, ichains = self.split_currents(t, v, y)
             vals = [ich, ioff, *ichains]
         d = np.zeros_like(y)
-        d[0] = (self.Vs - v - self.R * i) * (self._state_gain(i)[1] if self.flux else 1.0 / self.L)
+        emf = self.k_emf * self.speed_of(y) if self.motor else 0.0
+        d[0] = (self.Vs - v - self.R * i - emf) * (self._state_gain(i)[1] if self.flux else 1.0 / self.L)
+        if self.motor:
+            m = self.motor
+            d[-1] = emf * i
+            if self.mech:
+                w = float(y[self.iw])
+                d[self.iw] = (m.back_emf_constant * i - m.viscous_friction * w - m.load_torque) / m.inertia
         dv = (i - sum(vals)) / self.C_node if self.capacitive and self.pin is None else 0.0
         if self.capacitive:
             d[1] = dv
@@ -401,6 +445,11 @@ class Circuit:
         G = sum(g)
         # chain rule through the first state: di/dx0 = g0; dx0/dt = k0 × (coil voltage)
         g0, k0 = self._state_gain(float(self.coil_current(y[0])))
+        if self.mech:
+            m = self.motor
+            jm[0, self.iw] = -k0 * m.back_emf_constant
+            jm[self.iw, 0] = m.back_emf_constant * g0 / m.inertia
+            jm[self.iw, self.iw] = -m.viscous_friction / m.inertia
         if self.capacitive:
             jm[0, 0] = -k0 * self.R * g0
             jm[0, 1] = -k0
@@ -436,12 +485,14 @@ class Circuit:
         return w
 
     def final_capacitor_voltages(self) -> tuple[float, dict[int, float]]:
-        """Node and snubber-capacitor voltages [V] once everything has settled (switch off)."""
+        """Node and snubber-capacitor voltages [V] once everything has settled (switch off);
+        a spinning motor keeps its back-EMF on the node."""
+        v_fin = self.Vs - (self.k_emf * self.on_speed() if self.motor else 0.0)
         vcaps = {}
         for k in self.cap_chains:
             ch = self.chains[k]
-            vcaps[k] = self.Vs - self.Vs * ch.reference
-        return self.Vs, vcaps
+            vcaps[k] = v_fin - self.Vs * ch.reference
+        return v_fin, vcaps
 
 
 def _cap_only(clamp) -> bool:

@@ -67,6 +67,7 @@ class Figures:
     findings: tuple[str, ...]
     models: tuple[str, ...]
     switch_junction_peak_K: float | None = None  # with a Foster network on the switch
+    motor_energy_J: float = 0.0  # electrical energy converted by the back-EMF (∫ k·ω·i dt)
 
 
 def first_crossing_below(t: np.ndarray, x: np.ndarray, level: float) -> float | None:
@@ -176,9 +177,10 @@ def compute_figures(w: Waveforms) -> Figures:
     cap_end = float(c.capacitor_energy(v_end, w.y_end))
     coil_end = c.coil_energy(float(w.i_coil[-1]))
     e_r, e_sup, e_ch, e_av, e_bd = (float(x) for x in e[:5])
-    e_el = [float(x) for x in e[5:]]
+    e_el = [float(x) for x in e[5:5 + len(c.energy_slots)]]
+    e_motor = float(e[-1]) if c.motor else 0.0  # electrical energy converted to mechanical
     total_in = stored + cap0 + max(e_sup, 0.0)
-    out = e_r + e_ch + e_av + e_bd + sum(e_el) + cap_end + coil_end
+    out = e_r + e_ch + e_av + e_bd + sum(e_el) + cap_end + coil_end + e_motor
     balance = (stored + cap0 + e_sup - out) / total_in
 
     k_pk = int(np.argmax(w.v))
@@ -254,4 +256,5 @@ def compute_figures(w: Waveforms) -> Figures:
         crossover_energy_J=e_ch, avalanche_energy_J=e_av, body_diode_energy_J=e_bd,
         supply_energy_J=e_sup, clamps=tuple(clamps), left_in_capacitors_J=cap_end,
         left_in_coil_J=coil_end, energy_balance_error=float(balance), end_time_s=float(w.t[-1]),
-        bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models), switch_junction_peak_K=sw_tj)
+        bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models), switch_junction_peak_K=sw_tj,
+        motor_energy_J=e_motor)

@@ -37,6 +37,8 @@ class PwmFigures:
     brute_force_cycles: int | None
     contraction: float
     residual: float
+    mean_speed_rad_s: float | None = None  # DC motor
+    mean_torque_Nm: float | None = None
     cycle: object = field(default=None, repr=False, compare=False)  # Waveforms of the steady cycle
 
     def to_dict(self) -> dict:
@@ -92,4 +94,6 @@ def pwm_figures(ss: SteadyState) -> PwmFigures:
         crossover_loss_W=float(e_off[2]) * f, avalanche_energy_J=e_av, avalanche_power_W=e_av * f,
         supply_power_W=float(e_on[1] + e_off[1]) * f, elements=tuple(elements),
         switch_junction_mean_K=sw_tj_mean, switch_junction_peak_K=sw_tj_peak, cycle_solves=ss.cycle_solves,
-        brute_force_cycles=ss.brute_force_cycles, contraction=ss.contraction, residual=ss.residual, cycle=w)
+        brute_force_cycles=ss.brute_force_cycles, contraction=ss.contraction, residual=ss.residual,
+        mean_speed_rad_s=_mean_rms(t, w.y[c.iw])[0] if c.mech else (c.motor.speed if c.motor else None),
+        mean_torque_Nm=c.k_emf * mean if c.motor else None, cycle=w)

@@ -136,6 +136,8 @@ def tolerances(c: Circuit, rtol: float) -> np.ndarray:
         atol[1] = rtol * 1e-3 * c.v_scale
     for idx in c.icap.values():
         atol[idx] = rtol * 1e-3 * c.v_scale
+    if c.mech:
+        atol[c.iw] = rtol * 1e-6 * max(abs(c.on_speed()), 1.0)
     atol[c.ie:] = rtol * 1e-6 * e0
     return atol
 
@@ -308,7 +310,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         v = y[1] if c.capacitive else v_fin
         w = c.coil_energy(c.coil_current(y[0])) + 0.5 * c.C_node * (v - v_fin) ** 2
         for k in dyn_caps:
-            target = c.Vs - c.Vs * c.chains[k].reference
+            target = v_fin - c.Vs * c.chains[k].reference
             w += 0.5 * c.chains[k].capacitance * (y[c.icap[k]] - target) ** 2
         return w
 

@@ -60,6 +60,8 @@ def _scales(c: Circuit) -> np.ndarray:
     s = np.empty(c.ie)
     s[0] = abs(c.coil_state(c.i0))
     s[1:] = c.v_scale
+    if c.mech:
+        s[c.iw] = max(abs(c.on_speed()), 1.0)
     return s
 
 

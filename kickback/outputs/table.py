@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from kickback.units import format_quantity as q
 
 CAUTIONS = (
@@ -67,6 +69,8 @@ def result_table(result) -> str:
               row("out: switch avalanche", f.avalanche_energy_J)]
     if f.body_diode_energy_J:
         ledger.append(row("out: switch body diode", f.body_diode_energy_J))
+    if result.case.motor is not None:
+        ledger.append(row("out: to the motor (back-EMF)", f.motor_energy_J))
     for cl in f.clamps:
         ledger += [row(f"out: {cl.name} / {el.name}", el.energy_J) for el in cl.elements if el.type != "capacitor"]
     ledger.append(row("left in capacitors", f.left_in_capacitors_J))
@@ -129,6 +133,10 @@ def pwm_section(result) -> str:
         brute = "—" if p.brute_force_cycles is None else f"{p.brute_force_cycles}"
         lines.append(f"  duty {p.duty:g}: {p.cycle_solves} cycle solves; plain repetition from zero would need "
                      f"{brute} cycles (contraction {p.contraction:.4f} per cycle); residual {p.residual:.1e}")
+        if p.mean_speed_rad_s is not None:
+            rpm = p.mean_speed_rad_s * 30 / math.pi
+            lines.append(f"    motor: mean speed {p.mean_speed_rad_s:.4g} rad/s ({rpm:.4g} rpm), "
+                         f"mean torque {p.mean_torque_Nm:.4g} N·m")
         for e in p.elements:
             tj = "" if e["junction_peak_K"] is None else f", Tj peak {_tj(e['junction_peak_K'])}"
             lines.append(f"    {e['clamp']} / {e['element']}: mean {q(e['mean_A'], 'A')}, RMS {q(e['rms_A'], 'A')}, "
