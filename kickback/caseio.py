@@ -389,6 +389,16 @@ def _clamps(ctx: _Context, raw: Any, where: KeyPath = ("clamp",)) -> tuple[Clamp
     return tuple(clamps)
 
 
+def key_specs() -> tuple[dict, dict, dict]:
+    """The case file's keys with their kinds and units: (tables, element types, switch-only keys).
+
+    For outputs that show a case's inputs; the loader's own tables, so one source of truth.
+    """
+    tables = {"supply": _SUPPLY, "coil": _COIL, "switch": _SWITCH, "checks": _CHECKS, "drive": _DRIVE,
+              "motor": _MOTOR}
+    return tables, _ELEMENTS, _SWITCH_ONLY
+
+
 def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None) -> Case:
     """Load and validate a case from a TOML file or TOML text.
 

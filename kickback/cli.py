@@ -17,6 +17,13 @@ def _die(message: str) -> None:
     sys.exit(2)
 
 
+def _fail(case, err) -> None:
+    """Exit 2 with a located message (a CaseError carries its file already)."""
+    from kickback.errors import CaseError
+
+    _die(str(err) if isinstance(err, CaseError) else f"{case.source}: {err}")
+
+
 def _load(path: str):
     from kickback.caseio import load_case
     from kickback.errors import CaseError
@@ -60,7 +67,7 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     try:
         result = simulate(c, rtol=rtol)
     except KickbackError as err:
-        _die(f"{c.source}: {err}")
+        _fail(c, err)
     payload = to_json(result.to_dict())
     extra, report = ({}, None) if trace is None else _measured_outputs(result, trace, plot=not no_plot)
     if out_dir is not None:
@@ -238,9 +245,14 @@ def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
               help="Where to write the report (default: <case stem>-report.html in the current folder).")
 @click.option("--compare", "with_compare", is_flag=True,
               help="Add the clamp comparison (always added when the case has [[option]] sets).")
+@click.option("--tolerance", "tol_samples", type=click.IntRange(1, 1_000_000), default=None, metavar="N",
+              help="Add a tolerance study of N samples (the case needs a [tolerance] section).")
+@click.option("--seed", type=int, default=1, show_default=True, help="Random state of the tolerance study.")
+@click.option("--choose", "with_choose", is_flag=True, help="Add the clamp choice and its trade-off picture.")
 @click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
               help="Relative tolerance of the detailed engine.")
-def report(case: str, output: str | None, with_compare: bool, rtol: float) -> None:
+def report(case: str, output: str | None, with_compare: bool, tol_samples, seed: int, with_choose: bool,
+           rtol: float) -> None:
     """Write one self-contained HTML review file of CASE: schematic, inputs, checks, energy
     ledger, waveforms, assumptions, cautions and how to reproduce it (printable, no external files).
 
@@ -267,11 +279,27 @@ def report(case: str, output: str | None, with_compare: bool, rtol: float) -> No
             result = cmp.own.result
         else:
             result = simulate(c, rtol=rtol)
+        study = choice = None
+        if tol_samples:
+            import os
+
+            from kickback.studies.tolerance import run_tolerance
+
+            study = run_tolerance(c, tol_samples, seed, workers=min(os.cpu_count() or 1, 8))
+        if with_choose:
+            import os
+
+            from kickback.studies.choose import choose as run_choose
+
+            choice = run_choose(c, workers=min(os.cpu_count() or 1, 8))
     except KickbackError as err:
-        _die(f"{c.source}: {err}")
+        _fail(c, err)
     words = ["kickback", "report", case] + (["-o", output] if output else []) + (["--compare"] if with_compare else [])
+    words += ([f"--tolerance={tol_samples}", f"--seed={seed}"] if tol_samples else [])
+    words += ["--choose"] if with_choose else []
     words += [] if rtol == 1e-5 else ["--rtol", f"{rtol:g}"]
-    html = report_html(result, comparison=cmp, command=shlex.join(words), date=_report_date())
+    html = report_html(result, comparison=cmp, command=shlex.join(words), date=_report_date(), tolerance=study,
+                       choice=choice)
     write_atomic(target, html)
     word, _, line = verdict(result)
     click.echo(f"{c.title}: {word} ({line})")

@@ -75,8 +75,12 @@ def tradeoff_figure(ch):
     t_max = case.checks.max_release_time
     if t_max:
         ax.axhline(t_max, color="k", ls=":", lw=1, label="max release time")
+    ax.set_yscale("log")
+    ys = [c.release for c in cands if c.release is not None and c.release > 0]
+    y0, y1 = (min(ys) / 1.3, max(ys) * 1.3) if ys else (1e-6, 1.0)
+    if t_max:
+        y0, y1 = min(y0, t_max / 1.3), max(y1, t_max * 1.3)
     x0, x1 = ax.get_xlim()
-    y0, y1 = ax.get_ylim()
     ax.fill_between([x0, v_allow], y0, t_max if t_max else y1, color="C2", alpha=0.08, lw=0,
                     label="feasible region")
     ax.set_xlim(x0, x1)
@@ -88,7 +92,6 @@ def tradeoff_figure(ch):
                     arrowprops={"arrowstyle": "->", "lw": 0.8})
     from matplotlib.ticker import LogLocator, NullFormatter
 
-    ax.set_yscale("log")
     ax.yaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 3.0, 5.0, 7.0)))
     ax.xaxis.set_major_formatter(EngFormatter(unit="V"))
     ax.yaxis.set_major_formatter(EngFormatter(unit="s"))

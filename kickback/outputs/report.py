@@ -1,0 +1,474 @@
+"""One self-contained HTML review file of a case: what was simulated, the schematic, the
+verdicts, the waveforms, the assumptions and how to reproduce it.
+
+No external references: figures are inline SVG (matplotlib through
+:func:`kickback.outputs.plots.figure_bytes`, the schematic through schemdraw's SVG backend),
+the stylesheet is inline, with a print stylesheet that starts each major section on a new page.
+The same case, options and date give the same file byte for byte.
+
+Hooks for the studies beyond one turn-off: :func:`pwm_thermal_section` shows the periodic steady
+state the result carries when the case has a [drive]; :func:`tolerance_section` and
+:func:`tradeoff_section` show a tolerance study and a clamp choice when they are handed in.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+from dataclasses import dataclass
+from html import escape
+
+from kickback import __version__
+from kickback.outputs import reportfigures as figs
+from kickback.outputs import reportparts as parts
+from kickback.outputs.table import CAUTIONS
+from kickback.units import format_quantity as q
+
+#: banner colours by verdict (also detected in the rendered page by the tests)
+VERDICT_COLOURS = {"pass": "#1e7b34", "fail": "#b3261e", "unchecked": "#8a6d00"}
+
+#: what the models leave out (kept in step with README "Models and limits")
+IGNORED = (
+    "armature motion: the inductance does not change with the armature's position",
+    "temperature rise during the pulse: each device law uses its given temperature, else 25 °C",
+    "the gate or base drive's own dynamics: the switch current falls linearly over the fall time",
+    "wiring and lead inductance, and leakage other than a negligible 1e-12 relative conductance that keeps "
+    "an algebraic node solvable",
+)
+
+
+def ignored(case) -> list[str]:
+    """What the models leave out, for this case (a linear coil ignores core saturation)."""
+    out = list(IGNORED)
+    thermal = [getattr(case.switch, "thermal_resistance", None)]
+    thermal += [getattr(el, "thermal_resistance", None) for cl in case.clamps for el in cl.elements]
+    if any(r is not None for r in thermal):
+        out[1] += "; junction temperatures from the case's thermal networks are checked, not fed back"
+    if getattr(case.coil, "saturation_current", None) is None:
+        out.insert(0, "core saturation: the case gives no saturation_current, so the inductance is constant")
+    return out
+
+
+CSS = (":root { " + "".join(f"--{k}: {v}; " for k, v in VERDICT_COLOURS.items())
+       + "--ink: #1b1b1b; --rule: #c9c9c9; }" + """
+* { box-sizing: border-box; }
+body { font-family: "DejaVu Sans", "Liberation Sans", Arial, sans-serif; color: var(--ink); margin: 0 auto;
+       max-width: 1080px; padding: 18px 24px 40px; font-size: 14px; line-height: 1.45; background: #fff; }
+h1 { font-size: 22px; margin: 4px 0 10px; }
+h2 { font-size: 17px; border-bottom: 2px solid var(--ink); padding-bottom: 3px; margin: 30px 0 10px; }
+h3 { font-size: 14.5px; margin: 16px 0 6px; }
+.kicker { font-size: 12px; letter-spacing: .06em; text-transform: uppercase; color: #555; }
+.banner { display: flex; gap: 18px; align-items: center; padding: 12px 18px; border: 3px solid var(--ink);
+          color: #fff; border-radius: 4px; -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+.banner.pass { background: var(--pass); } .banner.fail { background: var(--fail); }
+.banner.unchecked { background: var(--unchecked); }
+.banner .word { font-size: 30px; font-weight: 800; letter-spacing: .04em; white-space: nowrap; }
+.banner .line { font-size: 15px; }
+ul.findings li { margin: 2px 0; }
+nav.toc { font-size: 13px; margin: 12px 0 0; columns: 2; }
+nav.toc a { color: inherit; }
+table { border-collapse: collapse; margin: 6px 0 10px; font-size: 13px; }
+th, td { border-bottom: 1px solid var(--rule); padding: 3px 10px 3px 6px; text-align: left; vertical-align: top; }
+th { border-bottom: 2px solid var(--ink); font-weight: 700; }
+td:nth-child(n+2) { font-variant-numeric: tabular-nums; }
+tr.group td { border-top: 1.5px solid #777; } tr.group td:first-child { font-weight: 700; }
+table.figures td:first-child { white-space: pre; }
+.cards { display: grid; grid-template-columns: repeat(auto-fill, minmax(400px, 1fr)); gap: 10px 16px;
+         align-items: start; }
+.card { border: 1px solid var(--rule); border-radius: 4px; padding: 4px 8px 2px; break-inside: avoid; min-width: 0; }
+.card h4 { margin: 2px 0 0; font-size: 13px; font-family: "DejaVu Sans Mono", monospace; }
+table.kv { width: 100%; margin: 2px 0 4px; font-size: 12.5px; }
+table.kv td { padding: 2px 6px 2px 0; } table.kv td:first-child { font-family: "DejaVu Sans Mono", monospace;
+  font-size: 11.5px; } table.kv td:nth-child(2) { font-weight: 600; }
+table.kv td:nth-child(3) { color: #555; font-size: 11.5px; }
+table.kv tr.sub td { font-weight: 700; border-bottom: 1.5px solid #777; padding-top: 6px; font-family: inherit; }
+figure.ledger svg { max-width: 700px; }
+table.checks tr.fail td { font-weight: 700; background: #fbe9e7; }
+table.checks tr.fail td:first-child { border-left: 5px solid var(--fail); }
+table.checks tr.pass td:first-child { border-left: 5px solid var(--pass); }
+.mark { white-space: nowrap; font-weight: 700; } .mark.pass { color: var(--pass); } .mark.fail { color: var(--fail); }
+figure { margin: 8px 0 14px; } figure svg { width: 100%; height: auto; display: block; }
+figcaption { font-size: 12.5px; color: #333; margin-top: 4px; }
+figure.schematic svg { width: auto; max-width: 100%; max-height: 600px; margin: 0 auto; }
+figure.wave.single svg { max-width: 860px; }
+table.compare td { white-space: nowrap; }
+table.compare td:first-child, table.compare td:last-child { white-space: normal; }
+pre.case { background: #f6f6f6; border: 1px solid var(--rule); padding: 8px 10px; font-size: 12px;
+           white-space: pre-wrap; overflow-wrap: anywhere; }
+.caution { border: 2px solid var(--ink); padding: 10px 14px; background: #fff8e1; }
+.note { font-size: 12.5px; color: #333; }
+code { font-size: 12.5px; }
+@page { size: A4; margin: 13mm 12mm 14mm; }
+@media print {
+  body { max-width: none; padding: 0; font-size: 10pt; }
+  h2 { margin-top: 0; }
+  section.page { break-before: page; }
+  nav.toc { display: none; }
+  figure, table, tr, .banner, .caution, pre.case { break-inside: avoid; }
+  pre.case { break-inside: auto; }
+  a { color: inherit; text-decoration: none; }
+  figure.schematic svg { max-height: 150mm; }
+  table.checks tr.fail td { background: none; }
+}
+""")
+
+
+@dataclass(frozen=True)
+class Section:
+    """One report section: anchor id, heading, body (HTML) and whether print starts a new page."""
+
+    id: str
+    title: str
+    body: str
+    new_page: bool = True
+
+
+def verdict(result) -> tuple[str, str, str]:
+    """(word, css class, one line) of the overall verdict."""
+    checks = result.checks
+    failing = [c for c in checks if not c.passed]
+    if not checks:
+        return "NOT CHECKED", "unchecked", "the case gives no ratings and no limits: nothing was checked"
+    if failing:
+        names = "; ".join(f"{c.part} {c.quantity}" for c in failing)
+        return "FAIL", "fail", f"{len(failing)} of {len(checks)} checks fail: {names}"
+    low = min((c for c in checks if c.margin is not None), key=lambda c: c.margin, default=None)
+    tight = "" if low is None else f"; smallest margin {100 * low.margin:+.1f} % on {low.part} {low.quantity}"
+    return "PASS", "pass", f"all {len(checks)} checks pass{tight}"
+
+
+def summary_line(result) -> str:
+    """Peak against its limit, release, where the energy went — in one sentence."""
+    f, case = result.figures, result.case
+    vs = case.supply.voltage
+    bits = [f"Peak switch-node voltage {q(f.peak_voltage_V, 'V')} ({f.peak_voltage_V / vs:.1f} × the "
+            f"{q(vs, 'V')} supply)"]
+    if case.switch.rated_voltage is not None:
+        bits[0] += f" against a derated limit of {q(case.switch.rated_voltage * case.checks.derating, 'V')}"
+    if case.coil.release_current is not None:
+        bits.append("never released" if f.release_s is None else f"released after {q(f.release_s, 's')}")
+    bits.append(f"current to zero after {q(f.to_zero_s, 's')}")
+    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
+    sinks = [(c.energy_J, f"clamp {c.name}") for c in f.clamps]
+    sinks += [(f.resistance_energy_J, "the coil resistance"), (f.avalanche_energy_J, "switch avalanche")]
+    e, where = max(sinks)
+    bits.append(f"{q(f.stored_energy_J, 'J')} stored in the coil, the largest share ({100 * e / total:.0f} %) "
+                f"taken by {where}")
+    return "; ".join(bits) + "."
+
+
+def inline_svg(svg: bytes | str, prefix: str) -> str:
+    """An SVG document made fit to sit inside HTML: no XML prolog, DOCTYPE or metadata, ids
+    prefixed so several figures on one page cannot clash, its style sheet scoped to itself."""
+    text = svg.decode("utf-8") if isinstance(svg, bytes) else svg
+    text = re.sub(r"<\?xml[^>]*\?>\s*", "", text)
+    text = re.sub(r"<!DOCTYPE[^>]*>\s*", "", text)
+    text = re.sub(r"<metadata>.*?</metadata>\s*", "", text, flags=re.DOTALL)
+    text = re.sub(r'\bid="([^"]+)"', lambda m: f'id="{prefix}-{m.group(1)}"', text)
+    text = re.sub(r'(href=")#([^"]+)"', lambda m: f'{m.group(1)}#{prefix}-{m.group(2)}"', text)
+    text = re.sub(r"url\(#([^)]+)\)", lambda m: f"url(#{prefix}-{m.group(1)})", text)
+    text = re.sub(r"<svg\b", f'<svg class="{prefix}"', text, count=1)
+    text = re.sub(r"(<style[^>]*>)\s*\*\s*\{", lambda m: f"{m.group(1)}.{prefix} * {{", text)
+    return text.strip()
+
+
+def _figure(fig, prefix: str, caption: str, extra_class: str = "") -> str:
+    from kickback.outputs.plots import figure_bytes
+
+    classes = f"{prefix} {extra_class}".strip()
+    return (f'<figure class="{classes}">{inline_svg(figure_bytes(fig, "svg"), prefix)}'
+            f"<figcaption>{escape(caption)}</figcaption></figure>")
+
+
+def _schematic_section(result) -> Section:
+    from kickback.outputs.schematic import schematic_svg
+
+    case = result.case
+    where = ", ".join(f"{c.name} across the {c.across}" for c in case.clamps) or "no clamp"
+    body = (f'<figure class="schematic">{inline_svg(schematic_svg(case), "sch")}<figcaption>'
+            f"Topology as simulated: supply, coil (inductance and winding resistance in series), "
+            f"{escape(case.switch.type if case.switch.type != 'ideal' else 'ideal')} switch from the switch node "
+            f"sw to ground, and {escape(where)}. Each clamp chain is drawn from the switch node outwards "
+            "in case order, every element oriented to conduct when sw rises (a diode forward, a Zener or "
+            "unidirectional TVS in breakdown). Dashed boxes group the parts of one case table."
+            "</figcaption></figure>")
+    return Section("schematic", "Schematic", body, new_page=False)
+
+
+def _waveform_section(result) -> Section:
+    from kickback.outputs.plots import edge_window
+
+    zoom = edge_window(result)
+    fig = figs.waveform_figure(result, zoom)
+    cap = ("Top: switch-node voltage against the supply, the switch's derated rating and (when near) its "
+           "avalanche onset; the marker is the peak. Middle: coil current, each clamp's current and (edge) "
+           "the switch current, with the release current and the release point. Bottom: power dissipated "
+           "in each clamp (capacitors excluded) and in the switch. "
+           + ("The left column zooms on the turn-off edge." if zoom else
+              "The edge is not much faster than the decay, so there is no separate zoom.")
+           + f" The run ends at {q(result.figures.end_time_s, 's')}.")
+    return Section("waveforms", "Waveforms", _figure(fig, "wave", cap, "" if zoom else "single"))
+
+
+def comparison_section(cmp) -> Section:
+    """The clamp options of :func:`kickback.studies.compare.compare` side by side."""
+    from kickback.outputs.comparison import comparison_figure
+
+    rows, classes = [], []
+    for r in cmp.rows:
+        d = r.to_dict()
+        name = r.name if r.name.startswith("case") or not r.own else f"{r.name} (this case)"
+        if r.result is None:
+            rows.append([name, "—", "—", "—", "—", "—", "—", f"cannot simulate: {r.error}"])
+            classes.append("fail")
+            continue
+        mark = ("html", '<span class="mark pass">✔ pass</span>') if d["pass"] else \
+               ("html", '<span class="mark fail">✘ FAIL</span> ' + escape(", ".join(d["failing_checks"])))
+        rows.append([name, q(d["peak_voltage_V"], "V"), q(d["clamp_energy_J"], "J"),
+                     q(d["clamp_peak_current_A"], "A"), q(d["to_10_percent_s"], "s"), q(d["to_zero_s"], "s"),
+                     q(d["release_s"], "s"), mark])
+        classes.append("pass" if d["pass"] else "fail")
+    body = parts.table(["option", "peak switch V", "clamp energy", "clamp peak I", "to 10 %", "to zero", "release",
+                        "verdict"], rows, "checks compare", classes)
+    where = ("Alternatives: built-in families sized to the derated switch voltage (generic diode 0.9 V at 1 A, "
+             "ideal Zener and TVS) — they show the trade-off, they are not parts."
+             if cmp.builtin else "Alternatives: the case's own [[option]] sets.")
+    body += f'<p class="note">{escape(where)} Each option is checked against the same ratings and limits.</p>'
+    fig = comparison_figure(cmp)
+    for ax in fig.axes:  # legends beside the plots, so they cover no curve
+        if ax.get_legend() is not None:
+            ax.legend(fontsize=8.5, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
+    body += _figure(fig, "cmp", "Switch-node voltage and coil current of every option "
+                    "(logarithmic time axis); the thick line is this case.")
+    return Section("comparison", "Clamp comparison", body)
+
+
+def tolerance_section(study=None) -> Section | None:
+    """The tolerance study (:func:`kickback.studies.tolerance.run_tolerance`): yield with its
+    interval, percentiles, worst cases and histograms; None without a study."""
+    if study is None:
+        return None
+    from kickback.outputs.tolerances import _label, _params, tolerance_figure
+    from kickback.studies.tolerance import PERCENTILES
+
+    lo, hi = study.yield_ci
+    body = (f"<p><b>Yield {100 * study.yield_:.2f} %</b> of {len(study.samples)} samples pass every check "
+            f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, exact binomial); seed {study.seed}, "
+            f"{escape(study.engine)} engine.</p>")
+    head = ["figure"] + [("min" if p == 0 else "max" if p == 100 else f"{p:g} %") for p in PERCENTILES]
+    rows = []
+    for f, unit, _ in study.figure_list:
+        d = study.percentiles.get(f, {})
+        if all(v is None for v in d.values()):
+            continue
+        rows.append([_label(study, f)] + [q(d[p], unit) for p in PERCENTILES])
+    body += parts.table(head, rows)
+    worst = []
+    for f, unit, _ in study.figure_list:
+        c, srch = study.corners.get(f), study.search.get(f)
+        if c is None or srch is None:
+            continue
+        note = " (inside the bands: the corners miss it)" if srch["interior"] else ""
+        worst.append([_label(study, f), q(c["max"], unit), q(srch["max"], unit) + note, _params(srch["params"])])
+    if worst:
+        body += "<h3>Worst cases</h3>" + parts.table(["figure", "worst corner", "search inside the bands", "at"],
+                                                       worst)
+    body += _figure(tolerance_figure(study), "tol", "Histograms of the figures over the samples, limits dashed, "
+                    "worst corner dotted.")
+    return Section("tolerance", "Tolerances", body)
+
+
+def tradeoff_section(choice=None) -> Section | None:
+    """The clamp choice (:func:`kickback.studies.choose.choose`): ranked choices and the
+    release-versus-voltage trade-off; None without one."""
+    if choice is None:
+        return None
+    from kickback.outputs.choice import tradeoff_figure
+
+    rows = [[str(k + 1), c.option.name, q(c.figures["peak_voltage_V"], "V"), f"{100 * c.margin:.1f} %",
+             q(c.release, "s"), q(c.figures["clamp_energy_J"], "J"), str(c.parts)]
+            for k, c in enumerate(choice.ranked[:10])]
+    body = (f"<p>{len(choice.ranked)} of {len(choice.ranked) + len(choice.rejected)} candidates over standard "
+            "values (E24 voltages, E12 resistors and capacitors) meet the case's constraints; fastest release "
+            "first, then switch-voltage margin, then fewest parts. Candidates use a generic diode and ideal "
+            "Zener/TVS: they show the trade-off, they are not parts.</p>")
+    body += parts.table(["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"],
+                        rows)
+    body += _figure(tradeoff_figure(choice), "trade", "Release time against peak switch voltage per family; "
+                    "filled markers pass, open ones fail; marker size is the clamp energy.")
+    return Section("tradeoff", "Clamp trade-off", body)
+
+
+_UNITS = {"_A": "A", "_V": "V", "_W": "W", "_J": "J", "_K": "K", "_s": "s", "_Hz": "Hz"}
+_PWM_ROWS = (("ripple_A", "coil current ripple"), ("min_current_A", "coil current, lowest"),
+             ("max_current_A", "coil current, highest"), ("mean_current_A", "coil current, mean"),
+             ("rms_current_A", "coil current, RMS"), ("switch_rms_A", "switch current, RMS"),
+             ("conduction_loss_W", "switch conduction loss"), ("crossover_loss_W", "switch crossover loss"),
+             ("avalanche_power_W", "switch avalanche loss"), ("supply_power_W", "supply power"),
+             ("switch_junction_mean_K", "switch junction, mean"), ("switch_junction_peak_K", "switch junction, peak"))
+
+
+def _by_suffix(key: str, value) -> str:
+    """A figure named by the result contract's convention (``…_A``, ``…_W``, ``…_K``) in engineering notation."""
+    if value is None:
+        return "—"
+    for suffix, unit in _UNITS.items():
+        if key.endswith(suffix):
+            if unit == "K":
+                return f"{value - 273.15:.4g} °C"
+            return q(value, unit)
+    return f"{value:.4g}" if isinstance(value, float) else str(value)
+
+
+def pwm_thermal_section(pwm=()) -> Section | None:
+    """Repetitive switching: the periodic steady state at each duty of the case's [drive]
+    (``Result.pwm``, one :class:`~kickback.pwmfigures.PwmFigures` per duty); None without a drive."""
+    if not pwm:
+        return None
+    head = ["figure"] + [f"duty {100 * p.duty:g} % at {q(p.frequency_Hz, 'Hz')}" for p in pwm]
+    rows = [[label] + [_by_suffix(key, getattr(p, key, None)) for p in pwm] for key, label in _PWM_ROWS]
+    names = [(e.get("clamp"), e.get("element")) for e in pwm[0].elements]
+    for n, (clamp, element) in enumerate(names):
+        for key in ("power_W", "rms_A", "junction_peak_K"):
+            if key in pwm[0].elements[n]:
+                what = {"power_W": "loss", "rms_A": "current, RMS", "junction_peak_K": "junction, peak"}[key]
+                rows.append([f"{clamp}: {element} {what}"] + [_by_suffix(key, p.elements[n].get(key)) for p in pwm])
+    note = ("Periodic steady state at each duty of the case's [drive] (per switching period); its checks "
+            "are in the Checks table.")
+    return Section("pwm", "Repetitive switching", f'<p class="note">{escape(note)}</p>'
+                   + parts.table(head, rows, "figures"))
+
+
+def _assumptions_section(result, not_assessed) -> Section:
+    d = result.details()
+    items = "".join(f"<li>{escape(m)}</li>" for m in d["models"])
+    left_out = "".join(f"<li>{escape(x)}</li>" for x in ignored(result.case))
+    engine = (f"Engine: {escape(d['engine'])}; the run ended at {q(d['end_time_s'], 's')}"
+              + (" — at its time bound, before the transient was over." if d["bound_hit"] else
+                 ", when the coil current and the energy in the capacitors were negligible."))
+    derating = result.case.checks
+    notes = [
+        f"Voltage and current ratings are allowed to {derating.derating:g} of their value, energy and power "
+        f"ratings to {derating.energy_fraction:g} (derating: common practice, no source).",
+        "Release time: the time until the coil current stays below the release current, plus the release "
+        "delay. A time that does not occur is shown as —, never as a made-up number.",
+        "Stand-off: the largest reverse voltage an element holds while its chain does not conduct, the "
+        "on-state included.",
+    ]
+    body = (f"<h3>Device models used</h3><ul>{items}</ul><p>{engine}</p>"
+            f"<h3>What the models leave out</h3><ul>{left_out}</ul>"
+            f"<h3>Not assessed in this report</h3><ul>{''.join(f'<li>{escape(x)}</li>' for x in not_assessed)}</ul>"
+            f"<h3>Conventions</h3><ul>{''.join(f'<li>{escape(x)}</li>' for x in notes)}</ul>")
+    return Section("assumptions", "Assumptions and model limits", body)
+
+
+def _cautions_section(result) -> Section:
+    f, vs = result.figures, result.case.supply.voltage
+    here = (f"On this case the switch node reaches {q(f.peak_voltage_V, 'V')}, "
+            f"{f.peak_voltage_V / vs:.1f} times the {q(vs, 'V')} supply.")
+    general = _sentence(CAUTIONS.removeprefix("Cautions: "))
+    return Section("cautions", "Cautions", f'<div class="caution"><p>{escape(general)}</p><p>{escape(here)}</p>'
+                   "</div>", new_page=False)
+
+
+def _sentence(text: str) -> str:
+    return text[:1].upper() + text[1:]
+
+
+def _reproducibility_section(result, command: str, date: str, versions: dict) -> Section:
+    case = result.case
+    digest = hashlib.sha256(case.text.encode("utf-8")).hexdigest()
+    rows = [["tool", f"kickback {__version__}"], ["command", command], ["date", date],
+            ["case file", case.source], ["SHA-256 of the case text", digest],
+            ["engine", f"{result.waveforms.engine}, rtol {result.waveforms.rtol:g}"]]
+    rows += [[name, v] for name, v in versions.items()]
+    text = escape(case.text) if case.text else "(the case was built in Python: no case text)"
+    body = (parts.table(["", ""], rows, "figures") +
+            "<p class=\"note\">The same case text, options and library versions give the same figures; "
+            "the plots carry no dates. The hash is of the case text as read (UTF-8), so "
+            "<code>sha256sum</code> of the file matches it for a file with LF line ends.</p>"
+            f"<h3>Case text</h3><pre class=\"case\">{text}</pre>")
+    return Section("reproducibility", "Reproducibility", body)
+
+
+def library_versions() -> dict:
+    """Versions of the libraries that shape the figures and plots."""
+    import platform
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"Python": platform.python_version()}
+    for name in ("numpy", "scipy", "matplotlib", "schemdraw"):
+        try:
+            out[name] = version(name)
+        except PackageNotFoundError:
+            out[name] = "not installed"
+    return out
+
+
+def report_html(result, *, comparison=None, command: str = "", date: str = "", versions: dict | None = None,
+                tolerance=None, choice=None) -> str:
+    """The whole report of ``result`` as one HTML document.
+
+    Parameters
+    ----------
+    result : Result — the simulated case
+    comparison : Comparison or None — a clamp comparison to include (kickback.studies.compare.compare)
+    command : str — the command line that made the report
+    date : str — when it was made (shown in the reproducibility section only)
+    versions : dict or None — library versions to record; None: the installed ones
+    tolerance : ToleranceResult or None — a tolerance study to include
+    choice : Choice or None — a clamp choice (ranked candidates, trade-off) to include.
+        Repetitive switching comes with the result itself (``Result.pwm``, from the case's [drive]).
+
+    Returns
+    -------
+    str — HTML with inline CSS and inline SVG, no external references
+    """
+    case = result.case
+    word, cls, line = verdict(result)
+    pwm = getattr(result, "pwm", ())
+    later = [s for s in (pwm_thermal_section(pwm), tolerance_section(tolerance), tradeoff_section(choice))
+             if s is not None]
+    not_assessed = []
+    if tolerance is None:
+        not_assessed.append("part tolerances and their spread (no tolerance study in this report)")
+    if not pwm:
+        not_assessed.append("repetitive switching: PWM losses and part temperatures (no PWM/thermal study in this "
+                            "report; this is one turn-off from the DC on-state)")
+    if comparison is None:
+        not_assessed.append("alternative clamps (run with --compare to add the comparison)")
+    if choice is None:
+        not_assessed.append("a search over standard clamp values (run with --choose to add the trade-off)")
+    sections = [
+        _schematic_section(result),
+        Section("inputs", "Inputs", "<p class=\"note\">Every value the simulation used, by its key in the case "
+                "file; “default” marks a value the file does not give.</p>" + parts.inputs_table(case)
+                + "<h3>On-state before turn-off (computed)</h3>" + parts.onstate_table(result)),
+        Section("checks", "Checks", parts.check_table(result) + "<h3>Turn-off figures</h3>"
+                + parts.figures_table(result) + "<h3>Clamp duty</h3>" + parts.clamp_table(result)),
+        Section("ledger", "Energy ledger", _figure(figs.ledger_figure(result), "ledger",
+                "Where the energy went: inputs (blue), dissipation (orange), left over (grey); "
+                "shares of the total input.") + parts.ledger_table(result)),
+        _waveform_section(result),
+        *later,
+    ]
+    if comparison is not None:
+        sections.append(comparison_section(comparison))
+    sections += [_assumptions_section(result, not_assessed), _cautions_section(result),
+                 _reproducibility_section(result, command, date, library_versions() if versions is None else versions)]
+    findings = "".join(f"<li>{escape(x)}</li>" for x in result.figures.findings)
+    toc = "".join(f'<li><a href="#{s.id}">{escape(s.title)}</a></li>' for s in sections)
+    body = [f'<header><div class="kicker">kickback turn-off report</div><h1>{escape(case.title)}</h1>',
+            f'<div class="banner {cls}" id="verdict"><span class="word">{word}</span>'
+            f'<span class="line">{escape(line)}</span></div>',
+            f'<p class="summary">{escape(summary_line(result))}</p>']
+    if findings:
+        body.append(f'<h3>Findings</h3><ul class="findings">{findings}</ul>')
+    body.append(f'<nav class="toc"><ol>{toc}</ol></nav></header>')
+    for s in sections:
+        page = ' class="page"' if s.new_page else ""
+        body.append(f'<section id="{s.id}"{page}><h2>{escape(s.title)}</h2>{s.body}</section>')
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+            f"<title>{escape(case.title)} — {word}</title><style>{CSS}</style></head><body>"
+            + "\n".join(body) + "\n</body></html>\n")
