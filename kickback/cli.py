@@ -130,10 +130,8 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
         files = {"compare.json": payload}
         if not no_plot:
             from kickback.outputs.comparison import comparison_figure
-            from kickback.outputs.plots import figure_bytes
 
-            fig = comparison_figure(cmp)
-            files |= {f"compare.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+            files |= _figure_files("compare", comparison_figure(cmp))
         _write_files(Path(out_dir), files)
     click.echo(payload if as_json else comparison_table(cmp), nl=False)
     own = cmp.own
@@ -170,30 +168,17 @@ def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot
         n = 1
         for ax in axes:
             n *= len(ax.values)
-        bar = click.progressbar(length=n, label="sweep", file=sys.stderr) if n >= 10 else None
         workers = workers or min(os.cpu_count() or 1, 8)
-        if bar is not None:
-            with bar:
-                done = [0]
-
-                def progress(k):
-                    bar.update(k - done[0])
-                    done[0] = k
-
-                sw = run_sweep(c, axes, workers=workers, progress=progress)
-        else:
-            sw = run_sweep(c, axes, workers=workers)
+        sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress))
     except CaseError as err:
         _die(f"{c.source}: {err.key}: {err.message}" if err.key else f"{c.source}: {err.message}")
     payload = to_json(sw.to_dict())
     if out_dir is not None:
         files = {"sweep.csv": sweep_csv(sw), "sweep.json": payload}
         if not no_plot:
-            from kickback.outputs.plots import figure_bytes
             from kickback.outputs.sweeps import sweep_figure
 
-            fig = sweep_figure(sw)
-            files |= {f"sweep.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+            files |= _figure_files("sweep", sweep_figure(sw))
         _write_files(Path(out_dir), files)
     click.echo(payload if as_json else sweep_table(sw), nl=False)
     sys.exit(0 if sw.passed.all() else 1)
@@ -230,10 +215,8 @@ def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
         files = {"choose.json": payload}
         if not no_plot:
             from kickback.outputs.choice import tradeoff_figure
-            from kickback.outputs.plots import figure_bytes
 
-            fig = tradeoff_figure(ch)
-            files |= {f"tradeoff.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+            files |= _figure_files("tradeoff", tradeoff_figure(ch))
         _write_files(Path(out_dir), files)
     click.echo(payload if as_json else choice_table(ch), nl=False)
     sys.exit(0 if ch.ranked else 1)
@@ -344,31 +327,41 @@ def tolerance(case: str, samples: int, seed: int, workers, as_json: bool, out_di
     c = _load(case)
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
-        if samples >= 20:
-            with click.progressbar(length=samples, label="samples", file=sys.stderr) as bar:
-                done = [0]
-
-                def progress(k):
-                    bar.update(k - done[0])
-                    done[0] = k
-
-                tr = run_tolerance(c, samples, seed, workers=workers, progress=progress)
-        else:
-            tr = run_tolerance(c, samples, seed, workers=workers)
+        tr = _with_progress("samples", samples,
+                            lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress))
     except CaseError as err:
         _die(str(err))
     payload = to_json(tr.to_dict())
     if out_dir is not None:
         files = {"tolerance.json": payload, "samples.csv": samples_csv(tr)}
         if not no_plot:
-            from kickback.outputs.plots import figure_bytes
             from kickback.outputs.tolerances import tolerance_figure
 
-            fig = tolerance_figure(tr)
-            files |= {f"tolerance.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+            files |= _figure_files("tolerance", tolerance_figure(tr))
         _write_files(Path(out_dir), files)
     click.echo(payload if as_json else tolerance_table(tr), nl=False)
     sys.exit(0 if tr.passed.all() else 1)
+
+
+def _figure_files(stem: str, fig) -> dict:
+    """``stem.png`` and ``stem.svg`` of a matplotlib figure, as bytes."""
+    from kickback.outputs.plots import figure_bytes
+
+    return {f"{stem}.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
+
+
+def _with_progress(label: str, n: int, run):
+    """``run(progress)`` with a progress bar on stderr for long runs (``progress(n_done)``)."""
+    if n < 10:
+        return run(None)
+    with click.progressbar(length=n, label=label, file=sys.stderr) as bar:
+        done = [0]
+
+        def progress(k):
+            bar.update(k - done[0])
+            done[0] = k
+
+        return run(progress)
 
 
 def _write_files(out: Path, files: dict) -> None:

@@ -6,6 +6,7 @@ from dataclasses import dataclass, replace
 
 from kickback.case import Case, Option
 from kickback.studies.designs import allowed_voltage, family_candidates
+from kickback.studies.pool import map_points
 from kickback.studies.sweep import point_figures
 
 
@@ -58,21 +59,7 @@ def evaluate(case: Case, *, workers: int = 1, progress=None) -> list[Candidate]:
     v_allow = allowed_voltage(case)
     items = [(fam, val, unit, opt) for fam, lst in fams.items() for val, unit, opt in lst]
     variants = [replace(case, clamps=opt.clamps, options=()) for _, _, _, opt in items]
-    if workers > 1:
-        from concurrent.futures import ProcessPoolExecutor
-
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            figs = []
-            for k, f in enumerate(pool.map(point_figures, variants, chunksize=4)):
-                figs.append(f)
-                if progress:
-                    progress(k + 1)
-    else:
-        figs = []
-        for k, v in enumerate(variants):
-            figs.append(point_figures(v))
-            if progress:
-                progress(k + 1)
+    figs = map_points(point_figures, variants, workers=workers, progress=progress, chunksize=4)
     return [Candidate(fam, val, unit, opt, f, v_allow) for (fam, val, unit, opt), f in zip(items, figs, strict=True)]
 
 

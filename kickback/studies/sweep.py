@@ -11,6 +11,7 @@ import numpy as np
 from kickback.case import Case
 from kickback.errors import CaseError, KickbackError
 from kickback.keypath import get_value, set_value, unit_of
+from kickback.studies.pool import map_points
 
 #: figures reported per point: column name, unit
 COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
@@ -136,21 +137,7 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
         for ax, x in zip(axes, p, strict=True):
             c = set_value(c, ax.path, x)
         variants.append(c)
-    if workers > 1 and len(variants) > 1:
-        from concurrent.futures import ProcessPoolExecutor
-
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            out = []
-            for k, res in enumerate(pool.map(point_figures, variants, chunksize=max(1, len(variants) // 64))):
-                out.append(res)
-                if progress:
-                    progress(k + 1)
-    else:
-        out = []
-        for k, c in enumerate(variants):
-            out.append(point_figures(c))
-            if progress:
-                progress(k + 1)
+    out = map_points(point_figures, variants, workers=workers, progress=progress)
     figs = {c: [o.get(c) for o in out] for c, _ in COLUMNS}
     return SweepResult(case, tuple(axes), points, figs, np.array([bool(o.get("pass")) for o in out]),
                        [o.get("failing_checks", []) for o in out], [o.get("error") for o in out], "detailed")

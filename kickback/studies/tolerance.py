@@ -71,25 +71,10 @@ def nominal(case: Case) -> np.ndarray:
 
 def evaluate(case: Case, matrix: np.ndarray, *, workers: int = 1, progress=None) -> list[dict]:
     """Figures of every row of ``matrix`` (detailed engine; worker processes when workers > 1)."""
+    from kickback.studies.pool import map_points
     from kickback.studies.sweep import point_figures
 
-    variants = [apply(case, row) for row in matrix]
-    if workers > 1 and len(variants) > 1:
-        from concurrent.futures import ProcessPoolExecutor
-
-        out = []
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            for k, f in enumerate(pool.map(point_figures, variants, chunksize=max(1, len(variants) // 200))):
-                out.append(f)
-                if progress:
-                    progress(k + 1)
-        return out
-    out = []
-    for k, v in enumerate(variants):
-        out.append(point_figures(v))
-        if progress:
-            progress(k + 1)
-    return out
+    return map_points(point_figures, [apply(case, row) for row in matrix], workers=workers, progress=progress)
 
 
 def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
