@@ -118,4 +118,6 @@ def figure_bytes(fig, fmt: str) -> bytes:
     with matplotlib.rc_context({"svg.hashsalt": "kickback", "svg.fonttype": "path"}):
         buf = io.BytesIO()
         fig.savefig(buf, format=fmt, dpi=130, metadata=meta)
+    if fig.get_layout_engine() is not None:
+        fig.set_layout_engine("none")  # laid out once: the next format reuses the positions
     return buf.getvalue()
