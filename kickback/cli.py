@@ -232,10 +232,11 @@ def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
               help="Add a tolerance study of N samples (the case needs a [tolerance] section).")
 @click.option("--seed", type=int, default=1, show_default=True, help="Random state of the tolerance study.")
 @click.option("--choose", "with_choose", is_flag=True, help="Add the clamp choice and its trade-off picture.")
+@click.option("--measured", metavar="TRACE.csv", help="Add a measured trace over the simulated waveform.")
 @click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
               help="Relative tolerance of the detailed engine.")
 def report(case: str, output: str | None, with_compare: bool, tol_samples, seed: int, with_choose: bool,
-           rtol: float) -> None:
+           measured, rtol: float) -> None:
     """Write one self-contained HTML review file of CASE: schematic, inputs, checks, energy
     ledger, waveforms, assumptions, cautions and how to reproduce it (printable, no external files).
 
@@ -250,6 +251,7 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
     from kickback.studies.compare import compare as run_compare
 
     c = _load(case)
+    trace = _read_measured(measured) if measured else None
     target = Path(output) if output else Path.cwd() / f"{Path(case).stem}-report.html"
     if target.is_dir():
         _die(f"{target}: -o must name a file (expected FILE.html, found a folder)")
@@ -280,9 +282,15 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
     words = ["kickback", "report", case] + (["-o", output] if output else []) + (["--compare"] if with_compare else [])
     words += ([f"--tolerance={tol_samples}", f"--seed={seed}"] if tol_samples else [])
     words += ["--choose"] if with_choose else []
+    words += ["--measured", measured] if measured else []
     words += [] if rtol == 1e-5 else ["--rtol", f"{rtol:g}"]
+    meas = None
+    if trace is not None:
+        from kickback.studies.measured import compare_measured
+
+        meas = (trace, compare_measured(result, trace))
     html = report_html(result, comparison=cmp, command=shlex.join(words), date=_report_date(), tolerance=study,
-                       choice=choice)
+                       choice=choice, measured=meas)
     write_atomic(target, html)
     word, _, line = verdict(result)
     click.echo(f"{c.title}: {word} ({line})")

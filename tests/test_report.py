@@ -478,3 +478,12 @@ def test_tolerance_and_tradeoff_sections(tmp_path):
     assert 'id="tolerance"' in html and 'id="tradeoff"' in html
     assert f"Yield {100 * study.yield_:.2f} %" in html
     assert choice.ranked[0].option.name in html
+
+
+def test_measured_trace_in_the_report(tmp_path):
+    out = tmp_path / "r.html"
+    res = CliRunner().invoke(main, ["report", str(CASES / "irrigation_valve.toml"), "-o", str(out), "--measured",
+                                    str(CASES.parent / "examples" / "valve_decay_trace.csv")])
+    assert res.exit_code == 0, res.output
+    html = out.read_text()
+    assert 'id="measured"' in html and "valve_decay_trace.csv" in html and "decay to 10 %" in html

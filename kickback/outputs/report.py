@@ -278,6 +278,26 @@ def tolerance_section(study=None) -> Section | None:
     return Section("tolerance", "Tolerances", body)
 
 
+def measured_section(measured=None) -> Section | None:
+    """A bench trace against the simulation: ``(trace, MeasuredComparison)``; None without one."""
+    if measured is None:
+        return None
+    trace, cmp, result = measured
+    from kickback.outputs.fitplots import measured_figure
+
+    rows = []
+    for r in cmp.rows:
+        rel = "" if r.relative is None else f" ({100 * r.relative:+.1f} %)"
+        rows.append([r.quantity, q(r.simulated, r.unit), q(r.measured, r.unit),
+                     ("—" if r.difference is None else q(r.difference, r.unit)) + rel])
+    body = (f"<p>Measured {escape(cmp.signal)} from <code>{escape(cmp.source)}</code> against the "
+            "simulated waveform (time zero at the turn-off).</p>")
+    body += parts.table(["figure", "simulated", "measured", "difference"], rows)
+    body += "".join(f'<p class="note">{escape(n)}</p>' for n in cmp.notes)
+    body += _figure(measured_figure(result, trace, cmp), "meas", "The measured trace over the simulation.")
+    return Section("measured", "Measured against simulated", body)
+
+
 def tradeoff_section(choice=None) -> Section | None:
     """The clamp choice (:func:`kickback.studies.choose.choose`): ranked choices and the
     release-versus-voltage trade-off; None without one."""
@@ -406,7 +426,7 @@ def library_versions() -> dict:
 
 
 def report_html(result, *, comparison=None, command: str = "", date: str = "", versions: dict | None = None,
-                tolerance=None, choice=None) -> str:
+                tolerance=None, choice=None, measured=None) -> str:
     """The whole report of ``result`` as one HTML document.
 
     Parameters
@@ -418,6 +438,7 @@ def report_html(result, *, comparison=None, command: str = "", date: str = "", v
     versions : dict or None — library versions to record; None: the installed ones
     tolerance : ToleranceResult or None — a tolerance study to include
     choice : Choice or None — a clamp choice (ranked candidates, trade-off) to include.
+    measured : (trace, MeasuredComparison) or None — a bench trace to overlay on the simulation.
         Repetitive switching comes with the result itself (``Result.pwm``, from the case's [drive]).
 
     Returns
@@ -427,7 +448,8 @@ def report_html(result, *, comparison=None, command: str = "", date: str = "", v
     case = result.case
     word, cls, line = verdict(result)
     pwm = getattr(result, "pwm", ())
-    later = [s for s in (pwm_thermal_section(pwm), tolerance_section(tolerance), tradeoff_section(choice))
+    later = [s for s in (measured_section(None if measured is None else (*measured, result)),
+                         pwm_thermal_section(pwm), tolerance_section(tolerance), tradeoff_section(choice))
              if s is not None]
     not_assessed = []
     if tolerance is None:
