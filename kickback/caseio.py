@@ -33,15 +33,12 @@ from kickback.case import (
 from kickback.casetext import read_text as _read
 from kickback.casetext import syntax_error as _syntax_error
 from kickback.errors import CaseError
+from kickback.models.diode import T25, thermal_voltage
 from kickback.tomlpos import KeyPath, LineLocator, format_path
 from kickback.units import UnitError, example, format_quantity, parse_quantity
 
 __all__ = ["load_case"]
 
-# Boltzmann constant and elementary charge, exact in the SI since 2019 (BIPM SI brochure, 9th ed.)
-_K_B = 1.380649e-23  # [J/K]
-_Q_E = 1.602176634e-19  # [C]
-_T_DEFAULT = 298.15  # [K] 25 degC
 
 _CONDITIONS = {
     ">0": (lambda v: v > 0, "> 0"),
@@ -326,7 +323,7 @@ def _check_diode(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
                         f"{format_quantity(vf, 'V')} "
                         "(expected series_resistance < forward_voltage / at_current)")
     if "saturation_current" in v:  # n = (V_f - R_s I) / (V_T ln(1 + I/I_s)), Shockley law with V_T = kT/q
-        vt = _K_B * v.get("temperature", _T_DEFAULT) / _Q_E
+        vt = thermal_voltage(v.get("temperature", T25))
         n = (vf - rs * i_at) / (vt * math.log1p(i_at / v["saturation_current"]))
         if not 0.5 <= n <= 10:
             raise ctx.error(path + ("saturation_current",), f"with forward_voltage and at_current it gives "
