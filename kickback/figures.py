@@ -243,8 +243,11 @@ def compute_figures(w: Waveforms) -> Figures:
     sw_tj = junction_peak(w.t, w.v * (w.i_channel + w.i_offstate), s.thermal_resistance, s.thermal_tau,
                           case.checks.ambient_temperature)
     models = [c.switch.description] + [law.description for ch in c.chains for law in ch.laws if law is not None]
-    if c.r_min > 0 and any(p for p in c.pin_points):
-        models.append("ideal (zero-resistance) laws hold the node exactly at their voltage")
+    if c.r_min > 0 and c.pin_points:
+        names = sorted({"the switch's avalanche" if b == 1 else f"clamp '{c.chains[c.active_chains[b - 2]].name}'"
+                        for _, b, _ in c.pin_points})
+        models.append(f"zero-resistance laws ({', '.join(names)}) hold the node exactly at their voltage "
+                      "while they conduct")
     models.append(f"detailed engine: Radau IIA, rtol {w.rtol:g}; current 'at zero' below "
                   f"{ZERO_FRACTION:g} × initial")
     if not math.isfinite(balance):
