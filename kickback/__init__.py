@@ -4,7 +4,7 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__", "load_case", "simulate"]
+__all__ = ["__version__", "load_case", "simulate", "simulate_many"]
 
 
 def load_case(path_or_text, **options):
@@ -19,3 +19,10 @@ def simulate(case, **options):
     from kickback.simulation import simulate as _simulate
 
     return _simulate(case, **options)
+
+
+def simulate_many(case, variations=None, **options):
+    """Simulate many variants of ``case`` with the batch engine; see :func:`kickback.studies.many.simulate_many`."""
+    from kickback.studies.many import simulate_many as _many
+
+    return _many(case, variations, **options)

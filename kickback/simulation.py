@@ -19,7 +19,9 @@ def simulate(case: Case, *, rtol: float = DEFAULT_RTOL, engine: str = "detailed"
     ----------
     case : Case
     rtol : float — relative tolerance of the detailed engine
-    engine : str — "detailed" (the reference engine)
+    engine : str — "detailed" (the reference engine) or "batch" (exact piecewise-linear
+        solution, :mod:`kickback.engine.batch`; nonlinear laws as a stated fit). The batch
+        engine is work in progress: not yet verified in full nor fast enough; use "detailed".
 
     Returns
     -------
@@ -30,8 +32,12 @@ def simulate(case: Case, *, rtol: float = DEFAULT_RTOL, engine: str = "detailed"
     CaseError — the case cannot be simulated as given (e.g. no path for the coil current)
     SolverError — the engine could not finish; the message says why
     """
+    if engine == "batch":
+        from kickback.batch_result import simulate_batch
+
+        return simulate_batch(case)
     if engine != "detailed":
-        raise ValueError(f"unknown engine {engine!r} (expected 'detailed')")
+        raise ValueError(f"unknown engine {engine!r} (expected 'detailed' or 'batch')")
     pwm = ()
     extra_checks = []
     if case.drive is not None:

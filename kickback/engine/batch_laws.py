@@ -1,0 +1,298 @@
+"""Piecewise-linear branch laws as arrays over cases, and the stated fits of nonlinear laws.
+
+A branch law (switch channel, switch off-state, one clamp chain) is a monotone curve of
+current against branch voltage made of *states* in ascending voltage: linear segments
+``u = V + r·I`` for ``I`` in ``[I_lo, I_hi]`` (``r = 0``: an ideal, vertical segment that holds
+its voltage) and at most one zero-current *block* ``band_lo ≤ u ≤ band_hi``. Every value is an
+array over the cases of one batch; the structure (number and kind of states) is shared.
+
+Laws that are not piecewise linear enter as a **stated fit** of three segments: the secants of
+the exact law through the currents ``i0 × (1e-6, 2e-3)``, ``(1e-2, 8e-2)`` and ``(0.3, 1)``,
+joined where consecutive secants meet; the first leaves zero current at the law's voltage at the
+figures' conduction threshold (1e-6·i0), the last is exact at ``i0`` (so are the peak voltage and
+power), and the error alternates in sign along each secant. It is used for the Shockley diode
+(series resistance included) and the metal-oxide varistor (both polarities); its effect on every
+figure is measured against the exact law in the detailed engine (tests/test_batch.py).
+
+References
+----------
+A. S. Sedra and K. C. Smith, Microelectronic Circuits, ch. 4 (diode exponential law and its
+piecewise-linear models).
+L. M. Levinson and H. R. Philipp, "Zinc oxide varistors — a review", American Ceramic Society
+Bulletin 65(4), 1986 (power-law characteristic).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from kickback.models.breakdown import DEFAULT_FORWARD_DROP
+from kickback.models.diode import BOLTZMANN, ELEMENTARY_CHARGE, T25
+
+#: the fit's three segments: secants of the law through these pairs of currents (× i0); the
+#: first starts at the conduction threshold of the figures (1e-6·i0), the last ends at i0
+FIT_POINTS = ((1e-6, 2e-3), (1e-2, 8e-2), (0.3, 1.0))
+
+
+@dataclass
+class Law:
+    """A branch law over N cases.
+
+    Attributes
+    ----------
+    kinds : list of str — "seg" or "block" per state, ascending in voltage
+    V, r, Ilo, Ihi : (N, S) — segment voltage at zero current [V], slope [Ω], current range [A]
+        (block: V = band_lo, r = 0, I = 0)
+    ulo, uhi : (N, S) — [V] voltage range of each state
+    """
+
+    kinds: list
+    V: np.ndarray
+    r: np.ndarray
+    Ilo: np.ndarray
+    Ihi: np.ndarray
+    ulo: np.ndarray
+    uhi: np.ndarray
+
+    @property
+    def n_states(self) -> int:
+        return len(self.kinds)
+
+    @property
+    def block(self) -> int | None:
+        return self.kinds.index("block") if "block" in self.kinds else None
+
+
+def make_law(rev: list, block: bool, fwd: list, n: int) -> Law:
+    """Law from reverse segments (most negative first), an optional block and forward segments.
+
+    Each segment is a tuple ``(V, r, Ilo, Ihi)`` of arrays (or scalars) over ``n`` cases.
+    """
+    rows = []
+    kinds = []
+    for s in rev:
+        rows.append(s)
+        kinds.append("seg")
+    if block:
+        lo = rev[-1][0] if rev else np.full(n, -np.inf)
+        hi = fwd[0][0] if fwd else np.full(n, np.inf)
+        rows.append((lo, 0.0, 0.0, 0.0, hi))
+        kinds.append("block")
+    for s in fwd:
+        rows.append(s)
+        kinds.append("seg")
+    V = np.empty((n, len(rows)))
+    r = np.empty_like(V)
+    Ilo = np.empty_like(V)
+    Ihi = np.empty_like(V)
+    ulo = np.empty_like(V)
+    uhi = np.empty_like(V)
+    for k, row in enumerate(rows):
+        V[:, k], r[:, k], Ilo[:, k], Ihi[:, k] = (np.broadcast_to(np.asarray(x, float), (n,)) for x in row[:4])
+        if kinds[k] == "block":
+            ulo[:, k] = V[:, k]
+            uhi[:, k] = np.broadcast_to(np.asarray(row[4], float), (n,))
+        else:
+            with np.errstate(invalid="ignore"):
+                ulo[:, k] = np.where(r[:, k] > 0, V[:, k] + r[:, k] * Ilo[:, k], V[:, k])
+                uhi[:, k] = np.where(r[:, k] > 0, V[:, k] + r[:, k] * Ihi[:, k], V[:, k])
+    return Law(kinds, V, r, Ilo, Ihi, ulo, uhi)
+
+
+@dataclass
+class ElementLaw:
+    """One non-capacitor element of a chain: its (V, r) on every chain state and its band."""
+
+    type: str
+    V: np.ndarray  # (N, S) per chain state
+    r: np.ndarray
+    band_lo: np.ndarray  # (N,)
+    band_hi: np.ndarray
+    description: str = ""
+
+
+@dataclass
+class ElementPiece:
+    """An element before it is placed in a chain: forward and reverse pieces, maybe a fit."""
+
+    type: str
+    fwd: list  # [(V, r, Ilo, Ihi)] ascending current, first Ilo = 0
+    rev: list  # [(V, r, Ilo, Ihi)] most negative first, last Ihi = 0; [] = blocks reverse
+    linear: bool = False
+    description: str = ""
+    fitted: bool = False
+    fit_note: str = ""
+    invalid: np.ndarray | None = None  # (N,) bool: values that make no law
+
+
+@dataclass
+class ChainLaw:
+    law: Law
+    elements: list = field(default_factory=list)  # ElementLaw or None (capacitor) per element
+    capacitance: np.ndarray | None = None  # (N,) series capacitor
+    fitted: list = field(default_factory=list)  # notes of fits in this chain
+    #: index of a fitted Shockley diode: in reverse it stands for a law carrying −I_s, so the other
+    #: elements sit at their reverse zero-current edge and the diode holds the rest (as the
+    #: detailed engine shares a reverse-saturated chain)
+    saturating: int | None = None
+
+
+def _pw(V, r, n):
+    inf = np.full(n, np.inf)
+    return [(np.asarray(V, float) * np.ones(n), np.asarray(r, float) * np.ones(n), np.zeros(n), inf)]
+
+
+def _pw_rev(V, r, n):
+    return [(np.asarray(V, float) * np.ones(n), np.asarray(r, float) * np.ones(n), np.full(n, -np.inf),
+             np.zeros(n))]
+
+
+def _chords(vfun, i0, n):
+    """Forward segments of the stated fit of v(i): secants through pairs of points of the law,
+    joined where consecutive secants meet (see the module docstring)."""
+    lines = []
+    for a, b in FIT_POINTS:
+        xa, xb = a * i0, b * i0
+        va, vb = vfun(xa), vfun(xb)
+        r = (vb - va) / (xb - xa)
+        lines.append((va - r * xa, r))
+    cuts = [np.zeros(n)]
+    for (V1, r1), (V2, r2) in zip(lines[:-1], lines[1:], strict=True):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cuts.append((V2 - V1) / (r1 - r2))
+    cuts.append(np.full(n, np.inf))
+    return [(V, r, cuts[k], cuts[k + 1]) for k, (V, r) in enumerate(lines)]
+
+
+def _points() -> str:
+    return ", ".join(f"({a:g}, {b:g})" for a, b in FIT_POINTS)
+
+
+def element_piece(el, get, i0, n) -> ElementPiece:
+    """The law of element ``el`` with values from ``get(name)`` (arrays over n cases).
+
+    ``i0`` [A] (n,) sets the fit nodes of nonlinear laws.
+    """
+    t = el.type
+    if t == "diode" and el.model == "constant-drop":
+        vf, rs = get("forward_voltage"), get("series_resistance")
+        return ElementPiece("diode", _pw(vf, rs, n), [], description="constant-drop diode",
+                            invalid=~(np.isfinite(vf)))
+    if t == "diode":
+        rs = np.nan_to_num(get("series_resistance"), nan=0.0)
+        temp = get("temperature")
+        vt = BOLTZMANN * np.where(np.isfinite(temp), temp, T25) / ELEMENTARY_CHARGE
+        vf, at = get("forward_voltage"), get("at_current")
+        nid, isat = get("ideality"), get("saturation_current")
+        vj = vf - rs * at
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            if el.ideality is not None or np.all(np.isfinite(nid)):
+                i_s = at / np.expm1(vj / (nid * vt))
+            else:
+                nid = vj / (vt * np.log1p(at / isat))
+                i_s = isat
+            if el.forward_voltage is None:
+                nid, i_s = get("ideality"), get("saturation_current")
+            a = nid * vt
+            bad = ~((a > 0) & (i_s > 0) & np.isfinite(a) & np.isfinite(i_s))
+
+            def vfun(i):
+                sh = (-1,) + (1,) * (np.ndim(i) - 1)
+                return a.reshape(sh) * np.log1p(i / i_s.reshape(sh)) + rs.reshape(sh) * i
+
+            segs = _chords(vfun, i0, n)
+        note = ("Shockley diode as a 3-segment piecewise-linear fit (secants through i/i0 = " + _points()
+                + "; exact law in the detailed engine)")
+        return ElementPiece("diode", segs, [], description="Shockley diode (fitted)", fitted=True, fit_note=note,
+                            invalid=bad | (vj <= 0))
+    if t in ("zener", "tvs"):
+        v, rd = get("voltage"), get("dynamic_resistance")
+        bidir = el.bidirectional and t == "tvs"
+        if bidir:
+            rev = _pw_rev(-v, rd, n)
+        else:
+            vfz = get("forward_voltage")
+            rev = _pw_rev(-np.where(np.isfinite(vfz), vfz, DEFAULT_FORWARD_DROP), rd, n)
+        return ElementPiece(t, _pw(v, rd, n), rev, description=t, invalid=~np.isfinite(v))
+    if t == "resistor":
+        R = get("resistance")
+        return ElementPiece("resistor", _pw(0.0, R, n), _pw_rev(0.0, R, n), linear=True, description="resistor",
+                            invalid=~(R > 0))
+    if t == "varistor":
+        v1, alpha, i1 = get("voltage"), get("exponent"), get("at_current")
+        i1 = np.where(np.isfinite(i1), i1, 1e-3)
+
+        def vfun(i):
+            sh = (-1,) + (1,) * (np.ndim(i) - 1)
+            return v1.reshape(sh) * (i / i1.reshape(sh)) ** (1.0 / alpha.reshape(sh))
+
+        with np.errstate(invalid="ignore", divide="ignore"):
+            fwd = _chords(vfun, i0, n)
+        rev = [(-V, r, -hi, -lo) for V, r, lo, hi in reversed(fwd)]
+        note = ("varistor as a 3-segment piecewise-linear fit, both polarities (secants through |i|/i0 = "
+                + _points() + "; exact law in the detailed engine)")
+        return ElementPiece("varistor", fwd, rev, description="varistor (fitted)", fitted=True, fit_note=note,
+                            invalid=~((v1 > 0) & (alpha > 0)))
+    raise ValueError(f"unknown element type {t!r}")
+
+
+def chain_law(pieces: list, n: int) -> tuple[Law, list, list]:
+    """Series chain of element pieces (capacitors excluded): the chain law and per-element (V, r).
+
+    At most one element may have several segments (a fit); the chain's segments follow it.
+    Returns (law, element laws, notes).
+    """
+    multi = [p for p in pieces if len(p.fwd) > 1 or len(p.rev) > 1]
+    if len(multi) > 1:
+        raise ValueError("more than one fitted nonlinear element in one chain")
+    lead = multi[0] if multi else (pieces[0] if pieces else None)
+    linear = all(p.linear for p in pieces)
+    reverse = all(p.rev for p in pieces)
+    notes = [p.fit_note for p in pieces if p.fitted]
+    if linear:
+        V = sum(p.fwd[0][0] for p in pieces)
+        r = sum(p.fwd[0][1] for p in pieces)
+        law = make_law([], False, [(V, r, np.full(n, -np.inf), np.full(n, np.inf))], n)
+        els = [ElementLaw(p.type, p.fwd[0][0][:, None] * np.ones((n, 1)), p.fwd[0][1][:, None] * np.ones((n, 1)),
+                          np.zeros(n), np.zeros(n), p.description) for p in pieces]
+        return law, els, notes
+
+    def combine(side):
+        segs_lead = lead.fwd if side == "fwd" else lead.rev
+        out = []
+        for k, (_V, _r, lo, hi) in enumerate(segs_lead):
+            Vs_ = np.zeros(n)
+            rs_ = np.zeros(n)
+            for p in pieces:
+                segs = p.fwd if side == "fwd" else p.rev
+                s = segs[k] if len(segs) > 1 else segs[0]
+                Vs_ = Vs_ + s[0]
+                rs_ = rs_ + s[1]
+            out.append((Vs_, rs_, lo, hi))
+        return out
+
+    fwd = combine("fwd")
+    rev = combine("rev") if reverse else []
+    law = make_law(rev, True, fwd, n)
+    S = law.n_states
+    els = []
+    for p in pieces:
+        Ve = np.zeros((n, S))
+        re = np.zeros((n, S))
+        k_seg = 0
+        for s in range(S):
+            if law.kinds[s] == "block":
+                continue
+            side_rev = s < law.block
+            segs = p.rev if side_rev else p.fwd
+            kk = (k_seg if side_rev else s - law.block - 1)
+            seg = segs[kk] if len(segs) > 1 else segs[0]
+            Ve[:, s], re[:, s] = seg[0], seg[1]
+            k_seg += 1 if side_rev else 0
+        lo = p.rev[-1][0] if p.rev else np.full(n, -np.inf)
+        hi = p.fwd[0][0]
+        els.append(ElementLaw(p.type, Ve, re, np.broadcast_to(lo, (n,)).astype(float),
+                              np.broadcast_to(hi, (n,)).astype(float), p.description))
+    return law, els, notes

@@ -1,0 +1,177 @@
+"""Branch currents of piecewise-linear laws and the exact node voltage where they balance.
+
+The current of a :class:`~kickback.engine.batch_laws.Law` at branch voltage ``u`` is the sum of
+its segments' clipped contributions, each anchored at zero current,
+
+.. math:: I(u) = \\sum_k \\left(\\mathrm{clip}\\big((u - V_k)/r_k,\\ I_{lo,k},\\ I_{hi,k}\\big) - a_k\\right),
+
+(``a_k`` the end of segment k nearest zero current; a vertical segment jumps from ``I_lo`` to
+``I_hi`` at ``V_k``), which is exact, monotone and insensitive to the one-ulp gaps chords leave
+between segments. The node voltage solving ``Σ I_b(v − off_b) + g·v = target`` is found exactly:
+the residual is evaluated on both sides of every kink, the kink or the linear piece holding the
+root is picked, and a root on a vertical jump is the vertical law's own voltage.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def law_current(law, u, side: int = 1, limit=None):
+    """Current [A] of ``law`` at branch voltage ``u`` [V] (G,); ``side`` −1/+1: left/right limit at a
+    vertical segment; ``limit`` (G,) caps the current (the channel during the fall)."""
+    total = np.zeros_like(u, dtype=float)
+    for k, kind in enumerate(law.kinds):
+        if kind == "block":
+            continue
+        V, r, lo, hi = law.V[:, k], law.r[:, k], law.Ilo[:, k], law.Ihi[:, k]
+        vert = r == 0
+        with np.errstate(invalid="ignore", divide="ignore"):
+            lin = np.clip((u - V) / np.where(vert, 1.0, r), lo, hi)
+        at = lo if side < 0 else hi
+        tol = 1e-12 * np.maximum(1.0, np.abs(np.where(np.isfinite(V), V, 0.0)))
+        f = np.where(vert, np.where(u < V - tol, lo, np.where(u > V + tol, hi, at)), lin)
+        anchor = np.where(lo >= 0, lo, np.where(hi <= 0, hi, 0.0))
+        total = total + (f - anchor)
+    if limit is not None:
+        total = np.minimum(total, limit)
+    return total
+
+
+def law_voltage_at(law, current):
+    """Branch voltage [V] where ``law`` carries ``current`` [A] ≥ 0 (for the channel's limit kink)."""
+    out = np.full(current.shape, np.nan)
+    for k, kind in enumerate(law.kinds):
+        if kind == "block":
+            continue
+        inside = (law.Ilo[:, k] <= current) & (current <= law.Ihi[:, k])
+        out = np.where(inside & np.isnan(out), law.V[:, k] + law.r[:, k] * np.where(np.isfinite(current), current,
+                                                                                      0.0), out)
+    return out
+
+
+def _residual(laws, offs, v, target, g_extra, side, limits, active):
+    res = g_extra * v - target
+    for b, law in enumerate(laws):
+        if law is None:
+            continue
+        cur = law_current(law, v - offs[b], side, limits[b])
+        res = res + (cur if active[b] is None else np.where(active[b], cur, 0.0))
+    return res
+
+
+def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
+    """Node voltage balancing the branch currents.
+
+    Parameters
+    ----------
+    laws : list of Law or None — the branches (None: absent)
+    offs : list of (G,) — [V] far-end voltage of each branch
+    target : (G,) — [A] current into the node
+    g_extra : (G,) or float — [S] an extra linear conductance to ground (the coil in the on-state)
+    limits : list of (G,) or None — current caps per branch (None: no cap)
+    active : list of (G,) bool or None — where a branch is present (None: everywhere)
+
+    Returns
+    -------
+    v : (G,) — [V]
+    ok : (G,) bool — a solution exists (something takes the current)
+    pin : (G,) int — branch whose vertical law holds the node at v (−1: none)
+    currents : list of (G,) — [A] branch currents at v (the pinned branch takes the remainder)
+    """
+    G = target.shape[0]
+    g_extra = np.broadcast_to(np.asarray(g_extra, float), (G,))
+    limits = limits if limits is not None else [None] * len(laws)
+    active = active if active is not None else [None] * len(laws)
+    knots = []
+    for b, law in enumerate(laws):
+        if law is None:
+            continue
+        here = []
+        for k in range(law.n_states):
+            here += [law.ulo[:, k] + offs[b], law.uhi[:, k] + offs[b]]
+        if limits[b] is not None:
+            here.append(law_voltage_at(law, limits[b]) + offs[b])
+        if active[b] is not None:
+            here = [np.where(active[b], x, np.nan) for x in here]
+        knots += here
+    kn = np.stack(knots, axis=1) if knots else np.zeros((G, 0))
+    kn = np.where(np.isfinite(kn), kn, np.nan)
+    kn = np.sort(kn, axis=1)
+    nk = kn.shape[1]
+    big = np.nanmax(np.abs(np.concatenate([kn, np.ones((G, 1))], axis=1)), axis=1)
+    D = np.maximum(big, 1.0)
+    valid = np.isfinite(kn)
+    safe = np.where(valid, kn, 0.0)
+    RL = np.stack([_residual(laws, offs, safe[:, j], target, g_extra, -1, limits, active) for j in range(nk)], axis=1) \
+        if nk else np.zeros((G, 0))
+    RR = np.stack([_residual(laws, offs, safe[:, j], target, g_extra, 1, limits, active) for j in range(nk)], axis=1) \
+        if nk else np.zeros((G, 0))
+    RL = np.where(valid, RL, np.inf)
+    RR = np.where(valid, RR, np.inf)
+    v = np.full(G, np.nan)
+    nvalid = valid.sum(axis=1)
+    rows = np.arange(G)
+    if nk:
+        ge = valid & (RR >= 0)
+        has = ge.any(axis=1)
+        j = np.argmax(ge, axis=1)
+        rlj = RL[rows, j]
+        at = has & (rlj <= 0)
+        v = np.where(at, kn[rows, j], v)
+        jm = np.maximum(j - 1, 0)
+        inter = has & ~at & (j > 0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            vi = kn[rows, jm] - RR[rows, jm] * (kn[rows, j] - kn[rows, jm]) / (rlj - RR[rows, jm])
+        v = np.where(inter, vi, v)
+        below = has & ~at & (j == 0)
+        k0 = np.where(below, kn[:, 0], 0.0)
+        r0 = _residual(laws, offs, k0 - D, target, g_extra, 1, limits, active)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            slope = (RL[:, 0] - r0) / D
+            vb = k0 - RL[:, 0] / slope
+        v = np.where(below & (slope > 0), vb, v)
+        above = ~has & (nvalid > 0)
+        last = np.maximum(nvalid - 1, 0)
+        kl = np.where(above, kn[rows, last], 0.0)
+        rl = RR[rows, last]
+        r1 = _residual(laws, offs, kl + D, target, g_extra, 1, limits, active)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            slope = (r1 - rl) / D
+            va = kl - rl / slope
+        v = np.where(above & (slope > 0) & np.isfinite(rl), va, v)
+        jump = at & (rlj < RR[rows, j])
+    else:
+        jump = np.zeros(G, bool)
+    none = nvalid == 0
+    if np.any(none):
+        r0 = _residual(laws, offs, np.zeros(G), target, g_extra, 1, limits, active)
+        r1 = _residual(laws, offs, D, target, g_extra, 1, limits, active)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            slope = (r1 - r0) / D
+            vn = -r0 / slope
+        v = np.where(none & (slope > 0), vn, v)
+    ok = np.isfinite(v)
+    v = np.where(ok, v, 0.0)
+    pin = np.full(G, -1)
+    for b, law in enumerate(laws):
+        if law is None:
+            continue
+        for k, kind in enumerate(law.kinds):
+            if kind != "seg":
+                continue
+            vert = (law.r[:, k] == 0) & (np.abs(v - offs[b] - law.V[:, k]) <= 1e-12 * np.maximum(1.0, np.abs(v)))
+            if active[b] is not None:
+                vert &= active[b]
+            pin = np.where(jump & (pin < 0) & vert, b, pin)
+    currents = []
+    for b, law in enumerate(laws):
+        if law is None:
+            currents.append(np.zeros(G))
+            continue
+        cur = np.where(pin == b, 0.0, law_current(law, v - offs[b], 1, limits[b]))
+        currents.append(cur if active[b] is None else np.where(active[b], cur, 0.0))
+    rest = target - g_extra * v - sum(currents)
+    for b in range(len(laws)):
+        currents[b] = np.where(pin == b, rest, currents[b])
+    return v, ok, pin, currents

@@ -1,0 +1,263 @@
+"""Special functions of exact linear-segment solutions, robust at every limit.
+
+The batch engine writes each state on a segment as constants, a ramp and *modal terms*
+``exp(m·τ)·(C_w(τ)·a + S_w(τ)·b)`` with
+
+.. math:: C_w(τ) = \\cosh(wτ), \\qquad S_w(τ) = \\sinh(wτ)/w, \\qquad w^2 \\in \\mathbb{R},
+
+(``w² < 0`` is an oscillation, ``w² = 0`` a double root: ``C = 1``, ``S = τ``). Written in ``w²``
+these functions are entire, so nothing breaks at critical damping. This module gives them, the
+φ-functions of exponential integrators, and their integrals over ``[0, T]`` against ``τ^j``,
+all vectorised over arrays of cases and free of overflow and cancellation.
+
+References
+----------
+M. Hochbruck and A. Ostermann, "Exponential integrators", Acta Numerica 19 (2010) 209–286
+(the φ-functions and their recurrences).
+C. Moler and C. Van Loan, "Nineteen dubious ways to compute the exponential of a matrix,
+twenty-five years later", SIAM Review 45(1), 2003 (why the closed forms here avoid
+eigenvector bases near repeated eigenvalues).
+M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions, 1964, §6.5 (incomplete
+gamma function ∫0^1 θ^n e^{uθ} dθ and its series).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+#: below this |z| the φ-functions use their Taylor series
+_PHI_SERIES = 0.1
+_PHI_TERMS = 11
+#: |w²|·τ² below which cosh and sinh/w use their series
+_CS_SERIES = 1e-3
+#: |w²|·T² below which the modal integrals use their series in w²
+_INT_SERIES = 0.25
+_INT_TERMS = 9
+#: the moments μ_n(u) = ∫0^1 θ^n e^{uθ} dθ: below |u| this the downward φ recurrence is used
+_MOMENT_SWITCH = 40.0
+_NMAX = 2 * _INT_TERMS + 2
+
+_FACT = np.array([math.factorial(k) for k in range(_PHI_TERMS + 3)], dtype=float)
+
+
+def phi12(z):
+    """The first two φ-functions.
+
+    Parameters
+    ----------
+    z : array, real or complex — dimensionless
+
+    Returns
+    -------
+    (phi1, phi2) : arrays like ``z``
+
+    .. math:: φ_1(z) = \\frac{e^z - 1}{z}, \\qquad φ_2(z) = \\frac{e^z - 1 - z}{z^2}
+
+    Taylor series (10 terms, error < 1e-19) below |z| = 0.1, the closed forms above (where the
+    cancellation in φ2 costs at most a factor 20 of rounding).
+    """
+    z = np.asarray(z)
+    dtype = np.result_type(z, float)
+    p1 = np.empty(z.shape, dtype)
+    p2 = np.empty(z.shape, dtype)
+    small = np.abs(z) < _PHI_SERIES
+    if np.any(small):
+        zs = z[small]
+        a1 = np.zeros(zs.shape, dtype)
+        a2 = np.zeros(zs.shape, dtype)
+        for k in range(_PHI_TERMS - 1, -1, -1):
+            a1 = a1 * zs + 1.0 / _FACT[k + 1]
+            a2 = a2 * zs + 1.0 / _FACT[k + 2]
+        p1[small] = a1
+        p2[small] = a2
+    big = ~small
+    if np.any(big):
+        zl = z[big]
+        with np.errstate(over="ignore", invalid="ignore"):
+            q1 = np.expm1(zl) / zl
+            p1[big] = q1
+            p2[big] = (q1 - 1.0) / zl
+    return p1, p2
+
+
+def slow_rate(m, w2, prod):
+    """The root ``m + w`` of ``λ² − 2mλ + prod`` (w² = m² − prod > 0) without cancellation.
+
+    ``m − w`` is formed directly (no cancellation for m < 0) and ``m + w = prod/(m − w)``;
+    where w² ≤ 0 the result is ``m``.
+    """
+    m, w2, prod = np.broadcast_arrays(np.asarray(m, float), np.asarray(w2, float), np.asarray(prod, float))
+    w = np.sqrt(np.maximum(w2, 0.0))
+    rm = m - w
+    ok = (w2 > 0) & (rm < 0)
+    return np.where(ok, prod / np.where(ok, rm, 1.0), m + w)
+
+
+def cosh_sinhc(m, w2, tau, rp=None):
+    """``exp(m τ)·C_w(τ)`` and ``exp(m τ)·S_w(τ)`` without overflow.
+
+    Parameters
+    ----------
+    m : array — [1/s] decay rate (≤ 0 up to rounding, with m ± w ≤ 0 for real w)
+    w2 : array — [1/s²] w², any sign
+    tau : array — [s] broadcastable with m and w2
+    rp : array or None — [1/s] ``m + w`` computed without cancellation (:func:`slow_rate`)
+
+    Returns
+    -------
+    (ec, es) : arrays — [–] and [s]
+    """
+    if rp is None:
+        rp = m + np.sqrt(np.maximum(np.asarray(w2, float), 0.0))
+    m, w2, tau, rp = np.broadcast_arrays(np.asarray(m, float), np.asarray(w2, float), np.asarray(tau, float),
+                                         np.asarray(rp, float))
+    x2 = w2 * tau * tau
+    em = np.exp(m * tau)
+    series = np.abs(x2) < _CS_SERIES
+    xs = np.where(series, x2, 0.0)
+    c_s = 1.0 + xs * (1 / 2 + xs * (1 / 24 + xs / 720))
+    s_s = tau * (1.0 + xs * (1 / 6 + xs * (1 / 120 + xs / 5040)))
+    osc = (~series) & (x2 < 0)
+    nu = np.sqrt(np.where(osc, -w2, 1.0))
+    c_o = np.cos(nu * tau)
+    s_o = np.sin(nu * tau) / nu
+    hyp = (~series) & (x2 > 0)
+    w = np.sqrt(np.where(hyp, w2, 1.0))
+    with np.errstate(over="ignore", invalid="ignore"):
+        ep = np.exp(np.where(hyp, rp * tau, 0.0))
+        en = np.exp(np.where(hyp, (m - w) * tau, 0.0))
+    ec = np.where(series, em * c_s, np.where(osc, em * c_o, 0.5 * (ep + en)))
+    es = np.where(series, em * s_s, np.where(osc, em * s_o, 0.5 * (ep - en) / w))
+    return ec, es
+
+
+def psi01(s, T):
+    """``∫0^T e^{sτ} dτ`` and ``∫0^T τ e^{sτ} dτ`` for real or complex rates ``s`` [1/s], ``T`` [s]."""
+    p1, p2 = phi12(s * T)
+    return T * p1, T * T * (p1 - p2)
+
+
+def moments(m, T, nmax: int = _NMAX):
+    """``I_n = ∫0^T τ^n e^{mτ} dτ`` for n = 0 … nmax, real rates ``m`` ≤ 0 (tiny positive allowed).
+
+    Parameters
+    ----------
+    m : array — [1/s]
+    T : array — [s]
+    nmax : int
+
+    Returns
+    -------
+    array of shape (nmax + 1,) + broadcast shape — [s^{n+1}]
+
+    .. math:: I_n = T^{n+1} μ_n(mT), \\quad μ_n(u) = e^u\\, n!\\, φ_{n+1}(-u)
+
+    φ_{n+1} is summed downward (φ_k = 1/k! + z φ_{k+1}, stable) for |u| below a switch point,
+    above it μ_n follows the upward recurrence μ_n = (n μ_{n-1} − e^u)/|u| (stable there).
+    """
+    m, T = np.broadcast_arrays(np.asarray(m, float), np.asarray(T, float))
+    u = m * T
+    z = -u
+    shape = u.shape
+    out = np.empty((nmax + 1,) + shape)
+    low = np.abs(z) <= _MOMENT_SWITCH
+    zl = np.where(low, z, 0.0)
+    # φ_{top}(z) by its series, top well above nmax, then downward to φ_1
+    top = nmax + 1 + 60
+    phi = np.zeros(shape)
+    term = np.full(shape, 1.0 / math.factorial(top))
+    for k in range(120):
+        phi = phi + term
+        term = term * zl / (top + k + 1)
+    phis = [None] * (nmax + 2)
+    cur = phi
+    for k in range(top - 1, 0, -1):
+        cur = 1.0 / math.factorial(k) + zl * cur
+        if k <= nmax + 1:
+            phis[k] = cur
+    eu = np.exp(np.where(low, u, 0.0))
+    zh = np.where(low, 1.0, z)
+    ez = np.exp(-zh)
+    mu_prev = -np.expm1(-zh) / zh
+    for n in range(nmax + 1):
+        mu_low = eu * math.factorial(n) * phis[n + 1]
+        if n > 0:
+            mu_prev = (n * mu_prev - ez) / zh
+        out[n] = np.where(low, mu_low, mu_prev) * T ** (n + 1)
+    return out
+
+
+def modal_integrals(m, w2, T, rp=None):
+    """Integrals of a modal term over ``[0, T]``.
+
+    Parameters
+    ----------
+    m : array — [1/s]
+    w2 : array — [1/s²]
+    T : array — [s]
+    rp : array or None — [1/s] ``m + w`` without cancellation (real w), see :func:`slow_rate`
+
+    Returns
+    -------
+    dict of arrays with keys ``K0, K1`` (∫ τ^j e^{mτ} C_w), ``J0, J1`` (∫ τ^j e^{mτ} S_w) and
+    ``H0`` (∫ e^{mτ}(C_w − 1)/w²).
+
+    For ``|w|T ≥ 1/2`` they follow from the exponentials ``e^{(m ± w)τ}`` (complex for an
+    oscillation); below, from the series of C_w and S_w in w² term by term (terms fall as
+    (w²T²)^k/(2k)!), so both sides are free of cancellation beyond a factor ~4.
+    """
+    if rp is None:
+        rp = m + np.sqrt(np.maximum(np.asarray(w2, float), 0.0))
+    m, w2, T, rp = np.broadcast_arrays(np.asarray(m, float), np.asarray(w2, float), np.asarray(T, float),
+                                       np.asarray(rp, float))
+    x2 = w2 * T * T
+    ser = np.abs(x2) < _INT_SERIES
+    out = {}
+    # series branch
+    ms = np.where(ser, m, 0.0)
+    Ts = np.where(ser, T, 0.0)
+    w2s = np.where(ser, w2, 0.0)
+    I = moments(ms, Ts)
+    K0 = np.zeros_like(m)
+    K1 = np.zeros_like(m)
+    J0 = np.zeros_like(m)
+    J1 = np.zeros_like(m)
+    H0 = np.zeros_like(m)
+    wk = np.ones_like(m)
+    for k in range(_INT_TERMS):
+        K0 = K0 + wk * I[2 * k] / math.factorial(2 * k)
+        K1 = K1 + wk * I[2 * k + 1] / math.factorial(2 * k)
+        J0 = J0 + wk * I[2 * k + 1] / math.factorial(2 * k + 1)
+        J1 = J1 + wk * I[2 * k + 2] / math.factorial(2 * k + 1)
+        H0 = H0 + wk * I[2 * k + 2] / math.factorial(2 * k + 2)
+        wk = wk * w2s
+    # exponential branch
+    Tl = np.where(ser, 1.0, T)
+    w2l = np.where(ser, 1.0, w2)
+    w = np.sqrt(w2l.astype(complex))
+    ml = np.where(ser, 0.0, m)
+    plus = np.where(w2l > 0, np.where(ser, 0.0, rp) + 0j, ml + w)
+    a0, a1 = psi01(plus, Tl)
+    b0, b1 = psi01(ml - w, Tl)
+    c0, _ = psi01(ml.astype(float), Tl)
+    k0 = (0.5 * (a0 + b0)).real
+    k1 = (0.5 * (a1 + b1)).real
+    j0 = ((a0 - b0) / (2 * w)).real
+    j1 = ((a1 - b1) / (2 * w)).real
+    h0 = (k0 - c0.real) / w2l
+    out["K0"] = np.where(ser, K0, k0)
+    out["K1"] = np.where(ser, K1, k1)
+    out["J0"] = np.where(ser, J0, j0)
+    out["J1"] = np.where(ser, J1, j1)
+    out["H0"] = np.where(ser, H0, h0)
+    return out
+
+
+def log1p_ratio(x):
+    """``log(1 + x)/x`` with its limit 1 at x = 0 (x > −1)."""
+    x = np.asarray(x, float)
+    small = np.abs(x) < 1e-8
+    xs = np.where(small, 1.0, x)
+    return np.where(small, 1.0 - x / 2 + x * x / 3, np.log1p(xs) / xs)

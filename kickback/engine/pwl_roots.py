@@ -1,0 +1,381 @@
+"""First event on a segment: the earliest root of many event functions, for many cases at once.
+
+An event function is affine in ``ξ = (x, 1, τ)`` (a branch current, a node voltage minus a
+threshold, a level of the coil current, a time) or, for the end of the ringing, a quadratic
+form in ξ. The event *fires* where it crosses zero from below.
+
+* One dynamic state and no ramp (every segment of the single-state families after the current
+  fall): an event is ``c0 + c·f0·τφ1(βτ)`` (or linear in τ), monotone, and its root is closed:
+  ``τ = q·log(1 + βq)/(βq)`` with ``q = −c0/(c·f0)``.
+* Otherwise the exact solution is scanned on a grid graded to the segment's modes (spacing
+  ≤ 0.35/|λ| while a mode lives, geometric growth behind a decaying one, ≤ 0.6/ω on an
+  oscillation). Each grid interval is tested for a sign change and, with the end derivatives (a
+  cubic Hermite model), for an extremum that touches zero between the points (a grazing root);
+  brackets are refined by Newton steps safeguarded by bisection to a few ulp.
+
+At τ = 0 an event whose value is zero within rounding counts as below zero only if it is moving
+down (it fired at the previous event and now leaves it), so an event never re-fires where the
+segment starts.
+
+References
+----------
+L. F. Shampine and S. Thompson, "Event location for ordinary differential equations",
+Computers & Mathematics with Applications 39 (2000) 43–54 (grazing events, why sign tests on a
+grid need the derivative).
+W. H. Press et al., Numerical Recipes, 3rd ed., CUP 2007, §9.4 (Newton–Raphson with bisection).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from kickback.engine.pwl import ScalarSegment
+from kickback.engine.pwl_functions import log1p_ratio
+
+#: grid points per case evaluated in one round
+ROUND = 12
+#: |g(0)| treated as zero at the start of a segment: this many ε of the size of its terms, plus
+#: its slope times this many ulp of the absolute time (where the last event was located)
+START_TOL = 256 * np.finfo(float).eps
+START_ULPS = 16
+_NEWTON_ITERS = 100
+
+
+class Events:
+    """Event functions of a group of cases on one segment.
+
+    Parameters
+    ----------
+    seg : ScalarSegment or ModalSegment — the segment's exact solution
+    E : (G, ne, 3, nξ) — affine coefficients over ξ, ξ' and ξ'' (ξ = (x, 1, τ), ξ' = (x', 0, 1),
+        ξ'' = (x'', 0, 0)): a derivative event (an extremum) is taken on the solution's own
+        derivative, never through the state matrix, whose large entries would cancel
+    Qa : (G, nq, nξ, nξ) or None — quadratic parts ξᵀ Qa ξ of the events ``iq``
+    Qb : (G, nq, nξ, nξ) or None — bilinear parts ξᵀ Qb ξ' of the events ``iq``
+    iq : (nq,) int array or None
+    """
+
+    def __init__(self, seg, E, Qa=None, Qb=None, iq=None):
+        self.seg, self.E, self.Qa, self.Qb = seg, E, Qa, Qb
+        self.iq = None if Qa is None else np.asarray(iq, int)
+        self.qmap = np.full(E.shape[1], -1)
+        if Qa is not None:
+            self.qmap[self.iq] = np.arange(self.iq.size)
+
+    def take(self, rows) -> Events:
+        q = (lambda Q: None if Q is None else Q[rows])
+        return Events(self.seg.take(rows), self.E[rows], q(self.Qa), q(self.Qb), self.iq)
+
+    def values(self, tau):
+        """g and dg/dτ at τ of shape (G, K): arrays (G, K, ne)."""
+        xs = _xis(self.seg, tau)
+        g = sum(np.matmul(xs[k], self.E[:, :, k].transpose(0, 2, 1)) for k in range(3))
+        gp = sum(np.matmul(xs[k + 1], self.E[:, :, k].transpose(0, 2, 1)) for k in range(3))
+        if self.Qa is not None:
+            x0, x1, x2 = xs[0], xs[1], xs[2]
+            g[..., self.iq] += (np.einsum("gki,gqij,gkj->gkq", x0, self.Qa, x0)
+                                + np.einsum("gki,gqij,gkj->gkq", x0, self.Qb, x1))
+            gp[..., self.iq] += (2 * np.einsum("gki,gqij,gkj->gkq", x1, self.Qa, x0)
+                                 + np.einsum("gki,gqij,gkj->gkq", x1, self.Qb, x1)
+                                 + np.einsum("gki,gqij,gkj->gkq", x0, self.Qb, x2))
+        return g, gp
+
+    def scale(self):
+        """Size of each event's terms at τ = 0, for the zero tolerance: (G, ne).
+
+        Taken from the size of every term of the solution and its derivatives (not their sum), so
+        that an event computed by cancellation is not mistaken for an accurate zero.
+        """
+        G = self.E.shape[0]
+        sz = self.seg.sizes(2)
+        one = np.ones((G, 1))
+        xs = [np.concatenate([sz[0], one, np.zeros((G, 1))], axis=1),
+              np.concatenate([sz[1], np.zeros((G, 1)), one], axis=1),
+              np.concatenate([sz[2], np.zeros((G, 2))], axis=1)]
+        s = sum(np.einsum("gj,gej->ge", xs[k], np.abs(self.E[:, :, k])) for k in range(3))
+        if self.Qa is not None:
+            s[:, self.iq] += (np.einsum("gi,gqij,gj->gq", xs[0], np.abs(self.Qa), xs[0])
+                              + np.einsum("gi,gqij,gj->gq", xs[0], np.abs(self.Qb), xs[1]))
+        return s
+
+
+class _Pairs:
+    """Selected (case, event) pairs, each with its own τ."""
+
+    def __init__(self, ev: Events | None, gi=None, ei=None):
+        if ev is None:
+            return
+        self.seg = ev.seg.take(gi)
+        self.E = ev.E[gi, ei]
+        q = ev.qmap[ei]
+        self.quad = q >= 0
+        self.Qa = ev.Qa[gi, np.maximum(q, 0)] if ev.Qa is not None else None
+        self.Qb = ev.Qb[gi, np.maximum(q, 0)] if ev.Qa is not None else None
+
+    def take(self, rows) -> _Pairs:
+        out = _Pairs(None)
+        out.seg = self.seg.take(rows)
+        out.E = self.E[rows]
+        out.quad = self.quad[rows]
+        out.Qa = None if self.Qa is None else self.Qa[rows]
+        out.Qb = None if self.Qb is None else self.Qb[rows]
+        return out
+
+    def values(self, tau):
+        xs = _xis(self.seg, tau)
+        g = sum(np.einsum("pj,pj->p", xs[k], self.E[:, k]) for k in range(3))
+        gp = sum(np.einsum("pj,pj->p", xs[k + 1], self.E[:, k]) for k in range(3))
+        if self.Qa is not None and np.any(self.quad):
+            x0, x1, x2 = xs[0], xs[1], xs[2]
+            q = np.einsum("pi,pij,pj->p", x0, self.Qa, x0) + np.einsum("pi,pij,pj->p", x0, self.Qb, x1)
+            qp = (2 * np.einsum("pi,pij,pj->p", x1, self.Qa, x0) + np.einsum("pi,pij,pj->p", x1, self.Qb, x1)
+                  + np.einsum("pi,pij,pj->p", x0, self.Qb, x2))
+            g = g + np.where(self.quad, q, 0.0)
+            gp = gp + np.where(self.quad, qp, 0.0)
+        return g, gp
+
+
+def _xis(seg, tau):
+    """ξ and its first three derivatives at τ: list of arrays τ.shape + (nξ,)."""
+    tau = np.asarray(tau, float)
+    xs = seg.derivs(tau, 3)
+    ones = np.ones(tau.shape + (1,))
+    zeros = np.zeros_like(ones)
+    out = [np.concatenate([xs[0], ones, tau[..., None]], axis=-1),
+           np.concatenate([xs[1], zeros, ones], axis=-1)]
+    out += [np.concatenate([x, zeros, zeros], axis=-1) for x in xs[2:]]
+    return out
+
+
+def grid_step(tau, exps, oscs, H):
+    """Next grid spacing [s] at ``tau`` for each case.
+
+    Parameters
+    ----------
+    tau : (G,) — [s]
+    exps : list of (G,) — [1/s] rates of decaying real exponentials (0: none)
+    oscs : list of ((G,), (G,)) — [1/s] (decay rate, angular frequency) of oscillations
+    H : (G,) — [s] horizon
+    """
+    h = np.full(tau.shape, np.inf)
+    for r in exps:
+        live = (r > 0) & (tau * r < 41.0)
+        with np.errstate(divide="ignore"):
+            h = np.where(live, np.minimum(h, np.maximum(0.35 / r, 0.4 * tau)), h)
+    for d, w in oscs:
+        live = (w > 0) & (tau * d < 41.0)
+        with np.errstate(divide="ignore"):
+            hw = np.minimum(0.6 / w, np.where(d > 0, np.maximum(0.35 / d, 0.4 * tau), np.inf))
+        h = np.where(live, np.minimum(h, hw), h)
+    return np.minimum(h, H - tau)
+
+
+def first_event(ev: Events, H, exps, oscs, t0=None):
+    """Earliest firing time of any event and which events fire there.
+
+    Parameters
+    ----------
+    ev : Events
+    H : (G,) — [s] horizon (an event at H must be among the events, so one always fires)
+    exps, oscs — the segment's modes (see :func:`grid_step`)
+    t0 : (G,) or None — [s] absolute time of the segment start (sets the zero tolerance)
+
+    Returns
+    -------
+    tau : (G,) — [s] first firing time
+    fired : (G, ne) bool — events firing at tau (within a relative 1e-12: coincident events)
+    """
+    G, ne = ev.E.shape[:2]
+    g0, gp0 = ev.values(np.zeros((G, 1)))
+    g0, gp0 = g0[:, 0], gp0[:, 0]
+    tol = START_TOL * ev.scale()
+    if t0 is not None:
+        tol = tol + START_ULPS * np.spacing(np.maximum(t0, 1e-300))[:, None] * np.abs(gp0)
+    near = np.abs(g0) <= tol
+    armed = (g0 < 0) & ~near | near & (gp0 < 0)
+    g0 = np.where(near, np.where(gp0 < 0, -tol - 1e-300, tol + 1e-300), g0)
+    best = np.full((G, ne), np.inf)
+    numeric = np.ones((G, ne), bool)
+    if isinstance(ev.seg, ScalarSegment):
+        best, numeric = _closed_scalar(ev, g0, armed, best)
+    need = numeric.any(axis=1)
+    if np.any(need):
+        rows = np.nonzero(need)[0]
+        sub = ev.take(rows)
+        sub.E = np.where(numeric[rows][..., None, None], sub.E, _never(sub.E))
+        cap = np.minimum(H[rows], np.min(best[rows], axis=1))
+        b = _scan(sub, cap, [x[rows] for x in exps], [(d[rows], w[rows]) for d, w in oscs],
+                  np.where(numeric[rows], g0[rows], -1.0), gp0[rows])
+        best[rows] = np.where(numeric[rows], b, best[rows])
+    tau = np.min(best, axis=1)
+    tau = np.where(np.isfinite(tau), tau, H)
+    fired = best <= tau[:, None] * (1 + 1e-12) + 1e-300
+    return tau, fired
+
+
+def _never(E):
+    out = np.zeros_like(E)
+    out[..., 0, -2] = -1.0
+    return out
+
+
+def _closed_scalar(ev, g0, armed, best):
+    """Closed-form roots of the monotone events of a ramp-free scalar segment.
+
+    With no ramp, x_k − x_k(0) = f0·E1(τ) and every derivative is a multiple of e^{βτ} = 1 + β·E1,
+    so an event is g(0) + s·E1(τ) + c_τ·τ; with c_τ = 0 (or no state term) its root is closed.
+    """
+    seg = ev.seg
+    nX = ev.E.shape[3] - 2
+    k = seg.k
+    E = ev.E
+    beta = seg.beta[:, None]
+    f0 = seg.f0[:, None]
+    ci = E[:, :, 0, k] + beta * E[:, :, 1, k] + beta * beta * E[:, :, 2, k]
+    ct = E[:, :, 0, nX + 1]
+    quad = np.zeros(ci.shape, bool)
+    if ev.Qa is not None:
+        quad[:, ev.iq] = np.any(ev.Qa != 0, axis=(2, 3)) | np.any(ev.Qb != 0, axis=(2, 3))
+    ramp = (seg.gamma != 0)[:, None]
+    closed = ~quad & ~ramp & ((ct == 0) | (ci == 0))
+    slope = ci * f0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        q = -g0 / slope
+        x = beta * q
+        tau_e = q * log1p_ratio(np.where(x > -1, x, 0.0))
+        ok_e = armed & (slope > 0) & (x > -1) & (ct == 0)
+        tau_t = -g0 / ct
+        ok_t = armed & (ct > 0) & (ci == 0)
+    root = np.where(ok_e, tau_e, np.where(ok_t, tau_t, np.inf))
+    best = np.where(closed, root, best)
+    return best, ~closed
+
+
+def _scan(ev, H, exps, oscs, g0, gp0):
+    """Grid scan and refinement: first root per (case, event) before ``H``; inf if none."""
+    G, ne = ev.E.shape[:2]
+    best = np.full((G, ne), np.inf)
+    found = np.zeros(G, bool)
+    start = np.zeros(G)
+    ga, gpa = g0, gp0
+    for _ in range(1_000_000):
+        live = ~found & (start < H)
+        if not np.any(live):
+            break
+        pts = np.empty((G, ROUND))
+        t = start.copy()
+        for kk in range(ROUND):
+            t = t + np.where(live, np.maximum(grid_step(t, exps, oscs, H), 0.0), 0.0)
+            pts[:, kk] = t
+        g, gp = ev.values(pts)
+        left_t = np.concatenate([start[:, None], pts[:, :-1]], axis=1)
+        gl = np.concatenate([ga[:, None, :], g[:, :-1]], axis=1)
+        gpl = np.concatenate([gpa[:, None, :], gp[:, :-1]], axis=1)
+        lo, hi, ok = _brackets(ev, left_t, pts, gl, gpl, g, gp, live)
+        if np.any(ok):
+            # only brackets that can hold the earliest root need refining
+            first_hi = np.min(np.where(ok, hi, np.inf), axis=1)
+            ok &= lo <= first_hi[:, None]
+            gi, ei = np.nonzero(ok)
+            root = _refine(_Pairs(ev, gi, ei), lo[gi, ei], hi[gi, ei])
+            best[gi, ei] = root
+            found |= ok.any(axis=1)
+        start = np.where(live, pts[:, -1], start)
+        ga, gpa = g[:, -1], gp[:, -1]
+    return best
+
+
+def _brackets(ev, tl, tr, gl, gpl, gr, gpr, live):
+    """For each (case, event) the first interval of the round holding an upward crossing.
+
+    Returns (lo, hi, ok) of shape (G, ne): a bracket with g(lo) < 0 ≤ g(hi).
+    """
+    G, K, ne = gl.shape
+    h = (tr - tl)[:, :, None]
+    cross = (gl < 0) & (gr >= 0)
+    # grazing extrema: the cubic Hermite model's extreme value between the points
+    span = np.abs(gl) + np.abs(gr)
+    cand_peak = (gl < 0) & (gr < 0) & (gpl > 0) & (gpr < 0)
+    cand_dip = (gl >= 0) & (gr >= 0) & (gpl < 0) & (gpr > 0)
+    peak = np.zeros_like(cand_peak)
+    dip = np.zeros_like(cand_dip)
+    if np.any(cand_peak | cand_dip):
+        ext = np.full(gl.shape, np.nan)
+        for s in (0.25, 0.5, 0.75):
+            m = ((2 * s**3 - 3 * s**2 + 1) * gl + (s**3 - 2 * s**2 + s) * h * gpl + (-2 * s**3 + 3 * s**2) * gr
+                 + (s**3 - s**2) * h * gpr)
+            ext = np.where(cand_peak, np.fmax(ext, m), np.fmin(ext, m))
+        peak = cand_peak & (ext >= -0.25 * span)
+        dip = cand_dip & (ext <= 0.25 * span)
+    todo = (cross | peak | dip) & live[:, None, None]
+    lo = np.zeros((G, ne))
+    hi = np.zeros((G, ne))
+    ok = np.zeros((G, ne), bool)
+    for _ in range(K):
+        cand = todo.any(axis=1) & ~ok
+        if not np.any(cand):
+            break
+        kidx = np.argmax(todo, axis=1)
+        gi, ei = np.nonzero(cand)
+        ki = kidx[gi, ei]
+        a, b = tl[gi, ki], tr[gi, ki]
+        is_cross = cross[gi, ki, ei]
+        lo_i, hi_i, ok_i = a.copy(), b.copy(), is_cross.copy()
+        ext = ~is_cross
+        if np.any(ext):
+            pairs = _Pairs(ev, gi[ext], ei[ext])
+            te = _extremum(pairs, a[ext], b[ext])
+            gte, _ = pairs.values(te)
+            was_peak = peak[gi[ext], ki[ext], ei[ext]]
+            hit = np.where(was_peak, gte >= 0, gte < 0)
+            lo_i[ext] = np.where(was_peak, a[ext], te)
+            hi_i[ext] = np.where(was_peak, te, b[ext])
+            ok_i[ext] = hit
+        lo[gi, ei], hi[gi, ei] = lo_i, hi_i
+        ok[gi, ei] = ok_i
+        todo[gi, ki, ei] = False
+        todo &= ~ok[:, None, :]
+    return lo, hi, ok
+
+
+def _extremum(pairs, a, b):
+    """Where dg/dτ changes sign in (a, b) for each pair (bisection)."""
+    _, da = pairs.values(a)
+    sa = np.sign(da)
+    for _ in range(60):
+        m = 0.5 * (a + b)
+        _, dm = pairs.values(m)
+        same = np.sign(dm) == sa
+        a = np.where(same, m, a)
+        b = np.where(same, b, m)
+    return 0.5 * (a + b)
+
+
+def _refine(pairs, a, b):
+    """Root of g in [a, b] (g(a) < 0 ≤ g(b)) per pair, to a few ulp: Newton steps kept inside the
+    bracket (bisection when a step leaves it or every fourth step); returns a point where g ≥ 0."""
+    a, b = a.copy(), b.copy()
+    x = b.copy()
+    out = b.copy()
+    act = np.arange(a.size)
+    sub = pairs
+    for it in range(_NEWTON_ITERS):
+        g, gp = sub.values(x[act])
+        neg = g < 0
+        a[act] = np.where(neg, x[act], a[act])
+        b[act] = np.where(neg, b[act], x[act])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xn = x[act] - g / gp
+        aa, bb = a[act], b[act]
+        inside = np.isfinite(xn) & (xn > aa) & (xn < bb)
+        xn = np.where(inside & (it % 4 != 3), xn, 0.5 * (aa + bb))
+        ulp = np.spacing(np.maximum(np.abs(x[act]), 1e-300))
+        done = (g == 0) | ((bb - aa) <= 4 * ulp) | (inside & (np.abs(xn - x[act]) <= 2 * ulp) & ~neg)
+        out[act] = np.where(done, np.where(neg, bb, x[act]), out[act])
+        x[act] = xn
+        keep = ~done
+        if not np.any(keep):
+            break
+        act = act[keep]
+        sub = pairs.take(act)
+    return out

@@ -1,0 +1,240 @@
+"""Figures of a batch run as columns (arrays over the variants), and one variant as Figures.
+
+Column names follow the result contract (DESIGN.md §6) with dots for nesting:
+``coil.decay_s.to_zero``, ``switch.peak_voltage_V``, ``clamps[0].elements[1].energy_J`` … A time
+that does not occur is NaN in a column (None in :class:`~kickback.figures.Figures`); a variant
+that was not simulated has NaN everywhere and says why in its status.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from kickback.figures import CONDUCTION_FRACTION, ON_STATE_FRACTION, ClampFigures, ElementFigures, Figures
+
+
+def columns(bc, st) -> dict:
+    """Every figure of every variant of the batch: name → (n,) array."""
+    n = bc.n
+    rec = st.rec
+    out = {}
+    X = st.X
+    # with no node capacitance the node voltage does not enter the capacitor energy
+    v_end = X[:, 1] if bc.capacitive else bc.Vs.copy()
+    cap_end = bc.capacitor_energy(v_end, X)
+    coil_end = 0.5 * bc.L * X[:, 0] ** 2
+    E = st.E
+    e_el_total = np.zeros(n)
+    out["coil.initial_current_A"] = bc.i0.copy()
+    out["coil.stored_energy_J"] = bc.stored.copy()
+    out["coil.resistance_energy_J"] = E["R"].copy()
+    out["coil.decay_s.to_10_percent"] = st.t10.copy()
+    out["coil.decay_s.to_1_percent"] = st.t1.copy()
+    out["coil.decay_s.to_zero"] = st.tz.copy()
+    rel = bc.release_current
+    has = np.isfinite(rel) & (bc.i0 >= np.nan_to_num(rel, nan=np.inf))
+    below_end = np.abs(X[:, 0]) < np.nan_to_num(rel, nan=0.0)
+    out["coil.release_s"] = np.where(has & below_end & np.isfinite(st.trel), st.trel + bc.release_delay, np.nan)
+    out["switch.peak_voltage_V"] = rec.vpk.copy()
+    out["switch.peak_time_s"] = rec.tpk.copy()
+    out["switch.crossover_energy_J"] = E["ch"].copy()
+    out["switch.avalanche_energy_J"] = E["av"].copy()
+    out["switch.body_diode_energy_J"] = E["bd"].copy()
+    out["supply.energy_J"] = E["sup"].copy()
+    th = CONDUCTION_FRACTION * bc.i0
+    for k, cl in enumerate(bc.case.clamps):
+        if k in bc.chain_index:
+            m = bc.chain_index.index(k)
+            c = m
+            on_i = bc.on_chain_currents[m]
+            on_v = bc.on_chain_voltages[m]
+        else:
+            q = [x[0] for x in bc.lone].index(k)
+            c = len(bc.chains) + q
+            m = None
+            on_i = np.zeros(n)
+            on_v = bc.v_on - bc.lone[q][2] * bc.Vs
+        ipk = np.maximum(np.abs(rec.Imax[:, c]), np.abs(rec.Imin[:, c]))
+        energy = np.zeros(n)
+        for j, el in enumerate(cl.elements):
+            ej = st.E_el[m][j] if (m is not None and el.type != "capacitor") else np.zeros(n)
+            energy = energy + ej
+            pre = f"clamps[{k}].elements[{j}]."
+            held = rec.held[c][:, j]
+            if el.type == "diode":
+                on_hold = np.where(np.abs(on_i) <= th, np.maximum(0.0, -on_v), 0.0)
+                held = np.maximum(held, on_hold)
+            ppk = rec.ppk[c][:, j]
+            out[pre + "energy_J"] = ej.copy()
+            out[pre + "peak_voltage_V"] = rec.vabs[c][:, j].copy()
+            out[pre + "peak_current_A"] = ipk.copy()
+            out[pre + "standoff_voltage_V"] = held
+            out[pre + "peak_power_W"] = ppk.copy()
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[pre + "pulse_width_s"] = np.where((ppk > 0) & (ej > 0), ej / np.where(ppk > 0, ppk, 1.0), np.nan)
+        e_el_total = e_el_total + energy
+        out[f"clamps[{k}].energy_J"] = energy
+        out[f"clamps[{k}].peak_current_A"] = ipk
+        out[f"clamps[{k}].conduction_s"] = rec.cond[:, c].copy()
+        out[f"clamps[{k}].on_state_current_A"] = on_i.copy()
+    out["left_in_capacitors_J"] = cap_end
+    out["left_in_coil_J"] = coil_end
+    out["initial_capacitor_energy_J"] = bc.cap0.copy()
+    total_in = bc.stored + bc.cap0 + np.maximum(E["sup"], 0.0)
+    spent = E["R"] + E["ch"] + E["av"] + E["bd"] + e_el_total + cap_end + coil_end
+    out["energy_balance_error"] = (bc.stored + bc.cap0 + E["sup"] - spent) / total_in
+    out["end_time_s"] = st.t.copy()
+    out["bound_hit"] = st.bound_hit.astype(float)
+    for key, val in out.items():
+        out[key] = np.where(bc.ok, val, np.nan)
+    return out
+
+
+def figures_of(bc, cols, k: int = 0) -> Figures:
+    """The :class:`~kickback.figures.Figures` of variant ``k`` (descriptions from the case's laws)."""
+    from kickback.models import element_law
+    from kickback.models.switch import switch_law
+
+    case = bc.case
+
+    def f(name):
+        return float(cols[name][k])
+
+    def opt(name):
+        x = f(name)
+        return None if np.isnan(x) else x
+
+    s = case.switch
+    clamps = []
+    findings = []
+    i0 = f("coil.initial_current_A")
+    for q, cl in enumerate(case.clamps):
+        els = []
+        for j, el in enumerate(cl.elements):
+            pre = f"clamps[{q}].elements[{j}]."
+            law = element_law(el) if el.type != "capacitor" else None
+            desc = law.description if law is not None else f"capacitor ({el.capacitance:.4g} F)"
+            els.append(ElementFigures(el.type, el.name or f"{el.type} {j + 1}", desc, f(pre + "energy_J"),
+                                      f(pre + "peak_voltage_V"), f(pre + "peak_current_A"),
+                                      f(pre + "standoff_voltage_V"), f(pre + "peak_power_W"),
+                                      opt(pre + "pulse_width_s")))
+        on_i = f(f"clamps[{q}].on_state_current_A")
+        if abs(on_i) > ON_STATE_FRACTION * i0:
+            k_ch = bc.chain_index.index(q)
+            on_v = float(bc.on_chain_voltages[k_ch][k])
+            findings.append(f"clamp '{cl.name}' conducts {abs(on_i):.3g} A while the switch is on "
+                            f"({abs(on_i * on_v):.3g} W in the clamp, extra switch current)")
+        clamps.append(ClampFigures(cl.name, cl.across, f(f"clamps[{q}].energy_J"), f(f"clamps[{q}].peak_current_A"),
+                                   f(f"clamps[{q}].conduction_s"), on_i, tuple(els)))
+    rel = case.coil.release_current
+    if rel is not None and i0 < rel:
+        findings.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
+                        "the armature may never pull in")
+    bound = bool(f("bound_hit"))
+    if bound:
+        findings.append(f"the run stopped at its time bound {f('end_time_s'):.3g} s before the transient ended")
+    e_av = f("switch.avalanche_energy_J")
+    if e_av > 1e-9 * f("coil.stored_energy_J"):
+        findings.append(f"the switch avalanches: {e_av:.3g} J at up to {f('switch.peak_voltage_V'):.4g} V")
+    sw = switch_law(s.type, on_resistance=s.on_resistance, saturation_voltage=s.saturation_voltage,
+                    fall_time=s.fall_time, breakdown_voltage=s.breakdown_voltage,
+                    avalanche_resistance=s.avalanche_resistance, body_diode_voltage=s.body_diode_voltage)
+    models = [sw.description] + [element_law(el).description for cl in case.clamps for el in cl.elements
+                                 if el.type != "capacitor"]
+    models += list(bc.fit_notes)
+    models.append("batch engine: exact piecewise-linear solution, closed form per conduction state; "
+                  "current 'at zero' below 1e-09 × initial")
+    return Figures(
+        initial_current_A=i0, stored_energy_J=f("coil.stored_energy_J"),
+        initial_capacitor_energy_J=f("initial_capacitor_energy_J"), resistance_energy_J=f("coil.resistance_energy_J"),
+        to_10_percent_s=opt("coil.decay_s.to_10_percent"), to_1_percent_s=opt("coil.decay_s.to_1_percent"),
+        to_zero_s=opt("coil.decay_s.to_zero"), release_s=opt("coil.release_s"),
+        peak_voltage_V=f("switch.peak_voltage_V"), peak_time_s=f("switch.peak_time_s"),
+        crossover_energy_J=f("switch.crossover_energy_J"), avalanche_energy_J=e_av,
+        body_diode_energy_J=f("switch.body_diode_energy_J"), supply_energy_J=f("supply.energy_J"),
+        clamps=tuple(clamps), left_in_capacitors_J=f("left_in_capacitors_J"), left_in_coil_J=f("left_in_coil_J"),
+        energy_balance_error=f("energy_balance_error"), end_time_s=f("end_time_s"), bound_hit=bound,
+        findings=tuple(findings), models=tuple(models))
+
+
+#: variants simulated together (bounds the working memory; ~1–2 kB per variant and event)
+CHUNK = 10_000
+
+
+def normalize_variations(case, variations) -> tuple[dict, int]:
+    """Check the key paths and lengths of ``variations``; returns ({path: float array}, n).
+
+    Raises
+    ------
+    CaseError — an unknown key path, a value that is not numeric, or arrays of unequal length.
+    """
+    from kickback.errors import CaseError
+    from kickback.keypath import get_value, set_value
+
+    out = {}
+    n = None
+    for key, values in variations.items():
+        path = ".".join(p.strip() for p in str(key).split("."))
+        get_value(case, path)  # raises CaseError for a path the case does not have
+        a = np.atleast_1d(np.asarray(values, dtype=float))
+        if a.ndim != 1:
+            raise CaseError(f"the values of {path!r} must be a 1-D sequence (got shape {a.shape})", key=path)
+        set_value(case, path, float(a[0]) if a.size else 0.0)  # raises for a non-numeric key
+        if n is None:
+            n = a.size
+        elif a.size != n:
+            raise CaseError(f"{path!r} has {a.size} values, the other keys {n} (expected equal lengths)", key=path)
+        out[path] = a
+    return out, (1 if n is None else n)
+
+
+def run_columns(case, variations, *, chunk: int = CHUNK, progress=None):
+    """Simulate every variant with the batch engine, chunk by chunk.
+
+    Parameters
+    ----------
+    case : Case — the base case
+    variations : dict — key path → (n,) values (see :func:`normalize_variations`)
+    chunk : int — variants per batch (memory is bounded by this, not by n)
+    progress : callable or None — called with (done, n) after each batch
+
+    Returns
+    -------
+    (columns, ok, why, fits) — figure columns (n,), bool ok (n,), reasons (n,) object, fit notes
+    """
+    from kickback.engine.batch import run
+    from kickback.engine.batch_params import BatchCircuit, value_getter
+
+    var, n = normalize_variations(case, variations)
+    get_all = value_getter(case, var, n)
+    cap = np.nan_to_num(get_all("coil.capacitance")) + np.nan_to_num(get_all("switch.capacitance"))
+    for k, cl in enumerate(case.clamps):
+        if all(el.type == "capacitor" for el in cl.elements):
+            cap = cap + sum(np.nan_to_num(get_all(f"clamp[{k}].element[{j}].capacitance"))
+                            for j in range(len(cl.elements)))
+    cols: dict = {}
+    ok = np.zeros(n, bool)
+    why = np.full(n, "", dtype=object)
+    fits: list = []
+    done = 0
+    for flag in (False, True):
+        rows_all = np.nonzero((cap > 0) == flag)[0]
+        for start in range(0, rows_all.size, chunk):
+            rows = rows_all[start:start + chunk]
+            get = value_getter(case, var, rows.size, rows)
+            bc = BatchCircuit(case, rows.size, get)
+            st = run(bc)
+            c = columns(bc, st)
+            for key, val in c.items():
+                if key not in cols:
+                    cols[key] = np.full(n, np.nan)
+                cols[key][rows] = val
+            ok[rows] = bc.ok
+            why[rows] = bc.why
+            for note in bc.fit_notes:
+                if note not in fits:
+                    fits.append(note)
+            done += rows.size
+            if progress is not None:
+                progress(done, n)
+    return cols, ok, why, fits

@@ -1,0 +1,160 @@
+"""Many variants of one case at once: the batch engine's figures and checks as columns.
+
+``simulate_many(case, {"coil.inductance": [...], "clamp[0].element[1].voltage": [...]})`` runs
+every variant (variant k takes the k-th value of every key, the case's own value for the rest)
+with the exact piecewise-linear batch engine, in chunks, and returns a :class:`ManyResult`:
+one array per figure (names like the result contract: ``switch.peak_voltage_V``,
+``coil.decay_s.to_zero``, ``clamps[0].energy_J``), one column per rating check, the verdict of
+each variant, and a status saying why a variant could not be simulated (the others still come
+back). Nonlinear laws (Shockley diode, varistor) enter as a stated piecewise-linear fit, listed
+in ``fits``; :func:`fit_effect` measures what the fit changes on the case itself.
+
+References
+----------
+DESIGN.md §6 (the result contract); :mod:`kickback.engine.batch` (the engine).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from kickback.case import Case
+from kickback.engine.batch_params import value_getter
+from kickback.figures_batch import CHUNK, normalize_variations, run_columns
+from kickback.ratings_batch import CheckColumn, check_columns
+
+
+@dataclass(frozen=True)
+class ManyResult:
+    """Figures and checks of n variants of one case (arrays of shape (n,)).
+
+    Attributes
+    ----------
+    case : Case — the base case
+    variations : dict — key path → the values used [SI]
+    figures : dict — figure name → float array; NaN: the time does not occur, or the variant
+        was not simulated (see ``status``)
+    checks : dict — check name ("part: quantity") → :class:`CheckColumn`
+    passed : bool array — every applicable check passes (False for a variant not simulated)
+    status : str array — "ok" or "failed"
+    message : str array — why a variant failed ("" when ok)
+    fits : tuple of str — the piecewise-linear fits of nonlinear laws used (empty: exact models)
+    """
+
+    case: Case
+    variations: dict
+    figures: dict
+    checks: dict
+    passed: np.ndarray
+    status: np.ndarray
+    message: np.ndarray
+    fits: tuple = field(default_factory=tuple)
+
+    @property
+    def n(self) -> int:
+        return int(self.passed.size)
+
+    @property
+    def ok(self) -> np.ndarray:
+        """Variants simulated (bool array)."""
+        return self.status == "ok"
+
+    def to_columns(self) -> dict:
+        """Flat columns for a table or CSV: the varied values, every figure, every check's value,
+        limit and pass, the verdict and the status; all arrays of length n."""
+        out = {f"vary.{k}": np.asarray(v) for k, v in self.variations.items()}
+        out.update(self.figures)
+        for name, c in self.checks.items():
+            out[f"check.{name}.value"] = c.value
+            out[f"check.{name}.limit"] = c.limit
+            out[f"check.{name}.pass"] = np.where(c.applies, c.passed, True)
+        out["pass"] = self.passed
+        out["status"] = self.status
+        out["message"] = self.message
+        return out
+
+    def row(self, k: int) -> dict:
+        """Variant k as a dict of plain Python values (NaN → None)."""
+        out = {}
+        for key, col in self.to_columns().items():
+            x = col[k]
+            if isinstance(x, float | np.floating):
+                x = None if np.isnan(x) else float(x)
+            elif isinstance(x, np.bool_):
+                x = bool(x)
+            elif isinstance(x, np.generic):
+                x = x.item()
+            out[key] = x
+        return out
+
+
+def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CHUNK, progress=None) -> ManyResult:
+    """Simulate many variants of ``case`` with the batch engine.
+
+    Parameters
+    ----------
+    case : Case — the base case
+    variations : dict — key path (as in the case file: "supply.voltage", "coil.inductance",
+        "clamp[0].element[1].voltage", "switch.fall_time", …) → values in SI units, all of one
+        length n; None or {}: the case itself (n = 1)
+    chunk : int — variants per batch; memory is bounded by it, not by n
+    progress : callable or None — progress(done, n) after each batch
+
+    Returns
+    -------
+    ManyResult
+
+    Raises
+    ------
+    CaseError — an unknown key path, a non-numeric key, or value arrays of unequal length.
+    """
+    variations = variations or {}
+    var, n = normalize_variations(case, variations)
+    cols, ok, why, fits = run_columns(case, var, chunk=chunk, progress=progress)
+    get = value_getter(case, var, n)
+    checks = check_columns(case, cols, get, n)
+    passed = ok.copy()
+    for c in checks.values():
+        passed &= np.where(c.applies, c.passed, True)
+    status = np.where(ok, "ok", "failed")
+    return ManyResult(case, var, cols, checks, passed, status, why.astype(str), tuple(fits))
+
+
+def fit_effect(case: Case) -> dict:
+    """What the batch engine's piecewise-linear fits change on ``case``: for every figure the
+    relative difference (batch − detailed)/detailed against the detailed engine's exact laws.
+
+    Returns
+    -------
+    dict — figure name → relative difference (NaN where the detailed figure is zero or None)
+    """
+    from kickback.simulation import simulate
+
+    exact = simulate(case)
+    fitted = simulate(case, engine="batch")
+    a, b = _flat(exact.to_dict()), _flat(fitted.to_dict())
+    out = {}
+    for k, x in a.items():
+        y = b.get(k)
+        if isinstance(x, bool) or not isinstance(x, float | int) or not isinstance(y, float | int):
+            continue
+        out[k] = (y - x) / abs(x) if x else float("nan")
+    return out
+
+
+def _flat(d, prefix=""):
+    out = {}
+    if isinstance(d, dict):
+        for k, v in d.items():
+            out.update(_flat(v, f"{prefix}{k}."))
+    elif isinstance(d, list):
+        for k, v in enumerate(d):
+            out.update(_flat(v, f"{prefix[:-1]}[{k}]."))
+    else:
+        out[prefix[:-1]] = d
+    return out
+
+
+__all__ = ["CheckColumn", "ManyResult", "fit_effect", "simulate_many"]
