@@ -25,7 +25,7 @@ import os
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import HealthCheck, Phase, assume, given, settings
 from hypothesis import strategies as st
 from scipy import linalg, optimize
 
@@ -35,16 +35,17 @@ from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
 from kickback.circuit import Circuit
 from kickback.engine.detailed import integrate
 from kickback.errors import KickbackError
-from kickback.figures import compute_figures
+from kickback.figures import chain_signals, compute_figures
 from kickback.simulation import simulate
 
-# The batch engine is work in progress: these checks ran 20 of 30 green in about 5 minutes and
-# one failed when this landed; they stay in the tree, skipped, until the engine is finished.
-pytestmark = pytest.mark.skip(reason="batch engine work in progress (issue open): slow and one check failing")
+#: examples per family for the agreement properties (the reference costs 0.1–5 s each);
+#: KICKBACK_BATCH_EXAMPLES=300 runs a few hundred per family (about an hour)
+EXAMPLES = int(os.environ.get("KICKBACK_BATCH_EXAMPLES", "0"))
 
-#: examples per family for the agreement properties; KICKBACK_BATCH_EXAMPLES=300 for the long run
-EXAMPLES = int(os.environ.get("KICKBACK_BATCH_EXAMPLES", "12"))
-SETTINGS = settings(derandomize=True, max_examples=EXAMPLES, deadline=None, database=None,
+
+def _settings(n_default: int):
+    return settings(derandomize=True, max_examples=EXAMPLES or n_default, deadline=None, database=None,
+                    phases=(Phase.explicit, Phase.generate),  # no shrinking: each example runs the reference
                     suppress_health_check=[HealthCheck.filter_too_much, HealthCheck.too_slow])
 ZERO = 1e-9  # the engines' "at zero" level, × i0 (kickback.engine.detailed.ZERO_FRACTION)
 
@@ -190,7 +191,34 @@ def _detailed(case: Case):
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(kcircuit, "REGULARIZATION", 1e-9)
         c = Circuit(case)
-        return compute_figures(integrate(c, rtol=1e-9, samples_per_step=8)), c
+    # its 1e-12 leakage of an off switch (circuit.g_leak) would move the time the current takes
+    # to reach 1e-9·i0 on a slow tail by up to 1e-3 relative: lowered 1e4-fold for the reference
+    c.g_leak *= 1e-4
+    w = integrate(c, rtol=1e-9, samples_per_step=8)
+    return compute_figures(w), c, w
+
+
+def _sample_step(x):
+    """How far the detailed engine's sampled maximum of |x| can sit below the true one: the
+    larger change of x to a neighbouring sample at its sampled maximum."""
+    x = np.abs(np.asarray(x, float))
+    if x.size < 2:
+        return 0.0
+    k = int(np.argmax(x))
+    return float(max(abs(x[k] - x[max(k - 1, 0)]), abs(x[min(k + 1, x.size - 1)] - x[k])))
+
+
+def _crossings(w, n, level):
+    """The detailed engine's resolution where chain n's current crosses ``level`` in magnitude:
+    (total length of the sample intervals holding a crossing [s], largest change of the chain
+    voltage over one of them [V]). Its figures interpolate linearly there; a conduction that ends
+    at a kink (the current reaching zero) is resolved only to that interval."""
+    ic = np.abs(w.i_chains[n])
+    k = np.nonzero((ic[:-1] > level) != (ic[1:] > level))[0]
+    if k.size == 0:
+        return 0.0, 0.0
+    dt = float(np.sum(w.t[k + 1] - w.t[k]))
+    return dt, float(np.max(np.abs(w.v[k + 1] - w.v[k])))
 
 
 def _compare(case: Case, rtol=1e-6):
@@ -199,15 +227,19 @@ def _compare(case: Case, rtol=1e-6):
 
     - relative ``rtol`` on every figure, with absolute floors for what the detailed engine does
       not resolve: energies 1e-9·E0 (its 1e-12 leakage of an off switch), currents of a chain of
-      dynamic resistance r 2e-8·V/r (its node-voltage accuracy at rtol 1e-9), held voltages
-      1e-6·V_scale (a sup at the conduction threshold, seen only by its samples) and element
-      voltages |v_on| (its node voltage at t = 0 is any value in a flat balance);
-    - a peak time at a smooth maximum is fixed only to the square root of the voltage accuracy:
-      3e-3 relative there, where the peak voltages agree to 1e-8; a peak on a plateau from t = 0+
-      is 0 for the batch engine and the first sample of the detailed one.
+      dynamic resistance r 2e-8·V/r (its node-voltage accuracy at rtol 1e-9) and, for peak
+      currents and powers, the change to the next sample at its sampled maximum, conduction times
+      and held voltages its sample intervals around the conduction threshold (it interpolates
+      linearly there; the batch engine locates the crossing on the exact solution), element
+      voltages its t = 0 node voltage's distance from the on-state (any value balances the node
+      while the falling channel current is capped);
+    - a peak time at a smooth maximum (or on a plateau) is fixed by the detailed engine only to
+      the square root of its voltage accuracy: where the peak voltages agree to 1e-8 the time is
+      not compared (the closed-form tests check it); a peak on a plateau from t = 0+ is 0 for the
+      batch engine and the first sample of the detailed one.
     """
     try:
-        fd, c = _detailed(case)
+        fd, c, w = _detailed(case)
     except KickbackError:
         assume(False)  # the reference could not finish (reported by the detailed engine itself)
     fb = simulate(case, engine="batch").figures
@@ -230,23 +262,31 @@ def _compare(case: Case, rtol=1e-6):
     cmp("peak_voltage_V", fd.peak_voltage_V, fb.peak_voltage_V)
     smooth = abs(fd.peak_voltage_V - fb.peak_voltage_V) <= 1e-8 * abs(fb.peak_voltage_V)
     plateau = fb.peak_time_s == 0.0 and fd.peak_time_s <= 1e-3 * max(case.switch.fall_time, 1e-300)
-    if not plateau:
-        cmp("peak_time_s", fd.peak_time_s, fb.peak_time_s, tol=3e-3 if smooth else rtol)
-    v_on = abs(c.on.node_voltage)
+    if not (plateau or smooth):
+        cmp("peak_time_s", fd.peak_time_s, fb.peak_time_s)
+    # its t = 0 sample: any node voltage in a flat balance (the falling channel current capped)
+    v0 = abs(float(w.v[0]) - c.on.node_voltage) + abs(c.on.node_voltage)
     for k, (cd, cb) in enumerate(zip(fd.clamps, fb.clamps, strict=True)):
         r = _chain_r(case.clamps[k])
         i_floor = 2e-8 * vscale / r if r > 0 else 0.0
+        dt_x, dv_x = (0.0, 0.0)
+        if k in c.active_chains:
+            dt_x, dv_x = _crossings(w, c.active_chains.index(k), 1e-6 * fd.initial_current_A)
+        ic, _vch, vel = chain_signals(w, k)
+        i_floor += _sample_step(ic)
         cmp(f"clamps[{k}].energy_J", cd.energy_J, cb.energy_J, atol=1e-9 * e0)
         cmp(f"clamps[{k}].peak_current_A", cd.peak_current_A, cb.peak_current_A, atol=i_floor)
-        cmp(f"clamps[{k}].conduction_s", cd.conduction_s, cb.conduction_s, atol=1e-9 * fd.end_time_s)
+        cmp(f"clamps[{k}].conduction_s", cd.conduction_s, cb.conduction_s, atol=1e-9 * fd.end_time_s + dt_x)
         for j, (ed, eb) in enumerate(zip(cd.elements, cb.elements, strict=True)):
             pre = f"clamps[{k}].elements[{j}]."
             cmp(pre + "energy_J", ed.energy_J, eb.energy_J, atol=1e-9 * e0)
-            cmp(pre + "peak_voltage_V", ed.peak_voltage_V, eb.peak_voltage_V, atol=v_on + 1e-6 * vscale)
+            cmp(pre + "peak_voltage_V", ed.peak_voltage_V, eb.peak_voltage_V, atol=v0 + 1e-6 * vscale)
             cmp(pre + "peak_current_A", ed.peak_current_A, eb.peak_current_A, atol=i_floor)
-            cmp(pre + "peak_power_W", ed.peak_power_W, eb.peak_power_W, atol=i_floor * vscale)
+            cmp(pre + "peak_power_W", ed.peak_power_W, eb.peak_power_W,
+                atol=i_floor * vscale + _sample_step(np.clip(vel[j] * ic, 0.0, None)))
             if ed.type != "capacitor":  # a capacitor's held voltage is sampled at current reversals only
-                cmp(pre + "standoff_voltage_V", ed.standoff_voltage_V, eb.standoff_voltage_V, atol=1e-6 * vscale)
+                cmp(pre + "standoff_voltage_V", ed.standoff_voltage_V, eb.standoff_voltage_V,
+                    atol=1e-6 * vscale + dv_x)
     assert abs(fb.energy_balance_error) <= 1e-9, f"batch energy balance {fb.energy_balance_error:.2e}"
     bad = {k: v for k, v in worst.items() if v > 1.0}
     assert not bad, "batch vs detailed beyond tolerance (ratio to tolerance): " + ", ".join(
@@ -281,12 +321,13 @@ def _cases(draw, family: str, capacitive: bool):
     i0 = vs / R
     rel = draw(st.one_of(st.none(), st.floats(0.05, 0.5).map(lambda x: x * i0)))
     if family == "diode":
-        clamps = (Clamp("D", "coil", (Element("diode", model="constant-drop", forward_voltage=draw(st.floats(0.5, 1.0)),
+        clamps = (Clamp("D", "coil", (Element("diode", model="constant-drop",
+                                              forward_voltage=draw(st.floats(0.5, 1.0)),
                                               series_resistance=draw(rd)),)),)
     elif family == "diode-zener":
-        clamps = (Clamp("D+Z", "coil", (Element("diode", model="constant-drop", forward_voltage=draw(st.floats(0.5, 1.0))),
-                                        Element("zener", voltage=draw(st.floats(0.2, 3.0)) * vs,
-                                                dynamic_resistance=draw(rd)))),)
+        diode = Element("diode", model="constant-drop", forward_voltage=draw(st.floats(0.5, 1.0)))
+        clamps = (Clamp("D+Z", "coil", (diode, Element("zener", voltage=draw(st.floats(0.2, 3.0)) * vs,
+                                                       dynamic_resistance=draw(rd)))),)
     elif family == "tvs":
         clamps = (Clamp("TVS", "switch", (Element("tvs", voltage=draw(st.floats(1.1, 3.0)) * vs,
                                                   dynamic_resistance=draw(rd), bidirectional=draw(st.booleans())),)),)
@@ -300,9 +341,9 @@ def _cases(draw, family: str, capacitive: bool):
         clamps = (Clamp("RC", "coil", (Element("resistor", resistance=draw(st.floats(0.3, 1.0)) * z),
                                        Element("capacitor", capacitance=L / z**2))),)
     else:  # several clamps in parallel, maybe with avalanche behind them
-        clamps = (Clamp("D+Z", "coil", (Element("diode", model="constant-drop", forward_voltage=draw(st.floats(0.5, 1.0))),
-                                        Element("zener", voltage=draw(st.floats(0.5, 2.0)) * vs,
-                                                dynamic_resistance=draw(_log_uniform(0.1, 5.0))))),
+        diode = Element("diode", model="constant-drop", forward_voltage=draw(st.floats(0.5, 1.0)))
+        clamps = (Clamp("D+Z", "coil", (diode, Element("zener", voltage=draw(st.floats(0.5, 2.0)) * vs,
+                                                       dynamic_resistance=draw(_log_uniform(0.1, 5.0))))),
                   Clamp("TVS", "switch", (Element("tvs", voltage=draw(st.floats(1.3, 3.0)) * vs,
                                                   dynamic_resistance=draw(_log_uniform(0.1, 5.0))),)))
         if draw(st.booleans()):
@@ -315,11 +356,18 @@ FAMILIES = ["diode", "diode-zener", "tvs", "avalanche", "rc-snubber", "parallel"
 
 
 @pytest.mark.parametrize("capacitive", [False, True], ids=["algebraic-node", "node-capacitance"])
-@pytest.mark.parametrize("family", FAMILIES)
-@SETTINGS
+@pytest.mark.parametrize("family", [f for f in FAMILIES if f != "rc-snubber"])
+@_settings(10)
 @given(data=st.data())
 def test_agrees_with_detailed_engine(family, capacitive, data):
     _compare(data.draw(_cases(family, capacitive), label="case"))
+
+
+@pytest.mark.parametrize("capacitive", [False, True], ids=["algebraic-node", "node-capacitance"])
+@_settings(4)  # the ringing snubber is the slowest reference (its stiff node with capacitance)
+@given(data=st.data())
+def test_rc_snubber_agrees_with_detailed_engine(capacitive, data):
+    _compare(data.draw(_cases("rc-snubber", capacitive), label="case"))
 
 
 @pytest.mark.parametrize("name", ["conveyor_brake", "motor_snubber", "unclamped_mosfet"])

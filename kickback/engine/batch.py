@@ -23,8 +23,9 @@ from kickback.engine import batch_events as bev
 from kickback.engine.batch_modes import Mode, Modes
 from kickback.engine.batch_record import Record
 from kickback.engine.detailed import RING_END_FRACTION
-from kickback.engine.pwl import SegmentError, build_modal, build_scalar
+from kickback.engine.pwl import SegmentError
 from kickback.engine.pwl_allroots import all_roots
+from kickback.engine.pwl_build import build_modal, build_scalar
 from kickback.engine.pwl_roots import Events, first_event
 
 #: a variant that needs more segments than this is stopped with a message (chatter)
@@ -64,6 +65,11 @@ class State:
         scale.append(np.where(bc.tf > 0, bc.tf, np.inf))
         self.tscale = np.minimum.reduce(scale)
         self.X0scale = np.abs(bc.X0) + np.where(np.arange(bc.nX) == 0, bc.i0[:, None], bc.v_scale[:, None])
+        nb = 2 + len(bc.chains)
+        self.prev_states = np.full((n, nb), -1)
+        self.prev_pin = np.full(n, -1)
+        self.force_b = np.full(n, -1)
+        self.force_dir = np.zeros(n, int)
         #: with a single variant, the segments (t0, τ, solution, forms, mode) for sampling
         self.trace = [] if n == 1 else None
 
@@ -86,12 +92,29 @@ def _step(bc, st, idx):
     md = Modes(bc, idx)
     t0 = st.t[idx]
     X = st.X[idx]
-    delta = _probe_step(st, idx, X)
-    mode, Xs, ok = md.classify(X, t0, st.Xdot[idx], delta)
+    xdot = st.Xdot[idx]
+    delta = _probe_step(st, idx, X, xdot)
+    mode, Xs, ok = md.classify(X, t0, xdot, delta)
+    forms = md.assemble(mode, t0)
+    # second look along the motion the mode found gives (the state's derivative may jump at an
+    # event, and is unknown at t = 0): keep the mode it confirms, or take the one it finds
+    xi = np.concatenate([Xs, np.ones((idx.size, 1)), np.zeros((idx.size, 1))], axis=1)
+    xdot2 = np.einsum("gjk,gk->gj", forms.F, xi)
+    delta2 = _probe_step(st, idx, Xs, xdot2)
+    mode2, Xs2, ok2 = md.classify(X, t0, xdot2, delta2)
+    moved = np.any(mode2.states != mode.states, axis=1) | (mode2.pin != mode.pin)
+    if np.any(moved):
+        mode = Mode(np.where(moved[:, None], mode2.states, mode.states), np.where(moved, mode2.pin, mode.pin))
+        Xs = np.where(moved[:, None], Xs2, Xs)
+        ok = np.where(moved, ok2, ok)
+        forms = md.assemble(mode, t0)
+    mode, forced = _apply_transition(md, st, idx, mode)
+    if np.any(forced):
+        forms = md.assemble(mode, t0)
+    st.force_b[idx] = -1
     if not np.all(ok):
         bc.fail(np.isin(np.arange(bc.n), idx[~ok]), "no conducting path takes the coil current (the node "
                 "voltage would be unbounded)")
-    forms = md.assemble(mode, t0)
     if np.any(forms.nopath):
         bc.fail(np.isin(np.arange(bc.n), idx[forms.nopath]), "no conducting path takes the coil current")
     X = Xs
@@ -103,11 +126,11 @@ def _step(bc, st, idx):
         _segment(bc, st, md, idx, g, forms, mode, X, t0)
 
 
-def _probe_step(st, idx, X):
+def _probe_step(st, idx, X, xdot):
     """Probe step [s]: long enough to move the slowest-moving state by ~1e-12 of itself (past
     rounding, so ties at thresholds are settled by the direction of motion), at most 1e-8 of the
     fastest time scale (a mode shorter than that is taken with the next one)."""
-    xd = np.abs(st.Xdot[idx])
+    xd = np.abs(xdot)
     size = np.abs(X) + np.abs(st.X0scale[idx])
     with np.errstate(divide="ignore", invalid="ignore"):
         move = np.where(xd > 0, 1e-12 * size / xd, np.inf).min(axis=1)
@@ -143,7 +166,8 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     mg = Mode(mode.states[g], mode.pin[g])
     G = gi.size
     # stop events: the mode's validity, the phases, the ring end (quadratic), the bound
-    evs = bev.mode_events(sub, fs, mg, tg) + bev.stop_events(sub, fs, mg, tg, st)
+    meta = []
+    evs = bev.mode_events(sub, fs, mg, tg, meta) + bev.stop_events(sub, fs, mg, tg, st)
     E = np.stack([f for f, _ in evs], axis=1)
     tags = np.array([tag for _, tag in evs] + [bev.RING])
     Er, Qr = bev.ring_event(sub, tg, st)
@@ -153,6 +177,7 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     iq = np.array([E.shape[1] - 1])
     H = np.maximum(bc.t_bound[gi] - tg, 0.0)
     tau, fired = first_event(Events(seg, E, Qr[:, None], np.zeros_like(Qr)[:, None], iq), H, exps, oscs, tg)
+    _remember_transition(st, gi, fired, meta, mg)
     # figure events: every root inside the segment
     fev = bev.fig_events(sub, fs, mg, tg, st)
     Qp = bev.power_events(sub, fs, mg)
@@ -186,6 +211,49 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     if np.any(bad):
         bc.fail(np.isin(np.arange(bc.n), gi[bad]), "the node voltage chatters at a threshold (too many "
                 "segments); the batch engine stopped this variant")
+
+
+def _remember_transition(st, gi, fired, meta, mode):
+    """The state change the first mode event that fired signals (applied if the next
+    classification, unable to tell at a tangency, keeps the old state)."""
+    n_mode = len(meta)
+    fb = np.full(gi.size, -1)
+    fd = np.zeros(gi.size, int)
+    for e in range(n_mode - 1, -1, -1):
+        b, d = meta[e]
+        hit = fired[:, e] & (d != 0)
+        fb = np.where(hit, b, fb)
+        fd = np.where(hit, d, fd)
+    st.force_b[gi] = fb
+    st.force_dir[gi] = fd
+    st.prev_states[gi] = mode.states
+    st.prev_pin[gi] = mode.pin
+
+
+def _apply_transition(md, st, idx, mode):
+    """Force the signalled state change where the classification kept the old state."""
+    fb = st.force_b[idx]
+    rows = np.nonzero(fb >= 0)[0]
+    if rows.size == 0:
+        return mode, np.zeros(idx.size, bool)
+    states, pin = mode.states.copy(), mode.pin.copy()
+    b = fb[rows]
+    same = states[rows, b] == st.prev_states[idx[rows], b]
+    rows, b = rows[same], b[same]
+    d = st.force_dir[idx[rows]]
+    changed = np.zeros(idx.size, bool)
+    for br in np.unique(b):
+        r = rows[b == br]
+        dd = d[b == br]
+        law = md.laws[br]
+        S = law.n_states
+        new = np.where(dd == 2, md.LIM, np.clip(states[r, br] + dd, 0, S - 1))
+        states[r, br] = new
+        k = np.minimum(new, S - 1)
+        vert = np.array([kd == "seg" for kd in law.kinds])[k] & (law.r[r, k] == 0) & (new < S)
+        pin[r] = np.where(vert, br, np.where(pin[r] == br, -1, pin[r]))
+        changed[r] = True
+    return Mode(states, pin), changed
 
 
 def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):

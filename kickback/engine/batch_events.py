@@ -11,15 +11,17 @@ from __future__ import annotations
 
 import numpy as np
 
-from kickback.engine.detailed import ZERO_FRACTION
 from kickback.engine.batch_record import CONDUCTION_FRACTION
+from kickback.engine.detailed import ZERO_FRACTION
 
 MODE, LZ, RING, CROSS, BOUND = range(5)
 DECAY, RINGING, CROSSING, DONE = range(4)
 
 
-def mode_events(md, forms, mode, t0):
-    """Validity events of a mode: list of (form (G, nξ), tag)."""
+def mode_events(md, forms, mode, t0, meta=None):
+    """Validity events of a mode: list of (form (G, 3, nξ), tag). ``meta`` (a list), if given,
+    receives per event (branch, direction (G,)) of the state change it signals: ±1 to the next
+    state up or down, 2 to the falling limit, 0 none."""
     bc = md.bc
     G = t0.shape[0]
     nX = bc.nX
@@ -44,12 +46,16 @@ def mode_events(md, forms, mode, t0):
         u = forms.cv - forms.offf[b]
         blo = law.V[rows, d["k"]]
         bhi = law.uhi[rows, d["k"]]
-        ev1 = np.where(cur_seg[:, None], lo[:, None] * one - cI, u - np.where(np.isfinite(bhi), bhi, 0.0)[:, None] * one)
+        bhi0 = np.where(np.isfinite(bhi), bhi, 0.0)
+        blo0 = np.where(np.isfinite(blo), blo, 0.0)
+        ev1 = np.where(cur_seg[:, None], lo[:, None] * one - cI, u - bhi0[:, None] * one)
         w1 = np.where(cur_seg, np.isfinite(d["Ilo"]), d["block"] & np.isfinite(bhi))
-        ev2 = np.where(cur_seg[:, None], cI - hi[:, None] * one, np.where(np.isfinite(blo), blo, 0.0)[:, None] * one - u)
+        ev2 = np.where(cur_seg[:, None], cI - hi[:, None] * one, blo0[:, None] * one - u)
         w2 = np.where(cur_seg, np.isfinite(d["Ihi"]), d["block"] & np.isfinite(blo))
         add(ev1, w1)
         add(ev2, w2)
+        if meta is not None:
+            meta += [(b, np.where(cur_seg, -1, 1)), (b, np.where(cur_seg, 1, -1))]
         if b == 0:
             on = md.laws[0]
             vlim = on.V[:, -1][:, None] * one + on.r[:, -1][:, None] * forms.ilim - forms.cv
@@ -59,6 +65,8 @@ def mode_events(md, forms, mode, t0):
             tend[:, it] = 1.0
             tend[:, i1] = t0 - md.tf
             add(tend, ~d["off"])
+            if meta is not None:
+                meta += [(0, np.zeros(G, int)), (0, np.full(G, 2)), (0, np.zeros(G, int))]
     return out
 
 

@@ -46,7 +46,7 @@ class BatchCircuit:
         self.case, self.n = case, n
         self.ok = np.ones(n, bool)
         self.why = np.full(n, "", dtype=object)
-        c, s = case.coil, case.switch
+        s = case.switch
         for table, name, why in UNSUPPORTED:
             if getattr(getattr(case, table), name, None) is not None:
                 self.fail(np.ones(n, bool), why)
@@ -135,7 +135,6 @@ class BatchCircuit:
 
     def _chains(self, get) -> None:
         """Chain laws at a first i0 (fits need it), the on-state, and the laws again if i0 moved."""
-        n = self.n
         i0 = np.where(np.isfinite(self.i_given), self.i_given,
                       self.Vs / np.where(self.R > 0, self.R + (get("switch.on_resistance")
                                                                if self.kind == "mosfet" else 0.0), 1.0))

@@ -37,23 +37,23 @@ class Record:
         self.ppk = [np.zeros((n, ne)) for ne in self.nel]
 
     # --------------------------------------------------------------- values
-    def _element_voltages(self, m, gi, I, u, vc):
-        """Voltages [V] of the elements of active chain m at current I, chain voltage u, cap vc."""
+    def _element_voltages(self, m, gi, cur, u, vc):
+        """Voltages [V] of the elements of active chain m at current cur, chain voltage u, cap vc."""
         ch = self.bc.chains[m]
         law = ch.law
         out = []
-        nonzero = I != 0
+        nonzero = cur != 0
         rest = np.where(nonzero, 0.0, u - vc)
         for el in ch.elements:
             if el is None:
                 out.append(vc)
                 continue
-            v_on = np.full(I.shape, np.nan)
+            v_on = np.full(cur.shape, np.nan)
             for s, kind in enumerate(law.kinds):
                 if kind != "seg":
                     continue
-                inside = np.isnan(v_on) & (law.Ilo[gi, s] <= I) & (I <= law.Ihi[gi, s])
-                v_on = np.where(inside, el.V[gi, s] + el.r[gi, s] * I, v_on)
+                inside = np.isnan(v_on) & (law.Ilo[gi, s] <= cur) & (cur <= law.Ihi[gi, s])
+                v_on = np.where(inside, el.V[gi, s] + el.r[gi, s] * cur, v_on)
             take = np.clip(rest, el.band_lo[gi], el.band_hi[gi])
             rest = rest - take
             out.append(np.where(nonzero, np.nan_to_num(v_on), take))
@@ -62,26 +62,26 @@ class Record:
             others = [j for j, el in enumerate(ch.elements) if el is not None and j != d]
             edges = [ch.elements[j].band_lo[gi] for j in others]
             if all(np.all(np.isfinite(e)) for e in edges):
-                total = sum(edges, np.zeros(I.shape))
+                total = sum(edges, np.zeros(cur.shape))
                 rev = ~nonzero & (u - vc < total)
                 for j, e in zip(others, edges, strict=True):
                     out[j] = np.where(rev, e, out[j])
                 out[d] = np.where(rev, u - vc - total, out[d])
         return out
 
-    def _update(self, c, gi, I, vel, keep):
+    def _update(self, c, gi, cur, vel, keep):
         bc = self.bc
         th = CONDUCTION_FRACTION * bc.i0[gi]
-        self.Imax[gi, c] = np.where(keep, np.maximum(self.Imax[gi, c], I), self.Imax[gi, c])
-        self.Imin[gi, c] = np.where(keep, np.minimum(self.Imin[gi, c], I), self.Imin[gi, c])
-        blocking = np.abs(I) <= th
+        self.Imax[gi, c] = np.where(keep, np.maximum(self.Imax[gi, c], cur), self.Imax[gi, c])
+        self.Imin[gi, c] = np.where(keep, np.minimum(self.Imin[gi, c], cur), self.Imin[gi, c])
+        blocking = np.abs(cur) <= th
         k = bc.chain_index[c] if c < len(bc.chains) else bc.lone[c - len(bc.chains)][0]
         for j, vj in enumerate(vel):
             el = bc.case.clamps[k].elements[j]
             held = np.where(blocking, -vj if el.type == "diode" else np.abs(vj), 0.0)
             self.vabs[c][gi, j] = np.where(keep, np.maximum(self.vabs[c][gi, j], np.abs(vj)), self.vabs[c][gi, j])
             self.held[c][gi, j] = np.where(keep, np.maximum(self.held[c][gi, j], held), self.held[c][gi, j])
-            self.ppk[c][gi, j] = np.where(keep, np.maximum(self.ppk[c][gi, j], vj * I), self.ppk[c][gi, j])
+            self.ppk[c][gi, j] = np.where(keep, np.maximum(self.ppk[c][gi, j], vj * cur), self.ppk[c][gi, j])
 
     def _peak(self, gi, v, time, keep):
         up = keep & (v > self.vpk[gi])
@@ -98,11 +98,11 @@ class Record:
         v = bc.v_on[gi]
         self._peak(gi, v, np.zeros(gi.size), keep)
         for m, _ch in enumerate(bc.chains):
-            I = bc.on_chain_currents[m][gi]
+            cur = bc.on_chain_currents[m][gi]
             vc = bc.X0[gi, bc.icap[m]] if m in bc.icap else np.zeros(gi.size)
             u = v - bc.ref[m] * bc.Vs[gi]
-            self._update(m, gi, I, self._element_voltages(m, gi, I, u, vc), keep)
-        for q, (k, _cs, ref) in enumerate(bc.lone):
+            self._update(m, gi, cur, self._element_voltages(m, gi, cur, u, vc), keep)
+        for q, (_k, _cs, ref) in enumerate(bc.lone):
             u = v - ref * bc.Vs[gi]
             self._update(len(bc.chains) + q, gi, np.zeros(gi.size), [u] * self.nel[len(bc.chains) + q], keep)
 
@@ -115,10 +115,10 @@ class Record:
         v = np.einsum("gj,gj->g", forms.cv, xi)
         self._peak(gi, v, t0 + tau, keep)
         for m, _ch in enumerate(bc.chains):
-            I = np.einsum("gj,gj->g", forms.cI[2 + m], xi)
+            cur = np.einsum("gj,gj->g", forms.cI[2 + m], xi)
             vc = X[:, bc.icap[m]] if m in bc.icap else np.zeros(G)
             u = v - bc.ref[m] * bc.Vs[gi]
-            self._update(m, gi, I, self._element_voltages(m, gi, I, u, vc), keep)
+            self._update(m, gi, cur, self._element_voltages(m, gi, cur, u, vc), keep)
         if bc.lone:
             dxi = np.concatenate([dX, np.zeros((G, 1)), np.ones((G, 1))], axis=1)
             dv = np.einsum("gj,gj->g", forms.cv, dxi)
@@ -151,10 +151,10 @@ class Record:
             self.vpk[b2] = np.maximum(self.vpk[b2], v[tie])
             self.tpk[b2] = t0[rc[tie]] + rt[tie]
         for m in range(len(bc.chains)):
-            I = np.einsum("pj,pj->p", forms.cI[2 + m][rc], xi)
+            cur = np.einsum("pj,pj->p", forms.cI[2 + m][rc], xi)
             vc = X[:, bc.icap[m]] if m in bc.icap else np.zeros(P)
             u = v - bc.ref[m] * bc.Vs[bi]
-            self._update_at(m, bi, I, self._element_voltages(m, bi, I, u, vc))
+            self._update_at(m, bi, cur, self._element_voltages(m, bi, cur, u, vc))
         if bc.lone:
             dxi = np.concatenate([dX, np.zeros((P, 1)), np.ones((P, 1))], axis=1)
             dv = np.einsum("pj,pj->p", forms.cv[rc], dxi)
@@ -163,14 +163,14 @@ class Record:
                 u = v - ref * bc.Vs[bi]
                 self._update_at(c, bi, cs[bi] * dv, [u] * self.nel[c])
 
-    def _update_at(self, c, bi, I, vel):
+    def _update_at(self, c, bi, cur, vel):
         """Like :meth:`_update` for points that may repeat a variant (unbuffered reductions)."""
         bc = self.bc
         th = CONDUCTION_FRACTION * bc.i0[bi]
         col = np.full(bi.shape, c)
-        np.maximum.at(self.Imax, (bi, col), I)
-        np.minimum.at(self.Imin, (bi, col), I)
-        blocking = np.abs(I) <= th
+        np.maximum.at(self.Imax, (bi, col), cur)
+        np.minimum.at(self.Imin, (bi, col), cur)
+        blocking = np.abs(cur) <= th
         k = bc.chain_index[c] if c < len(bc.chains) else bc.lone[c - len(bc.chains)][0]
         for j, vj in enumerate(vel):
             el = bc.case.clamps[k].elements[j]
@@ -178,4 +178,4 @@ class Record:
             cj = np.full(bi.shape, j)
             np.maximum.at(self.vabs[c], (bi, cj), np.abs(vj))
             np.maximum.at(self.held[c], (bi, cj), held)
-            np.maximum.at(self.ppk[c], (bi, cj), vj * I)
+            np.maximum.at(self.ppk[c], (bi, cj), vj * cur)

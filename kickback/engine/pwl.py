@@ -35,7 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kickback.engine.pwl_functions import cosh_sinhc, modal_integrals, phi12, psi01, slow_rate
+from kickback.engine.pwl_functions import cosh_sinhc, modal_integrals, phi12, psi01
 
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(16)
 #: |β·T| up to which the scalar segment's integrals use 16-point Gauss–Legendre quadrature
@@ -235,7 +235,10 @@ class ModalSegment:
         for m, w2, a, b, rp in self.terms:
             ec, es = cosh_sinhc(m.reshape(shp), w2.reshape(shp), tau, rp.reshape(shp))
             basis.append((ec[..., None], es[..., None], m[:, None], w2[:, None], a, b))
-        out = [self.state(tau)]
+        x0 = self.P0[ex] + self.P1[ex] * tau[..., None]
+        for ec, es, _m, _w2, a, b in basis:
+            x0 = x0 + ec * a[ex] + es * b[ex]
+        out = [x0]
         coef = [(a, b) for (*_, a, b) in basis]
         for k in range(1, kmax + 1):
             x = np.broadcast_to(self.P1[ex], tau.shape + self.P1.shape[1:]).copy() if k == 1 else \
@@ -332,7 +335,7 @@ def quadrature_moments(seg, T, rates):
     """
     fast, slow = rates
     G = T.shape[0]
-    nX = seg.P0.shape[1]
+    nX = seg.state(np.zeros((G, 1))).shape[-1]
     M = np.zeros((G, nX + 2, nX + 2))
     lam = np.maximum.reduce(fast + [slow, 1.0 / np.maximum(T, 1e-300)])
     s = np.zeros(G)
@@ -368,105 +371,3 @@ def _assemble(sxx, sx, stx, T):
     M[:, nX, nX + 1] = M[:, nX + 1, nX] = T * T / 2
     M[:, nX + 1, nX + 1] = T**3 / 3
     return M
-
-
-def build_scalar(X0, A, b0, b1, k: int = 0) -> ScalarSegment:
-    """The segment with state ``k`` dynamic and the rest frozen.
-
-    Parameters
-    ----------
-    X0 : (G, nX) — state at the segment start
-    A : (G, nX, nX), b0, b1 : (G, nX) — ``x' = A x + b0 + b1 τ`` in the full layout
-    """
-    beta = A[:, k, k]
-    f0 = np.einsum("gj,gj->g", A[:, k, :], X0) + b0[:, k]
-    return ScalarSegment(X0.copy(), beta.copy(), f0, b1[:, k].copy(), k)
-
-
-def build_modal(X0, A, b0, b1, dyn) -> ModalSegment:
-    """The segment with the states listed in ``dyn`` (2 or 3 indices) dynamic.
-
-    Raises
-    ------
-    SegmentError — the dynamic block is singular or has a (near) triple eigenvalue.
-    """
-    dyn = list(dyn)
-    n = len(dyn)
-    frozen = [j for j in range(X0.shape[1]) if j not in dyn]
-    Ad = A[:, dyn][:, :, dyn]
-    beff = b0[:, dyn] + (np.einsum("gij,gj->gi", A[:, dyn][:, :, frozen], X0[:, frozen]) if frozen else 0.0)
-    b1d = b1[:, dyn]
-    det = np.linalg.det(Ad)
-    zero_row = np.any(np.all(Ad == 0, axis=2), axis=1)
-    if np.any(zero_row | ~np.isfinite(det) | (det == 0)):
-        raise SegmentError("singular state matrix on a segment (a state with no restoring term, "
-                           "e.g. zero coil resistance while the node is held by an ideal law)")
-    with np.errstate(all="ignore"):
-        p1 = -np.linalg.solve(Ad, b1d[..., None])[..., 0]
-        p0 = np.linalg.solve(Ad, (p1 - beff)[..., None])[..., 0]
-    if not (np.all(np.isfinite(p0)) and np.all(np.isfinite(p1))):
-        raise SegmentError("singular state matrix on a segment (its particular solution is not finite)")
-    y0 = X0[:, dyn] - p0
-    eye = np.eye(n)
-    if n == 2:
-        mu = 0.5 * (Ad[:, 0, 0] + Ad[:, 1, 1])
-        w2 = (0.5 * (Ad[:, 0, 0] - Ad[:, 1, 1])) ** 2 + Ad[:, 0, 1] * Ad[:, 1, 0]
-        N = Ad - mu[:, None, None] * eye
-        terms_d = [(mu, w2, y0, np.einsum("gij,gj->gi", N, y0), slow_rate(mu, w2, det))]
-    elif n == 3:
-        terms_d = _three_state_terms(Ad, y0)
-    else:
-        raise SegmentError(f"{n} dynamic states on one segment (the batch engine handles up to 3)")
-    G, nX = X0.shape
-    P0 = X0.copy()
-    P0[:, dyn] = p0
-    P1 = np.zeros((G, nX))
-    P1[:, dyn] = p1
-    terms = []
-    for m, w2, a, b, rp in terms_d:
-        af = np.zeros((G, nX))
-        bf = np.zeros((G, nX))
-        af[:, dyn] = a
-        bf[:, dyn] = b
-        terms.append((m, w2, af, bf, rp))
-    return ModalSegment(P0, P1, terms)
-
-
-def _three_state_terms(Ad, y0):
-    """Real eigenvalue λ1 by its projector, the remaining pair through (μ, w²)."""
-    c1 = np.trace(Ad, axis1=1, axis2=2)
-    c2 = (Ad[:, 0, 0] * Ad[:, 1, 1] - Ad[:, 0, 1] * Ad[:, 1, 0] + Ad[:, 0, 0] * Ad[:, 2, 2]
-          - Ad[:, 0, 2] * Ad[:, 2, 0] + Ad[:, 1, 1] * Ad[:, 2, 2] - Ad[:, 1, 2] * Ad[:, 2, 1])
-    c3 = np.linalg.det(Ad)
-    lam = np.linalg.eigvals(Ad)
-    real = np.abs(lam.imag) <= 1e-12 * np.abs(lam).max(axis=1, keepdims=True)
-    # most isolated real eigenvalue: largest |(λ - λa)(λ - λb)|
-    iso = np.abs(lam[:, :, None] - lam[:, None, :]).prod(axis=2) / 1.0
-    iso = np.where(real, iso, -1.0)
-    j = np.argmax(iso, axis=1)
-    l1 = lam[np.arange(lam.shape[0]), j].real
-    for _ in range(3):  # Newton on the characteristic polynomial
-        p = ((l1 - c1) * l1 + c2) * l1 - c3
-        dp = (3 * l1 - 2 * c1) * l1 + c2
-        l1 = np.where(dp != 0, l1 - p / np.where(dp != 0, dp, 1.0), l1)
-    # the pair's sum 2μ and product: from c3/λ1 and c2 when λ1 dominates (a fast node mode: c1 − λ1
-    # would cancel), else from the trace
-    prod = np.where(l1 != 0, c3 / np.where(l1 != 0, l1, 1.0), c2)
-    dominant = np.abs(l1) >= np.abs(c1 - l1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        two_mu = np.where(dominant & (l1 != 0), (c2 - prod) / np.where(l1 != 0, l1, 1.0), c1 - l1)
-    mu = 0.5 * two_mu
-    prod = np.where(l1 != 0, prod, c2 - 2 * mu * l1)
-    w2 = mu * mu - prod
-    denom = (l1 - mu) ** 2 - w2
-    scale = np.abs(lam).max(axis=1) ** 2
-    if np.any(~(np.abs(denom) > _TRIPLE_GAP * scale)):
-        raise SegmentError("three nearly equal eigenvalues on one segment (not handled by the batch engine)")
-    eye = np.eye(3)
-    A2 = np.einsum("gij,gjk->gik", Ad, Ad)
-    P1 = (A2 - 2 * mu[:, None, None] * Ad + prod[:, None, None] * eye) / denom[:, None, None]
-    ar = np.einsum("gij,gj->gi", P1, y0)
-    q = y0 - ar
-    N = Ad - mu[:, None, None] * eye
-    return [(l1, np.zeros_like(l1), ar, np.zeros_like(ar), l1),
-            (mu, w2, q, np.einsum("gij,gj->gi", N, q), slow_rate(mu, w2, prod))]

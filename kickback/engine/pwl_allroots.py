@@ -15,29 +15,15 @@ import numpy as np
 from kickback.engine.pwl import ScalarSegment
 from kickback.engine.pwl_roots import (
     ROUND,
-    START_TOL,
-    START_ULPS,
     Events,
-    _closed_scalar,
     _extremum,
     _never,
     _Pairs,
     _refine,
     grid_step,
+    start_values,
 )
-
-
-def start_signs(ev: Events, t0):
-    """Each event's value at τ = 0 with rounding-level values replaced by ±tol following the slope.
-
-    Returns (g0, gp0) of shape (G, ne): g0 < 0 means below zero (the event may fire later).
-    """
-    G = ev.E.shape[0]
-    g0, gp0 = ev.values(np.zeros((G, 1)))
-    g0, gp0 = g0[:, 0], gp0[:, 0]
-    tol = START_TOL * ev.scale() + START_ULPS * np.spacing(np.maximum(t0, 1e-300))[:, None] * np.abs(gp0)
-    near = np.abs(g0) <= tol
-    return np.where(near, np.where(gp0 < 0, -tol - 1e-300, tol + 1e-300), g0), gp0
+from kickback.engine.pwl_scalar_roots import closed_scalar, quadratic, scalar_pieces
 
 
 def all_roots(ev: Events, T, exps, oscs, t0):
@@ -56,17 +42,26 @@ def all_roots(ev: Events, T, exps, oscs, t0):
     start values (g0 > 0: the event starts above zero).
     """
     G, ne = ev.E.shape[:2]
-    g0, gp0 = start_signs(ev, t0)
-    armed = g0 < 0
+    g0, gp0, armed = start_values(ev, t0)
     cases, events, taus = [], [], []
     numeric = np.ones((G, ne), bool)
     if isinstance(ev.seg, ScalarSegment):
-        best, numeric = _closed_scalar(ev, g0, armed, np.full((G, ne), np.inf))
+        best, numeric = closed_scalar(ev, g0, armed, np.full((G, ne), np.inf))
         hit = ~numeric & (best <= T[:, None] * (1 + 1e-12))
         gi, ei = np.nonzero(hit)
         cases.append(gi)
         events.append(ei)
         taus.append(best[gi, ei])
+        quad = quadratic(ev)
+        lin = numeric & ~quad
+        if np.any(lin):
+            for r in scalar_pieces(ev, g0, armed, T):
+                hit = lin & (r <= T[:, None] * (1 + 1e-12))
+                gi, ei = np.nonzero(hit)
+                cases.append(gi)
+                events.append(ei)
+                taus.append(r[gi, ei])
+            numeric = numeric & quad
     need = numeric.any(axis=1) & (T > 0)
     if np.any(need):
         rows = np.nonzero(need)[0]
@@ -85,7 +80,7 @@ def _scan_all(ev, H, exps, oscs, g0, gp0):
     G, ne = ev.E.shape[:2]
     start = np.zeros(G)
     ga, gpa = g0, gp0
-    out_g, out_e, out_lo, out_hi = [], [], [], []
+    out_g, out_e, out_lo, out_hi, out_ga, out_gb = [], [], [], [], [], []
     for _ in range(1_000_000):
         live = start < H * (1 - 1e-15)
         if not np.any(live):
@@ -107,6 +102,8 @@ def _scan_all(ev, H, exps, oscs, g0, gp0):
         out_e.append(ei)
         out_lo.append(tl[gi, ki])
         out_hi.append(pts[gi, ki])
+        out_ga.append(gl[gi, ki, ei])
+        out_gb.append(g[gi, ki, ei])
         cand_peak = (gl < 0) & (g < 0) & (gpl > 0) & (gp < 0) & lv
         cand_dip = (gl >= 0) & (g >= 0) & (gpl < 0) & (gp > 0) & lv
         span = np.abs(gl) + np.abs(g)
@@ -132,6 +129,10 @@ def _scan_all(ev, H, exps, oscs, g0, gp0):
             out_e.append(sei[ok])
             out_lo.append(np.where(is_peak, a, te)[ok])
             out_hi.append(np.where(is_peak, te, b)[ok])
+            ga_, _ = pairs.values(np.where(is_peak, a, te))
+            gb_, _ = pairs.values(np.where(is_peak, te, b))
+            out_ga.append(ga_[ok])
+            out_gb.append(gb_[ok])
         start = np.where(live, pts[:, -1], start)
         ga, gpa = g[:, -1], gp[:, -1]
     gi = np.concatenate(out_g) if out_g else np.zeros(0, int)
@@ -140,5 +141,5 @@ def _scan_all(ev, H, exps, oscs, g0, gp0):
         return gi, ei, np.zeros(0)
     lo = np.concatenate(out_lo)
     hi = np.concatenate(out_hi)
-    root = _refine(_Pairs(ev, gi, ei), lo, hi)
+    root = _refine(_Pairs(ev, gi, ei), lo, hi, np.concatenate(out_ga), np.concatenate(out_gb))
     return gi, ei, root

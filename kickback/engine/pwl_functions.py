@@ -152,41 +152,55 @@ def moments(m, T, nmax: int = _NMAX):
     -------
     array of shape (nmax + 1,) + broadcast shape — [s^{n+1}]
 
-    .. math:: I_n = T^{n+1} μ_n(mT), \\quad μ_n(u) = e^u\\, n!\\, φ_{n+1}(-u)
+    .. math:: I_n = T^{n+1} μ_n(mT), \\quad μ_n(u) = \\int_0^1 θ^n e^{uθ} dθ = e^u\\, n!\\, φ_{n+1}(-u)
 
-    φ_{n+1} is summed downward (φ_k = 1/k! + z φ_{k+1}, stable) for |u| below a switch point,
-    above it μ_n follows the upward recurrence μ_n = (n μ_{n-1} − e^u)/|u| (stable there).
+    |u| ≤ 1: the series μ_n = Σ_k u^k/(k!(n+k+1)); 1 < |u| ≤ 40: φ_{n+1} summed downward
+    (φ_k = 1/k! + z φ_{k+1}, stable); beyond, the upward recurrence μ_n = (n μ_{n-1} − e^u)/|u|
+    (stable there). Each on its own elements only.
     """
     m, T = np.broadcast_arrays(np.asarray(m, float), np.asarray(T, float))
-    u = m * T
-    z = -u
-    shape = u.shape
-    out = np.empty((nmax + 1,) + shape)
-    low = np.abs(z) <= _MOMENT_SWITCH
-    zl = np.where(low, z, 0.0)
-    # φ_{top}(z) by its series, top well above nmax, then downward to φ_1
-    top = nmax + 1 + 60
-    phi = np.zeros(shape)
-    term = np.full(shape, 1.0 / math.factorial(top))
-    for k in range(120):
-        phi = phi + term
-        term = term * zl / (top + k + 1)
-    phis = [None] * (nmax + 2)
-    cur = phi
-    for k in range(top - 1, 0, -1):
-        cur = 1.0 / math.factorial(k) + zl * cur
-        if k <= nmax + 1:
-            phis[k] = cur
-    eu = np.exp(np.where(low, u, 0.0))
-    zh = np.where(low, 1.0, z)
-    ez = np.exp(-zh)
-    mu_prev = -np.expm1(-zh) / zh
-    for n in range(nmax + 1):
-        mu_low = eu * math.factorial(n) * phis[n + 1]
-        if n > 0:
-            mu_prev = (n * mu_prev - ez) / zh
-        out[n] = np.where(low, mu_low, mu_prev) * T ** (n + 1)
-    return out
+    u = (m * T).ravel()
+    Tf = T.ravel()
+    mu = np.empty((nmax + 1, u.size))
+    n_ax = np.arange(nmax + 1)[:, None]
+    small = np.abs(u) <= 1.0
+    if np.any(small):
+        us = u[small]
+        acc = np.zeros((nmax + 1, us.size))
+        term = np.ones_like(us)
+        for k in range(22):
+            acc += term / (n_ax + k + 1)
+            term = term * us / (k + 1)
+        mu[:, small] = acc
+    mid = ~small & (np.abs(u) <= _MOMENT_SWITCH)
+    if np.any(mid):
+        z = -u[mid]
+        top = nmax + 1 + 40
+        phi = np.zeros_like(z)
+        term = np.full(z.shape, 1.0 / math.factorial(top))
+        for k in range(80):
+            phi = phi + term
+            term = term * z / (top + k + 1)
+        cur = phi
+        vals = np.empty((nmax + 2, z.size))
+        for k in range(top - 1, 0, -1):
+            cur = 1.0 / math.factorial(k) + z * cur
+            if k <= nmax + 1:
+                vals[k] = cur
+        eu = np.exp(-z)
+        for n in range(nmax + 1):
+            mu[n, mid] = eu * math.factorial(n) * vals[n + 1]
+    big = ~small & ~mid
+    if np.any(big):
+        z = -u[big]
+        ez = np.exp(-z)
+        prev = -np.expm1(-z) / z
+        mu[0, big] = prev
+        for n in range(1, nmax + 1):
+            prev = (n * prev - ez) / z
+            mu[n, big] = prev
+    out = mu * Tf[None, :] ** (n_ax + 1)
+    return out.reshape((nmax + 1,) + m.shape)
 
 
 def modal_integrals(m, w2, T, rp=None):
@@ -212,47 +226,39 @@ def modal_integrals(m, w2, T, rp=None):
         rp = m + np.sqrt(np.maximum(np.asarray(w2, float), 0.0))
     m, w2, T, rp = np.broadcast_arrays(np.asarray(m, float), np.asarray(w2, float), np.asarray(T, float),
                                        np.asarray(rp, float))
-    x2 = w2 * T * T
-    ser = np.abs(x2) < _INT_SERIES
-    out = {}
-    # series branch
-    ms = np.where(ser, m, 0.0)
-    Ts = np.where(ser, T, 0.0)
-    w2s = np.where(ser, w2, 0.0)
-    I = moments(ms, Ts)
-    K0 = np.zeros_like(m)
-    K1 = np.zeros_like(m)
-    J0 = np.zeros_like(m)
-    J1 = np.zeros_like(m)
-    H0 = np.zeros_like(m)
-    wk = np.ones_like(m)
-    for k in range(_INT_TERMS):
-        K0 = K0 + wk * I[2 * k] / math.factorial(2 * k)
-        K1 = K1 + wk * I[2 * k + 1] / math.factorial(2 * k)
-        J0 = J0 + wk * I[2 * k + 1] / math.factorial(2 * k + 1)
-        J1 = J1 + wk * I[2 * k + 2] / math.factorial(2 * k + 1)
-        H0 = H0 + wk * I[2 * k + 2] / math.factorial(2 * k + 2)
-        wk = wk * w2s
-    # exponential branch
-    Tl = np.where(ser, 1.0, T)
-    w2l = np.where(ser, 1.0, w2)
-    w = np.sqrt(w2l.astype(complex))
-    ml = np.where(ser, 0.0, m)
-    plus = np.where(w2l > 0, np.where(ser, 0.0, rp) + 0j, ml + w)
-    a0, a1 = psi01(plus, Tl)
-    b0, b1 = psi01(ml - w, Tl)
-    c0, _ = psi01(ml.astype(float), Tl)
-    k0 = (0.5 * (a0 + b0)).real
-    k1 = (0.5 * (a1 + b1)).real
-    j0 = ((a0 - b0) / (2 * w)).real
-    j1 = ((a1 - b1) / (2 * w)).real
-    h0 = (k0 - c0.real) / w2l
-    out["K0"] = np.where(ser, K0, k0)
-    out["K1"] = np.where(ser, K1, k1)
-    out["J0"] = np.where(ser, J0, j0)
-    out["J1"] = np.where(ser, J1, j1)
-    out["H0"] = np.where(ser, H0, h0)
-    return out
+    shape = m.shape
+    m, w2, T, rp = m.ravel(), w2.ravel(), T.ravel(), rp.ravel()
+    ser = np.abs(w2 * T * T) < _INT_SERIES
+    out = {k: np.empty(m.size) for k in ("K0", "K1", "J0", "J1", "H0")}
+    if np.any(ser):
+        ws = w2[ser]
+        mom = moments(m[ser], T[ser])
+        acc = {k: np.zeros(ws.size) for k in out}
+        wk = np.ones_like(ws)
+        for k in range(_INT_TERMS):
+            acc["K0"] += wk * mom[2 * k] / math.factorial(2 * k)
+            acc["K1"] += wk * mom[2 * k + 1] / math.factorial(2 * k)
+            acc["J0"] += wk * mom[2 * k + 1] / math.factorial(2 * k + 1)
+            acc["J1"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 1)
+            acc["H0"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 2)
+            wk = wk * ws
+        for k in out:
+            out[k][ser] = acc[k]
+    ex = ~ser
+    if np.any(ex):
+        Tl, w2l, ml = T[ex], w2[ex], m[ex]
+        w = np.sqrt(w2l.astype(complex))
+        plus = np.where(w2l > 0, rp[ex] + 0j, ml + w)
+        a0, a1 = psi01(plus, Tl)
+        b0, b1 = psi01(ml - w, Tl)
+        c0, _ = psi01(ml, Tl)
+        k0 = (0.5 * (a0 + b0)).real
+        out["K0"][ex] = k0
+        out["K1"][ex] = (0.5 * (a1 + b1)).real
+        out["J0"][ex] = ((a0 - b0) / (2 * w)).real
+        out["J1"][ex] = ((a1 - b1) / (2 * w)).real
+        out["H0"][ex] = (k0 - c0) / w2l
+    return {k: v.reshape(shape) for k, v in out.items()}
 
 
 def log1p_ratio(x):

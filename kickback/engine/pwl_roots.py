@@ -30,7 +30,7 @@ from __future__ import annotations
 import numpy as np
 
 from kickback.engine.pwl import ScalarSegment
-from kickback.engine.pwl_functions import log1p_ratio
+from kickback.engine.pwl_scalar_roots import closed_scalar, quadratic, scalar_pieces
 
 #: grid points per case evaluated in one round
 ROUND = 12
@@ -57,18 +57,22 @@ class Events:
 
     def __init__(self, seg, E, Qa=None, Qb=None, iq=None):
         self.seg, self.E, self.Qa, self.Qb = seg, E, Qa, Qb
+        #: highest derivative of ξ the events and their slopes need
+        self.kmax = 3 if np.any(E[:, :, 2] != 0) else (2 if (np.any(E[:, :, 1] != 0) or Qa is not None) else 1)
         self.iq = None if Qa is None else np.asarray(iq, int)
         self.qmap = np.full(E.shape[1], -1)
         if Qa is not None:
             self.qmap[self.iq] = np.arange(self.iq.size)
 
     def take(self, rows) -> Events:
-        q = (lambda Q: None if Q is None else Q[rows])
+        def q(Q):
+            return None if Q is None else Q[rows]
+
         return Events(self.seg.take(rows), self.E[rows], q(self.Qa), q(self.Qb), self.iq)
 
     def values(self, tau):
         """g and dg/dτ at τ of shape (G, K): arrays (G, K, ne)."""
-        xs = _xis(self.seg, tau)
+        xs = _xis(self.seg, tau, self.kmax)
         g = sum(np.matmul(xs[k], self.E[:, :, k].transpose(0, 2, 1)) for k in range(3))
         gp = sum(np.matmul(xs[k + 1], self.E[:, :, k].transpose(0, 2, 1)) for k in range(3))
         if self.Qa is not None:
@@ -80,23 +84,46 @@ class Events:
                                  + np.einsum("gki,gqij,gkj->gkq", x0, self.Qb, x2))
         return g, gp
 
-    def scale(self):
-        """Size of each event's terms at τ = 0, for the zero tolerance: (G, ne).
+    def scale(self, derivative: bool = False):
+        """Size of each event's terms (or of its slope's terms) at τ = 0, for zero tolerances: (G, ne).
 
         Taken from the size of every term of the solution and its derivatives (not their sum), so
         that an event computed by cancellation is not mistaken for an accurate zero.
         """
         G = self.E.shape[0]
-        sz = self.seg.sizes(2)
+        sz = self.seg.sizes(3)
         one = np.ones((G, 1))
-        xs = [np.concatenate([sz[0], one, np.zeros((G, 1))], axis=1),
-              np.concatenate([sz[1], np.zeros((G, 1)), one], axis=1),
-              np.concatenate([sz[2], np.zeros((G, 2))], axis=1)]
-        s = sum(np.einsum("gj,gej->ge", xs[k], np.abs(self.E[:, :, k])) for k in range(3))
+        zero = np.zeros((G, 1))
+        xs = [np.concatenate([sz[0], one, zero], axis=1), np.concatenate([sz[1], zero, one], axis=1)]
+        xs += [np.concatenate([x, zero, zero], axis=1) for x in sz[2:]]
+        d = 1 if derivative else 0
+        s = sum(np.einsum("gj,gej->ge", xs[k + d], np.abs(self.E[:, :, k])) for k in range(3))
         if self.Qa is not None:
-            s[:, self.iq] += (np.einsum("gi,gqij,gj->gq", xs[0], np.abs(self.Qa), xs[0])
-                              + np.einsum("gi,gqij,gj->gq", xs[0], np.abs(self.Qb), xs[1]))
+            s[:, self.iq] += (np.einsum("gi,gqij,gj->gq", xs[0], np.abs(self.Qa), xs[d])
+                              + np.einsum("gi,gqij,gj->gq", xs[0], np.abs(self.Qb), xs[1 + d]))
         return s
+
+
+def start_values(ev: Events, t0):
+    """Each event at τ = 0: (g0, g0', armed). A value zero within rounding counts as below zero
+    (armed: the event may fire) if it moves down, or does not move at all (a tangency: the mode
+    may be leaving its range at second order, which the event then catches at once), and as
+    above zero (it just fired and moves away) if it moves up. Such an event is shifted by its
+    rounding-level start value (``ev.E`` is changed in place), so that near τ = 0 it has the sign
+    it was given and a refinement cannot land on a spurious root at the start."""
+    G = ev.E.shape[0]
+    g0, gp0 = ev.values(np.zeros((G, 1)))
+    g0, gp0 = g0[:, 0], gp0[:, 0]
+    tol = START_TOL * ev.scale()
+    if t0 is not None:
+        tol = tol + START_ULPS * np.spacing(np.maximum(t0, 1e-300))[:, None] * np.abs(gp0)
+    flat = np.abs(gp0) <= START_TOL * ev.scale(derivative=True)
+    near = np.abs(g0) <= tol
+    armed = np.where(near, (gp0 < 0) | flat, g0 < 0)
+    nX = ev.E.shape[3] - 2
+    ev.E[:, :, 0, nX] -= np.where(near, g0, 0.0)
+    g0 = np.where(near, np.where(armed, -tol - 1e-300, tol + 1e-300), g0)
+    return g0, gp0, armed
 
 
 class _Pairs:
@@ -107,6 +134,7 @@ class _Pairs:
             return
         self.seg = ev.seg.take(gi)
         self.E = ev.E[gi, ei]
+        self.kmax = ev.kmax
         q = ev.qmap[ei]
         self.quad = q >= 0
         self.Qa = ev.Qa[gi, np.maximum(q, 0)] if ev.Qa is not None else None
@@ -114,6 +142,7 @@ class _Pairs:
 
     def take(self, rows) -> _Pairs:
         out = _Pairs(None)
+        out.kmax = self.kmax
         out.seg = self.seg.take(rows)
         out.E = self.E[rows]
         out.quad = self.quad[rows]
@@ -122,7 +151,7 @@ class _Pairs:
         return out
 
     def values(self, tau):
-        xs = _xis(self.seg, tau)
+        xs = _xis(self.seg, tau, self.kmax)
         g = sum(np.einsum("pj,pj->p", xs[k], self.E[:, k]) for k in range(3))
         gp = sum(np.einsum("pj,pj->p", xs[k + 1], self.E[:, k]) for k in range(3))
         if self.Qa is not None and np.any(self.quad):
@@ -135,10 +164,11 @@ class _Pairs:
         return g, gp
 
 
-def _xis(seg, tau):
-    """ξ and its first three derivatives at τ: list of arrays τ.shape + (nξ,)."""
+def _xis(seg, tau, kmax: int = 3):
+    """ξ and its first ``kmax`` derivatives at τ (zeros beyond): list of 4 arrays τ.shape + (nξ,)."""
     tau = np.asarray(tau, float)
-    xs = seg.derivs(tau, 3)
+    xs = seg.derivs(tau, kmax)
+    xs = xs + [np.zeros_like(xs[0])] * (4 - len(xs))
     ones = np.ones(tau.shape + (1,))
     zeros = np.zeros_like(ones)
     out = [np.concatenate([xs[0], ones, tau[..., None]], axis=-1),
@@ -186,18 +216,17 @@ def first_event(ev: Events, H, exps, oscs, t0=None):
     fired : (G, ne) bool — events firing at tau (within a relative 1e-12: coincident events)
     """
     G, ne = ev.E.shape[:2]
-    g0, gp0 = ev.values(np.zeros((G, 1)))
-    g0, gp0 = g0[:, 0], gp0[:, 0]
-    tol = START_TOL * ev.scale()
-    if t0 is not None:
-        tol = tol + START_ULPS * np.spacing(np.maximum(t0, 1e-300))[:, None] * np.abs(gp0)
-    near = np.abs(g0) <= tol
-    armed = (g0 < 0) & ~near | near & (gp0 < 0)
-    g0 = np.where(near, np.where(gp0 < 0, -tol - 1e-300, tol + 1e-300), g0)
+    g0, gp0, armed = start_values(ev, t0)
     best = np.full((G, ne), np.inf)
     numeric = np.ones((G, ne), bool)
     if isinstance(ev.seg, ScalarSegment):
-        best, numeric = _closed_scalar(ev, g0, armed, best)
+        best, numeric = closed_scalar(ev, g0, armed, best)
+        quad = quadratic(ev)
+        if np.any(numeric & ~quad):
+            r1, r2 = scalar_pieces(ev, g0, armed, H)
+            lin = numeric & ~quad
+            best = np.where(lin, np.minimum(r1, r2), best)
+            numeric = numeric & quad
     need = numeric.any(axis=1)
     if np.any(need):
         rows = np.nonzero(need)[0]
@@ -217,38 +246,6 @@ def _never(E):
     out = np.zeros_like(E)
     out[..., 0, -2] = -1.0
     return out
-
-
-def _closed_scalar(ev, g0, armed, best):
-    """Closed-form roots of the monotone events of a ramp-free scalar segment.
-
-    With no ramp, x_k − x_k(0) = f0·E1(τ) and every derivative is a multiple of e^{βτ} = 1 + β·E1,
-    so an event is g(0) + s·E1(τ) + c_τ·τ; with c_τ = 0 (or no state term) its root is closed.
-    """
-    seg = ev.seg
-    nX = ev.E.shape[3] - 2
-    k = seg.k
-    E = ev.E
-    beta = seg.beta[:, None]
-    f0 = seg.f0[:, None]
-    ci = E[:, :, 0, k] + beta * E[:, :, 1, k] + beta * beta * E[:, :, 2, k]
-    ct = E[:, :, 0, nX + 1]
-    quad = np.zeros(ci.shape, bool)
-    if ev.Qa is not None:
-        quad[:, ev.iq] = np.any(ev.Qa != 0, axis=(2, 3)) | np.any(ev.Qb != 0, axis=(2, 3))
-    ramp = (seg.gamma != 0)[:, None]
-    closed = ~quad & ~ramp & ((ct == 0) | (ci == 0))
-    slope = ci * f0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        q = -g0 / slope
-        x = beta * q
-        tau_e = q * log1p_ratio(np.where(x > -1, x, 0.0))
-        ok_e = armed & (slope > 0) & (x > -1) & (ct == 0)
-        tau_t = -g0 / ct
-        ok_t = armed & (ct > 0) & (ci == 0)
-    root = np.where(ok_e, tau_e, np.where(ok_t, tau_t, np.inf))
-    best = np.where(closed, root, best)
-    return best, ~closed
 
 
 def _scan(ev, H, exps, oscs, g0, gp0):
@@ -351,31 +348,52 @@ def _extremum(pairs, a, b):
     return 0.5 * (a + b)
 
 
-def _refine(pairs, a, b):
+def _refine(pairs, a, b, ga=None, gb=None):
     """Root of g in [a, b] (g(a) < 0 ≤ g(b)) per pair, to a few ulp: Newton steps kept inside the
-    bracket (bisection when a step leaves it or every fourth step); returns a point where g ≥ 0."""
+    bracket, false position (Illinois) when a step leaves it; returns a point where g ≥ 0."""
+    P = a.size
     a, b = a.copy(), b.copy()
-    x = b.copy()
+    if ga is None or gb is None:
+        ga, _ = pairs.values(a)
+        gb, _ = pairs.values(b)
+    ga, gb = np.minimum(ga.copy(), -1e-300), np.maximum(gb.copy(), 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = a - ga * (b - a) / (gb - ga)
+    x = np.where(np.isfinite(x) & (x > a) & (x < b), x, 0.5 * (a + b))
     out = b.copy()
-    act = np.arange(a.size)
+    idx = np.arange(P)
     sub = pairs
-    for it in range(_NEWTON_ITERS):
-        g, gp = sub.values(x[act])
+    side = np.zeros(P, int)  # Illinois: which end was kept last
+    for _it in range(_NEWTON_ITERS):
+        xa = x[idx]
+        g, gp = sub.values(xa)
         neg = g < 0
-        a[act] = np.where(neg, x[act], a[act])
-        b[act] = np.where(neg, b[act], x[act])
+        a_, b_, ga_, gb_ = a[idx], b[idx], ga[idx], gb[idx]
+        a_ = np.where(neg, xa, a_)
+        ga_ = np.where(neg, g, ga_)
+        b_ = np.where(neg, b_, xa)
+        gb_ = np.where(neg, gb_, g)
+        s_ = np.where(neg, -1, 1)
+        # Illinois: halve the value kept twice in a row
+        same = side[idx] == s_
+        ga_ = np.where(same & ~neg, 0.5 * ga_, ga_)
+        gb_ = np.where(same & neg, 0.5 * gb_, gb_)
+        side[idx] = s_
         with np.errstate(divide="ignore", invalid="ignore"):
-            xn = x[act] - g / gp
-        aa, bb = a[act], b[act]
-        inside = np.isfinite(xn) & (xn > aa) & (xn < bb)
-        xn = np.where(inside & (it % 4 != 3), xn, 0.5 * (aa + bb))
-        ulp = np.spacing(np.maximum(np.abs(x[act]), 1e-300))
-        done = (g == 0) | ((bb - aa) <= 4 * ulp) | (inside & (np.abs(xn - x[act]) <= 2 * ulp) & ~neg)
-        out[act] = np.where(done, np.where(neg, bb, x[act]), out[act])
-        x[act] = xn
+            xn = xa - g / gp
+            xf = a_ - ga_ * (b_ - a_) / (gb_ - ga_)
+        inside = np.isfinite(xn) & (xn > a_) & (xn < b_)
+        fp = np.isfinite(xf) & (xf > a_) & (xf < b_)
+        xn = np.where(inside, xn, np.where(fp, xf, 0.5 * (a_ + b_)))
+        ulp = np.spacing(np.maximum(np.abs(xa), 1e-300))
+        done = (g == 0) | ((b_ - a_) <= 4 * ulp) | (inside & (np.abs(xn - xa) <= 2 * ulp))
+        # converged from below: the root lies within the Newton step above xa (or at b)
+        up = np.minimum(b_, np.maximum(xn, xa + 2 * ulp))
+        out[idx] = np.where(done, np.where(neg, up, xa), out[idx])
+        a[idx], b[idx], ga[idx], gb[idx], x[idx] = a_, b_, ga_, gb_, xn
         keep = ~done
         if not np.any(keep):
             break
-        act = act[keep]
-        sub = pairs.take(act)
+        idx = idx[keep]
+        sub = pairs.take(idx)
     return out
