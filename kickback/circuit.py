@@ -427,16 +427,9 @@ class Circuit:
         Newton iteration of an implicit method still converges on them."""
         n = self.n_states
         jm = np.zeros((n, n))
-        sw = self.switch
         v = float(y[1]) if self.capacitive else self.node_voltage(t, y)
         # conductance of each branch at v
-        g_ch = self.g_leak
-        if self.conducting or (self._in_fall(t) and sw.on_state.current_at(v) < self._limit(t)):
-            g_ch += sw.on_state.slope_at(v)
-        g = [g_ch, sw.off_state.slope_at(v)]
-        for k in self.active_chains:
-            ch = self.chains[k]
-            g.append(ch.conductance_at(v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0))
+        g = self._conductances(t, v, y)
         if self.pin is not None:
             g[self.pin[1]] = math.inf
         elif not self.capacitive:
@@ -464,7 +457,16 @@ class Circuit:
                 jm[self.icap[k], 1] = gk / ck
                 jm[self.icap[k], self.icap[k]] = -gk / ck
             return jm
-        # algebraic node: v follows i and the capacitor voltages
+        # algebraic node: v follows i and the capacitor voltages. At a kink of a law (the node
+        # sitting exactly at a clamp's threshold, say) the conductance at v is one-sided and may
+        # be only the leakage: dv/di would then be ~1e12 × too large and the implicit method's
+        # Newton iteration, stalled by it, could accept an unconverged step. Where the node has
+        # no more than leakage, the larger conductance just either side bounds dv/di instead.
+        if math.isfinite(G) and G < 1e-6 * self.i0 / self.v_scale:
+            d = 1e-9 * self.v_scale
+            for side in (v - d, v + d):
+                gs = sum(self._conductances(t, side, y))
+                G = max(G, gs) if math.isfinite(gs) else G
         finite = math.isfinite(G) and G > 0
         dv_di = 1.0 / G if finite else 0.0
         dv_dcap = {k: (g[2 + self._pos[k]] / G if finite else 0.0) for k in self.cap_chains}
@@ -476,6 +478,19 @@ class Circuit:
             for m in self.cap_chains:
                 jm[self.icap[k], self.icap[m]] = gk * (dv_dcap[m] - (1.0 if m == k else 0.0)) / ck
         return jm
+
+    def _conductances(self, t: float, v: float, y) -> list[float]:
+        """Small-signal conductance [S] of each branch at node voltage v: channel (with the
+        leakage), off-state, then each active chain."""
+        sw = self.switch
+        g_ch = self.g_leak
+        if self.conducting or (self._in_fall(t) and sw.on_state.current_at(v) < self._limit(t)):
+            g_ch += sw.on_state.slope_at(v)
+        g = [g_ch, sw.off_state.slope_at(v)]
+        for k in self.active_chains:
+            ch = self.chains[k]
+            g.append(ch.conductance_at(v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0))
+        return g
 
     def capacitor_energy(self, v, y) -> float:
         """Energy [J] in every capacitor at node voltage v and state y."""

@@ -21,6 +21,7 @@ from scipy.integrate import Radau, solve_ivp
 from scipy.linalg import lapack
 
 from kickback.circuit import Circuit
+from kickback.engine.radau_check import CheckedNewton
 from kickback.errors import SolverError
 
 #: current below which the coil counts as "at zero", relative to the initial current
@@ -34,7 +35,7 @@ DEFAULT_RTOL = 1e-5
 EDGE_STEPS = 20
 
 
-class _Radau(Radau):
+class _Radau(CheckedNewton, Radau):
     """scipy's Radau IIA with the dense LU factorisation called straight from LAPACK.
 
     The same algorithm and the same arithmetic (getrf/getrs are what ``lu_factor``/``lu_solve``
@@ -212,8 +213,11 @@ class PhaseRunner:
         pe = self._pin_events()
         evs = list(events) + pe + ([self.ev_peak] if c.capacitive and c.pin is None else [])
         try:
-            sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
-                            jac=self.jac, dense_output=True, events=evs, **kw)
+            # scipy's step-size predictor divides by the error norm, which an exactly integrated
+            # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
+            with np.errstate(divide="ignore"):
+                sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
+                                jac=self.jac, dense_output=True, events=evs, **kw)
         except SolverError:
             raise
         except (ValueError, ArithmeticError, FloatingPointError) as exc:
@@ -348,6 +352,10 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         bound_hit = ev_times["zero"] is None
     rings = c.capacitive or bool(dyn_caps)
     if not bound_hit and rings and dyn_energy(runner.y) > rest_level and runner.t < t_bound:
+        if c.pin is not None:
+            # the coil current is at zero, and so is the current of the law the node is pinned
+            # at: the pin is released here rather than integrated into the law's kink at zero
+            c.pin = None
         runner.run("ring", t_bound, [ev10, ev1, ev_rest], record)
         bound_hit = not (dyn_energy(runner.y) <= rest_level * 1.0001)
         if not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 and runner.t < t_bound:
