@@ -39,6 +39,11 @@ ROUND = 12
 START_TOL = 256 * np.finfo(float).eps
 START_ULPS = 16
 _NEWTON_ITERS = 100
+#: a figure root's refinement ends at a Newton step this fraction of its bracket (see _refine)
+_FIGURE_STEP = 1e-9
+#: halvings locating a grazing extremum: 2^-34 of the interval puts g there within ~1e-20 of
+#: its curvature scale of the extreme value, far below what decides its sign
+_EXTREMUM_HALVINGS = 34
 
 
 class Events:
@@ -60,6 +65,8 @@ class Events:
         #: highest derivative of ξ the events and their slopes need
         self.kmax = 3 if np.any(E[:, :, 2] != 0) else (2 if (np.any(E[:, :, 1] != 0) or Qa is not None) else 1)
         self.iq = None if Qa is None else np.asarray(iq, int)
+        #: (G, ne) size below which a value is rounding (set by :func:`start_values`; 0 until then)
+        self.ztol = np.zeros(E.shape[:2])
         self.qmap = np.full(E.shape[1], -1)
         if Qa is not None:
             self.qmap[self.iq] = np.arange(self.iq.size)
@@ -68,20 +75,23 @@ class Events:
         def q(Q):
             return None if Q is None else Q[rows]
 
-        return Events(self.seg.take(rows), self.E[rows], q(self.Qa), q(self.Qb), self.iq)
+        out = Events(self.seg.take(rows), self.E[rows], q(self.Qa), q(self.Qb), self.iq)
+        out.ztol = self.ztol[rows]
+        return out
 
-    def values(self, tau):
-        """g and dg/dτ at τ of shape (G, K): arrays (G, K, ne)."""
-        xs = _xis(self.seg, tau, self.kmax)
-        g = sum(np.matmul(xs[k], self.E[:, :, k].transpose(0, 2, 1)) for k in range(3))
-        gp = sum(np.matmul(xs[k + 1], self.E[:, :, k].transpose(0, 2, 1)) for k in range(3))
+    def values(self, tau, xs=None):
+        """g and dg/dτ at τ of shape (G, K): arrays (G, K, ne); ``xs``: ξ and its derivatives
+        there if already evaluated (:func:`_xis`)."""
+        xs = _xis(self.seg, tau, self.kmax) if xs is None else xs
+        G, ne, _, nxi = self.E.shape
+        Et = self.E.reshape(G, ne, 3 * nxi).transpose(0, 2, 1)
+        g = np.matmul(np.concatenate(xs[:3], axis=-1), Et)
+        gp = np.matmul(np.concatenate(xs[1:], axis=-1), Et)
         if self.Qa is not None:
             x0, x1, x2 = xs[0], xs[1], xs[2]
-            g[..., self.iq] += (np.einsum("gki,gqij,gkj->gkq", x0, self.Qa, x0)
-                                + np.einsum("gki,gqij,gkj->gkq", x0, self.Qb, x1))
-            gp[..., self.iq] += (2 * np.einsum("gki,gqij,gkj->gkq", x1, self.Qa, x0)
-                                 + np.einsum("gki,gqij,gkj->gkq", x1, self.Qb, x1)
-                                 + np.einsum("gki,gqij,gkj->gkq", x0, self.Qb, x2))
+            g[..., self.iq] += _bilinear(x0, self.Qa, x0) + _bilinear(x0, self.Qb, x1)
+            gp[..., self.iq] += (2 * _bilinear(x1, self.Qa, x0) + _bilinear(x1, self.Qb, x1)
+                                 + _bilinear(x0, self.Qb, x2))
         return g, gp
 
     def scale(self, derivative: bool = False):
@@ -104,6 +114,12 @@ class Events:
         return s
 
 
+def _bilinear(u, Q, v):
+    """uᵀ Q v for u, v of shape (G, K, n) and Q of shape (G, q, n, n): (G, K, q)."""
+    t = np.matmul(u[:, None], Q)  # (G, q, K, n)
+    return np.sum(t * v[:, None], axis=-1).transpose(0, 2, 1)
+
+
 def start_values(ev: Events, t0):
     """Each event at τ = 0: (g0, g0', armed). A value zero within rounding counts as below zero
     (armed: the event may fire) if it moves down, or does not move at all (a tangency: the mode
@@ -121,6 +137,7 @@ def start_values(ev: Events, t0):
     near = np.abs(g0) <= tol
     armed = np.where(near, (gp0 < 0) | flat, g0 < 0)
     nX = ev.E.shape[3] - 2
+    ev.ztol = tol
     ev.E[:, :, 0, nX] -= np.where(near, g0, 0.0)
     g0 = np.where(near, np.where(armed, -tol - 1e-300, tol + 1e-300), g0)
     return g0, gp0, armed
@@ -139,10 +156,12 @@ class _Pairs:
         self.quad = q >= 0
         self.Qa = ev.Qa[gi, np.maximum(q, 0)] if ev.Qa is not None else None
         self.Qb = ev.Qb[gi, np.maximum(q, 0)] if ev.Qa is not None else None
+        self.ztol = ev.ztol[gi, ei]
 
     def take(self, rows) -> _Pairs:
         out = _Pairs(None)
         out.kmax = self.kmax
+        out.ztol = self.ztol[rows]
         out.seg = self.seg.take(rows)
         out.E = self.E[rows]
         out.quad = self.quad[rows]
@@ -152,16 +171,22 @@ class _Pairs:
 
     def values(self, tau):
         xs = _xis(self.seg, tau, self.kmax)
-        g = sum(np.einsum("pj,pj->p", xs[k], self.E[:, k]) for k in range(3))
-        gp = sum(np.einsum("pj,pj->p", xs[k + 1], self.E[:, k]) for k in range(3))
+        P = self.E.shape[0]
+        E = self.E.reshape(P, -1)
+        g = np.sum(np.concatenate(xs[:3], axis=-1) * E, axis=-1)
+        gp = np.sum(np.concatenate(xs[1:], axis=-1) * E, axis=-1)
         if self.Qa is not None and np.any(self.quad):
             x0, x1, x2 = xs[0], xs[1], xs[2]
-            q = np.einsum("pi,pij,pj->p", x0, self.Qa, x0) + np.einsum("pi,pij,pj->p", x0, self.Qb, x1)
-            qp = (2 * np.einsum("pi,pij,pj->p", x1, self.Qa, x0) + np.einsum("pi,pij,pj->p", x1, self.Qb, x1)
-                  + np.einsum("pi,pij,pj->p", x0, self.Qb, x2))
+            q = _pair_form(x0, self.Qa, x0) + _pair_form(x0, self.Qb, x1)
+            qp = 2 * _pair_form(x1, self.Qa, x0) + _pair_form(x1, self.Qb, x1) + _pair_form(x0, self.Qb, x2)
             g = g + np.where(self.quad, q, 0.0)
             gp = gp + np.where(self.quad, qp, 0.0)
         return g, gp
+
+
+def _pair_form(u, Q, v):
+    """uᵀ Q v per pair: u, v (P, n), Q (P, n, n) → (P,)."""
+    return np.sum(np.matmul(u[:, None, :], Q)[:, 0, :] * v, axis=-1)
 
 
 def _xis(seg, tau, kmax: int = 3):
@@ -339,7 +364,7 @@ def _extremum(pairs, a, b):
     """Where dg/dτ changes sign in (a, b) for each pair (bisection)."""
     _, da = pairs.values(a)
     sa = np.sign(da)
-    for _ in range(60):
+    for _ in range(_EXTREMUM_HALVINGS):
         m = 0.5 * (a + b)
         _, dm = pairs.values(m)
         same = np.sign(dm) == sa
@@ -348,29 +373,40 @@ def _extremum(pairs, a, b):
     return 0.5 * (a + b)
 
 
-def _refine(pairs, a, b, ga=None, gb=None):
+def _refine(pairs, a, b, ga=None, gb=None, *, figure: bool = False):
     """Root of g in [a, b] (g(a) < 0 ≤ g(b)) per pair, to a few ulp: Newton steps kept inside the
-    bracket, false position (Illinois) when a step leaves it; returns a point where g ≥ 0."""
+    bracket, false position (Illinois) when a step leaves it; returns a point where g ≥ 0.
+
+    With ``figure`` (a root a figure is read at, not one the segment ends at) a Newton step
+    inside the bracket shorter than 1e-9 of the bracket ends the refinement: its quadratic
+    convergence puts the next iterate within rounding of the root, and the side of the root it
+    lands on does not matter there.
+    """
     P = a.size
     a, b = a.copy(), b.copy()
     if ga is None or gb is None:
         ga, _ = pairs.values(a)
         gb, _ = pairs.values(b)
     ga, gb = np.minimum(ga.copy(), -1e-300), np.maximum(gb.copy(), 0.0)
+    width = (b - a) * _FIGURE_STEP if figure else np.zeros(P)
     with np.errstate(divide="ignore", invalid="ignore"):
         x = a - ga * (b - a) / (gb - ga)
     x = np.where(np.isfinite(x) & (x > a) & (x < b), x, 0.5 * (a + b))
     out = b.copy()
     idx = np.arange(P)
     sub = pairs
+    pos = np.arange(P)  # row of each active pair in ``sub``
     side = np.zeros(P, int)  # Illinois: which end was kept last
     for _it in range(_NEWTON_ITERS):
         xa = x[idx]
-        g, gp = sub.values(xa)
-        neg = g < 0
+        g, gp = sub.values(_rows_at(xa, pos, sub))
+        g, gp = g[pos], gp[pos]
+        # a value within rounding of zero while g falls is on the lower side: an upward
+        # crossing has g' ≥ 0, and the bracket's upper end still lies beyond one
+        neg = (g < 0) | ((g <= pairs.ztol[idx]) & (gp < 0))
         a_, b_, ga_, gb_ = a[idx], b[idx], ga[idx], gb[idx]
         a_ = np.where(neg, xa, a_)
-        ga_ = np.where(neg, g, ga_)
+        ga_ = np.where(neg, np.minimum(g, -1e-300), ga_)
         b_ = np.where(neg, b_, xa)
         gb_ = np.where(neg, gb_, g)
         s_ = np.where(neg, -1, 1)
@@ -384,16 +420,45 @@ def _refine(pairs, a, b, ga=None, gb=None):
             xf = a_ - ga_ * (b_ - a_) / (gb_ - ga_)
         inside = np.isfinite(xn) & (xn > a_) & (xn < b_)
         fp = np.isfinite(xf) & (xf > a_) & (xf < b_)
-        xn = np.where(inside, xn, np.where(fp, xf, 0.5 * (a_ + b_)))
         ulp = np.spacing(np.maximum(np.abs(xa), 1e-300))
-        done = (g == 0) | ((b_ - a_) <= 4 * ulp) | (inside & (np.abs(xn - xa) <= 2 * ulp))
+        # a Newton step past an end says the root is near that end (a root within rounding of a
+        # bracket end stalls false position): probe there, as far in as the step overshot
+        half = 0.5 * (b_ - a_)
+        with np.errstate(invalid="ignore"):
+            probe_a = a_ + np.minimum(half, np.maximum(4 * ulp, a_ - xn))
+            probe_b = b_ - np.minimum(half, np.maximum(4 * ulp, xn - b_))
+        xo = np.where(fp, xf, a_ + half)
+        xo = np.where(np.isfinite(xn) & (xn <= a_), probe_a, np.where(np.isfinite(xn) & (xn >= b_), probe_b, xo))
+        # still falling on the lower side: the crossing lies beyond a minimum, where neither
+        # Newton nor false position leads; halve the bracket
+        xo = np.where(neg & (gp < 0), a_ + half, xo)
+        xn = np.where(inside & ~(neg & (gp < 0)), xn, xo)
+        step = np.abs(xn - xa)
+        done = ((g == 0) & ~neg) | ((b_ - a_) <= 4 * ulp) | (inside & (step <= 2 * ulp))
         # converged from below: the root lies within the Newton step above xa (or at b)
         up = np.minimum(b_, np.maximum(xn, xa + 2 * ulp))
-        out[idx] = np.where(done, np.where(neg, up, xa), out[idx])
+        res = np.where(neg, up, xa)
+        if figure:
+            short = ((inside & (step <= width[idx])) | ((b_ - a_) <= width[idx])) & ~done
+            res = np.where(short, xn, res)
+            done = done | short
+        out[idx] = np.where(done, res, out[idx])
         a[idx], b[idx], ga[idx], gb[idx], x[idx] = a_, b_, ga_, gb_, xn
         keep = ~done
         if not np.any(keep):
             break
         idx = idx[keep]
-        sub = pairs.take(idx)
+        pos = pos[keep]
+        if idx.size < 0.5 * len(sub.E):  # compact the active pairs only when they have halved
+            sub = pairs.take(idx)
+            pos = np.arange(idx.size)
     return out
+
+
+def _rows_at(xa, pos, sub):
+    """τ for every row of ``sub``: the active pairs' iterates at their rows, the others unused."""
+    if pos.size == len(sub.E):
+        return xa
+    tau = np.zeros(len(sub.E))
+    tau[pos] = xa
+    return tau
