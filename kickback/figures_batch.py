@@ -8,6 +8,8 @@ that was not simulated has NaN everywhere and says why in its status.
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
 from kickback.figures import CONDUCTION_FRACTION, ON_STATE_FRACTION, ClampFigures, ElementFigures, Figures
@@ -188,22 +190,24 @@ def normalize_variations(case, variations) -> tuple[dict, int]:
     return out, (1 if n is None else n)
 
 
-def run_columns(case, variations, *, chunk: int = CHUNK, progress=None):
+def run_columns(case, variations, *, chunk: int = CHUNK, progress=None, workers: int | None = None):
     """Simulate every variant with the batch engine, chunk by chunk.
 
     Parameters
     ----------
     case : Case — the base case
     variations : dict — key path → (n,) values (see :func:`normalize_variations`)
-    chunk : int — variants per batch (memory is bounded by this, not by n)
+    chunk : int — variants per batch (memory is bounded by this × the workers, not by n)
     progress : callable or None — called with (done, n) after each batch
+    workers : int or None — processes to share the chunks (None: one per CPU when there are at
+        least :data:`PARALLEL_MIN` variants; 1: in this process). The chunks are then at most
+        n / workers long so that every worker has one.
 
     Returns
     -------
     (columns, ok, why, fits) — figure columns (n,), bool ok (n,), reasons (n,) object, fit notes
     """
-    from kickback.engine.batch import run
-    from kickback.engine.batch_params import BatchCircuit, value_getter
+    from kickback.engine.batch_params import value_getter
 
     var, n = normalize_variations(case, variations)
     get_all = value_getter(case, var, n)
@@ -212,29 +216,56 @@ def run_columns(case, variations, *, chunk: int = CHUNK, progress=None):
         if all(el.type == "capacitor" for el in cl.elements):
             cap = cap + sum(np.nan_to_num(get_all(f"clamp[{k}].element[{j}].capacitance"))
                             for j in range(len(cl.elements)))
+    if workers is None:
+        workers = (os.cpu_count() or 1) if n >= PARALLEL_MIN else 1
+    workers = max(1, int(workers))
+    if workers > 1:
+        chunk = max(1, min(chunk, -(-n // workers)))
+    jobs = []
+    for flag in (False, True):
+        rows_all = np.nonzero((cap > 0) == flag)[0]
+        jobs += [rows_all[s:s + chunk] for s in range(0, rows_all.size, chunk)]
     cols: dict = {}
     ok = np.zeros(n, bool)
     why = np.full(n, "", dtype=object)
     fits: list = []
     done = 0
-    for flag in (False, True):
-        rows_all = np.nonzero((cap > 0) == flag)[0]
-        for start in range(0, rows_all.size, chunk):
-            rows = rows_all[start:start + chunk]
-            get = value_getter(case, var, rows.size, rows)
-            bc = BatchCircuit(case, rows.size, get)
-            st = run(bc)
-            c = columns(bc, st)
-            for key, val in c.items():
-                if key not in cols:
-                    cols[key] = np.full(n, np.nan)
-                cols[key][rows] = val
-            ok[rows] = bc.ok
-            why[rows] = bc.why
-            for note in bc.fit_notes:
-                if note not in fits:
-                    fits.append(note)
-            done += rows.size
-            if progress is not None:
-                progress(done, n)
+    for rows, (c, ok_r, why_r, notes) in zip(jobs, _map_chunks(case, var, jobs, workers), strict=True):
+        for key, val in c.items():
+            if key not in cols:
+                cols[key] = np.full(n, np.nan)
+            cols[key][rows] = val
+        ok[rows] = ok_r
+        why[rows] = why_r
+        fits += [note for note in notes if note not in fits]
+        done += rows.size
+        if progress is not None:
+            progress(done, n)
     return cols, ok, why, fits
+
+
+#: variants from which run_columns shares the work among the CPUs by default
+PARALLEL_MIN = 5_000
+
+
+def _map_chunks(case, var, jobs, workers):
+    """Each chunk's (columns, ok, why, fit notes), in order; in ``workers`` processes if > 1."""
+    args = [(case, {k: v[rows] for k, v in var.items()}, rows.size) for rows in jobs]
+    if workers > 1 and len(jobs) > 1:
+        from concurrent.futures import ProcessPoolExecutor
+
+        with ProcessPoolExecutor(max_workers=min(workers, len(jobs))) as pool:
+            yield from pool.map(_run_chunk, *zip(*args, strict=True))
+        return
+    for a in args:
+        yield _run_chunk(*a)
+
+
+def _run_chunk(case, var, n):
+    """One batch: (columns, ok, why, fit notes) of its n variants."""
+    from kickback.engine.batch import run
+    from kickback.engine.batch_params import BatchCircuit, value_getter
+
+    bc = BatchCircuit(case, n, value_getter(case, var, n))
+    st = run(bc)
+    return columns(bc, st), bc.ok, bc.why, list(bc.fit_notes)

@@ -90,7 +90,8 @@ class ManyResult:
         return out
 
 
-def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CHUNK, progress=None) -> ManyResult:
+def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CHUNK, progress=None,
+                  workers: int | None = None) -> ManyResult:
     """Simulate many variants of ``case`` with the batch engine.
 
     Parameters
@@ -99,7 +100,9 @@ def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CH
     variations : dict — key path (as in the case file: "supply.voltage", "coil.inductance",
         "clamp[0].element[1].voltage", "switch.fall_time", …) → values in SI units, all of one
         length n; None or {}: the case itself (n = 1)
-    chunk : int — variants per batch; memory is bounded by it, not by n
+    chunk : int — variants per batch; memory is bounded by it (times the workers), not by n
+    workers : int or None — processes sharing the chunks (None: one per CPU from 5000 variants
+        on; 1: in this process only)
     progress : callable or None — progress(done, n) after each batch
 
     Returns
@@ -112,7 +115,7 @@ def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CH
     """
     variations = variations or {}
     var, n = normalize_variations(case, variations)
-    cols, ok, why, fits = run_columns(case, var, chunk=chunk, progress=progress)
+    cols, ok, why, fits = run_columns(case, var, chunk=chunk, progress=progress, workers=workers)
     get = value_getter(case, var, n)
     checks = check_columns(case, cols, get, n)
     passed = ok.copy()
