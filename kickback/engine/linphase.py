@@ -8,7 +8,7 @@ phase, and resolving its picosecond exponential step by step is most of a cycle'
 
 Here the affine model is taken from the circuit's analytic Jacobian at the settled node voltage,
 the phase is solved through the eigen-decomposition of the augmented matrix
-``[[A, b], [0, 0]]`` (checked against ``expm``), and the model is *verified* along the
+``[[A, b], [0, 0]]`` (its end state by an extended-precision exponential), and the model is *verified* along the
 solution: wherever the true right-hand side departs from it by more than :data:`LIN_TOL`
 (integrated over the phase, relative to each state's scale) the caller integrates as before.
 The energies (powers carried as states) are integrated by Gauss–Legendre quadrature of the
@@ -27,7 +27,6 @@ import math
 
 import numpy as np
 from numpy.polynomial import legendre
-from scipy.linalg import expm
 
 from kickback.circuit import Circuit
 from kickback.nodebalance import solve_monotone
@@ -38,9 +37,11 @@ LIN_TOL = 1e-12
 #: Gauss–Legendre nodes per panel
 GL_NODES = 10
 MAX_PANELS = 400
-#: allowed disagreement of the dense (eigenvector) solution with ``expm`` at the end of the
+#: the sampling grid of a closed-form phase has at least this many steps
+SAMPLE_SPLITS = 32
+#: allowed disagreement of the dense (eigenvector) solution with :func:`expm_extended` at the end of the
 #: phase, relative to each state's scale (eigenvalues of a stiff matrix are only accurate to
-#: ~eps·‖A‖; ``expm`` gives the end state that the cycle map uses)
+#: ~eps·‖A‖; the extended-precision exponential gives the end state that the cycle map uses)
 DENSE_TOL = 1e-10
 #: rounding allowance of a rate, relative to the sum of the magnitudes of its terms
 ROUNDING = 64 * np.finfo(float).eps
@@ -90,8 +91,9 @@ class AffineModel:
 class LinearSolution:
     """Dense closed-form solution of an affine phase: callable like scipy's OdeSolution."""
 
-    def __init__(self, t0, y0, ie, lam, vec, coef, edges, x_end, nodes=None, rates=None):
+    def __init__(self, t0, y0, ie, lam, vec, coef, edges, x_end, nodes=None, rates=None, steps=None):
         self.t0, self.y0, self.ie, self.x_end = t0, y0, ie, x_end
+        self.steps = edges if steps is None else steps  # [s] sampling grid offered to the sampler
         self.lam, self.vec, self.coef = lam, vec, coef
         self.edges = edges  # [s] absolute panel edges
         self.nodes, self.rates = nodes, rates  # GL nodes [s] per panel, power rates there
@@ -132,9 +134,32 @@ class LinearSolution:
         return out
 
 
+def expm_extended(M: np.ndarray, t: float) -> np.ndarray:
+    """``exp(M·t)`` by scaling and squaring of a Taylor series in extended precision
+    (``numpy.longdouble``): stiff matrices lose ~eps·‖M‖·t/|λ_slow| to the squarings, and the
+    extra digits keep that below double rounding for the matrices met here.
+
+    References
+    ----------
+    C. Moler and C. Van Loan, SIAM Review 45(1), 2003, method 3 (scaling and squaring).
+    """
+    a = np.asarray(M, dtype=np.longdouble) * np.longdouble(t)
+    norm = float(np.max(np.sum(np.abs(a), axis=0)))
+    s = max(0, int(math.ceil(math.log2(norm))) + 1) if norm > 0 else 0
+    a = a / np.longdouble(2.0) ** s
+    eye = np.eye(a.shape[0], dtype=np.longdouble)
+    term, out = eye.copy(), eye.copy()
+    for k in range(1, 24):  # ‖a‖ ≤ 1/2: the remainder is below 2⁻²⁴/24!
+        term = term @ a / np.longdouble(k)
+        out = out + term
+    for _ in range(s):
+        out = out @ out
+    return out
+
+
 def _decompose(A: np.ndarray, b: np.ndarray, x0: np.ndarray, span: float, scale: np.ndarray):
     """Eigen-decomposition of the augmented matrix (for the dense solution) and the end state by
-    ``expm`` (the more accurate on stiff matrices); None when the two disagree beyond
+    :func:`expm_extended` (the accurate one on stiff matrices); None when the two disagree beyond
     :data:`DENSE_TOL` or the decomposition is ill-conditioned."""
     m = A.shape[0] + 1
     M = np.zeros((m, m))
@@ -145,14 +170,17 @@ def _decompose(A: np.ndarray, b: np.ndarray, x0: np.ndarray, span: float, scale:
         return None
     coef = np.linalg.solve(vec, z0.astype(complex))
     z_end = np.real(vec @ (coef * np.exp(lam * span)))
-    ref = expm(M * span) @ z0
+    ref = np.asarray(expm_extended(M, span) @ z0.astype(np.longdouble), dtype=float)
     if not np.all(np.isfinite(ref)) or not np.all(np.abs(z_end[:-1] - ref[:-1]) <= DENSE_TOL * scale):
         return None
     return lam, vec, coef, ref[:-1]
 
 
-def _panels(lam, vec, coef, scale, span) -> np.ndarray | None:
-    """Panel edges (relative to the phase start) so that every mode still present is resolved."""
+def _panels(lam, vec, coef, scale, span, first=2.0, growth=0.5, live_level=1e-17) -> np.ndarray | None:
+    """Panel edges (relative to the phase start) so that every mode still present is resolved:
+    no longer than ``first`` time constants of a mode, growing by ``growth`` × the time since the
+    start once the mode has decayed (a mode is present while above ``live_level`` of the scales).
+    """
     sc = np.append(scale, 1.0)
     amp = np.abs(coef) * np.max(np.abs(vec) / sc[:, None], axis=0)
     mag = np.abs(lam)
@@ -160,9 +188,9 @@ def _panels(lam, vec, coef, scale, span) -> np.ndarray | None:
     t = 0.0
     while t < span:
         h = span - t
-        live = (mag > 0) & (amp * np.exp(lam.real * t) > 1e-17)
+        live = (mag > 0) & (amp * np.exp(lam.real * t) > live_level)
         for k in np.flatnonzero(live):
-            h = min(h, max(2.0, 0.5 * abs(lam[k].real) * t) / mag[k])
+            h = min(h, max(first, growth * abs(lam[k].real) * t) / mag[k])
         t = span if span - t - h < 1e-12 * span else t + h
         edges.append(t)
         if len(edges) > MAX_PANELS:
@@ -184,7 +212,13 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     if rel is None:
         return None
     edges = t0 + rel
-    sol = LinearSolution(t0, np.array(y0, dtype=float), ie, lam, vec, coef, edges, x_end)
+    # the sampled waveforms (figures by the trapezoidal rule, junction temperatures) need the fast
+    # modes finely resolved: steps of 1/50 of a time constant, growing by 5 % once decayed
+    fine = _panels(lam, vec, coef, scale, span, first=0.02, growth=0.05, live_level=1e-12)
+    steps = edges if fine is None else np.union1d(edges, t0 + fine)
+    # and the slow remainder no coarser than the Radau steps it replaces would sample it
+    steps = np.union1d(steps, np.linspace(t0, t_end, SAMPLE_SPLITS + 1))
+    sol = LinearSolution(t0, np.array(y0, dtype=float), ie, lam, vec, coef, edges, x_end, steps=steps)
     check_t = np.concatenate([edges[:-1, None] + np.diff(edges)[:, None] * _XI01[None, :]]).ravel() \
         if energies else edges
     ys = sol.dynamic(check_t)
@@ -199,7 +233,7 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     if not energies:
         return sol
     return LinearSolution(t0, sol.y0, ie, lam, vec, coef, edges, x_end, check_t.reshape(-1, GL_NODES),
-                          rates.reshape(len(edges) - 1, GL_NODES, -1))
+                          rates.reshape(len(edges) - 1, GL_NODES, -1), steps)
 
 
 def linear_event(model: AffineModel):
@@ -239,6 +273,6 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
     if sol is None:
         runner.run(name, t_end, [])
         return
-    runner.phases.append(Phase(name, runner.t, t_end, sol, sol.edges, None, c.conducting, c.t_turnoff))
+    runner.phases.append(Phase(name, runner.t, t_end, sol, sol.steps, None, c.conducting, c.t_turnoff))
     runner.y = sol(t_end)
     runner.t = t_end
