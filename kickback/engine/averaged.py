@@ -23,6 +23,12 @@ from kickback.engine.linphase import settled_probe
 from kickback.errors import SolverError
 
 
+def scales(c):
+    from kickback.engine.periodic import scales as _s
+
+    return _s(c)
+
+
 def _rates(c: Circuit, x: np.ndarray, conducting: bool) -> tuple[np.ndarray, np.ndarray]:
     """Dynamic rates and the state with the node settled, the switch on (or off, fall over)."""
     y = np.zeros(c.n_states)
@@ -59,8 +65,10 @@ def averaged_guess(c: Circuit, duty: float, frequency: float) -> np.ndarray:
 
     with np.errstate(all="ignore"):
         try:
-            xs, _, ier, _ = fsolve(mean_rate, fallback[slow], full_output=True, xtol=1e-12)
-            if ier != 1 or not np.all(np.isfinite(xs)):
+            xs, info, ier, _ = fsolve(mean_rate, fallback[slow], full_output=True, xtol=1e-10)
+            # accepted when the mean drift over a cycle is small against each state's scale
+            drift = np.abs(info["fvec"]) / frequency / scales(c)[slow]
+            if not np.all(np.isfinite(xs)) or not (ier == 1 or np.max(drift) < 1e-6):
                 return fallback
             x = full(xs)
             x = x - 0.5 * t_on * _rates(c, x, True)[0]  # back to the cycle's start

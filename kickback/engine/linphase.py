@@ -85,7 +85,9 @@ class AffineModel:
         x = y[: self.ie]
         d = np.abs(f[: self.ie] - self.A @ x - self.b)
         allow = LIN_TOL * self.scale / self.span + ROUNDING * (self._abs_a @ np.abs(x) + np.abs(self.b))
-        return float(np.max(d / allow)), f
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(d == 0.0, 0.0, d / allow)  # nothing allowed: any departure is infinite
+        return float(np.max(ratio)), f
 
 
 class LinearSolution:
