@@ -4,12 +4,21 @@ shooting (Newton's method on the one-cycle map).
 A cycle starts at turn-on (the switch conducts by its on-state law for ``D·T``), then the
 switch turns off (the channel current falls over the fall time) and stays off to ``T``. The
 dynamic states at the start of the cycle — coil current (or flux), node and snubber-capacitor
-voltages — are the unknowns of the fixed point ``x = Φ(x)``.
+voltages, motor speed — are the unknowns of the fixed point ``x = Φ(x)``.
+
+Speed (``python -m kickback.bench_pwm``): the on-phase, once the clamps have stopped conducting,
+is affine and solved in closed form (:mod:`kickback.engine.linphase`, verified along the way);
+Newton starts from the averaged model (:mod:`kickback.engine.averaged`), takes one
+finite-difference Jacobian and then Broyden's update; the cycle that meets the tolerance is the
+one reported (waveforms, energies, residual). On a piecewise-linear circuit the cycle map is
+affine, so the first Newton step lands on ``x* = (I − A)⁻¹·b`` and the next cycle verifies it.
 
 References
 ----------
 T. J. Aprille and T. N. Trick, "Steady-state analysis of nonlinear circuits with periodic
-inputs", Proc. IEEE 60(1), 1972 (shooting on the one-period map).
+inputs", Proc. IEEE 60(1), 1972 (shooting on the one-period map);
+C. G. Broyden, "A class of methods for solving nonlinear simultaneous equations", Math. Comp.
+19, 1965 (the rank-one Jacobian update).
 """
 
 from __future__ import annotations
@@ -26,6 +35,9 @@ from kickback.errors import SolverError
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
 MAX_NEWTON = 25
 CYCLE_RTOL = 1e-8
+#: residual below which the next cycle is solved in full (energies, kept for the figures): it is
+#: then expected to be the verifying one
+FINAL_FROM = 1e-6
 
 
 @dataclass(frozen=True)
@@ -41,7 +53,8 @@ class SteadyState:
     contraction : float — largest |eigenvalue| of the one-cycle map at the fixed point
     brute_force_cycles : int or None — cycles plain repetition from zero current would need to
         come within the same tolerance (from the contraction; None when it does not contract)
-    residual : float — relative fixed-point residual reached
+    residual : float — relative fixed-point residual reached (``|Φ(x) − x|`` of the reported
+        cycle, relative to each state's scale)
     """
 
     duty: float
@@ -56,7 +69,8 @@ class SteadyState:
     residual: float
 
 
-def _scales(c: Circuit) -> np.ndarray:
+def scales(c: Circuit) -> np.ndarray:
+    """Scale of each dynamic state: the on-state current (or flux), the voltage scale, the speed."""
     s = np.empty(c.ie)
     s[0] = abs(c.coil_state(c.i0))
     s[1:] = c.v_scale
@@ -65,8 +79,16 @@ def _scales(c: Circuit) -> np.ndarray:
     return s
 
 
-def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: float, keep: bool = False):
-    """Integrate one cycle from the dynamic state ``x0``; returns (x1, E_on, E_off, runner)."""
+_scales = scales  # former private name
+
+
+def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: float, keep: bool = False,
+              fast: bool = True, energies: bool = True):
+    """Integrate one cycle from the dynamic state ``x0``; returns (x1, E_on, E_off, runner).
+
+    ``fast``: solve the affine part of the on-phase in closed form where it is verified to hold.
+    ``energies=False`` (fast only): skip the on-phase energy quadrature; E_on and E_off are None.
+    """
     period = 1.0 / frequency
     t_on = duty * period
     y = np.zeros(c.n_states)
@@ -74,7 +96,16 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
     c.conducting, c.t_turnoff = True, t_on
     try:
         runner = PhaseRunner(c, rtol, y, 0.0)
-        runner.run("on", t_on, [])
+        if fast and not energies:
+            # the energies are not wanted: keep them out of the step-size control
+            runner.atol = runner.atol.copy()
+            runner.atol[c.ie:] = 1e300
+        if fast:
+            from kickback.engine.linphase import run_affine_phase
+
+            run_affine_phase(runner, "on", t_on, scales(c), energies)
+        else:
+            runner.run("on", t_on, [])
         e_on = runner.y[c.ie:].copy()
         # turn-off: the channel current falls from what it carries now
         v = float(runner.y[1]) if c.capacitive else c.node_voltage(t_on, runner.y)
@@ -87,6 +118,8 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
         if runner.t < period:
             runner.run("off", period, [], first_step=max(tf, period * 1e-9) / 1000)
         e_off = runner.y[c.ie:] - e_on
+        if fast and not energies:
+            e_on = e_off = None
         return runner.y[: c.ie].copy(), e_on, e_off, (runner if keep else None)
     finally:
         c.conducting, c.t_turnoff, c.pin = False, 0.0, None
@@ -94,63 +127,99 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
 
 def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | None = None,
                  x_guess: np.ndarray | None = None) -> SteadyState:
-    """Periodic steady state by Newton's method on the one-cycle map (finite-difference Jacobian).
+    """Periodic steady state by Newton's method on the one-cycle map: one finite-difference
+    Jacobian, Broyden updates, the averaged model as the first guess.
 
     Raises
     ------
     SolverError — Newton did not converge; the message gives the residual reached.
     """
-    # cycles tighter than a single turn-off: the fixed point is wanted to 1e-9 and each Newton
-    # step differences two cycle solves
+    # cycles tighter than a single turn-off: the fixed point is wanted to 1e-9 and the Jacobian
+    # differences two cycle solves
     rtol = min(DEFAULT_RTOL if rtol is None else rtol, CYCLE_RTOL)
-    scale = _scales(c)
-    x = np.array(x_guess if x_guess is not None else _guess(c, duty), dtype=float)
+    scale = scales(c)
+    n = c.ie
+    if x_guess is None:
+        from kickback.engine.averaged import averaged_guess
+
+        x_guess = averaged_guess(c, duty, frequency)
+    x = np.array(x_guess, dtype=float)
     solves = 0
-    resid = math.inf
-    jm = None
+    resid = step = math.inf
+    jm = None  # Jacobian of the cycle map Φ
+    f_prev = x_prev = None
+    full = False  # the first cycle (at the guess) is solved without energies, every later one in full
     for _ in range(MAX_NEWTON):
-        x1 = one_cycle(c, x, duty, frequency, rtol)[0]
+        x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
         solves += 1
         f = x1 - x
         resid = float(np.max(np.abs(f) / scale))
-        if resid <= STEADY_TOL:
-            break
-        jm = np.empty((c.ie, c.ie))
-        for j in range(c.ie):
-            h = 1e-6 * scale[j]
-            xp = x.copy()
-            xp[j] += h
-            jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol)[0] - x1) / h
-            solves += 1
-        x = x - np.linalg.solve(jm - np.eye(c.ie), f)
+        if jm is None and resid > STEADY_TOL:
+            jm = np.empty((n, n))
+            for j in range(n):
+                h = 1e-6 * scale[j]
+                xp = x.copy()
+                xp[j] += h
+                jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x1) / h
+                solves += 1
+        elif jm is not None and x_prev is not None:
+            # Broyden's rank-one update of F(x) = Φ(x) − x along the last step (scaled states)
+            dx = (x - x_prev) / scale
+            df = (f - f_prev) / scale
+            bs = (jm - np.eye(n)) * scale[None, :] / scale[:, None]
+            bs += np.outer(df - bs @ dx, dx) / float(dx @ dx)
+            jm = bs * scale[:, None] / scale[None, :] + np.eye(n)
+        dx_next = -np.linalg.solve(jm - np.eye(n), f) if jm is not None else np.zeros(n)
+        # distance to the fixed point: the Newton step (the residual alone understates it by
+        # 1/(1 − ρ) when the map contracts slowly)
+        step = float(np.max(np.abs(dx_next) / scale))
+        if resid <= STEADY_TOL and step <= STEADY_TOL:
+            if full:
+                break
+            full = True  # met at the guess: solve this cycle again in full, to report it
+            continue
+        x_prev, f_prev = x, f
+        x = x + dx_next
+        full = True
     else:
         raise SolverError(f"the periodic steady state did not converge at duty {duty:g} "
-                          f"(relative residual {resid:.1e} after {MAX_NEWTON} Newton steps)")
+                          f"(relative residual {resid:.1e}, Newton step {step:.1e} after {MAX_NEWTON} "
+                          f"Newton steps)")
     if jm is None:  # converged at the first guess: estimate the map's Jacobian for the contraction
-        jm = np.empty((c.ie, c.ie))
-        for j in range(c.ie):
+        jm = np.empty((n, n))
+        for j in range(n):
             xp = x.copy()
             xp[j] += 1e-6 * scale[j]
-            jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol)[0] - x) / (1e-6 * scale[j])
+            jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x) / (1e-6 * scale[j])
             solves += 1
+    rho, brute = brute_force_estimate(c, x, jm)
+    w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
+    return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid)
+
+
+def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
+    """(Contraction ρ = largest |eigenvalue| of the map's Jacobian, cycles plain repetition from
+    zero current and discharged capacitors needs to come within :data:`STEADY_TOL`)."""
     rho = float(np.max(np.abs(np.linalg.eigvals(jm))))
-    start_err = float(np.max(np.abs(x) / scale))  # from zero current and discharged capacitors
+    start_err = float(np.max(np.abs(x) / scales(c)))
     brute = None
     if 0 < rho < 1 and start_err > STEADY_TOL:
         brute = int(math.ceil(math.log(STEADY_TOL / start_err) / math.log(rho)))
-    x_end, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
-    solves += 1
+    return rho, brute
+
+
+def steady_waveforms(c: Circuit, runner: PhaseRunner, rtol: float, engine: str) -> Waveforms:
+    """Sampled waveforms of a kept cycle."""
     from kickback.engine.sampling import sample_run
 
     w = sample_run(c, runner.phases, {"10%": None, "1%": None, "zero": None}, runner.peaks, False, rtol,
                    runner.calls, 6)
-    w.engine = "detailed, periodic steady state"
-    return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid)
+    w.engine = engine
+    return w
 
 
 def _guess(c: Circuit, duty: float) -> np.ndarray:
-    """Start: the on-state scaled by the duty (an averaged model), capacitors at their on-state."""
-    y = c.initial_state()
-    x = y[: c.ie].copy()
-    x[0] = c.coil_state(duty * c.i0)
-    return x
+    """The first guess of the reference shooting (kept for callers of the former name)."""
+    from kickback.engine.periodic_reference import naive_guess
+
+    return naive_guess(c, duty)
