@@ -25,10 +25,11 @@ _ORIGINAL = _radau.solve_collocation_system
 RESIDUAL_LIMIT = 1.0
 
 
-def checked_collocation(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve_lu):
-    """scipy's ``solve_collocation_system`` followed by a residual check (same signature)."""
+def checked_collocation(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve_lu, fresh=False):
+    """scipy's ``solve_collocation_system`` followed by a residual check (same signature, plus
+    ``fresh``: the Jacobian was evaluated at this step's start, and the check is skipped)."""
     converged, n_iter, Z, rate = _ORIGINAL(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve_lu)
-    if not converged:
+    if not converged or fresh:
         return converged, n_iter, Z, rate
     F = np.array([fun(t + c * h, y + z) for c, z in zip(_radau.C, Z, strict=True)])
     if not np.all(np.isfinite(F)):
@@ -41,10 +42,24 @@ def checked_collocation(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve
 
 
 class CheckedNewton:
-    """Mixin for a Radau subclass: every step's Newton iterations end with the residual check."""
+    """Mixin for a Radau subclass: Newton iterations with a Jacobian kept from an earlier step
+    end with the residual check (a Jacobian evaluated at the step's own start is trusted)."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        jac = self.jac
+        self._jac_at = self.t
+        if callable(jac):
+            def recorded(t, y, f=None):
+                self._jac_at = t
+                return jac(t, y, f) if f is not None else jac(t, y)
+            self.jac = recorded
 
     def _step_impl(self):
-        _radau.solve_collocation_system = checked_collocation
+        def checked(*args):
+            return checked_collocation(*args, fresh=self._jac_at == args[1])
+
+        _radau.solve_collocation_system = checked
         try:
             return super()._step_impl()
         finally:
