@@ -30,6 +30,7 @@ from __future__ import annotations
 import numpy as np
 
 from kickback.engine.pwl import ScalarSegment
+from kickback.engine.pwl_refine import _refine
 from kickback.engine.pwl_scalar_roots import closed_scalar, quadratic, scalar_pieces
 
 #: grid points per case evaluated in one round
@@ -38,9 +39,6 @@ ROUND = 12
 #: its slope times this many ulp of the absolute time (where the last event was located)
 START_TOL = 256 * np.finfo(float).eps
 START_ULPS = 16
-_NEWTON_ITERS = 100
-#: a figure root's refinement ends at a Newton step this fraction of its bracket (see _refine)
-_FIGURE_STEP = 1e-9
 #: halvings locating a grazing extremum: 2^-34 of the interval puts g there within ~1e-20 of
 #: its curvature scale of the extreme value, far below what decides its sign
 _EXTREMUM_HALVINGS = 34
@@ -371,94 +369,3 @@ def _extremum(pairs, a, b):
         a = np.where(same, m, a)
         b = np.where(same, b, m)
     return 0.5 * (a + b)
-
-
-def _refine(pairs, a, b, ga=None, gb=None, *, figure: bool = False):
-    """Root of g in [a, b] (g(a) < 0 ≤ g(b)) per pair, to a few ulp: Newton steps kept inside the
-    bracket, false position (Illinois) when a step leaves it; returns a point where g ≥ 0.
-
-    With ``figure`` (a root a figure is read at, not one the segment ends at) a Newton step
-    inside the bracket shorter than 1e-9 of the bracket ends the refinement: its quadratic
-    convergence puts the next iterate within rounding of the root, and the side of the root it
-    lands on does not matter there.
-    """
-    P = a.size
-    a, b = a.copy(), b.copy()
-    if ga is None or gb is None:
-        ga, _ = pairs.values(a)
-        gb, _ = pairs.values(b)
-    ga, gb = np.minimum(ga.copy(), -1e-300), np.maximum(gb.copy(), 0.0)
-    width = (b - a) * _FIGURE_STEP if figure else np.zeros(P)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        x = a - ga * (b - a) / (gb - ga)
-    x = np.where(np.isfinite(x) & (x > a) & (x < b), x, 0.5 * (a + b))
-    out = b.copy()
-    idx = np.arange(P)
-    sub = pairs
-    pos = np.arange(P)  # row of each active pair in ``sub``
-    side = np.zeros(P, int)  # Illinois: which end was kept last
-    for _it in range(_NEWTON_ITERS):
-        xa = x[idx]
-        g, gp = sub.values(_rows_at(xa, pos, sub))
-        g, gp = g[pos], gp[pos]
-        # a value within rounding of zero while g falls is on the lower side: an upward
-        # crossing has g' ≥ 0, and the bracket's upper end still lies beyond one
-        neg = (g < 0) | ((g <= pairs.ztol[idx]) & (gp < 0))
-        a_, b_, ga_, gb_ = a[idx], b[idx], ga[idx], gb[idx]
-        a_ = np.where(neg, xa, a_)
-        ga_ = np.where(neg, np.minimum(g, -1e-300), ga_)
-        b_ = np.where(neg, b_, xa)
-        gb_ = np.where(neg, gb_, g)
-        s_ = np.where(neg, -1, 1)
-        # Illinois: halve the value kept twice in a row
-        same = side[idx] == s_
-        ga_ = np.where(same & ~neg, 0.5 * ga_, ga_)
-        gb_ = np.where(same & neg, 0.5 * gb_, gb_)
-        side[idx] = s_
-        with np.errstate(divide="ignore", invalid="ignore"):
-            xn = xa - g / gp
-            xf = a_ - ga_ * (b_ - a_) / (gb_ - ga_)
-        inside = np.isfinite(xn) & (xn > a_) & (xn < b_)
-        fp = np.isfinite(xf) & (xf > a_) & (xf < b_)
-        ulp = np.spacing(np.maximum(np.abs(xa), 1e-300))
-        # a Newton step past an end says the root is near that end (a root within rounding of a
-        # bracket end stalls false position): probe there, as far in as the step overshot
-        half = 0.5 * (b_ - a_)
-        with np.errstate(invalid="ignore"):
-            probe_a = a_ + np.minimum(half, np.maximum(4 * ulp, a_ - xn))
-            probe_b = b_ - np.minimum(half, np.maximum(4 * ulp, xn - b_))
-        xo = np.where(fp, xf, a_ + half)
-        xo = np.where(np.isfinite(xn) & (xn <= a_), probe_a, np.where(np.isfinite(xn) & (xn >= b_), probe_b, xo))
-        # still falling on the lower side: the crossing lies beyond a minimum, where neither
-        # Newton nor false position leads; halve the bracket
-        xo = np.where(neg & (gp < 0), a_ + half, xo)
-        xn = np.where(inside & ~(neg & (gp < 0)), xn, xo)
-        step = np.abs(xn - xa)
-        done = ((g == 0) & ~neg) | ((b_ - a_) <= 4 * ulp) | (inside & (step <= 2 * ulp))
-        # converged from below: the root lies within the Newton step above xa (or at b)
-        up = np.minimum(b_, np.maximum(xn, xa + 2 * ulp))
-        res = np.where(neg, up, xa)
-        if figure:
-            short = ((inside & (step <= width[idx])) | ((b_ - a_) <= width[idx])) & ~done
-            res = np.where(short, xn, res)
-            done = done | short
-        out[idx] = np.where(done, res, out[idx])
-        a[idx], b[idx], ga[idx], gb[idx], x[idx] = a_, b_, ga_, gb_, xn
-        keep = ~done
-        if not np.any(keep):
-            break
-        idx = idx[keep]
-        pos = pos[keep]
-        if idx.size < 0.5 * len(sub.E):  # compact the active pairs only when they have halved
-            sub = pairs.take(idx)
-            pos = np.arange(idx.size)
-    return out
-
-
-def _rows_at(xa, pos, sub):
-    """τ for every row of ``sub``: the active pairs' iterates at their rows, the others unused."""
-    if pos.size == len(sub.E):
-        return xa
-    tau = np.zeros(len(sub.E))
-    tau[pos] = xa
-    return tau
