@@ -10,6 +10,10 @@ import click
 from kickback import __version__
 
 TEMPLATES = ("relay", "valve", "motor")
+ENGINES = ("auto", "batch", "detailed")
+ENGINE_HELP = ("auto: the batch engine (exact piecewise-linear, all variants at once) unless the case has a "
+               "feature it does not cover (thermal networks, saturating coil, [drive], motor), then the detailed "
+               "engine; batch or detailed: that engine.")
 
 
 def _die(message: str) -> None:
@@ -147,17 +151,21 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
 @click.option("--log", is_flag=True, help="Space the points logarithmically.")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
+@click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True,
+              help=ENGINE_HELP)
 @click.option("--json", "as_json", is_flag=True, help="Print the sweep as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write sweep.csv, sweep.json and the plot into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
-def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out_dir, no_plot: bool) -> None:
     """Run CASE over a range of one or two of its values and tabulate the figures.
 
+    The batch engine runs every point at once unless the case has a feature it does not cover
+    (then the detailed engine, in worker processes); the output names the engine and its fits.
     Exit status: 0 when every point passes its checks, 1 when one fails, 2 on bad input.
     """
     import os
 
-    from kickback.errors import CaseError
+    from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.sweeps import sweep_csv, sweep_table
     from kickback.studies.sweep import parse_vary, run_sweep
@@ -169,9 +177,12 @@ def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot
         for ax in axes:
             n *= len(ax.values)
         workers = workers or min(os.cpu_count() or 1, 8)
-        sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress))
+        sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress,
+                                                                  engine=engine))
     except CaseError as err:
         _die(f"{c.source}: {err.key}: {err.message}" if err.key else f"{c.source}: {err.message}")
+    except SolverError as err:
+        _die(f"{c.source}: --engine: {err}")
     payload = to_json(sw.to_dict())
     if out_dir is not None:
         files = {"sweep.csv": sweep_csv(sw), "sweep.json": payload}
