@@ -199,18 +199,22 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
 @click.argument("case", metavar="CASE.toml")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
+@click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True,
+              help=ENGINE_HELP + " The top choices are always simulated again with the detailed engine.")
 @click.option("--json", "as_json", is_flag=True, help="Print the choice as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write choose.json and the trade-off plot into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
-def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: bool) -> None:
     """Search clamp families over standard values (E24 voltages, E12 R and C) against the case's
     constraints and rank the feasible choices.
 
+    Each family's candidates run as one batch of the batch engine (unless the case has a feature
+    it does not cover); candidates near a limit and the top choices are judged by the detailed engine.
     Exit status: 0 when a feasible choice exists, 1 when none does, 2 on bad input.
     """
     import os
 
-    from kickback.errors import CaseError
+    from kickback.errors import CaseError, SolverError
     from kickback.outputs.choice import choice_table
     from kickback.outputs.jsonout import to_json
     from kickback.studies.choose import choose as run_choose
@@ -218,9 +222,11 @@ def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
     c = _load(case)
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
-        ch = run_choose(c, workers=workers)
+        ch = run_choose(c, workers=workers, engine=engine)
     except CaseError as err:
         _die(str(err))
+    except SolverError as err:
+        _die(f"{c.source}: --engine: {err}")
     payload = to_json(ch.to_dict())
     if out_dir is not None:
         files = {"choose.json": payload}

@@ -298,6 +298,13 @@ def measured_section(measured=None) -> Section | None:
     return Section("measured", "Measured against simulated", body)
 
 
+def _engine_note(study, lead: str) -> str:
+    """The engine of a study (and the batch engine's fits) as a note paragraph."""
+    fits = "".join(f"<br>fit: {escape(f)}" for f in study.fits)
+    note = f"<br>{escape(study.engine_note)}" if study.engine_note else ""
+    return f'<p class="note">{escape(lead)} {escape(study.engine)} engine.{fits}{note}</p>'
+
+
 def tradeoff_section(choice=None) -> Section | None:
     """The clamp choice (:func:`kickback.studies.choose.choose`): ranked choices and the
     release-versus-voltage trade-off; None without one."""
@@ -312,6 +319,10 @@ def tradeoff_section(choice=None) -> Section | None:
             "values (E24 voltages, E12 resistors and capacitors) meet the case's constraints; fastest release "
             "first, then switch-voltage margin, then fewest parts. Candidates use a generic diode and ideal "
             "Zener/TVS: they show the trade-off, they are not parts.</p>")
+    body += _engine_note(choice, "candidates screened by the")
+    if choice.confirmed:
+        body += (f'<p class="note">Near a limit, judged on the detailed engine\'s figures: '
+                 f"{escape(', '.join(choice.confirmed))}.</p>")
     body += parts.table(["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"],
                         rows)
     body += _figure(tradeoff_figure(choice), "trade", "Release time against peak switch voltage per family; "

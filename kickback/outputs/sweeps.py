@@ -38,8 +38,8 @@ def engine_lines(study) -> list[str]:
     """What the engine of a study (sweep, choice, tolerance) was: the batch engine's exactness and
     its fits, or why the detailed engine ran."""
     out = []
-    if study.engine == "batch":
-        out.append("batch engine: exact piecewise-linear solution, vectorised over the points"
+    if study.engine in ("batch", "mixed"):
+        out.append(f"{study.engine} engine: exact piecewise-linear solution, vectorised over the variants"
                    + ("; nonlinear laws as stated fits:" if study.fits else " (every law exact, no fit)"))
         out += [f"  fit: {f}" for f in study.fits]
     else:

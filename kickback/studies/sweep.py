@@ -110,6 +110,11 @@ def point_figures(case: Case) -> dict:
         r = simulate(case)
     except KickbackError as err:
         return {"error": getattr(err, "message", None) or str(err)}
+    return result_figures(r)
+
+
+def result_figures(r) -> dict:
+    """A detailed-engine :class:`~kickback.result.Result` as :func:`point_figures` keeps it."""
     f = r.figures
     return {"peak_voltage_V": f.peak_voltage_V, "clamp_energy_J": sum(c.energy_J for c in f.clamps),
             "avalanche_energy_J": f.avalanche_energy_J, "to_10_percent_s": f.to_10_percent_s,
