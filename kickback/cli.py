@@ -334,17 +334,24 @@ def _report_date() -> str:
 @click.option("--seed", type=int, default=1, show_default=True, help="Random state: same seed, same numbers.")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
+@click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True, help=ENGINE_HELP)
+@click.option("--recheck", type=click.IntRange(0, 10_000), default=16, show_default=True, metavar="K",
+              help="With the batch engine: run K samples drawn at random again with the detailed engine and "
+                   "report the largest difference per figure (0: none).")
 @click.option("--json", "as_json", is_flag=True, help="Print the study as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write tolerance.json, samples.csv and histograms into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the histograms.")
-def tolerance(case: str, samples: int, seed: int, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck: int, as_json: bool, out_dir,
+              no_plot: bool) -> None:
     """Monte Carlo over the case's [tolerance] bands: percentiles, yield, worst cases, sensitivity.
 
+    The samples run on the batch engine in chunks (unless the case has a feature it does not
+    cover: then the detailed engine, in worker processes); the output names the engine.
     Exit status: 0 when every sample passes, 1 when any fails, 2 on bad input.
     """
     import os
 
-    from kickback.errors import CaseError
+    from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.tolerances import samples_csv, tolerance_table
     from kickback.studies.tolerance import run_tolerance
@@ -353,9 +360,12 @@ def tolerance(case: str, samples: int, seed: int, workers, as_json: bool, out_di
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
         tr = _with_progress("samples", samples,
-                            lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress))
+                            lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
+                                                           engine=engine, recheck=recheck))
     except CaseError as err:
         _die(str(err))
+    except SolverError as err:
+        _die(f"{c.source}: --engine: {err}")
     payload = to_json(tr.to_dict())
     if out_dir is not None:
         files = {"tolerance.json": payload, "samples.csv": samples_csv(tr)}
