@@ -94,18 +94,51 @@ class Evaluation:
     confirmed: tuple
 
 
-def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto") -> Evaluation:
-    """Every candidate of every family, simulated (one batch per family; see the module docstring)."""
+#: a family with fewer candidates than this runs on the detailed engine: a batch costs about as
+#: much as a few detailed runs however few variants it holds (measured by kickback.bench_studies)
+MIN_BATCH = 3
+
+
+def _family_points(cases: list, engine: str, workers: int):
+    """One family's candidates (same topology) through :func:`kickback.studies.points.evaluate_cases`;
+    a family smaller than :data:`MIN_BATCH` on the detailed engine when the choice is automatic."""
     from kickback.studies.points import evaluate_cases
 
+    if engine == "auto" and len(cases) < MIN_BATCH:
+        pts = evaluate_cases(cases, engine="auto", workers=1)
+        if pts.engine == "batch":
+            pts = evaluate_cases(cases, engine="detailed", workers=1)
+        return pts
+    return evaluate_cases(cases, engine=engine, workers=workers)
+
+
+def _family_job(args):
+    cases, engine = args
+    return _family_points(cases, engine, 1)
+
+
+def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto") -> Evaluation:
+    """Every candidate of every family, simulated (one batch per family, the families shared out
+    over ``workers`` processes; see the module docstring)."""
+    from kickback.studies.points import pick_engine
+
+    pick_engine(case, engine)  # raises for engine="batch" on a case the batch engine does not cover
     v_allow = allowed_voltage(case)
+    fams = [(fam, lst) for fam, lst in family_candidates(case).items() if lst]
+    jobs = [([replace(case, clamps=opt.clamps, options=()) for _, _, opt in lst], engine) for _, lst in fams]
+    if workers > 1 and len(jobs) > 1:
+        from concurrent.futures import ProcessPoolExecutor
+
+        # the largest families first, so that the processes finish together
+        order = sorted(range(len(jobs)), key=lambda j: -len(jobs[j][0]))
+        with ProcessPoolExecutor(max_workers=min(workers, len(jobs))) as pool:
+            found = dict(zip(order, pool.map(_family_job, [jobs[j] for j in order]), strict=True))
+        results = [found[j] for j in range(len(jobs))]
+    else:
+        results = [_family_points(cs, eng, workers) for cs, eng in jobs]
     out, near, engines, fits, notes = [], [], set(), [], []
     done = 0
-    for fam, lst in family_candidates(case).items():
-        if not lst:
-            continue
-        cases = [replace(case, clamps=opt.clamps, options=()) for _, _, opt in lst]
-        pts = evaluate_cases(cases, engine=engine, workers=workers)
+    for (fam, lst), pts in zip(fams, results, strict=True):
         engines.add(pts.engine)
         fits += [f for f in pts.fits if f not in fits]
         if pts.note and pts.note not in notes:

@@ -202,7 +202,12 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     flist = figure_list(case)
     rng = np.random.default_rng(seed)
     matrix = sample(case, n, rng)
-    figs, passed, errors, worst, fits, retried = _monte_carlo(case, matrix, flist, used, workers, progress, chunk)
+    idx = np.sort(rng.choice(n, size=min(recheck, n), replace=False)) if used == "batch" and recheck > 0 else None
+    with _Recheck(case, matrix, idx, workers) as later:
+        figs, passed, errors, worst, fits, retried = _monte_carlo(case, matrix, flist, used, workers, progress,
+                                                                  chunk)
+        study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
+        check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
     if retried:
         note = (note + "; " if note else "") + (f"{retried} sample(s) the batch engine could not simulate were run "
                                                 "by the detailed engine")
@@ -211,6 +216,48 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
            for f, a in figs.items()}
     worst_per_check = {name: {"margin": _opt(m), "value": _opt(v), "limit": _opt(lim),
                               "params": _params(names, matrix[j])} for name, (_key, j, v, lim, m) in worst.items()}
+    corners, search, sens = study
+    return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
+                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check)
+
+
+class _Recheck:
+    """The detailed engine's run of the recheck samples, started in worker processes before the
+    batch engine runs the Monte Carlo (the two share the machine's cores), or run when asked."""
+
+    def __init__(self, case, matrix, idx, workers):
+        self.case, self.rows, self.workers = case, None if idx is None else matrix[idx], workers
+        self.pool, self.futures = None, []
+
+    def __enter__(self):
+        if self.rows is not None and self.workers > 1 and len(self.rows) > 1:
+            from concurrent.futures import ProcessPoolExecutor
+
+            k = max(1, self.workers - 1)
+            self.pool = ProcessPoolExecutor(max_workers=k)
+            self.futures = [self.pool.submit(_detailed_points, self.case, part)
+                            for part in np.array_split(self.rows, k) if len(part)]
+        return self
+
+    def points(self):
+        from kickback.studies.points import concat
+
+        if self.futures:
+            return concat([f.result() for f in self.futures])
+        return _detailed_points(self.case, self.rows)
+
+    def __exit__(self, *exc):
+        if self.pool is not None:
+            self.pool.shutdown(wait=True, cancel_futures=True)
+        return False
+
+
+def _detailed_points(case, rows):
+    return evaluate(case, rows, engine="detailed")
+
+
+def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
+    """Corners, the worst-case search and the one-at-a-time sensitivity."""
 
     def figures_at(x):
         pts = evaluate(case, x, engine=used, workers=workers)
@@ -240,12 +287,7 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
             swings = [(names[i], float(a[2 * i + 1] - a[2 * i])) for i in range(len(names))
                       if np.isfinite(a[2 * i]) and np.isfinite(a[2 * i + 1])]
             sens[f] = sorted(swings, key=lambda s: -abs(s[1]))
-    check = None
-    if used == "batch" and recheck > 0:
-        idx = np.sort(rng.choice(n, size=min(recheck, n), replace=False))
-        check = recheck_detailed(case, matrix, idx, figs, passed, flist, workers=workers)
-    return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
-                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check)
+    return corners, search, sens
 
 
 def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
@@ -307,11 +349,10 @@ def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, bu
     return search
 
 
-def recheck_detailed(case, matrix, idx, figs, passed, flist, *, workers: int = 1) -> dict:
-    """Samples ``idx`` run again by the detailed engine: per figure the largest absolute and
-    relative difference (batch − detailed) and where, times present in one engine only, and
-    verdicts that differ."""
-    pts = evaluate(case, matrix[idx], engine="detailed", workers=workers)
+def recheck_detailed(idx, figs, passed, flist, pts) -> dict:
+    """Samples ``idx`` as run again by the detailed engine (``pts``, :class:`Points`) against the
+    batch engine's figures ``figs``: per figure the largest absolute and relative difference
+    (batch − detailed) and where, times present in one engine only, and verdicts that differ."""
     out = {}
     for f, unit, _ in flist:
         a, b = figs[f][idx], pts.figures.get(f, np.full(idx.size, np.nan))
