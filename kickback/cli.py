@@ -10,6 +10,10 @@ import click
 from kickback import __version__
 
 TEMPLATES = ("relay", "valve", "motor")
+ENGINES = ("auto", "batch", "detailed")
+ENGINE_HELP = ("auto: the batch engine (exact piecewise-linear, all variants at once) unless the case has a "
+               "feature it does not cover (thermal networks, saturating coil, [drive], motor), then the detailed "
+               "engine; batch or detailed: that engine.")
 
 
 def _die(message: str) -> None:
@@ -147,17 +151,21 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
 @click.option("--log", is_flag=True, help="Space the points logarithmically.")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
+@click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True,
+              help=ENGINE_HELP)
 @click.option("--json", "as_json", is_flag=True, help="Print the sweep as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write sweep.csv, sweep.json and the plot into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
-def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out_dir, no_plot: bool) -> None:
     """Run CASE over a range of one or two of its values and tabulate the figures.
 
+    The batch engine runs every point at once unless the case has a feature it does not cover
+    (then the detailed engine, in worker processes); the output names the engine and its fits.
     Exit status: 0 when every point passes its checks, 1 when one fails, 2 on bad input.
     """
     import os
 
-    from kickback.errors import CaseError
+    from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.sweeps import sweep_csv, sweep_table
     from kickback.studies.sweep import parse_vary, run_sweep
@@ -169,9 +177,12 @@ def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot
         for ax in axes:
             n *= len(ax.values)
         workers = workers or min(os.cpu_count() or 1, 8)
-        sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress))
+        sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress,
+                                                                  engine=engine))
     except CaseError as err:
         _die(f"{c.source}: {err.key}: {err.message}" if err.key else f"{c.source}: {err.message}")
+    except SolverError as err:
+        _die(f"{c.source}: --engine: {err}")
     payload = to_json(sw.to_dict())
     if out_dir is not None:
         files = {"sweep.csv": sweep_csv(sw), "sweep.json": payload}
@@ -188,18 +199,22 @@ def sweep(case: str, varies, log: bool, workers, as_json: bool, out_dir, no_plot
 @click.argument("case", metavar="CASE.toml")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
+@click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True,
+              help=ENGINE_HELP + " The top choices are always simulated again with the detailed engine.")
 @click.option("--json", "as_json", is_flag=True, help="Print the choice as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write choose.json and the trade-off plot into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
-def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: bool) -> None:
     """Search clamp families over standard values (E24 voltages, E12 R and C) against the case's
     constraints and rank the feasible choices.
 
+    Each family's candidates run as one batch of the batch engine (unless the case has a feature
+    it does not cover); candidates near a limit and the top choices are judged by the detailed engine.
     Exit status: 0 when a feasible choice exists, 1 when none does, 2 on bad input.
     """
     import os
 
-    from kickback.errors import CaseError
+    from kickback.errors import CaseError, SolverError
     from kickback.outputs.choice import choice_table
     from kickback.outputs.jsonout import to_json
     from kickback.studies.choose import choose as run_choose
@@ -207,9 +222,11 @@ def choose(case: str, workers, as_json: bool, out_dir, no_plot: bool) -> None:
     c = _load(case)
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
-        ch = run_choose(c, workers=workers)
+        ch = run_choose(c, workers=workers, engine=engine)
     except CaseError as err:
         _die(str(err))
+    except SolverError as err:
+        _die(f"{c.source}: --engine: {err}")
     payload = to_json(ch.to_dict())
     if out_dir is not None:
         files = {"choose.json": payload}
@@ -317,17 +334,24 @@ def _report_date() -> str:
 @click.option("--seed", type=int, default=1, show_default=True, help="Random state: same seed, same numbers.")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
+@click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True, help=ENGINE_HELP)
+@click.option("--recheck", type=click.IntRange(0, 10_000), default=16, show_default=True, metavar="K",
+              help="With the batch engine: run K samples drawn at random again with the detailed engine and "
+                   "report the largest difference per figure (0: none).")
 @click.option("--json", "as_json", is_flag=True, help="Print the study as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write tolerance.json, samples.csv and histograms into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the histograms.")
-def tolerance(case: str, samples: int, seed: int, workers, as_json: bool, out_dir, no_plot: bool) -> None:
+def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck: int, as_json: bool, out_dir,
+              no_plot: bool) -> None:
     """Monte Carlo over the case's [tolerance] bands: percentiles, yield, worst cases, sensitivity.
 
+    The samples run on the batch engine in chunks (unless the case has a feature it does not
+    cover: then the detailed engine, in worker processes); the output names the engine.
     Exit status: 0 when every sample passes, 1 when any fails, 2 on bad input.
     """
     import os
 
-    from kickback.errors import CaseError
+    from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.tolerances import samples_csv, tolerance_table
     from kickback.studies.tolerance import run_tolerance
@@ -336,9 +360,12 @@ def tolerance(case: str, samples: int, seed: int, workers, as_json: bool, out_di
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
         tr = _with_progress("samples", samples,
-                            lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress))
+                            lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
+                                                           engine=engine, recheck=recheck))
     except CaseError as err:
         _die(str(err))
+    except SolverError as err:
+        _die(f"{c.source}: --engine: {err}")
     payload = to_json(tr.to_dict())
     if out_dir is not None:
         files = {"tolerance.json": payload, "samples.csv": samples_csv(tr)}

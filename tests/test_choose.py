@@ -6,6 +6,7 @@ import json
 from dataclasses import replace
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
@@ -76,3 +77,42 @@ def test_cli_choose_json_and_plot(tmp_path):
     d = json.loads(res.stdout)
     assert d["ranked"] and d["rejected"] and len(d["top"]) == 3
     assert sorted(p.name for p in tmp_path.iterdir()) == ["choose.json", "tradeoff.png", "tradeoff.svg"]
+
+
+def test_every_recommended_choice_passes_with_the_detailed_engine(valve_choice):
+    """The candidates are screened by the batch engine (a Shockley-diode fit, its effect within
+    2 %); those within 2 % of a limit are judged on the detailed engine's figures, so every
+    feasible choice passes every check when simulated again with the detailed engine."""
+    case = valve_choice.case
+    assert valve_choice.engine in ("batch", "mixed") and valve_choice.fits
+    for cand in valve_choice.ranked:
+        res = simulate(replace(case, clamps=cand.option.clamps, options=()))
+        assert res.passed, (cand.option.name, cand.engine, [c for c in res.checks if not c.passed])
+
+
+def test_zener_trade_off_on_the_batch_path(valve_choice):
+    # higher Zener voltage → higher peak and shorter release (first-order RL against the clamp
+    # voltage, di/dt = −(V_clamp + R·i)/L; any circuits textbook), on the batch engine's figures
+    zs = sorted((c for c in list(valve_choice.ranked) + list(valve_choice.rejected)
+                 if c.family == "diode + Zener" and c.engine == "batch"), key=lambda c: c.value)
+    assert len(zs) > 10
+    peak = np.array([c.figures["peak_voltage_V"] for c in zs])
+    release = np.array([c.release for c in zs])
+    assert np.all(np.diff(peak) > 0) and np.all(np.diff(release) < 0)
+
+
+def test_choice_names_its_engine(valve_choice, tmp_path):
+    from kickback.outputs.choice import choice_table
+
+    text = choice_table(valve_choice)
+    assert "candidates screened by the" in text and "fit: D+Z: Shockley diode" in text
+    d = valve_choice.to_dict()
+    assert d["engine"] == valve_choice.engine and d["fits"]
+    assert all(c["engine"] in ("batch", "detailed") for c in d["ranked"])
+
+
+def test_choose_with_the_detailed_engine_ranks_alike(valve_choice):
+    detailed = choose(valve_choice.case, workers=2, engine="detailed")
+    assert detailed.engine == "detailed" and not detailed.fits
+    assert [c.option.name for c in detailed.ranked[:5]] == [c.option.name for c in valve_choice.ranked[:5]]
+    assert {c.option.name for c in detailed.ranked} == {c.option.name for c in valve_choice.ranked}

@@ -46,12 +46,14 @@ def test_parse_vary_units_and_spacing():
         parse_vary("coil.inductance=10V:20V")
 
 
-def test_zener_sweep_gives_monotone_trade_off():
+@pytest.mark.parametrize("engine", ["batch", "detailed"])
+def test_zener_sweep_gives_monotone_trade_off(engine):
     # higher Zener voltage → higher peak on the switch and a shorter decay and release:
     # the coil sees a larger reverse voltage, di/dt = −(V_clamp + R·i)/L (first-order RL, any
     # circuits textbook)
     case = load_case(VALVE)
-    sw = run_sweep(case, (parse_vary("clamp[0].element[1].voltage=8V:30V:12"),))
+    sw = run_sweep(case, (parse_vary("clamp[0].element[1].voltage=8V:30V:12"),), engine=engine)
+    assert sw.engine == engine
     peak = np.array(sw.figures["peak_voltage_V"])
     release = np.array(sw.figures["release_s"])
     decay = np.array(sw.figures["to_zero_s"])
@@ -87,3 +89,98 @@ def test_cli_sweep_bad_vary_exit_2(spec, words):
     res = CliRunner().invoke(main, ["sweep", str(VALVE), "--vary", spec])
     assert res.exit_code == 2
     assert words in res.stderr and "Traceback" not in res.output
+
+
+#: a diode + Zener clamp with piecewise-linear laws only (constant-drop diode, ideal Zener with a
+#: dynamic resistance), no node capacitance (invented demo values)
+LINEAR = """title = "piecewise-linear clamp (demo data)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "80 mH"
+resistance = "30 Ω"
+release_current = "0.1 A"
+release_delay = "2 ms"
+[switch]
+type = "mosfet"
+on_resistance = "0.1 Ω"
+fall_time = "500 ns"
+rated_voltage = "60 V"
+[[clamp]]
+across = "coil"
+[[clamp.element]]
+type = "diode"
+model = "constant-drop"
+forward_voltage = "0.7 V"
+[[clamp.element]]
+type = "zener"
+voltage = "20 V"
+dynamic_resistance = "1.5 Ω"
+"""
+SWEPT = ("peak_voltage_V", "clamp_energy_J", "to_10_percent_s", "to_zero_s", "release_s")
+
+
+def test_batch_sweep_agrees_with_the_detailed_engine_on_piecewise_linear_laws():
+    """Every law piecewise linear: the batch engine's solution is exact, so on a few points it
+    agrees with the detailed engine run tightly (rtol 1e-9) to 1e-6 relative — the agreement
+    tests/test_batch.py asks of the two engines on such laws."""
+    from kickback import simulate
+
+    case = load_case(LINEAR)
+    ax = parse_vary("clamp[0].element[1].voltage=6V:40V:1000")
+    sw = run_sweep(case, (ax,))
+    assert sw.engine == "batch" and sw.fits == () and len(sw.points) == 1000
+    for k in (0, 333, 999):
+        ref = simulate(set_value(case, ax.path, ax.values[k]), rtol=1e-9).figures
+        want = {"peak_voltage_V": ref.peak_voltage_V, "clamp_energy_J": sum(c.energy_J for c in ref.clamps),
+                "to_10_percent_s": ref.to_10_percent_s, "to_zero_s": ref.to_zero_s, "release_s": ref.release_s}
+        for col in SWEPT:
+            assert sw.figures[col][k] == pytest.approx(want[col], rel=1e-6), (col, k)
+
+
+def test_batch_sweep_of_a_shockley_diode_within_the_fits_stated_effect():
+    """The valve's Shockley diode enters the batch engine as a 3-segment fit whose effect on every
+    figure is bounded by 2 % (tests/test_batch.py::test_fitted_nonlinear_demo_cases_within_two_percent):
+    the batch sweep and the detailed sweep agree to that on a few points, and the fit is stated."""
+    case = load_case(VALVE)
+    axes = (parse_vary("clamp[0].element[1].voltage=10V:30V:3"), parse_vary("coil.inductance=60mH:240mH:2"))
+    b = run_sweep(case, axes, engine="batch")
+    d = run_sweep(case, axes, engine="detailed", workers=2)
+    assert b.engine == "batch" and d.engine == "detailed" and b.fits and not d.fits
+    assert any("Shockley" in f and "fit" in f for f in b.fits)
+    for col in SWEPT:
+        for x, y in zip(b.figures[col], d.figures[col], strict=True):
+            assert (x is None) == (y is None), col
+            if y is not None:
+                assert x == pytest.approx(y, rel=0.02), col
+    assert list(b.passed) == list(d.passed) and b.failing == d.failing
+
+
+def test_cli_sweep_names_the_engine_and_its_fits(tmp_path):
+    res = CliRunner().invoke(main, ["sweep", str(VALVE), "--vary", "clamp[0].element[1].voltage=10V:20V:3",
+                                    "--out", str(tmp_path)])
+    assert res.exit_code == 0, res.output
+    assert "batch engine, 3 points" in res.stdout and "fit: D1+Z1: Shockley diode" in res.stdout
+    d = json.loads((tmp_path / "sweep.json").read_text())
+    assert d["engine"] == "batch" and d["fits"] and d["engine_note"] is None
+    with open(tmp_path / "sweep.csv", newline="") as fh:
+        rows = list(csv.reader(fh))
+    head = rows[0]
+    assert rows[1][head.index("engine")] == "batch" and "Shockley" in rows[1][head.index("fits")]
+    detailed = CliRunner().invoke(main, ["sweep", str(VALVE), "--vary", "clamp[0].element[1].voltage=10V:20V:3",
+                                         "--engine", "detailed", "--workers", "1", "--json"])
+    assert detailed.exit_code == 0 and json.loads(detailed.stdout)["engine"] == "detailed"
+
+
+def test_cli_sweep_falls_back_to_the_detailed_engine_and_says_why():
+    # the conveyor brake's TVS has a thermal network, which the batch engine does not model
+    brake = CASES / "conveyor_brake.toml"
+    res = CliRunner().invoke(main, ["sweep", str(brake), "--vary", "clamp[0].element[0].voltage=50V:60V:2",
+                                    "--workers", "1"])
+    assert res.exit_code in (0, 1), res.output
+    assert "detailed engine, 2 points" in res.stdout and "does not cover" in res.stdout
+    assert "thermal network" in res.stdout
+    forced = CliRunner().invoke(main, ["sweep", str(brake), "--vary", "clamp[0].element[0].voltage=50V:60V:2",
+                                       "--engine", "batch"])
+    assert forced.exit_code == 2 and "batch engine" in forced.stderr and "Traceback" not in forced.output
+    assert len(forced.stderr.strip().splitlines()) == 1

@@ -165,3 +165,75 @@ def test_cli_tolerance(tmp_path):
     no_tol.write_text(BASE)
     res = CliRunner().invoke(main, ["tolerance", str(no_tol)])
     assert res.exit_code == 2 and "no [tolerance]" in res.stderr
+
+
+def test_batch_is_the_default_and_same_seed_gives_identical_numbers():
+    """The batch engine runs the study by default; the same seed gives the same numbers whatever
+    the chunk size (memory bound) and the number of worker processes."""
+    case = load_case(TOL)
+    a = run_tolerance(case, 500, seed=21, workers=2, chunk=64)
+    b = run_tolerance(case, 500, seed=21, workers=1)
+    assert a.engine == b.engine == "batch" and a.fits == ()
+    assert np.array_equal(a.samples, b.samples)
+    for f in a.figures:
+        np.testing.assert_array_equal(a.figures[f], b.figures[f], err_msg=f)
+    assert json.dumps(a.to_dict(), sort_keys=True) == json.dumps(b.to_dict(), sort_keys=True)
+
+
+def test_batch_study_agrees_with_the_detailed_study():
+    """Both engines over the same samples: the laws are piecewise linear (constant-drop diode,
+    ideal Zener), where the batch engine is exact and the engines agree to 1e-6 (tests/test_batch.py);
+    the yield and the worst check are the same."""
+    case = load_case(TOL)
+    a = run_tolerance(case, 40, seed=4, workers=2, search_budget=8, engine="batch")
+    b = run_tolerance(case, 40, seed=4, workers=2, search_budget=8, engine="detailed")
+    assert b.engine == "detailed" and b.recheck is None
+    for f in ("peak_voltage_V", "clamp_energy_J", "to_zero_s"):
+        np.testing.assert_allclose(a.figures[f], b.figures[f], rtol=1e-6, err_msg=f)
+    assert np.array_equal(a.passed, b.passed)
+    assert a.worst_per_check["case peak switch voltage"]["params"] == b.worst_per_check[
+        "case peak switch voltage"]["params"]
+
+
+def test_recheck_against_the_detailed_engine_is_reported():
+    from kickback.outputs.tolerances import tolerance_table
+
+    tr = run_tolerance(load_case(TOL), 200, seed=8, workers=2, recheck=6)
+    rc = tr.recheck
+    assert rc["samples"] == 6 and len(set(rc["indices"])) == 6 and rc["verdicts_differ"] == 0
+    # piecewise-linear laws: the engines agree to 1e-6 (see above)
+    for f, e in rc["figures"].items():
+        if e["max_abs"] is not None:
+            assert e["max_rel"] <= 1e-6, (f, e)
+            assert e["sample"] in rc["indices"]
+    text = tolerance_table(tr)
+    assert "batch engine against the detailed engine on 6 samples" in text
+    assert "peak switch V:" in text.split("batch engine against the detailed engine")[1]
+    assert tr.to_dict()["detailed_recheck"]["samples"] == 6
+    assert run_tolerance(load_case(TOL), 20, seed=8, recheck=0).recheck is None
+
+
+def test_unsupported_case_falls_back_to_the_detailed_engine_and_says_so(tmp_path):
+    from kickback.outputs.tolerances import tolerance_table
+
+    text = TOL.replace('type = "ideal"\n', 'type = "ideal"\nthermal_resistance = ["1 K/W"]\n'
+                       'thermal_tau = ["1 ms"]\n', 1)
+    case = load_case(text)
+    tr = run_tolerance(case, 6, seed=1, workers=2, search_budget=4)
+    assert tr.engine == "detailed" and "thermal network" in tr.engine_note and tr.recheck is None
+    assert "does not cover" in tolerance_table(tr) and tr.to_dict()["engine_note"]
+    p = tmp_path / "thermal.toml"
+    p.write_text(text)
+    res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "4", "--engine", "batch"])
+    assert res.exit_code == 2 and "batch engine" in res.stderr and "Traceback" not in res.output
+
+
+def test_cli_tolerance_engine_options(tmp_path):
+    p = tmp_path / "tol.toml"
+    p.write_text(TOL)
+    res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "50", "--seed", "3", "--json",
+                                    "--recheck", "4"])
+    d = json.loads(res.stdout)
+    assert d["engine"] == "batch" and d["detailed_recheck"]["samples"] == 4
+    res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "6", "--engine", "detailed", "--workers", "1"])
+    assert "detailed engine" in res.stdout and "against the detailed engine" not in res.stdout

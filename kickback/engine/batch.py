@@ -120,7 +120,11 @@ def _step(bc, st, idx):
     X = Xs
     st.X[idx] = Xs
     keep = ok & ~forms.nopath
-    pattern = forms.dyn @ (1 << np.arange(bc.nX))
+    # a segment under the falling switch current (a ramp, b1 ≠ 0) takes the φ-form with quadrature
+    # moments; variants without one are kept apart so that they keep the closed-form modal segment
+    # (mixed in one group, a long segment after the fall would be integrated panel by panel)
+    ramp = np.any((forms.b1 != 0) & forms.dyn, axis=1)
+    pattern = forms.dyn @ (1 << np.arange(bc.nX)) + (ramp.astype(int) << bc.nX)
     for pat in np.unique(pattern[keep]):
         g = np.nonzero(keep & (pattern == pat))[0]
         _segment(bc, st, md, idx, g, forms, mode, X, t0)

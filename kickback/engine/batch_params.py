@@ -28,6 +28,24 @@ UNSUPPORTED = (
 )
 
 
+def unsupported(case: Case) -> str | None:
+    """Why the batch engine does not cover ``case`` (a feature of its structure, whatever its
+    values), or None when it does."""
+    for table, name, why in UNSUPPORTED:
+        if getattr(getattr(case, table), name, None) is not None:
+            return why
+    if getattr(case, "drive", None) is not None:
+        return ("repetitive switching ([drive]: the last turn-off starts from the PWM steady state) is simulated "
+                "by the detailed engine only")
+    if getattr(case, "motor", None) is not None:
+        return "a motor winding's back EMF and speed are not piecewise-linear states of the batch engine"
+    for obj, label in [(case.switch, "switch")] + [(el, f"{cl.name}: {el.name or el.type}")
+                                                   for cl in case.clamps for el in cl.elements]:
+        if getattr(obj, "thermal_resistance", None) is not None:
+            return f"{label} has a thermal network: junction temperatures are computed by the detailed engine only"
+    return None
+
+
 def _cap_only(clamp) -> bool:
     return all(el.type == "capacitor" for el in clamp.elements)
 
@@ -47,20 +65,9 @@ class BatchCircuit:
         self.ok = np.ones(n, bool)
         self.why = np.full(n, "", dtype=object)
         s = case.switch
-        for table, name, why in UNSUPPORTED:
-            if getattr(getattr(case, table), name, None) is not None:
-                self.fail(np.ones(n, bool), why)
-        if getattr(case, "drive", None) is not None:
-            self.fail(np.ones(n, bool), "repetitive switching ([drive]: the last turn-off starts from the PWM "
-                      "steady state) is simulated by the detailed engine only")
-        if getattr(case, "motor", None) is not None:
-            self.fail(np.ones(n, bool), "a motor winding's back EMF and speed are not piecewise-linear states of "
-                      "the batch engine")
-        for obj, label in [(s, "switch")] + [(el, f"{cl.name}: {el.name or el.type}")
-                                               for cl in case.clamps for el in cl.elements]:
-            if getattr(obj, "thermal_resistance", None) is not None:
-                self.fail(np.ones(n, bool), f"{label} has a thermal network: junction temperatures are "
-                          "computed by the detailed engine only")
+        why = unsupported(case)
+        if why is not None:
+            self.fail(np.ones(n, bool), why)
         self.Vs = get("supply.voltage")
         self.L, self.R = get("coil.inductance"), get("coil.resistance")
         self.i_given = get("coil.initial_current")

@@ -21,6 +21,7 @@ from html import escape
 from kickback import __version__
 from kickback.outputs import reportfigures as figs
 from kickback.outputs import reportparts as parts
+from kickback.outputs.reportstudies import tolerance_section, tradeoff_section
 from kickback.outputs.table import CAUTIONS
 from kickback.units import format_quantity as q
 
@@ -243,41 +244,6 @@ def comparison_section(cmp) -> Section:
     return Section("comparison", "Clamp comparison", body)
 
 
-def tolerance_section(study=None) -> Section | None:
-    """The tolerance study (:func:`kickback.studies.tolerance.run_tolerance`): yield with its
-    interval, percentiles, worst cases and histograms; None without a study."""
-    if study is None:
-        return None
-    from kickback.outputs.tolerances import _label, _params, tolerance_figure
-    from kickback.studies.tolerance import PERCENTILES
-
-    lo, hi = study.yield_ci
-    body = (f"<p><b>Yield {100 * study.yield_:.2f} %</b> of {len(study.samples)} samples pass every check "
-            f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, exact binomial); seed {study.seed}, "
-            f"{escape(study.engine)} engine.</p>")
-    head = ["figure"] + [("min" if p == 0 else "max" if p == 100 else f"{p:g} %") for p in PERCENTILES]
-    rows = []
-    for f, unit, _ in study.figure_list:
-        d = study.percentiles.get(f, {})
-        if all(v is None for v in d.values()):
-            continue
-        rows.append([_label(study, f)] + [q(d[p], unit) for p in PERCENTILES])
-    body += parts.table(head, rows)
-    worst = []
-    for f, unit, _ in study.figure_list:
-        c, srch = study.corners.get(f), study.search.get(f)
-        if c is None or srch is None:
-            continue
-        note = " (inside the bands: the corners miss it)" if srch["interior"] else ""
-        worst.append([_label(study, f), q(c["max"], unit), q(srch["max"], unit) + note, _params(srch["params"])])
-    if worst:
-        body += "<h3>Worst cases</h3>" + parts.table(["figure", "worst corner", "search inside the bands", "at"],
-                                                       worst)
-    body += _figure(tolerance_figure(study), "tol", "Histograms of the figures over the samples, limits dashed, "
-                    "worst corner dotted.")
-    return Section("tolerance", "Tolerances", body)
-
-
 def measured_section(measured=None) -> Section | None:
     """A bench trace against the simulation: ``(trace, MeasuredComparison)``; None without one."""
     if measured is None:
@@ -296,27 +262,6 @@ def measured_section(measured=None) -> Section | None:
     body += "".join(f'<p class="note">{escape(n)}</p>' for n in cmp.notes)
     body += _figure(measured_figure(result, trace, cmp), "meas", "The measured trace over the simulation.")
     return Section("measured", "Measured against simulated", body)
-
-
-def tradeoff_section(choice=None) -> Section | None:
-    """The clamp choice (:func:`kickback.studies.choose.choose`): ranked choices and the
-    release-versus-voltage trade-off; None without one."""
-    if choice is None:
-        return None
-    from kickback.outputs.choice import tradeoff_figure
-
-    rows = [[str(k + 1), c.option.name, q(c.figures["peak_voltage_V"], "V"), f"{100 * c.margin:.1f} %",
-             q(c.release, "s"), q(c.figures["clamp_energy_J"], "J"), str(c.parts)]
-            for k, c in enumerate(choice.ranked[:10])]
-    body = (f"<p>{len(choice.ranked)} of {len(choice.ranked) + len(choice.rejected)} candidates over standard "
-            "values (E24 voltages, E12 resistors and capacitors) meet the case's constraints; fastest release "
-            "first, then switch-voltage margin, then fewest parts. Candidates use a generic diode and ideal "
-            "Zener/TVS: they show the trade-off, they are not parts.</p>")
-    body += parts.table(["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"],
-                        rows)
-    body += _figure(tradeoff_figure(choice), "trade", "Release time against peak switch voltage per family; "
-                    "filled markers pass, open ones fail; marker size is the clamp energy.")
-    return Section("tradeoff", "Clamp trade-off", body)
 
 
 _UNITS = {"_A": "A", "_V": "V", "_W": "W", "_J": "J", "_K": "K", "_s": "s", "_Hz": "Hz"}

@@ -27,20 +27,49 @@ def sweep_table(sw) -> str:
         cells.append("pass" if sw.passed[k] else "FAIL: " + ", ".join(sw.failing[k]))
         rows.append(cells)
     table = _grid([r[:-1] for r in rows])
-    lines = [f"{sw.case.title} — sweep ({sw.engine} engine, {len(sw.points)} points)", ""]
+    lines = [f"{sw.case.title} — sweep ({sw.engine} engine, {len(sw.points)} points)"]
+    lines += [f"  {x}" for x in engine_lines(sw)]
+    lines.append("")
     lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
     return "\n".join(lines) + "\n"
+
+
+def engine_lines(study) -> list[str]:
+    """What the engine of a study (sweep, choice, tolerance) was: the batch engine's exactness and
+    its fits, or why the detailed engine ran."""
+    out = []
+    if study.engine in ("batch", "mixed"):
+        out.append(f"{study.engine} engine: exact piecewise-linear solution, vectorised over the variants"
+                   + ("; nonlinear laws as stated fits:" if study.fits else " (every law exact, no fit)"))
+        out += [f"  fit: {f}" for f in study.fits]
+    else:
+        out.append("detailed engine: stiff integration of the exact laws (Radau)")
+    if study.engine_note:
+        out.append(f"note: {study.engine_note}")
+    return out
+
+
+def engine_text(study) -> str:
+    """:func:`engine_lines` as one short line for CSV cells and plot notes."""
+    text = f"{study.engine} engine"
+    if study.fits:
+        text += "; fits: " + "; ".join(study.fits)
+    if study.engine_note:
+        text += "; " + study.engine_note
+    return text
 
 
 def sweep_csv(sw) -> str:
     buf = io.StringIO()
     wr = csv.writer(buf, lineterminator="\n")
     wr.writerow([f"{a.path} [{a.unit or '1'}]" for a in sw.axes] + [f"{c.rsplit('_', 1)[0]} [{u}]"
-                                                                     for c, u in COLUMNS] + ["pass", "note"])
+                                                                     for c, u in COLUMNS]
+                + ["engine", "fits", "pass", "note"])
+    fits = "; ".join(sw.fits)
     for k, p in enumerate(sw.points):
         vals = ["" if sw.figures[c][k] is None else f"{sw.figures[c][k]:.9g}" for c, _ in COLUMNS]
         note = sw.errors[k] or "; ".join(sw.failing[k])
-        wr.writerow([f"{x:.9g}" for x in p] + vals + [str(bool(sw.passed[k])).lower(), note])
+        wr.writerow([f"{x:.9g}" for x in p] + vals + [sw.engine, fits, str(bool(sw.passed[k])).lower(), note])
     return buf.getvalue()
 
 
@@ -117,5 +146,15 @@ def sweep_figure(sw):
             for axis, a in ((ax.xaxis, ax1), (ax.yaxis, ax0)):
                 _eng_axis(axis, a)
         panels[0].set_title("white line: boundary of passing designs", fontsize=9)
-    fig.suptitle(f"{case.title} — sweep", fontsize=11)
+    fig.suptitle(f"{case.title} — sweep ({sw.engine} engine)", fontsize=11)
+    engine_footnote(fig, sw)
     return fig
+
+
+def engine_footnote(fig, study) -> None:
+    """The engine and its fits in small type under a figure (room kept by the layout)."""
+    import textwrap
+
+    lines = textwrap.wrap(engine_text(study), 150)
+    fig.get_layout_engine().set(rect=(0, 0.012 * (len(lines) + 1), 1, 1 - 0.012 * (len(lines) + 1)))
+    fig.text(0.01, 0.005, "\n".join(lines), fontsize=6.5, color="0.35", ha="left", va="bottom")

@@ -7,6 +7,7 @@ import io
 
 import numpy as np
 
+from kickback.outputs.sweeps import engine_footnote, engine_lines
 from kickback.outputs.table import CAUTIONS, _grid, _wrap
 from kickback.studies.tolerance import PERCENTILES
 from kickback.units import format_quantity as q
@@ -43,7 +44,9 @@ def _params(d: dict) -> str:
 
 def tolerance_table(tr) -> str:
     lines = [f"{tr.case.title} — tolerance study: {len(tr.samples)} samples, seed {tr.seed}, "
-             f"{tr.engine} engine", ""]
+             f"{tr.engine} engine"]
+    lines += [f"  {x}" for x in engine_lines(tr)]
+    lines.append("")
     lo, hi = tr.yield_ci
     n_fail = int((~tr.passed).sum())
     lines.append(f"yield: {100 * tr.yield_:.2f} % of samples pass every check "
@@ -74,6 +77,10 @@ def tolerance_table(tr) -> str:
             note = "  (inside the bands: the corners miss it)" if s["interior"] else ""
             lines.append(f"  {_label(tr, f)}: corners up to {q(c['max'], unit)}, search {q(s['max'], unit)}{note}")
             lines.append(f"      at {_params(s['params'])}")
+    if tr.recheck:
+        lines += ["", recheck_title(tr)]
+        lines += [f"  {_label(tr, f)}: {text}" for f, text in recheck_rows(tr)]
+        lines.append(f"  verdicts that differ: {tr.recheck['verdicts_differ']} of {tr.recheck['samples']}")
     lines += ["", "sensitivity (change of each figure as one value runs over its band, the others nominal)"]
     for f, unit, _ in tr.figure_list:
         sw = tr.sensitivity.get(f)
@@ -83,6 +90,30 @@ def tolerance_table(tr) -> str:
         lines.append(f"  {_label(tr, f)}: {top}")
     lines += ["", _wrap(CAUTIONS)]
     return "\n".join(lines) + "\n"
+
+
+def recheck_title(tr) -> str:
+    return (f"batch engine against the detailed engine on {tr.recheck['samples']} samples drawn at random "
+            "(largest difference, batch − detailed):")
+
+
+def recheck_rows(tr) -> list[tuple[str, str]]:
+    """(figure, "largest difference (relative) at sample k") for every followed figure."""
+    out = []
+    for f, unit, _ in tr.figure_list:
+        e = tr.recheck["figures"].get(f)
+        if e is None:
+            continue
+        if e["max_abs"] is None and not e["present_in_one_only"]:
+            continue  # the time does not occur in these samples
+        if e["max_abs"] is None:
+            text = "—"
+        else:
+            text = f"{q(e['max_abs'], unit)} ({100 * e['max_rel']:.2g} %) at sample {e['sample']}"
+        if e["present_in_one_only"]:
+            text += f"; occurs in one engine only in {e['present_in_one_only']} samples"
+        out.append((f, text))
+    return out
 
 
 def samples_csv(tr) -> str:
@@ -123,5 +154,7 @@ def tolerance_figure(tr):
         ax.set_ylabel("samples")
     for ax in axes[len(shown):]:
         ax.set_visible(False)
-    fig.suptitle(f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} %", fontsize=11)
+    fig.suptitle(f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} % ({tr.engine} engine)",
+                 fontsize=11)
+    engine_footnote(fig, tr)
     return fig

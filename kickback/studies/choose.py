@@ -1,13 +1,32 @@
-"""Choosing a clamp: families × standard values against the case's constraints, ranked."""
+"""Choosing a clamp: families × standard values against the case's constraints, ranked.
+
+Every family's candidates share one topology, so each family runs as one batch of variants
+(:func:`kickback.studies.points.evaluate_cases`: the batch engine unless the case has a feature
+it does not cover). Candidates whose batch figures lie within the batch engine's accuracy of a
+limit — the fit's stated effect (:data:`CONFIRM_FIT`) where a nonlinear law enters as a
+piecewise-linear fit, :data:`CONFIRM_EXACT` otherwise — are run again by the detailed engine and
+judged on its figures. The top choices are simulated again with the detailed engine; one that
+fails there is moved to the rejected ones with the reason, and the next one takes its place.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
+import numpy as np
+
 from kickback.case import Case, Option
 from kickback.studies.designs import allowed_voltage, family_candidates
 from kickback.studies.pool import map_points
-from kickback.studies.sweep import point_figures
+from kickback.studies.sweep import point_figures, result_figures
+
+#: a batch-screened candidate this close to a limit (relative margin) is confirmed by the detailed
+#: engine, where a fit of a nonlinear law is used: the bound on the fit's effect on every figure
+#: (tests/test_batch.py::test_fitted_nonlinear_demo_cases_within_two_percent)
+CONFIRM_FIT = 0.02
+#: … and where every law is exact (piecewise linear): the agreement of the two engines
+#: (tests/test_batch.py, relative 1e-6)
+CONFIRM_EXACT = 1e-6
 
 
 @dataclass(frozen=True)
@@ -18,6 +37,7 @@ class Candidate:
     option: Option
     figures: dict  # as kickback.studies.sweep.point_figures
     v_allow: float
+    engine: str = "detailed"  # the engine whose figures these are
 
     @property
     def ok(self) -> bool:
@@ -45,7 +65,7 @@ class Candidate:
     def to_dict(self) -> dict:
         return {"family": self.family, "name": self.option.name, "value": self.value, "unit": self.unit,
                 "parts": self.parts, "margin": self.margin, "release_or_decay_s": self.release,
-                "pass": self.ok, "why_not": None if self.ok else self.why_not} | {
+                "pass": self.ok, "why_not": None if self.ok else self.why_not, "engine": self.engine} | {
                     k: self.figures.get(k) for k in ("peak_voltage_V", "clamp_energy_J", "to_zero_s", "release_s")}
 
 
@@ -53,14 +73,91 @@ def _rank_key(c: Candidate):
     return (c.release if c.release is not None else float("inf"), -(c.margin or 0.0), c.parts)
 
 
-def evaluate(case: Case, *, workers: int = 1, progress=None) -> list[Candidate]:
-    """Every candidate of every family, simulated (detailed engine, worker processes)."""
-    fams = family_candidates(case)
+def _near_a_limit(pts, k: int, band: float) -> bool:
+    if pts.errors[k] is not None:
+        return False
+    for c in pts.checks.values():
+        if c.applies[k] and np.isfinite(c.margin[k]) and abs(c.margin[k]) <= band:
+            return True
+    return False
+
+
+@dataclass(frozen=True)
+class Evaluation:
+    """Every candidate, and what ran: engine ("batch", "detailed" or "mixed"), fits, note, and
+    the candidates near a limit confirmed by the detailed engine."""
+
+    candidates: list
+    engine: str
+    fits: tuple
+    note: str
+    confirmed: tuple
+
+
+#: a family with fewer candidates than this runs on the detailed engine: a batch costs about as
+#: much as a few detailed runs however few variants it holds (measured by kickback.bench_studies)
+MIN_BATCH = 3
+
+
+def _family_points(cases: list, engine: str, workers: int):
+    """One family's candidates (same topology) through :func:`kickback.studies.points.evaluate_cases`;
+    a family smaller than :data:`MIN_BATCH` on the detailed engine when the choice is automatic."""
+    from kickback.studies.points import evaluate_cases
+
+    if engine == "auto" and len(cases) < MIN_BATCH:
+        pts = evaluate_cases(cases, engine="auto", workers=1)
+        if pts.engine == "batch":
+            pts = evaluate_cases(cases, engine="detailed", workers=1)
+        return pts
+    return evaluate_cases(cases, engine=engine, workers=workers)
+
+
+def _family_job(args):
+    cases, engine = args
+    return _family_points(cases, engine, 1)
+
+
+def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto") -> Evaluation:
+    """Every candidate of every family, simulated (one batch per family, the families shared out
+    over ``workers`` processes; see the module docstring)."""
+    from kickback.studies.points import pick_engine
+
+    pick_engine(case, engine)  # raises for engine="batch" on a case the batch engine does not cover
     v_allow = allowed_voltage(case)
-    items = [(fam, val, unit, opt) for fam, lst in fams.items() for val, unit, opt in lst]
-    variants = [replace(case, clamps=opt.clamps, options=()) for _, _, _, opt in items]
-    figs = map_points(point_figures, variants, workers=workers, progress=progress, chunksize=4)
-    return [Candidate(fam, val, unit, opt, f, v_allow) for (fam, val, unit, opt), f in zip(items, figs, strict=True)]
+    fams = [(fam, lst) for fam, lst in family_candidates(case).items() if lst]
+    jobs = [([replace(case, clamps=opt.clamps, options=()) for _, _, opt in lst], engine) for _, lst in fams]
+    if workers > 1 and len(jobs) > 1:
+        from concurrent.futures import ProcessPoolExecutor
+
+        # the largest families first, so that the processes finish together
+        order = sorted(range(len(jobs)), key=lambda j: -len(jobs[j][0]))
+        with ProcessPoolExecutor(max_workers=min(workers, len(jobs))) as pool:
+            found = dict(zip(order, pool.map(_family_job, [jobs[j] for j in order]), strict=True))
+        results = [found[j] for j in range(len(jobs))]
+    else:
+        results = [_family_points(cs, eng, workers) for cs, eng in jobs]
+    out, near, engines, fits, notes = [], [], set(), [], []
+    done = 0
+    for (fam, lst), pts in zip(fams, results, strict=True):
+        engines.add(pts.engine)
+        fits += [f for f in pts.fits if f not in fits]
+        if pts.note and pts.note not in notes:
+            notes.append(pts.note)
+        band = CONFIRM_FIT if pts.fits else CONFIRM_EXACT
+        for k, (val, unit, opt) in enumerate(lst):
+            if pts.engine == "batch" and _near_a_limit(pts, k, band):
+                near.append(len(out))
+            out.append(Candidate(fam, val, unit, opt, pts.point(k), v_allow, pts.engine))
+        done += len(lst)
+        if progress:
+            progress(done)
+    if near:
+        figs = map_points(point_figures, [replace(case, clamps=out[j].option.clamps, options=()) for j in near],
+                          workers=workers)
+        for j, f in zip(near, figs, strict=True):
+            out[j] = replace(out[j], figures=f, engine="detailed")
+    eng = engines.pop() if len(engines) == 1 else "mixed"
+    return Evaluation(out, eng, tuple(fits), "; ".join(notes), tuple(out[j].option.name for j in near))
 
 
 @dataclass(frozen=True)
@@ -69,23 +166,43 @@ class Choice:
     ranked: tuple[Candidate, ...]  # feasible, best first
     rejected: tuple[Candidate, ...]
     top: tuple  # detailed-engine Results of the first few ranked choices
+    engine: str = "detailed"  # the engine that screened the candidates
+    fits: tuple = ()  # piecewise-linear fits the batch engine used
+    engine_note: str = ""  # why the detailed engine screened them where the batch engine would have
+    confirmed: tuple = ()  # candidates near a limit judged on the detailed engine's figures
+    demoted: tuple = ()  # screened as feasible, failing when confirmed by the detailed engine
 
     def to_dict(self) -> dict:
-        return {"title": self.case.title, "v_allow_V": allowed_voltage(self.case),
+        return {"title": self.case.title, "v_allow_V": allowed_voltage(self.case), "engine": self.engine,
+                "fits": list(self.fits), "engine_note": self.engine_note or None,
+                "confirmed_by_detailed": list(self.confirmed), "demoted_by_detailed": list(self.demoted),
                 "ranked": [c.to_dict() for c in self.ranked], "rejected": [c.to_dict() for c in self.rejected],
                 "top": [r.to_dict() for r in self.top]}
 
 
-def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None) -> Choice:
+def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engine: str = "auto") -> Choice:
     """Feasible clamp choices ranked: fastest release (or decay to zero) first, then the switch
     voltage margin, then the fewest parts; the others with the checks they fail.
 
-    The first ``n_top`` choices are simulated again with the detailed engine and returned whole.
+    The first ``n_top`` choices are simulated again with the detailed engine and returned whole;
+    a choice that fails there is rejected with its reason and the next one is taken.
     """
     from kickback.simulation import simulate
 
-    cands = evaluate(case, workers=workers, progress=progress)
-    ranked = sorted((c for c in cands if c.ok), key=_rank_key)
-    rejected = [c for c in cands if not c.ok]
-    top = tuple(simulate(replace(case, clamps=c.option.clamps, options=())) for c in ranked[:n_top])
-    return Choice(case, tuple(ranked), tuple(rejected), top)
+    ev = evaluate(case, workers=workers, progress=progress, engine=engine)
+    ranked = sorted((c for c in ev.candidates if c.ok), key=_rank_key)
+    rejected = [c for c in ev.candidates if not c.ok]
+    top, demoted = [], []
+    k = 0
+    while len(top) < n_top and k < len(ranked):
+        c = ranked[k]
+        r = simulate(replace(case, clamps=c.option.clamps, options=()))
+        if r.passed:
+            top.append(r)
+            k += 1
+            continue
+        rejected.append(replace(c, figures=result_figures(r), engine="detailed"))
+        demoted.append(c.option.name)
+        del ranked[k]
+    return Choice(case, tuple(ranked), tuple(rejected), tuple(top), ev.engine, ev.fits, ev.note, ev.confirmed,
+                  tuple(demoted))

@@ -16,6 +16,7 @@ DESIGN.md §6 (the result contract); :mod:`kickback.engine.batch` (the engine).
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -147,6 +148,89 @@ def fit_effect(case: Case) -> dict:
     return out
 
 
+def batch_unsupported(case: Case) -> str | None:
+    """Why the batch engine does not cover ``case`` (thermal networks, a saturating coil, a
+    [drive], a motor), or None when it does."""
+    from kickback.engine.batch_params import unsupported
+
+    return unsupported(case)
+
+
+def as_variations(cases) -> tuple[Case, dict] | None:
+    """Same-topology cases as one base case and its variations.
+
+    ``cases[0]`` is the base; every numeric case value (a key of :data:`kickback.keypath.UNITS`)
+    that differs in another case becomes a variation by its key path
+    (``{"clamp[0].element[1].voltage": array}``, one value per case). Returns None when the
+    cases differ in anything else (a type, a name, a model, the number of clamps or elements, a
+    value given in one case and not in another): they are not variants of one case.
+
+    Parameters
+    ----------
+    cases : sequence of Case — at least one
+
+    Returns
+    -------
+    (base, variations) or None
+    """
+    from kickback.keypath import UNITS
+
+    cases = list(cases)
+    if not cases:
+        raise ValueError("as_variations needs at least one case")
+    base = cases[0]
+    found: dict[str, dict[int, float]] = {}
+
+    def walk(a, b, path, k) -> bool:
+        if dataclasses.is_dataclass(a):
+            if type(a) is not type(b):
+                return False
+            for f in dataclasses.fields(a):
+                if f.name in _NOT_COMPARED:
+                    continue
+                name = _KEY.get(f.name, f.name)
+                if not walk(getattr(a, f.name), getattr(b, f.name), f"{path}.{name}" if path else name, k):
+                    return False
+            return True
+        if isinstance(a, tuple) or isinstance(b, tuple):
+            if not (isinstance(a, tuple) and isinstance(b, tuple)) or len(a) != len(b):
+                return False
+            if a and dataclasses.is_dataclass(a[0]):
+                return all(walk(x, y, f"{path}[{j}]", k) for j, (x, y) in enumerate(zip(a, b, strict=True)))
+            return a == b
+        if a == b and type(a) is type(b):
+            return True
+        numeric = (isinstance(a, int | float) and isinstance(b, int | float)
+                   and not isinstance(a, bool) and not isinstance(b, bool))
+        if not numeric or path.rsplit(".", 1)[-1] not in UNITS:
+            return False
+        found.setdefault(path, {})[k] = float(b)
+        return True
+
+    for k, c in enumerate(cases[1:], start=1):
+        if not walk(base, c, "", k):
+            return None
+    variations = {}
+    for path, vals in found.items():
+        col = np.full(len(cases), float(_value(base, path)))
+        for k, x in vals.items():
+            col[k] = x
+        variations[path] = col
+    return base, variations
+
+
+#: Case fields that are not simulated (descriptions, the text it came from, other studies)
+_NOT_COMPARED = ("title", "source", "text", "options", "tolerances", "path", "line")
+#: dataclass field → key-path name (as in the case file)
+_KEY = {"clamps": "clamp", "elements": "element"}
+
+
+def _value(case, path):
+    from kickback.keypath import get_value
+
+    return get_value(case, path)
+
+
 def _flat(d, prefix=""):
     out = {}
     if isinstance(d, dict):
@@ -160,4 +244,4 @@ def _flat(d, prefix=""):
     return out
 
 
-__all__ = ["CheckColumn", "ManyResult", "fit_effect", "simulate_many"]
+__all__ = ["CheckColumn", "ManyResult", "as_variations", "batch_unsupported", "fit_effect", "simulate_many"]

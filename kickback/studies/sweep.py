@@ -11,7 +11,6 @@ import numpy as np
 from kickback.case import Case
 from kickback.errors import CaseError, KickbackError
 from kickback.keypath import get_value, set_value, unit_of
-from kickback.studies.pool import map_points
 
 #: figures reported per point: column name, unit
 COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
@@ -68,16 +67,24 @@ def _number_or_text(text: str):
 
 @dataclass(frozen=True)
 class SweepResult:
-    """Figures at every point of the sweep grid (first axis varies slowest)."""
+    """Figures at every point of the sweep grid (first axis varies slowest).
+
+    ``engine`` is the engine that ran ("batch" or "detailed"); ``fits`` the piecewise-linear fits
+    of nonlinear laws the batch engine used (empty: exact models); ``engine_note`` why the
+    detailed engine ran where the batch engine would have ("" otherwise), and how many points the
+    batch engine could not simulate were run by the detailed one.
+    """
 
     case: Case
     axes: tuple[Axis, ...]
     points: np.ndarray  # (n_points, n_axes) [SI]
-    figures: dict  # column → array (NaN-free: None where a time does not occur)
+    figures: dict  # column → list (None where a time does not occur)
     passed: np.ndarray  # bool per point
     failing: list  # list of failing check names per point
     errors: list  # None or the message why a point could not be simulated
     engine: str
+    fits: tuple = ()
+    engine_note: str = ""
 
     def rows(self) -> list[dict]:
         out = []
@@ -89,7 +96,8 @@ class SweepResult:
         return out
 
     def to_dict(self) -> dict:
-        return {"title": self.case.title, "engine": self.engine,
+        return {"title": self.case.title, "engine": self.engine, "fits": list(self.fits),
+                "engine_note": self.engine_note or None,
                 "axes": [{"key": a.path, "unit": a.unit, "log": a.log, "values": a.values.tolist()}
                          for a in self.axes], "points": self.rows()}
 
@@ -102,17 +110,24 @@ def point_figures(case: Case) -> dict:
         r = simulate(case)
     except KickbackError as err:
         return {"error": getattr(err, "message", None) or str(err)}
+    return result_figures(r)
+
+
+def result_figures(r) -> dict:
+    """A detailed-engine :class:`~kickback.result.Result` as :func:`point_figures` keeps it."""
     f = r.figures
     return {"peak_voltage_V": f.peak_voltage_V, "clamp_energy_J": sum(c.energy_J for c in f.clamps),
             "avalanche_energy_J": f.avalanche_energy_J, "to_10_percent_s": f.to_10_percent_s,
-            "to_zero_s": f.to_zero_s, "release_s": f.release_s, "pass": r.passed,
-            "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed], "error": None,
+            "to_1_percent_s": f.to_1_percent_s, "to_zero_s": f.to_zero_s, "release_s": f.release_s,
+            "pass": r.passed, "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed],
+            "error": None,
             "checks": [(f"{c.part} {c.quantity}", c.value, c.limit, c.margin, c.passed) for c in r.checks],
             "stored_energy_J": f.stored_energy_J, "energy_balance_error": f.energy_balance_error} | {
                 f"clamp[{k}].energy_J": c.energy_J for k, c in enumerate(f.clamps)}
 
 
-def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=None) -> SweepResult:
+def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=None,
+              engine: str = "auto") -> SweepResult:
     """Simulate every grid point of ``axes`` (one or two).
 
     Parameters
@@ -121,23 +136,37 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
     axes : tuple of Axis — one or two
     workers : int — worker processes for the detailed engine (1: in this process)
     progress : callable(n_done) or None — called as points finish
+    engine : str — "auto" (the batch engine unless the case has a feature it does not cover,
+        then the detailed engine), "batch" or "detailed"
 
     Returns
     -------
     SweepResult — a point that cannot be simulated carries its message; the others come back.
+
+    Raises
+    ------
+    CaseError — not one or two axes, or a key path the case does not have
+    SolverError — ``engine="batch"`` for a case the batch engine does not cover
     """
+    from kickback.studies.points import evaluate
+
     if not 1 <= len(axes) <= 2:
         raise CaseError(f"{len(axes)} swept values (expected one or two --vary)", key="--vary")
     for ax in axes:
         get_value(case, ax.path)  # raises for a path the case does not have
+        set_value(case, ax.path, float(ax.values[0]))  # raises for a value that is not numeric
     points = np.array(list(itertools.product(*(ax.values for ax in axes))), dtype=float)
-    variants = []
-    for p in points:
-        c = case
-        for ax, x in zip(axes, p, strict=True):
-            c = set_value(c, ax.path, x)
-        variants.append(c)
-    out = map_points(point_figures, variants, workers=workers, progress=progress)
-    figs = {c: [o.get(c) for o in out] for c, _ in COLUMNS}
-    return SweepResult(case, tuple(axes), points, figs, np.array([bool(o.get("pass")) for o in out]),
-                       [o.get("failing_checks", []) for o in out], [o.get("error") for o in out], "detailed")
+    variations: dict = {}
+    for j, ax in enumerate(axes):
+        path = ".".join(p.strip() for p in ax.path.split("."))
+        if path in variations:
+            raise CaseError(f"{ax.path} is swept twice (expected two different keys)", key="--vary")
+        variations[path] = points[:, j]
+    pts = evaluate(case, variations, engine=engine, workers=workers, progress=progress)
+    figs = {c: [None if np.isnan(x) else float(x) for x in pts.figures[c]] for c, _ in COLUMNS}
+    note = pts.note
+    if pts.retried:
+        note = (note + "; " if note else "") + (f"{pts.retried} point(s) the batch engine could not simulate were "
+                                                "run by the detailed engine")
+    return SweepResult(case, tuple(axes), points, figs, pts.passed.copy(), [pts.failing(k) for k in range(pts.n)],
+                       list(pts.errors), pts.engine, pts.fits, note)

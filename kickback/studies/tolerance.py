@@ -69,12 +69,30 @@ def nominal(case: Case) -> np.ndarray:
     return np.array(out, dtype=float)
 
 
-def evaluate(case: Case, matrix: np.ndarray, *, workers: int = 1, progress=None) -> list[dict]:
-    """Figures of every row of ``matrix`` (detailed engine; worker processes when workers > 1)."""
-    from kickback.studies.pool import map_points
-    from kickback.studies.sweep import point_figures
+def variations_of(case: Case, matrix) -> dict:
+    """The rows of ``matrix`` (one column per toleranced value) as variations of ``case`` by key
+    path; the coil temperature scales the (toleranced) coil resistance as :func:`apply` does."""
+    matrix = np.atleast_2d(np.asarray(matrix, float))
+    out: dict = {}
+    temperature = None
+    for j, tol in enumerate(case.tolerances):
+        if tol.path == "coil_temperature":
+            temperature = (matrix[:, j], tol.reference)
+        else:
+            out[".".join(p.strip() for p in tol.path.split("."))] = matrix[:, j]
+    if temperature is not None:
+        r = out.get("coil.resistance", np.full(matrix.shape[0], case.coil.resistance))
+        out["coil.resistance"] = copper_resistance(r, temperature[0], temperature[1])
+    return out
 
-    return map_points(point_figures, [apply(case, row) for row in matrix], workers=workers, progress=progress)
+
+def evaluate(case: Case, matrix: np.ndarray, *, engine: str = "detailed", workers: int = 1, progress=None,
+             chunk: int | None = None):
+    """Figures, checks and verdicts of every row of ``matrix``
+    (:class:`kickback.studies.points.Points`)."""
+    from kickback.studies.points import evaluate as run
+
+    return run(case, variations_of(case, matrix), engine=engine, workers=workers, progress=progress, chunk=chunk)
 
 
 def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
@@ -109,7 +127,10 @@ class ToleranceResult:
     sensitivity: dict  # figure → [(name, swing)] sorted by |swing|
     seed: int
     figure_list: tuple = FIGURES
-    engine: str = "detailed"
+    engine: str = "detailed"  # the engine that ran the samples
+    fits: tuple = ()  # piecewise-linear fits of nonlinear laws the batch engine used
+    engine_note: str = ""  # why the detailed engine ran where the batch engine would have
+    recheck: dict | None = None  # batch samples run again by the detailed engine (see recheck())
 
     @property
     def yield_(self) -> float:
@@ -120,73 +141,140 @@ class ToleranceResult:
             return None if x is None or (isinstance(x, float) and np.isnan(x)) else x
 
         return {"title": self.case.title, "seed": self.seed, "samples": int(len(self.samples)),
-                "engine": self.engine, "parameters": list(self.names),
+                "engine": self.engine, "fits": list(self.fits), "engine_note": self.engine_note or None,
+                "parameters": list(self.names),
                 "yield": self.yield_, "yield_ci95": list(self.yield_ci),
                 "percentiles": {f: {str(p): clean(v) for p, v in d.items()} for f, d in self.percentiles.items()},
                 "worst_per_check": self.worst_per_check, "corners": self.corners, "worst_case_search": self.search,
                 "sensitivity": {f: [{"parameter": n, "swing": s} for n, s in v] for f, v in self.sensitivity.items()},
-                "failed_samples": int(sum(e is not None for e in self.errors))}
-
-
-def _fig_arrays(rows: list[dict], figures) -> dict:
-    return {f: np.array([np.nan if r.get(f) is None else r[f] for r in rows], dtype=float) for f, _, _ in figures}
+                "failed_samples": int(sum(e is not None for e in self.errors)),
+                "detailed_recheck": self.recheck}
 
 
 def _params(names, row) -> dict:
     return {n: float(x) for n, x in zip(names, row, strict=True)}
 
 
+def _opt(x):
+    return None if x is None or not np.isfinite(x) else float(x)
+
+
+#: samples per batch of the Monte Carlo (memory is bounded by it, not by the number of samples)
+CHUNK = 10_000
+#: batch-engine samples run again by the detailed engine, drawn at random (seeded)
+RECHECK = 16
+#: rounds of the worst-case search per figure when the batch engine runs (one batch per round)
+SEARCH_ROUNDS = 16
+
+
 def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=None,
-                  search_budget: int = 40) -> ToleranceResult:
-    """Monte Carlo with ``n`` samples (seeded), corners, worst-case search and sensitivity."""
+                  search_budget: int | None = None, engine: str = "auto", chunk: int = CHUNK,
+                  recheck: int = RECHECK) -> ToleranceResult:
+    """Monte Carlo with ``n`` samples (seeded), corners, worst-case search and sensitivity.
+
+    Parameters
+    ----------
+    case : Case — with a [tolerance] section
+    n : int — samples
+    seed : int — random state: the same seed gives the same numbers
+    workers : int — worker processes for the detailed engine
+    progress : callable(n_done) or None — over the samples
+    search_budget : int or None — trial points per figure of the worst-case search; None: 40 for
+        the detailed engine, :data:`SEARCH_ROUNDS` rounds for the batch engine
+    engine : str — "auto" (the batch engine unless the case has a feature it does not cover),
+        "batch" or "detailed"
+    chunk : int — samples per batch; memory is bounded by it, not by n
+    recheck : int — with the batch engine, this many samples drawn at random are run again by
+        the detailed engine and the largest difference per figure is reported (0: none)
+
+    Raises
+    ------
+    CaseError — the case has no [tolerance] section
+    SolverError — ``engine="batch"`` for a case the batch engine does not cover
+    """
+    from kickback.studies.points import pick_engine
+
     if not case.tolerances:
         raise CaseError("the case has no [tolerance] section (expected at least one toleranced value, "
                         'e.g. [tolerance."coil.inductance"] band = "10 %")', source=case.source, key="tolerance")
+    used, note = pick_engine(case, engine)
     names = tuple(t.path for t in case.tolerances)
     flist = figure_list(case)
     rng = np.random.default_rng(seed)
     matrix = sample(case, n, rng)
-    rows = evaluate(case, matrix, workers=workers, progress=progress)
-    figs = _fig_arrays(rows, flist)
-    passed = np.array([bool(r.get("pass")) and r.get("error") is None for r in rows])
+    idx = np.sort(rng.choice(n, size=min(recheck, n), replace=False)) if used == "batch" and recheck > 0 else None
+    with _Recheck(case, matrix, idx, workers) as later:
+        figs, passed, errors, worst, fits, retried = _monte_carlo(case, matrix, flist, used, workers, progress,
+                                                                  chunk)
+        study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
+        check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
+    if retried:
+        note = (note + "; " if note else "") + (f"{retried} sample(s) the batch engine could not simulate were run "
+                                                "by the detailed engine")
     k = int(passed.sum())
     pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
            for f, a in figs.items()}
-    worst = {}
-    for j, r in enumerate(rows):
-        for name, value, limit, margin, _ok in r.get("checks", []):
-            m = -np.inf if margin is None else margin
-            if name not in worst or m < worst[name]["margin_key"]:
-                worst[name] = {"margin_key": m, "margin": margin, "value": value, "limit": limit,
-                               "params": _params(names, matrix[j])}
-    for w in worst.values():
-        w.pop("margin_key")
+    worst_per_check = {name: {"margin": _opt(m), "value": _opt(v), "limit": _opt(lim),
+                              "params": _params(names, matrix[j])} for name, (_key, j, v, lim, m) in worst.items()}
+    corners, search, sens = study
+    return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
+                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check)
+
+
+class _Recheck:
+    """The detailed engine's run of the recheck samples, started in worker processes before the
+    batch engine runs the Monte Carlo (the two share the machine's cores), or run when asked."""
+
+    def __init__(self, case, matrix, idx, workers):
+        self.case, self.rows, self.workers = case, None if idx is None else matrix[idx], workers
+        self.pool, self.futures = None, []
+
+    def __enter__(self):
+        if self.rows is not None and self.workers > 1 and len(self.rows) > 1:
+            from concurrent.futures import ProcessPoolExecutor
+
+            k = max(1, self.workers - 1)
+            self.pool = ProcessPoolExecutor(max_workers=k)
+            self.futures = [self.pool.submit(_detailed_points, self.case, part)
+                            for part in np.array_split(self.rows, k) if len(part)]
+        return self
+
+    def points(self):
+        from kickback.studies.points import concat
+
+        if self.futures:
+            return concat([f.result() for f in self.futures])
+        return _detailed_points(self.case, self.rows)
+
+    def __exit__(self, *exc):
+        if self.pool is not None:
+            self.pool.shutdown(wait=True, cancel_futures=True)
+        return False
+
+
+def _detailed_points(case, rows):
+    return evaluate(case, rows, engine="detailed")
+
+
+def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
+    """Corners, the worst-case search and the one-at-a-time sensitivity."""
+
+    def figures_at(x):
+        pts = evaluate(case, x, engine=used, workers=workers)
+        return {f: pts.figures.get(f, np.full(len(x), np.nan)) for f, _, _ in flist}
+
     lows = np.array([t.low for t in case.tolerances])
     highs = np.array([t.high for t in case.tolerances])
     corners, corner_best = {}, {}
     if len(names) <= MAX_CORNER_VALUES:
         cm = np.array(list(itertools.product(*zip(lows, highs, strict=True))), dtype=float)
-        crow = _fig_arrays(evaluate(case, cm, workers=workers), flist)
-        for f, a in crow.items():
+        for f, a in figures_at(cm).items():
             if np.isfinite(a).any():
                 j = int(np.nanargmax(a))
                 corners[f] = {"max": float(a[j]), "min": float(np.nanmin(a)), "params": _params(names, cm[j])}
                 corner_best[f] = (float(a[j]), cm[j])
-    search = {}
-    for f, _, _ in flist:
-        a = figs[f]
-        if not np.isfinite(a).any() or np.nanmax(a) == np.nanmin(a):
-            continue  # absent or constant over the samples (e.g. no avalanche at all)
-        j = int(np.nanargmax(a))
-        start_val, start = float(a[j]), matrix[j]
-        if f in corner_best and corner_best[f][0] > start_val:
-            start_val, start = corner_best[f]
-        best_val, best_x = _local_search(case, f, np.clip(start, lows, highs), lows, highs, search_budget)
-        if best_val < start_val:
-            best_val, best_x = start_val, start
-        c_max = corner_best.get(f, (None,))[0]
-        search[f] = {"max": best_val, "params": _params(names, best_x), "corner_max": c_max,
-                     "interior": bool(c_max is not None and best_val > c_max * (1 + 1e-6) + 1e-300)}
+    search = _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist,
+                     search_budget or (40 if used == "detailed" else 2 * len(names) * SEARCH_ROUNDS))
     nom = nominal(case)
     sens = {}
     one_at_a_time = []
@@ -195,35 +283,89 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
         lo_row[i], hi_row[i] = lows[i], highs[i]
         one_at_a_time += [lo_row, hi_row]
     if one_at_a_time:
-        oat = _fig_arrays(evaluate(case, np.array(one_at_a_time), workers=workers), flist)
-        for f, a in oat.items():
+        for f, a in figures_at(np.array(one_at_a_time)).items():
             swings = [(names[i], float(a[2 * i + 1] - a[2 * i])) for i in range(len(names))
                       if np.isfinite(a[2 * i]) and np.isfinite(a[2 * i + 1])]
             sens[f] = sorted(swings, key=lambda s: -abs(s[1]))
-    return ToleranceResult(case, names, matrix, figs, passed, [r.get("error") for r in rows],
-                           clopper_pearson(k, len(rows)), pct, worst, corners, search, sens, seed, flist)
+    return corners, search, sens
 
 
-def _local_search(case, figure, x0, lows, highs, budget):
-    """Bounded derivative-free search for the maximum of one figure, from ``x0``."""
-    from scipy.optimize import minimize
+def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
+    """Every sample, chunk by chunk: the followed figures, verdicts, errors and, per check, the
+    sample with the smallest margin (no margin counts as the smallest)."""
+    n = len(matrix)
+    figs = {f: np.full(n, np.nan) for f, _, _ in flist}
+    passed = np.zeros(n, bool)
+    errors = np.full(n, None, dtype=object)
+    worst: dict = {}
+    fits: list = []
+    retried = 0
+    for start in range(0, n, max(1, chunk)):
+        rows = slice(start, min(n, start + chunk))
 
-    from kickback.studies.sweep import point_figures
+        def step(done, start=start):
+            if progress is not None:
+                progress(start + done)
 
-    span = np.where(highs > lows, highs - lows, 1.0)
-    seen = {}
+        pts = evaluate(case, matrix[rows], engine=used, workers=workers, progress=step, chunk=chunk)
+        for f, _, _ in flist:
+            if f in pts.figures:
+                figs[f][rows] = pts.figures[f]
+        passed[rows] = pts.passed
+        errors[rows] = pts.errors
+        fits += [x for x in pts.fits if x not in fits]
+        retried += pts.retried
+        for name, c in pts.checks.items():
+            key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
+            j = int(np.argmin(key))
+            if not c.applies[j]:
+                continue
+            if name not in worst or key[j] < worst[name][0]:
+                worst[name] = (key[j], start + j, c.value[j], c.limit[j], c.margin[j])
+    return figs, passed, errors, worst, tuple(fits), retried
 
-    def f(u):
-        x = lows + np.clip(u, 0.0, 1.0) * span
-        key = tuple(np.round(u, 12))
-        if key not in seen:
-            r = point_figures(apply(case, x))
-            v = r.get(figure)
-            seen[key] = (-np.inf if v is None else float(v), x)
-        return -seen[key][0]
 
-    u0 = (x0 - lows) / span
-    minimize(f, u0, method="Powell", bounds=[(0.0, 1.0)] * len(u0),
-             options={"maxfev": budget, "xtol": 1e-4, "ftol": 1e-9})
-    best = max(seen.values(), key=lambda t: t[0])
-    return best[0], best[1]
+def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, budget) -> dict:
+    """The worst-case search of every figure that varies over the samples, from the worst sample
+    (or corner, when it is worse)."""
+    from kickback.studies.worstcase import compass_search
+
+    starts = {}
+    for f, _, _ in flist:
+        a = figs[f]
+        if not np.isfinite(a).any() or np.nanmax(a) == np.nanmin(a):
+            continue  # absent or constant over the samples (e.g. no avalanche at all)
+        j = int(np.nanargmax(a))
+        start_val, start = float(a[j]), matrix[j]
+        if f in corner_best and corner_best[f][0] > start_val:
+            start_val, start = corner_best[f]
+        starts[f] = (np.clip(start, lows, highs), start_val)
+    found = compass_search(figures_at, starts, lows, highs, budget)
+    search = {}
+    for f, (best_val, best_x) in found.items():
+        c_max = corner_best.get(f, (None,))[0]
+        search[f] = {"max": float(best_val), "params": _params(names, best_x), "corner_max": c_max,
+                     "interior": bool(c_max is not None and best_val > c_max * (1 + 1e-6) + 1e-300)}
+    return search
+
+
+def recheck_detailed(idx, figs, passed, flist, pts) -> dict:
+    """Samples ``idx`` as run again by the detailed engine (``pts``, :class:`Points`) against the
+    batch engine's figures ``figs``: per figure the largest absolute and relative difference
+    (batch − detailed) and where, times present in one engine only, and verdicts that differ."""
+    out = {}
+    for f, unit, _ in flist:
+        a, b = figs[f][idx], pts.figures.get(f, np.full(idx.size, np.nan))
+        both = np.isfinite(a) & np.isfinite(b)
+        one = int(np.sum(np.isfinite(a) != np.isfinite(b)))
+        entry = {"unit": unit, "max_abs": None, "max_rel": None, "sample": None, "present_in_one_only": one}
+        if both.any():
+            d = np.abs(a - b)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                rel = np.where(b != 0, d / np.abs(b), np.where(d == 0, 0.0, np.inf))
+            j = int(np.argmax(np.where(both, rel, -1.0)))
+            entry |= {"max_abs": float(np.max(d[both])), "max_rel": float(rel[j]), "sample": int(idx[j])}
+        out[f] = entry
+    return {"samples": int(idx.size), "indices": [int(i) for i in idx], "figures": out,
+            "verdicts_differ": int(np.sum(passed[idx] != pts.passed)),
+            "detailed_errors": int(sum(e is not None for e in pts.errors))}

@@ -1,0 +1,306 @@
+"""Many variants of one case through either engine, as the columns the studies use.
+
+The sweep, the clamp choice and the tolerance study all need the same thing: a handful of
+figures, the verdict and every check's value, limit and margin for n variants of one case that
+differ only in values. :func:`evaluate` gives them as a :class:`Points` table whichever engine
+runs:
+
+* ``"batch"`` — :func:`kickback.studies.many.simulate_many` (exact piecewise-linear segments,
+  vectorised, in chunks; Shockley diodes and varistors as a stated piecewise-linear fit);
+* ``"detailed"`` — :func:`kickback.simulation.simulate` point by point, in worker processes;
+* ``"auto"`` — the batch engine unless the case has a feature it does not cover (thermal
+  networks, a saturating coil, a [drive], a motor); then the detailed engine, and
+  :attr:`Points.note` says why.
+
+A variant the batch engine could not simulate (a reason in its status) is run again by the
+detailed engine, up to :data:`RETRY_MAX` of them per call, so the reference engine has the last
+word on what cannot be simulated.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from kickback.case import Case
+from kickback.errors import SolverError
+
+ENGINES = ("auto", "batch", "detailed")
+#: variants the batch engine failed that are run again by the detailed engine, per call
+RETRY_MAX = 50
+#: the figures of every variant: name → unit
+FIGURES = {"peak_voltage_V": "V", "clamp_energy_J": "J", "avalanche_energy_J": "J", "to_10_percent_s": "s",
+           "to_1_percent_s": "s", "to_zero_s": "s", "release_s": "s", "stored_energy_J": "J",
+           "energy_balance_error": ""}
+#: the batch engine's column of each figure (clamp energies are added separately)
+_BATCH = {"peak_voltage_V": "switch.peak_voltage_V", "avalanche_energy_J": "switch.avalanche_energy_J",
+          "to_10_percent_s": "coil.decay_s.to_10_percent", "to_1_percent_s": "coil.decay_s.to_1_percent",
+          "to_zero_s": "coil.decay_s.to_zero", "release_s": "coil.release_s",
+          "stored_energy_J": "coil.stored_energy_J", "energy_balance_error": "energy_balance_error"}
+
+
+@dataclass(frozen=True)
+class CheckCol:
+    """One rating check over the variants (arrays of shape (n,)); NaN where it does not apply."""
+
+    value: np.ndarray
+    limit: np.ndarray
+    margin: np.ndarray
+    passed: np.ndarray  # True where it does not apply
+    applies: np.ndarray
+
+
+@dataclass(frozen=True)
+class Points:
+    """Figures, checks and verdicts of n variants of one case.
+
+    Attributes
+    ----------
+    engine : str — "batch" or "detailed" (the engine that ran)
+    figures : dict — name → float array (NaN: the time does not occur, or not simulated);
+        the names of :data:`FIGURES` and ``clamp[k].energy_J`` for every clamp
+    checks : dict — "part quantity" → :class:`CheckCol`, in the order of
+        :func:`kickback.ratings.rating_checks`
+    passed : bool array — simulated and every check passes
+    errors : object array — None, or why the variant could not be simulated
+    fits : tuple of str — piecewise-linear fits of nonlinear laws the batch engine used
+    note : str — why the detailed engine ran where the batch engine was asked for ("" otherwise)
+    retried : int — variants the batch engine could not simulate, run again by the detailed one
+    """
+
+    engine: str
+    figures: dict
+    checks: dict
+    passed: np.ndarray
+    errors: np.ndarray
+    fits: tuple = ()
+    note: str = ""
+    retried: int = 0
+
+    @property
+    def n(self) -> int:
+        return int(self.passed.size)
+
+    def failing(self, k: int) -> list[str]:
+        """Names of the checks variant k fails."""
+        return [name for name, c in self.checks.items() if c.applies[k] and not c.passed[k]]
+
+    def point(self, k: int) -> dict:
+        """Variant k as :func:`kickback.studies.sweep.point_figures` gives one point (None for NaN)."""
+        if self.errors[k] is not None:
+            return {"error": self.errors[k]}
+        out = {name: _opt(a[k]) for name, a in self.figures.items()}
+        out |= {"pass": bool(self.passed[k]), "failing_checks": self.failing(k), "error": None,
+                "checks": [(name, _opt(c.value[k]), _opt(c.limit[k]), _opt(c.margin[k]), bool(c.passed[k]))
+                           for name, c in self.checks.items() if c.applies[k]]}
+        return out
+
+
+def _opt(x):
+    x = float(x)
+    return None if np.isnan(x) else x
+
+
+def pick_engine(case: Case, engine: str = "auto") -> tuple[str, str]:
+    """The engine that runs for ``case``: ("batch" or "detailed", note).
+
+    Raises
+    ------
+    SolverError — ``engine="batch"`` for a case the batch engine does not cover (says why).
+    ValueError — an unknown engine name.
+    """
+    from kickback.studies.many import batch_unsupported
+
+    if engine not in ENGINES:
+        raise ValueError(f"unknown engine {engine!r} (expected one of {', '.join(ENGINES)})")
+    if engine == "detailed":
+        return "detailed", ""
+    why = batch_unsupported(case)
+    if why is None:
+        return "batch", ""
+    if engine == "batch":
+        raise SolverError(f"the batch engine does not cover this case: {why} (expected --engine detailed or auto)")
+    return "detailed", f"the batch engine does not cover this case ({why}): the detailed engine ran"
+
+
+def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto", workers: int = 1,
+             progress=None, chunk: int | None = None, retry: int = RETRY_MAX) -> Points:
+    """Simulate every variant of ``case`` (variant k takes the k-th value of every key).
+
+    Parameters
+    ----------
+    case : Case — the base case
+    variations : dict — key path → values [SI], all of one length n; None: the case itself
+    engine : str — "auto", "batch" or "detailed" (see the module docstring)
+    workers : int — worker processes for the detailed engine
+    progress : callable(n_done) or None
+    chunk : int or None — variants per batch of the batch engine (its default when None)
+    retry : int — at most this many variants the batch engine failed are run by the detailed one
+
+    Returns
+    -------
+    Points
+
+    Raises
+    ------
+    CaseError — an unknown key path, a non-numeric key or value arrays of unequal length
+    SolverError — ``engine="batch"`` for a case the batch engine does not cover
+    """
+    from kickback.figures_batch import CHUNK, normalize_variations
+
+    var, n = normalize_variations(case, variations or {})
+    used, note = pick_engine(case, engine)
+    if used == "detailed":
+        pts = _detailed(case, var, n, workers=workers, progress=progress)
+        return Points(pts.engine, pts.figures, pts.checks, pts.passed, pts.errors, note=note)
+    from kickback.studies.many import simulate_many
+
+    step = None if progress is None else (lambda done, _n: progress(done))
+    many = simulate_many(case, var, chunk=chunk or CHUNK, progress=step)
+    pts = from_many(case, many)
+    bad = np.nonzero(pts.errors != None)[0][:retry]  # noqa: E711 - elementwise on an object array
+    if bad.size:
+        again = _detailed(case, {k: v[bad] for k, v in var.items()}, bad.size, workers=workers)
+        pts = _replace_rows(pts, bad, again)
+    return pts
+
+
+def from_many(case: Case, many) -> Points:
+    """A :class:`~kickback.studies.many.ManyResult` as :class:`Points`."""
+    f = many.figures
+    n = many.n
+    ok = many.ok
+    figs = {name: np.asarray(f[col], float).copy() for name, col in _BATCH.items()}
+    total = np.where(ok, 0.0, np.nan)
+    for k in range(len(case.clamps)):
+        e = np.asarray(f[f"clamps[{k}].energy_J"], float)
+        figs[f"clamp[{k}].energy_J"] = e.copy()
+        total = total + e
+    figs["clamp_energy_J"] = total
+    checks = {}
+    for c in many.checks.values():
+        checks[f"{c.part} {c.quantity}"] = CheckCol(np.asarray(c.value, float), np.asarray(c.limit, float),
+                                                    np.asarray(c.margin, float), np.asarray(c.passed, bool),
+                                                    np.asarray(c.applies, bool))
+    errors = np.full(n, None, dtype=object)
+    errors[~ok] = many.message[~ok]
+    return Points("batch", _ordered(figs), checks, np.asarray(many.passed, bool), errors, tuple(many.fits))
+
+
+def _ordered(figs: dict) -> dict:
+    head = {k: figs[k] for k in FIGURES if k in figs}
+    return head | {k: v for k, v in figs.items() if k not in head}
+
+
+def _detailed(case: Case, var: dict, n: int, *, workers: int = 1, progress=None) -> Points:
+    """Every variant by the detailed engine (worker processes when workers > 1)."""
+    from kickback.keypath import set_value
+    from kickback.studies.pool import map_points
+    from kickback.studies.sweep import point_figures
+
+    cases = []
+    for k in range(n):
+        c = case
+        for path, vals in var.items():
+            c = set_value(c, path, float(vals[k]))
+        cases.append(c)
+    rows = map_points(point_figures, cases, workers=workers, progress=progress)
+    return from_rows(case, rows)
+
+
+def from_rows(case: Case, rows: list[dict]) -> Points:
+    """Rows of :func:`kickback.studies.sweep.point_figures` (detailed engine) as :class:`Points`."""
+    n = len(rows)
+    names = list(FIGURES) + [f"clamp[{k}].energy_J" for k in range(len(case.clamps))]
+    figs = {name: np.array([np.nan if r.get(name) is None else r[name] for r in rows], float) for name in names}
+    order: dict[str, None] = {}
+    for r in rows:
+        for name, *_ in r.get("checks", []):
+            order.setdefault(name, None)
+    checks = {}
+    for name in order:
+        value, limit, margin = (np.full(n, np.nan) for _ in range(3))
+        passed, applies = np.ones(n, bool), np.zeros(n, bool)
+        for k, r in enumerate(rows):
+            for nm, v, lim, m, ok in r.get("checks", []):
+                if nm == name:
+                    value[k] = np.nan if v is None else v
+                    limit[k] = np.nan if lim is None else lim
+                    margin[k] = np.nan if m is None else m
+                    passed[k], applies[k] = ok, True
+        checks[name] = CheckCol(value, limit, margin, passed, applies)
+    errors = np.empty(n, dtype=object)
+    errors[:] = [r.get("error") for r in rows]
+    passed = np.array([bool(r.get("pass")) and r.get("error") is None for r in rows], bool)
+    return Points("detailed", _ordered(figs), checks, passed, errors)
+
+
+def _replace_rows(pts: Points, rows: np.ndarray, again: Points) -> Points:
+    """``pts`` with the variants ``rows`` taken from ``again`` (the detailed engine's run of them)."""
+    figs = {k: v.copy() for k, v in pts.figures.items()}
+    for k, v in again.figures.items():
+        figs.setdefault(k, np.full(pts.n, np.nan))[rows] = v
+    checks = dict(pts.checks)
+    for name, c in again.checks.items():
+        old = checks.get(name)
+        if old is None:
+            old = CheckCol(np.full(pts.n, np.nan), np.full(pts.n, np.nan), np.full(pts.n, np.nan),
+                           np.ones(pts.n, bool), np.zeros(pts.n, bool))
+        cols = [a.copy() for a in (old.value, old.limit, old.margin, old.passed, old.applies)]
+        for a, b in zip(cols, (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):
+            a[rows] = b
+        checks[name] = CheckCol(*cols)
+    passed = pts.passed.copy()
+    passed[rows] = again.passed
+    errors = pts.errors.copy()
+    errors[rows] = again.errors
+    return Points(pts.engine, figs, checks, passed, errors, pts.fits, pts.note, pts.retried + int(rows.size))
+
+
+def concat(parts: list[Points]) -> Points:
+    """Several :class:`Points` of variants of one structure, one after the other."""
+    if len(parts) == 1:
+        return parts[0]
+    sizes = [p.n for p in parts]
+    n = sum(sizes)
+    starts = np.cumsum([0] + sizes)
+    figs: dict = {}
+    checks: dict = {}
+    for p, s0 in zip(parts, starts, strict=False):
+        sl = slice(s0, s0 + p.n)
+        for k, v in p.figures.items():
+            figs.setdefault(k, np.full(n, np.nan))[sl] = v
+        for name, c in p.checks.items():
+            if name not in checks:
+                checks[name] = CheckCol(np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan),
+                                        np.ones(n, bool), np.zeros(n, bool))
+            tgt = checks[name]
+            for a, b in zip((tgt.value, tgt.limit, tgt.margin, tgt.passed, tgt.applies),
+                            (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):
+                a[sl] = b
+    fits = tuple(dict.fromkeys(f for p in parts for f in p.fits))
+    notes = "; ".join(dict.fromkeys(p.note for p in parts if p.note))
+    engines = {p.engine for p in parts}
+    return Points(parts[0].engine if len(engines) == 1 else "mixed", figs, checks,
+                  np.concatenate([p.passed for p in parts]), np.concatenate([p.errors for p in parts]),
+                  fits, notes, sum(p.retried for p in parts))
+
+
+def evaluate_cases(cases: list[Case], *, engine: str = "auto", workers: int = 1, progress=None) -> Points:
+    """Simulate a list of cases; cases of one topology (see
+    :func:`kickback.studies.many.as_variations`) run as one batch, others one by one."""
+    from kickback.studies.many import as_variations
+
+    split = as_variations(cases)
+    if split is not None:
+        base, var = split
+        if not var and len(cases) > 1:
+            var = {"supply.voltage": np.full(len(cases), base.supply.voltage)}
+        return evaluate(base, var, engine=engine, workers=workers, progress=progress)
+    parts = []
+    for k, c in enumerate(cases):
+        parts.append(evaluate(c, engine=engine, workers=1))
+        if progress:
+            progress(k + 1)
+    return concat(parts)
