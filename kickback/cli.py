@@ -357,6 +357,9 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
     from kickback.studies.tolerance import run_tolerance
 
     c = _load(case)
+    if not c.tolerances:
+        _die(f"{c.source}: tolerance: the case has no [tolerance] section (expected at least one toleranced "
+             'value, e.g. [tolerance."coil.inductance"] band = "10 %")')
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
         tr = _with_progress("samples", samples,
