@@ -14,7 +14,6 @@ import numpy as np
 
 from kickback.engine.pwl import ScalarSegment
 from kickback.engine.pwl_roots import (
-    ROUND,
     Events,
     _bilinear,
     _extremum,
@@ -22,7 +21,7 @@ from kickback.engine.pwl_roots import (
     _Pairs,
     _refine,
     _xis,
-    grid_step,
+    grid_round,
     start_values,
 )
 from kickback.engine.pwl_scalar_roots import closed_scalar, quadratic, scalar_pieces
@@ -98,11 +97,7 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
         live = start < H * (1 - 1e-15)
         if not np.any(live):
             break
-        pts = np.empty((G, ROUND))
-        t = start.copy()
-        for kk in range(ROUND):
-            t = t + np.where(live, np.maximum(grid_step(t, exps, oscs, H), 0.0), 0.0)
-            pts[:, kk] = t
+        pts = grid_round(start, live, exps, oscs, H)
         xs = _xis(ev.seg, pts, ev.kmax)
         g, gp = ev.values(pts, xs)
         if pk is not None:

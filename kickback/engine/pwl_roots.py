@@ -223,6 +223,16 @@ def grid_step(tau, exps, oscs, H):
     return np.minimum(h, H - tau)
 
 
+def grid_round(start, live, exps, oscs, H):
+    """The next :data:`ROUND` grid points after ``start`` (G, ROUND); cases not ``live`` stay put."""
+    pts = np.empty((start.shape[0], ROUND))
+    t = start.copy()
+    for kk in range(ROUND):
+        t = t + np.where(live, np.maximum(grid_step(t, exps, oscs, H), 0.0), 0.0)
+        pts[:, kk] = t
+    return pts
+
+
 def first_event(ev: Events, H, exps, oscs, t0=None):
     """Earliest firing time of any event and which events fire there.
 
@@ -282,11 +292,7 @@ def _scan(ev, H, exps, oscs, g0, gp0):
         live = ~found & (start < H)
         if not np.any(live):
             break
-        pts = np.empty((G, ROUND))
-        t = start.copy()
-        for kk in range(ROUND):
-            t = t + np.where(live, np.maximum(grid_step(t, exps, oscs, H), 0.0), 0.0)
-            pts[:, kk] = t
+        pts = grid_round(start, live, exps, oscs, H)
         g, gp = ev.values(pts)
         left_t = np.concatenate([start[:, None], pts[:, :-1]], axis=1)
         gl = np.concatenate([ga[:, None, :], g[:, :-1]], axis=1)
