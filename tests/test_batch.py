@@ -376,6 +376,16 @@ def test_rc_snubber_agrees_with_detailed_engine(capacitive, data):
     _compare(data.draw(_cases("rc-snubber", capacitive), label="case"))
 
 
+def test_late_power_peak_after_a_fast_mode_dies():
+    """A slowly ringing RC snubber behind a fast node (10 pF): the capacitor's power peaks at
+    ~3.8 s, 1e-3 W against a segment start whose terms are ~1e11 (the node mode). Found by a
+    60-per-family run of the property below: the root refiner took that start's rounding level
+    as zero there and settled on the bracket's end (1.2e-4 W)."""
+    sw = Switch("mosfet", on_resistance=0.0184, fall_time=10e-9, capacitance=10e-12, breakdown_voltage=11.09)
+    rc = Clamp("RC", "coil", (Element("resistor", resistance=0.838), Element("capacitor", capacitance=1.0)))
+    _compare(Case("late peak (demo)", Supply(5.0), Coil(1.0, 1.0), sw, (rc,)))
+
+
 @pytest.mark.parametrize("name", ["conveyor_brake", "motor_snubber", "unclamped_mosfet"])
 def test_piecewise_linear_demo_cases_agree(name, cases_dir):
     """The demo cases whose laws are piecewise linear: every figure to the tolerances above."""

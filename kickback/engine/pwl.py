@@ -108,6 +108,11 @@ class ScalarSegment:
             c = c * b
         return out
 
+    def sizes_at(self, tau, kmax: int = 2, upto=None):
+        """Bound of the terms' sizes at τ (G,): those at τ = 0 (the scalar solution's terms do
+        not decay as a whole: ``x0`` and ``f0·τφ1(βτ)`` stay of their starting size)."""
+        return self.sizes(kmax)
+
     def derivs(self, tau, kmax: int = 3):
         """[x, x', …, x^(kmax)] at τ (each of shape τ.shape + (nX,))."""
         tau, b, f0, g = self._bc(tau)
@@ -223,6 +228,29 @@ class ModalSegment:
                 a, b = m * a + b, w2 * a + m * b
                 new.append((a, b, m, w2))
                 tot = tot + a
+            coef = new
+            out.append(tot)
+        return out
+
+    def sizes_at(self, tau, kmax: int = 2, upto=None):
+        """Bound of the size of the terms making up x^(k) at τ of shape (G,), k = 0…kmax: as
+        :meth:`sizes`, each modal term shrunk by its envelope (|e^{mτ}C| ≤ e^{rτ} and
+        |e^{mτ}S| ≤ τ e^{rτ} with r = m + Re w, the slower rate) — a mode that has died away
+        no longer sets the rounding level of the state. With ``upto`` (G,) ≥ τ: a bound over
+        all of [τ, upto] (the envelope at τ, the factors growing with τ at ``upto``)."""
+        tau = np.asarray(tau, float)
+        env = [np.exp(np.minimum(rp * tau, 0.0))[:, None] for _m, _w, _a, _b, rp in self.terms]
+        tc = (tau if upto is None else np.maximum(np.asarray(upto, float), tau))[:, None]
+        out = [np.abs(self.P0) + np.abs(self.P1) * tc
+               + sum(e * (np.abs(a) + np.abs(b) * tc) for e, (_m, _w, a, b, _r) in zip(env, self.terms, strict=True))]
+        coef = [(np.abs(a), np.abs(b), np.abs(m)[:, None], np.abs(w2)[:, None]) for m, w2, a, b, _r in self.terms]
+        for k in range(1, kmax + 1):
+            tot = np.abs(self.P1) if k == 1 else np.zeros_like(self.P1)
+            new = []
+            for e, (a, b, m, w2) in zip(env, coef, strict=True):
+                a, b = m * a + b, w2 * a + m * b
+                new.append((a, b, m, w2))
+                tot = tot + e * (a + b * tc)
             coef = new
             out.append(tot)
         return out

@@ -275,6 +275,10 @@ class PhiSegment:
             d = _mv(absA, d)
         return out
 
+    def sizes_at(self, tau, kmax: int = 2, upto=None):
+        """Bound of the terms' sizes at τ: those at τ = 0 (a ramp segment is short)."""
+        return self.sizes(kmax)
+
     def rates(self, idx=slice(None)):
         fast = []
         slow = np.zeros_like(self.X0[idx, 0])

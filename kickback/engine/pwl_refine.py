@@ -47,10 +47,17 @@ def _refine(pairs, a, b, ga=None, gb=None, *, figure: bool = False):
         xa = x[idx]
         g, gp = sub.values(_rows_at(xa, pos, sub))
         g, gp = g[pos], gp[pos]
-        # a value within rounding of zero while g falls is on the lower side: an upward
-        # crossing has g' ≥ 0, and the bracket's upper end still lies beyond one
-        neg = (g < 0) | ((g <= pairs.ztol[idx]) & (gp < 0))
         a_, b_, ga_, gb_ = a[idx], b[idx], ga[idx], gb[idx]
+        # a value within rounding of zero while g falls is on the lower side: an upward
+        # crossing has g' ≥ 0, and the bracket's upper end still lies beyond one. The rounding
+        # level is the segment start's, lowered to the bracket's own where modes have died away
+        # (computed only where it decides)
+        neg = g < 0
+        near = ~neg & (g <= pairs.ztol[idx]) & (gp < 0)
+        if np.any(near):
+            r = np.nonzero(near)[0]
+            near[r] = g[r] <= pairs.local_ztol(idx[r], a_[r], b_[r])
+            neg |= near
         a_ = np.where(neg, xa, a_)
         ga_ = np.where(neg, np.minimum(g, -1e-300), ga_)
         b_ = np.where(neg, b_, xa)

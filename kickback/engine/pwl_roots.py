@@ -65,6 +65,8 @@ class Events:
         self.iq = None if Qa is None else np.asarray(iq, int)
         #: (G, ne) size below which a value is rounding (set by :func:`start_values`; 0 until then)
         self.ztol = np.zeros(E.shape[:2])
+        #: (G,) [s] the rounding of the absolute start time behind ``ztol`` (START_ULPS ulp)
+        self.tspace = np.zeros(E.shape[0])
         self.qmap = np.full(E.shape[1], -1)
         if Qa is not None:
             self.qmap[self.iq] = np.arange(self.iq.size)
@@ -75,6 +77,7 @@ class Events:
 
         out = Events(self.seg.take(rows), self.E[rows], q(self.Qa), q(self.Qb), self.iq)
         out.ztol = self.ztol[rows]
+        out.tspace = self.tspace[rows]
         return out
 
     def values(self, tau, xs=None):
@@ -128,14 +131,13 @@ def start_values(ev: Events, t0):
     G = ev.E.shape[0]
     g0, gp0 = ev.values(np.zeros((G, 1)))
     g0, gp0 = g0[:, 0], gp0[:, 0]
-    tol = START_TOL * ev.scale()
-    if t0 is not None:
-        tol = tol + START_ULPS * np.spacing(np.maximum(t0, 1e-300))[:, None] * np.abs(gp0)
+    tspace = np.zeros(G) if t0 is None else START_ULPS * np.spacing(np.maximum(t0, 1e-300))
+    tol = START_TOL * ev.scale() + tspace[:, None] * np.abs(gp0)
     flat = np.abs(gp0) <= START_TOL * ev.scale(derivative=True)
     near = np.abs(g0) <= tol
     armed = np.where(near, (gp0 < 0) | flat, g0 < 0)
     nX = ev.E.shape[3] - 2
-    ev.ztol = tol
+    ev.ztol, ev.tspace = tol, tspace
     ev.E[:, :, 0, nX] -= np.where(near, g0, 0.0)
     g0 = np.where(near, np.where(armed, -tol - 1e-300, tol + 1e-300), g0)
     return g0, gp0, armed
@@ -155,16 +157,47 @@ class _Pairs:
         self.Qa = ev.Qa[gi, np.maximum(q, 0)] if ev.Qa is not None else None
         self.Qb = ev.Qb[gi, np.maximum(q, 0)] if ev.Qa is not None else None
         self.ztol = ev.ztol[gi, ei]
+        self.tspace = ev.tspace[gi]
 
     def take(self, rows) -> _Pairs:
         out = _Pairs(None)
         out.kmax = self.kmax
         out.ztol = self.ztol[rows]
+        out.tspace = self.tspace[rows]
         out.seg = self.seg.take(rows)
         out.E = self.E[rows]
         out.quad = self.quad[rows]
         out.Qa = None if self.Qa is None else self.Qa[rows]
         out.Qb = None if self.Qb is None else self.Qb[rows]
+        return out
+
+    def local_ztol(self, rows, a, b):
+        """Rounding level of g of the pairs ``rows`` on their brackets [a, b]: the start
+        tolerance ``ztol``, lowered to that of the terms' sizes over the bracket
+        (:meth:`ModalSegment.sizes_at`) where modes alive at the start (a fast node mode) have
+        died away by then."""
+        sub = self.take(rows)
+        s, sd = sub._scale(a, b)
+        return np.minimum(sub.ztol, START_TOL * s + sub.tspace * sd)
+
+    def _scale(self, a, b):
+        """Bound of the size of each pair's terms of g and of g' over [a, b] (P,): two arrays (P,)."""
+        sz = self.seg.sizes_at(a, 3, upto=b)
+        one = np.ones((a.size, 1))
+        zero = np.zeros((a.size, 1))
+        xs = [np.concatenate([sz[0], one, np.abs(b)[:, None]], axis=1), np.concatenate([sz[1], zero, one], axis=1)]
+        xs += [np.concatenate([x, zero, zero], axis=1) for x in sz[2:]]
+        xs += [np.zeros_like(xs[0])] * (4 - len(xs))
+        E = np.abs(self.E)
+        out = []
+        for d in (0, 1):
+            s = sum(np.sum(xs[k + d] * E[:, k], axis=-1) for k in range(3))
+            if self.Qa is not None and np.any(self.quad):
+                qa, qb = np.abs(self.Qa), np.abs(self.Qb)
+                q = _pair_form(xs[0], qa, xs[0]) + _pair_form(xs[0], qb, xs[1]) if d == 0 else \
+                    2 * _pair_form(xs[0], qa, xs[1]) + _pair_form(xs[1], qb, xs[1]) + _pair_form(xs[0], qb, xs[2])
+                s = s + np.where(self.quad, q, 0.0)
+            out.append(s)
         return out
 
     def values(self, tau):
