@@ -193,7 +193,7 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
         fe = Events(seg, F, np.zeros_like(qb), qb, np.arange(len(fev), len(fev) + len(Qp)))
     else:
         fe = Events(seg, F)
-    (rc, re, rt), g0f = all_roots(fe, tau, exps, oscs, tg, peaks=None)
+    (rc, re, rt), g0f = all_roots(fe, tau, exps, oscs, tg, peaks=(kinds == bev.F_EXT) | (kinds == bev.F_VMAX))
     M2 = seg.moments(tau)
     Xe = seg.state(tau)
     Xd = seg.deriv(tau)

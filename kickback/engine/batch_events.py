@@ -134,9 +134,11 @@ def fig_events(md, forms, mode, t0, st):
         add(cI, cond, F_EXT, m, 1)
         for f, kind in zip((cI - th * one, th * one - cI, -th * one - cI, cI + th * one), kinds, strict=True):
             add(f, cond, kind, m)
-        if m in bc.icap:
-            add(cI, cond, F_EXT, m)
-            add(-cI, cond, F_EXT, m)
+        if m in bc.icap:  # extrema of the capacitor's voltage (its rate is the chain current over C)
+            vc = np.zeros_like(cI)
+            vc[:, bc.icap[m]] = 1.0
+            add(-vc, cond, F_EXT, m, 1)
+            add(vc, cond, F_EXT, m, 1)
     for q, (_k, cs, _ref) in enumerate(bc.lone):
         c = len(bc.chains) + q
         cur = cs[idx][:, None] * cv  # the lone capacitor's current is C·v'

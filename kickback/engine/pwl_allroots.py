@@ -22,6 +22,8 @@ from kickback.engine.pwl_roots import (
     _refine,
     _xis,
     grid_round,
+    modes_take,
+    should_compact,
     start_values,
 )
 from kickback.engine.pwl_scalar_roots import closed_scalar, quadratic, scalar_pieces
@@ -86,6 +88,8 @@ def all_roots(ev: Events, T, exps, oscs, t0, peaks=None):
 
 def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
     G, ne = ev.E.shape[:2]
+    full, pk_full = ev, pk
+    rows = np.arange(G)  # the cases still scanned (the working set shrinks as cases finish)
     start = np.zeros(G)
     ga, gpa = g0, gp0
     out_g, out_e, out_lo, out_hi, out_ga, out_gb = [], [], [], [], [], []
@@ -97,12 +101,18 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
         live = start < H * (1 - 1e-15)
         if not np.any(live):
             break
+        if should_compact(live):
+            k = np.nonzero(live)[0]
+            rows, ev, start, ga, gpa, H, live = rows[k], ev.take(k), start[k], ga[k], gpa[k], H[k], live[k]
+            exps, oscs = modes_take(exps, oscs, k)
+            if pk is not None:
+                pk, sa = _PeakForms(ev, pk.mask[k]), sa[k]
         pts = grid_round(start, live, exps, oscs, H)
         xs = _xis(ev.seg, pts, ev.kmax)
         g, gp = ev.values(pts, xs)
         if pk is not None:
             sv = pk.values(xs)
-            s_best = np.fmax(s_best, np.max(np.where(live[:, None, None], sv, -np.inf), axis=1))
+            s_best[rows] = np.fmax(s_best[rows], np.max(np.where(live[:, None, None], sv, -np.inf), axis=1))
         tl = np.concatenate([start[:, None], pts[:, :-1]], axis=1)
         gl = np.concatenate([ga[:, None, :], g[:, :-1]], axis=1)
         gpl = np.concatenate([gpa[:, None, :], gp[:, :-1]], axis=1)
@@ -110,7 +120,7 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
         lv = (live[:, None] & nonzero)[..., None]
         cross = (gl < 0) & (g >= 0) & lv
         gi, ki, ei = np.nonzero(cross)
-        out_g.append(gi)
+        out_g.append(rows[gi])
         out_e.append(ei)
         out_lo.append(tl[gi, ki])
         out_hi.append(pts[gi, ki])
@@ -143,7 +153,7 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
             te = _extremum(pairs, a, b)
             gte, _ = pairs.values(te)
             ok = (gte >= 0) if is_peak else (gte < 0)
-            out_g.append(sgi[ok])
+            out_g.append(rows[sgi[ok]])
             out_e.append(sei[ok])
             out_lo.append(np.where(is_peak, a, te)[ok])
             out_hi.append(np.where(is_peak, te, b)[ok])
@@ -166,9 +176,9 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
     if pk is not None:
         ub = np.concatenate(bound)
         best = s_best[gi, ei]
-        keep = ~pk.mask[gi, ei] | ~(ub < best - _PEAK_MARGIN * (np.abs(best) + np.abs(ub)))
+        keep = ~pk_full.mask[gi, ei] | ~(ub < best - _PEAK_MARGIN * (np.abs(best) + np.abs(ub)))
         gi, ei, lo, hi, ga, gb = gi[keep], ei[keep], lo[keep], hi[keep], ga[keep], gb[keep]
-    root = _refine(_Pairs(ev, gi, ei), lo, hi, ga, gb, figure=False)
+    root = _refine(_Pairs(full, gi, ei), lo, hi, ga, gb, figure=True)
     return gi, ei, root
 
 
@@ -204,7 +214,7 @@ class _PeakForms:
         G, ne, _, nxi = ev.E.shape
         Et = ev.E[:, :, 1:].reshape(G, ne, 2 * nxi).transpose(0, 2, 1)
         s = -np.matmul(np.concatenate(xs[:2], axis=-1), Et)
-        if ev.Qa is not None:
+        if ev.has_qb:
             s[..., ev.iq] -= 0.5 * _bilinear(xs[0], ev.Qb, xs[0])
         return np.where(self.mask[:, None, :], s, 0.0)
 

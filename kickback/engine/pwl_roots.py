@@ -70,6 +70,9 @@ class Events:
         self.qmap = np.full(E.shape[1], -1)
         if Qa is not None:
             self.qmap[self.iq] = np.arange(self.iq.size)
+        #: whether the quadratic and the bilinear parts are there at all (most events have one)
+        self.has_qa = Qa is not None and bool(np.any(Qa))
+        self.has_qb = Qa is not None and bool(np.any(Qb))
 
     def take(self, rows) -> Events:
         def q(Q):
@@ -88,11 +91,13 @@ class Events:
         Et = self.E.reshape(G, ne, 3 * nxi).transpose(0, 2, 1)
         g = np.matmul(np.concatenate(xs[:3], axis=-1), Et)
         gp = np.matmul(np.concatenate(xs[1:], axis=-1), Et)
-        if self.Qa is not None:
-            x0, x1, x2 = xs[0], xs[1], xs[2]
-            g[..., self.iq] += _bilinear(x0, self.Qa, x0) + _bilinear(x0, self.Qb, x1)
-            gp[..., self.iq] += (2 * _bilinear(x1, self.Qa, x0) + _bilinear(x1, self.Qb, x1)
-                                 + _bilinear(x0, self.Qb, x2))
+        x0, x1, x2 = xs[0], xs[1], xs[2]
+        if self.has_qa:
+            g[..., self.iq] += _bilinear(x0, self.Qa, x0)
+            gp[..., self.iq] += 2 * _bilinear(x1, self.Qa, x0)
+        if self.has_qb:
+            g[..., self.iq] += _bilinear(x0, self.Qb, x1)
+            gp[..., self.iq] += _bilinear(x1, self.Qb, x1) + _bilinear(x0, self.Qb, x2)
         return g, gp
 
     def scale(self, derivative: bool = False):
@@ -116,9 +121,11 @@ class Events:
 
 
 def _bilinear(u, Q, v):
-    """uᵀ Q v for u, v of shape (G, K, n) and Q of shape (G, q, n, n): (G, K, q)."""
-    t = np.matmul(u[:, None], Q)  # (G, q, K, n)
-    return np.sum(t * v[:, None], axis=-1).transpose(0, 2, 1)
+    """uᵀ Q v for u, v of shape (G, K, n) and Q of shape (G, q, n, n): (G, K, q) — one batched
+    product of the outer products u vᵀ (G, K, n²) with the flattened forms."""
+    G, K, n = u.shape
+    o = (u[..., :, None] * v[..., None, :]).reshape(G, K, n * n)
+    return np.matmul(o, Q.reshape(G, Q.shape[1], n * n).transpose(0, 2, 1))
 
 
 def start_values(ev: Events, t0):
@@ -154,8 +161,9 @@ class _Pairs:
         self.kmax = ev.kmax
         q = ev.qmap[ei]
         self.quad = q >= 0
-        self.Qa = ev.Qa[gi, np.maximum(q, 0)] if ev.Qa is not None else None
-        self.Qb = ev.Qb[gi, np.maximum(q, 0)] if ev.Qa is not None else None
+        # (the parts that are all zero are left out: None)
+        self.Qa = ev.Qa[gi, np.maximum(q, 0)] if ev.has_qa else None
+        self.Qb = ev.Qb[gi, np.maximum(q, 0)] if ev.has_qb else None
         self.ztol = ev.ztol[gi, ei]
         self.tspace = ev.tspace[gi]
 
@@ -192,11 +200,15 @@ class _Pairs:
         out = []
         for d in (0, 1):
             s = sum(np.sum(xs[k + d] * E[:, k], axis=-1) for k in range(3))
-            if self.Qa is not None and np.any(self.quad):
-                qa, qb = np.abs(self.Qa), np.abs(self.Qb)
-                q = _pair_form(xs[0], qa, xs[0]) + _pair_form(xs[0], qb, xs[1]) if d == 0 else \
-                    2 * _pair_form(xs[0], qa, xs[1]) + _pair_form(xs[1], qb, xs[1]) + _pair_form(xs[0], qb, xs[2])
-                s = s + np.where(self.quad, q, 0.0)
+            q = np.zeros_like(s)
+            if self.Qa is not None:
+                qa = np.abs(self.Qa)
+                q += _pair_form(xs[0], qa, xs[0]) if d == 0 else 2 * _pair_form(xs[0], qa, xs[1])
+            if self.Qb is not None:
+                qb = np.abs(self.Qb)
+                q += _pair_form(xs[0], qb, xs[1]) if d == 0 else \
+                    _pair_form(xs[1], qb, xs[1]) + _pair_form(xs[0], qb, xs[2])
+            s = s + np.where(self.quad, q, 0.0)
             out.append(s)
         return out
 
@@ -206,13 +218,18 @@ class _Pairs:
         E = self.E.reshape(P, -1)
         g = np.sum(np.concatenate(xs[:3], axis=-1) * E, axis=-1)
         gp = np.sum(np.concatenate(xs[1:], axis=-1) * E, axis=-1)
-        if self.Qa is not None and np.any(self.quad):
-            x0, x1, x2 = xs[0], xs[1], xs[2]
-            q = _pair_form(x0, self.Qa, x0) + _pair_form(x0, self.Qb, x1)
-            qp = 2 * _pair_form(x1, self.Qa, x0) + _pair_form(x1, self.Qb, x1) + _pair_form(x0, self.Qb, x2)
-            g = g + np.where(self.quad, q, 0.0)
-            gp = gp + np.where(self.quad, qp, 0.0)
-        return g, gp
+        if not np.any(self.quad):
+            return g, gp
+        x0, x1, x2 = xs[0], xs[1], xs[2]
+        q = np.zeros_like(g)
+        qp = np.zeros_like(g)
+        if self.Qa is not None:
+            q += _pair_form(x0, self.Qa, x0)
+            qp += 2 * _pair_form(x1, self.Qa, x0)
+        if self.Qb is not None:
+            q += _pair_form(x0, self.Qb, x1)
+            qp += _pair_form(x1, self.Qb, x1) + _pair_form(x0, self.Qb, x2)
+        return g + np.where(self.quad, q, 0.0), gp + np.where(self.quad, qp, 0.0)
 
 
 def _pair_form(u, Q, v):
@@ -318,6 +335,7 @@ def _scan(ev, H, exps, oscs, g0, gp0):
     """Grid scan and refinement: first root per (case, event) before ``H``; inf if none."""
     G, ne = ev.E.shape[:2]
     best = np.full((G, ne), np.inf)
+    rows = np.arange(G)  # the cases still scanned (the working set shrinks as cases finish)
     found = np.zeros(G, bool)
     start = np.zeros(G)
     ga, gpa = g0, gp0
@@ -325,6 +343,10 @@ def _scan(ev, H, exps, oscs, g0, gp0):
         live = ~found & (start < H)
         if not np.any(live):
             break
+        if should_compact(live):
+            k = np.nonzero(live)[0]
+            rows, ev, found, start, ga, gpa, H, live = rows[k], ev.take(k), found[k], start[k], ga[k], gpa[k], H[k], live[k]
+            exps, oscs = modes_take(exps, oscs, k)
         pts = grid_round(start, live, exps, oscs, H)
         g, gp = ev.values(pts)
         left_t = np.concatenate([start[:, None], pts[:, :-1]], axis=1)
@@ -337,11 +359,26 @@ def _scan(ev, H, exps, oscs, g0, gp0):
             ok &= lo <= first_hi[:, None]
             gi, ei = np.nonzero(ok)
             root = _refine(_Pairs(ev, gi, ei), lo[gi, ei], hi[gi, ei])
-            best[gi, ei] = root
+            best[rows[gi], ei] = root
             found |= ok.any(axis=1)
         start = np.where(live, pts[:, -1], start)
         ga, gpa = g[:, -1], gp[:, -1]
     return best
+
+
+#: a scan's working set is cut to its live cases once fewer than this fraction of it are live
+#: (every round evaluates every case of the set; most cases finish within a few rounds)
+COMPACT_BELOW = 0.6
+
+
+def should_compact(live) -> bool:
+    """Whether the scan's working set should be cut to its live cases (see COMPACT_BELOW)."""
+    return live.size > 8 and np.count_nonzero(live) < COMPACT_BELOW * live.size
+
+
+def modes_take(exps, oscs, k):
+    """The segment modes (see :func:`grid_step`) of the cases ``k`` only."""
+    return [x[k] for x in exps], [(d[k], w[k]) for d, w in oscs]
 
 
 def _brackets(ev, tl, tr, gl, gpl, gr, gpr, live):
