@@ -386,6 +386,18 @@ def test_late_power_peak_after_a_fast_mode_dies():
     _compare(Case("late peak (demo)", Supply(5.0), Coil(1.0, 1.0), sw, (rc,)))
 
 
+def test_held_voltage_includes_the_conduction_threshold():
+    """A Zener of 4.8 Ω dynamic resistance holds Vz + r·i up to the conduction threshold
+    (1e-6·i0): its standoff figure is read at the threshold's crossing, as the detailed
+    engine's samples just below it read it (found by a 300-per-family run: the batch engine
+    read Vz at the chain's segment ends only, 1.7e-4 V low)."""
+    sw = Switch("ideal", fall_time=8.906e-07, capacitance=1e-10)
+    dz = Clamp("D+Z", "coil", (Element("diode", model="constant-drop", forward_voltage=0.684),
+                               Element("zener", voltage=66.32, dynamic_resistance=4.83)))
+    tvs = Clamp("TVS", "switch", (Element("tvs", voltage=74.67, dynamic_resistance=1.0),))
+    _compare(Case("held (demo)", Supply(36.07), Coil(5.449e-3, 1.0), sw, (dz, tvs)))
+
+
 @pytest.mark.parametrize("name", ["conveyor_brake", "motor_snubber", "unclamped_mosfet"])
 def test_piecewise_linear_demo_cases_agree(name, cases_dir):
     """The demo cases whose laws are piecewise linear: every figure to the tolerances above."""

@@ -274,9 +274,12 @@ def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):
     last = np.full(G, -np.inf)
     np.maximum.at(last, rc[m], rt[m])
     st.trel[gi] = np.where(np.isfinite(last), t0 + last, st.trel[gi])
-    m = (kr == bev.F_EXT) | (kr == bev.F_VMAX)
+    # extrema, and the conduction thresholds' crossings (where a blocking element's held
+    # voltage can be largest: its current is at the threshold there)
+    cross = (kr == bev.F_UP_POS) | (kr == bev.F_DN_POS) | (kr == bev.F_UP_NEG) | (kr == bev.F_DN_NEG)
+    m = (kr == bev.F_EXT) | (kr == bev.F_VMAX) | cross
     if np.any(m):
-        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX)
+        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, np.where(cross, chains[re], -1)[m])
     for c in range(st.rec.nch):
         add = np.zeros(G)
         for up, dn in ((bev.F_UP_POS, bev.F_DN_POS), (bev.F_UP_NEG, bev.F_DN_NEG)):

@@ -127,10 +127,12 @@ class Record:
                 u = v - ref * bc.Vs[gi]
                 self._update(c, gi, cs[gi] * dv, [u] * self.nel[c], keep)
 
-    def points(self, gi, forms, seg, rc, rt, t0, vmax):
+    def points(self, gi, forms, seg, rc, rt, t0, vmax, edge=None):
         """Record interior points: roots ``rt`` [s] of figure events of the group's variants ``rc``
         (indices into ``gi``; several per variant); ``vmax`` marks the roots of dv/dt at a maximum,
-        whose time is the peak time even where rounding cannot tell the value from a nearby one."""
+        whose time is the peak time even where rounding cannot tell the value from a nearby one;
+        ``edge`` the chain whose current is at its conduction threshold there (−1: none), which
+        counts as blocking at that point whatever the rounding of its current."""
         bc = self.bc
         sub = seg.take(rc)
         X = sub.state(rt)
@@ -154,23 +156,26 @@ class Record:
             cur = np.einsum("pj,pj->p", forms.cI[2 + m][rc], xi)
             vc = X[:, bc.icap[m]] if m in bc.icap else np.zeros(P)
             u = v - bc.ref[m] * bc.Vs[bi]
-            self._update_at(m, bi, cur, self._element_voltages(m, bi, cur, u, vc))
+            self._update_at(m, bi, cur, self._element_voltages(m, bi, cur, u, vc), None if edge is None else edge == m)
         if bc.lone:
             dxi = np.concatenate([dX, np.zeros((P, 1)), np.ones((P, 1))], axis=1)
             dv = np.einsum("pj,pj->p", forms.cv[rc], dxi)
             for q, (_k, cs, ref) in enumerate(bc.lone):
                 c = len(bc.chains) + q
                 u = v - ref * bc.Vs[bi]
-                self._update_at(c, bi, cs[bi] * dv, [u] * self.nel[c])
+                self._update_at(c, bi, cs[bi] * dv, [u] * self.nel[c], None if edge is None else edge == c)
 
-    def _update_at(self, c, bi, cur, vel):
-        """Like :meth:`_update` for points that may repeat a variant (unbuffered reductions)."""
+    def _update_at(self, c, bi, cur, vel, at_edge=None):
+        """Like :meth:`_update` for points that may repeat a variant (unbuffered reductions);
+        ``at_edge`` marks points where the chain's current is at its conduction threshold."""
         bc = self.bc
         th = CONDUCTION_FRACTION * bc.i0[bi]
         col = np.full(bi.shape, c)
         np.maximum.at(self.Imax, (bi, col), cur)
         np.minimum.at(self.Imin, (bi, col), cur)
         blocking = np.abs(cur) <= th
+        if at_edge is not None:
+            blocking |= at_edge
         k = bc.chain_index[c] if c < len(bc.chains) else bc.lone[c - len(bc.chains)][0]
         for j, vj in enumerate(vel):
             el = bc.case.clamps[k].elements[j]
