@@ -494,6 +494,16 @@ def test_channel_current_is_min_of_on_law_and_limit():
     np.testing.assert_allclose(got, [0.1, 0.2, 0.0], rtol=1e-13, atol=1e-16, err_msg="array version")
 
 
+def test_channel_is_off_after_the_fall_even_below_ground():
+    """Once the fall has ended the gate is off: no channel current at any node voltage, a
+    negative one included (the body diode, a separate law, takes that; Mohan et al. ch. 2 —
+    the linearised turn-off ends with the channel open). It had followed v/R_on below 0 V."""
+    sw = switch_law("mosfet", on_resistance=0.05, fall_time=200e-9)
+    got = sw.channel_current(np.array([-0.7, -0.01, 5.0]), np.array([200e-9, 1e-3, 1.0]), 0.8)
+    assert np.all(got == 0.0), f"channel after the fall: {got}"
+    _close(sw.channel_current(-0.01, 100e-9, 0.8), -0.2, 1e-13, "during the fall the channel still conducts")
+
+
 def test_bjt_channel_current_limited_after_saturation():
     """BJT: vertical at V_CE(sat) (any current above it), the fall limits it (derived)."""
     sw = switch_law("bjt", saturation_voltage=0.2, fall_time=100e-9)

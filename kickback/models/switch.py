@@ -55,8 +55,11 @@ class SwitchLaw:
         return i_on * np.clip(1.0 - np.asarray(t, dtype=float) / self.fall_time, 0.0, 1.0)
 
     def channel_current(self, v, t, i_on: float, r_min: float = 0.0):
-        """Channel current [A] at node voltage ``v`` [V] and time ``t`` [s] after turn-off."""
-        return np.minimum(self.on_state.current(v, r_min), self.current_limit(t, i_on))
+        """Channel current [A] at node voltage ``v`` [V] and time ``t`` [s] after turn-off: the
+        on-state law under the falling ceiling, and none once the fall has ended (the channel is
+        off; a negative node voltage then finds the body diode, not the channel)."""
+        i = np.minimum(self.on_state.current(v, r_min), self.current_limit(t, i_on))
+        return np.where(np.asarray(t, dtype=float) < self.fall_time, i, 0.0)
 
 
 def switch_law(kind: str, *, on_resistance: float = 0.0, saturation_voltage: float = 0.0,
