@@ -194,7 +194,11 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     else:
         fe = Events(seg, F)
     (rc, re, rt), g0f = all_roots(fe, tau, exps, oscs, tg, peaks=(kinds == bev.F_EXT) | (kinds == bev.F_VMAX))
-    M2 = seg.moments(tau)
+    try:
+        M2 = seg.moments(tau)
+    except SegmentError as err:
+        bc.fail(np.isin(np.arange(bc.n), gi), str(err))
+        return
     Xe = seg.state(tau)
     Xd = seg.deriv(tau)
     dv = Xe[:, 1] - Xg[:, 1] if bc.capacitive else None

@@ -302,14 +302,7 @@ class ModalSegment:
 
     def rates(self, idx=slice(None)):
         """(fast real rates, slow rate) [1/s] per case, for quadrature panels and search grids."""
-        fast = []
-        slow = np.zeros_like(self.P0[idx, 0])
-        for m, w2, _, _, rp in self.terms:
-            m, w2, rp = m[idx], w2[idx], rp[idx]
-            wr = np.sqrt(np.maximum(w2, 0.0))
-            fast.append(np.abs(m - wr))
-            slow = np.maximum(slow, np.where(w2 < 0, np.sqrt(np.maximum(-w2, 0.0)) + np.abs(m), np.abs(rp)))
-        return fast, slow
+        return mode_rates(self.terms, idx)
 
     def _cancelling(self, T):
         big = np.abs(self.P0) + np.abs(self.P1) * T[:, None]
@@ -355,6 +348,29 @@ class ModalSegment:
         return _assemble(sxx, sx, stx, T)
 
 
+def mode_rates(terms, idx=slice(None)):
+    """(real rates, slow rate) [1/s] of a segment's modes ``terms`` (see :class:`ModalSegment`)
+    for quadrature panels: every real rate (a single real mode's, each root of a real pair),
+    and the largest rate that limits panels over the whole segment — an oscillation's
+    ν + |μ|, or a real pair's slower root. A single real mode (the first of two terms, w² = 0,
+    no S part) is a real rate only: as the "slow" rate a fast node mode would cap every panel
+    at 1.5/λ_fast over the whole segment."""
+    fast = []
+    slow = None
+    single = len(terms) == 2
+    for n, (m, w2, _a, _b, rp) in enumerate(terms):
+        m, w2, rp = m[idx], w2[idx], rp[idx]
+        if slow is None:
+            slow = np.zeros_like(m)
+        wr = np.sqrt(np.maximum(w2, 0.0))
+        fast.append(np.abs(m - wr))
+        if single and n == 0:
+            continue
+        fast.append(np.abs(rp))
+        slow = np.maximum(slow, np.where(w2 < 0, np.sqrt(np.maximum(-w2, 0.0)) + np.abs(m), np.abs(rp)))
+    return fast, slow
+
+
 def quadrature_moments(seg, T, rates):
     """``∫0^T ξ ξᵀ dτ`` by 16-point Gauss–Legendre on panels graded to the segment's rates.
 
@@ -384,6 +400,8 @@ def quadrature_moments(seg, T, rates):
         xi = np.concatenate([x, np.ones(x.shape[:2] + (1,)), tq[..., None]], axis=2)
         M += np.einsum("gk,gki,gkj->gij", wq, xi, xi)
         s = s + h
+    else:
+        raise SegmentError("the energy quadrature of a segment needed more than 10⁵ panels")
     return M
 
 

@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kickback.engine.pwl import ModalSegment, ScalarSegment, SegmentError, quadrature_moments
+from kickback.engine.pwl import ModalSegment, ScalarSegment, SegmentError, mode_rates, quadrature_moments
 from kickback.engine.pwl_functions import cosh_sinhc, modal_integrals, psi01, slow_rate
 
 #: a triple (or nearly triple) eigenvalue of a 3-state segment is not handled
@@ -280,14 +280,7 @@ class PhiSegment:
         return self.sizes(kmax)
 
     def rates(self, idx=slice(None)):
-        fast = []
-        slow = np.zeros_like(self.X0[idx, 0])
-        for m, w2, _a, _b, rp in self.terms:
-            m, w2, rp = m[idx], w2[idx], rp[idx]
-            wr = np.sqrt(np.maximum(w2, 0.0))
-            fast.append(np.abs(m - wr))
-            slow = np.maximum(slow, np.where(w2 < 0, np.sqrt(np.maximum(-w2, 0.0)) + np.abs(m), np.abs(rp)))
-        return fast, slow
+        return mode_rates(self.terms, idx)
 
     def moments(self, T):
         return quadrature_moments(self, np.asarray(T, float), self.rates())
