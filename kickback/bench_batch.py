@@ -2,7 +2,7 @@
 memory of a chunked run — every ratio measured in this one run.
 
 ``python -m kickback.bench_batch`` (10⁵ variants per family), ``--quick`` (10⁴), ``--full`` (also a
-10⁶-variant run with its peak traced memory). Families (invented demo values, variants drawn
+10⁶-variant run with its peak resident memory). Families (invented demo values, variants drawn
 from a seeded generator over inductance, resistance, clamp voltage):
 
 * single state (no node capacitance): plain diode, diode + Zener, TVS to ground, switch
@@ -20,8 +20,9 @@ Fundamentals of Electric Circuits, ch. 7) — the floor any engine is measured a
 from __future__ import annotations
 
 import argparse
+import subprocess
+import sys
 import time
-import tracemalloc
 
 import numpy as np
 
@@ -90,8 +91,12 @@ def _time(fn, repeat=1):
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(prog="python -m kickback.bench_batch", description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="10⁴ variants per family, 6 detailed runs")
-    ap.add_argument("--full", action="store_true", help="also a 10⁶-variant run with traced peak memory")
+    ap.add_argument("--full", action="store_true", help="also a 10⁶-variant run with its peak resident memory")
+    ap.add_argument("--memory-child", type=int, default=0, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
+    if args.memory_child:
+        _memory_child(args.memory_child)
+        return
     from kickback.keypath import set_value
     from kickback.simulation import simulate
     from kickback.studies.many import simulate_many
@@ -126,18 +131,29 @@ def main(argv=None) -> None:
           f"{t_batch:.2f} s: the engine costs {t_batch / t_bare:.0f}× the bare formula "
           "(it also finds every event, energy, peak and check)")
     if args.full:
-        big = 1_000_000
-        var = _variations(path, span, big, seed=2)
-        tracemalloc.start()
-        t = time.perf_counter()
-        res = simulate_many(case, var)
-        dt = time.perf_counter() - t
-        _cur, peak = tracemalloc.get_traced_memory()
-        tracemalloc.stop()
-        cols = sum(a.nbytes for a in res.figures.values())
-        print(f"\n{big} variants in chunks of 10⁴: {dt:.1f} s, traced peak {peak / 2**20:.0f} MiB "
-              f"(of which the {len(res.figures)} result columns take {cols / 2**20:.0f} MiB)")
+        print("\nmemory: the constant-clamp family in a fresh process each, chunks of 10⁴ on the workers")
+        for big in (100_000, 1_000_000):
+            out = subprocess.run([sys.executable, "-m", "kickback.bench_batch", "--memory-child", str(big)],
+                                 capture_output=True, text=True, check=True).stdout.strip()
+            print(f"  {big:>9d} variants: {out}")
 
+
+def _memory_child(n: int) -> None:
+    """One run of n variants of the constant-clamp family; prints time and peak resident memory."""
+    import resource
+
+    from kickback.studies.many import simulate_many
+
+    case, path, span = FAMILIES["diode + Zener, instant"]
+    var = _variations(path, span, n, seed=2)
+    t = time.perf_counter()
+    res = simulate_many(case, var)
+    dt = time.perf_counter() - t
+    own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**10  # KiB on Linux
+    kids = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 2**10
+    cols = sum(a.nbytes for a in res.figures.values())
+    print(f"{dt:.1f} s, {int(res.ok.sum())} simulated; peak resident {own:.0f} MiB in the main process (its "
+          f"{len(res.figures)} result columns {cols / 2**20:.0f} MiB), {kids:.0f} MiB in the largest worker")
 
 if __name__ == "__main__":
     main()
