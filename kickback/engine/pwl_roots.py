@@ -274,12 +274,16 @@ def grid_step(tau, exps, oscs, H):
 
 
 def grid_round(start, live, exps, oscs, H):
-    """The next :data:`ROUND` grid points after ``start`` (G, ROUND); cases not ``live`` stay put."""
+    """The next :data:`ROUND` grid points after ``start`` (G, ROUND), fewer once every live case
+    has reached its horizon; cases not ``live`` stay put."""
     pts = np.empty((start.shape[0], ROUND))
     t = start.copy()
     for kk in range(ROUND):
         t = t + np.where(live, np.maximum(grid_step(t, exps, oscs, H), 0.0), 0.0)
         pts[:, kk] = t
+        if np.all(~live | (t >= H)):
+            # every case has reached its horizon: the rest of the round would repeat it
+            return pts[:, :kk + 1]
     return pts
 
 
@@ -310,6 +314,7 @@ def first_event(ev: Events, H, exps, oscs, t0=None):
             lin = numeric & ~quad
             best = np.where(lin, np.minimum(r1, r2), best)
             numeric = numeric & quad
+    best, numeric = _time_roots(ev, armed, best, numeric)
     need = numeric.any(axis=1)
     if np.any(need):
         rows = np.nonzero(need)[0]
@@ -323,6 +328,25 @@ def first_event(ev: Events, H, exps, oscs, t0=None):
     tau = np.where(np.isfinite(tau), tau, H)
     fired = best <= tau[:, None] * (1 + 1e-12) + 1e-300
     return tau, fired
+
+
+def _time_roots(ev: Events, armed, best, numeric):
+    """Closed roots of the events that depend on τ alone (``c + s·τ``: the end of the fall, the
+    time bound). Taken before the scan, they bound it: a segment under a 200 ns fall is then not
+    scanned over the microseconds its slow modes would set the grid to."""
+    nX = ev.E.shape[3] - 2
+    E = ev.E
+    only_t = ~np.any(E[:, :, 0, :nX] != 0, axis=-1) & ~np.any(E[:, :, 1:] != 0, axis=(-1, -2))
+    if ev.Qa is not None:
+        only_t[:, ev.iq] &= ~(np.any(ev.Qa != 0, axis=(2, 3)) | np.any(ev.Qb != 0, axis=(2, 3)))
+    only_t &= numeric
+    if not np.any(only_t):
+        return best, numeric
+    s = E[:, :, 0, nX + 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # (the coefficients as start_values left them: a rounding-level start value shifted out)
+        r = np.where(armed & (s > 0), np.maximum(-E[:, :, 0, nX] / s, 0.0), np.inf)
+    return np.where(only_t, r, best), numeric & ~only_t
 
 
 def _never(E):
