@@ -305,9 +305,14 @@ class ModalSegment:
         return mode_rates(self.terms, idx)
 
     def _cancelling(self, T):
+        # the S part e^{mτ}·sinh(wτ)/w (or sin(ωτ)/ω) is at most min(τ, 1/|w|) of |b| on a decaying
+        # term: bounded by |b|·T alone, a fast real pair (a node mode of nanoseconds under a
+        # decay of milliseconds, |b| ~ 1e9·|a|) would look like a cancellation it is not
         big = np.abs(self.P0) + np.abs(self.P1) * T[:, None]
-        for _m, _w2, a, b, _rp in self.terms:
-            big = big + np.abs(a) + np.abs(b) * T[:, None]
+        for _m, w2, a, b, _rp in self.terms:
+            with np.errstate(divide="ignore"):
+                span = np.minimum(T, 1.0 / np.sqrt(np.abs(w2)))
+            big = big + np.abs(a) + np.abs(b) * span[:, None]
         small = np.maximum.reduce([np.abs(self.state(T * f)) for f in (0.0, 0.5, 1.0)])
         ratio = big / np.maximum(small, 1e-300 + 1e-12 * big)
         return np.max(ratio, axis=1) > _CANCEL
