@@ -93,13 +93,13 @@ def test_fast_real_pair_moments_in_closed_form_match_quadrature():
     assert np.all(np.abs(got - ref) <= 1e-10 * np.outer(d, d))
 
 
-def _events(vth, t_end):
+def _events(seg, vth, t_end):
     """Two events on ξ = (i, v, 1, τ): the node reaching ``vth`` from above (vth − v, fires as v
     falls through it) and the end of a time window ``τ − t_end``."""
     E = np.zeros((1, 2, 3, 4))
     E[0, 0, 0] = [0.0, -1.0, vth, 0.0]
     E[0, 1, 0] = [0.0, 0.0, -t_end, 1.0]
-    return Events(_segment()[0], E)
+    return Events(seg, E)
 
 
 @pytest.mark.parametrize("vth", [VS + VCL + 0.5, VS + VCL + 0.05])
@@ -108,7 +108,7 @@ def test_first_event_before_a_time_window_ends(vth):
     # ends later than the crossing, so the crossing must be found (the window bounds the scan)
     seg, A, b0, x0 = _segment()
     t_end = 2.4e-3
-    ev = _events(vth, t_end)
+    ev = _events(seg, vth, t_end)
     exps, oscs = _modes_of(seg)
     tau, fired = first_event(ev, np.array([1.0]), exps, oscs, np.zeros(1))
     ref = brentq(lambda t: vth - _reference_state(A, b0, x0, t)[1], 1e-7, t_end, xtol=1e-18, rtol=1e-15)
@@ -119,7 +119,7 @@ def test_first_event_before_a_time_window_ends(vth):
 def test_time_window_ends_first_when_the_crossing_is_later():
     seg, _, _, _ = _segment()
     t_end = 1e-4  # the node is still above the threshold then
-    ev = _events(VS + VCL + 0.05, t_end)
+    ev = _events(seg, VS + VCL + 0.05, t_end)
     exps, oscs = _modes_of(seg)
     tau, fired = first_event(ev, np.array([1.0]), exps, oscs, np.zeros(1))
     assert tau[0] == t_end  # a root in τ alone is exact

@@ -337,9 +337,7 @@ def _time_roots(ev: Events, armed, best, numeric):
     nX = ev.E.shape[3] - 2
     E = ev.E
     only_t = ~np.any(E[:, :, 0, :nX] != 0, axis=-1) & ~np.any(E[:, :, 1:] != 0, axis=(-1, -2))
-    if ev.Qa is not None:
-        only_t[:, ev.iq] &= ~(np.any(ev.Qa != 0, axis=(2, 3)) | np.any(ev.Qb != 0, axis=(2, 3)))
-    only_t &= numeric
+    only_t &= numeric & ~quadratic(ev)
     if not np.any(only_t):
         return best, numeric
     s = E[:, :, 0, nX + 1]
