@@ -429,7 +429,11 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise _syntax_error(err, text, name) from None
-    ctx = _Context(name, text)
+    return _build(_Context(name, text), doc, name, text)
+
+
+def _build(ctx: _Context, doc: dict[str, Any], name: str, text: str) -> Case:
+    """Validate a parsed case document into a :class:`Case` (every rule of the case file)."""
     top = {key: _Field("s") for key in _TOP}
     for key in doc:
         if key not in _TOP:
@@ -458,8 +462,6 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
     case = Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
                 checks=checks, source=name, text=text, options=options, drive=drive, motor=motor)
     if "tolerance" in doc:
-        from dataclasses import replace
-
         from kickback.caseio_tol import tolerances
 
         case = replace(case, tolerances=tolerances(ctx, doc["tolerance"], case))

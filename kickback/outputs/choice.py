@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 
 from kickback.outputs.sweeps import engine_footnote, engine_lines
-from kickback.studies.choose import RELEASE_TIE
 from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.studies.choose import RELEASE_TIE
 from kickback.units import format_quantity as q
 
 
