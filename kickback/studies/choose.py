@@ -16,7 +16,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from kickback.case import Case, Option
-from kickback.studies.designs import allowed_voltage, family_candidates
+from kickback.studies.designs import allowed_voltage, family_candidates, impractical
 from kickback.studies.pool import map_points
 from kickback.studies.sweep import point_figures, result_figures
 
@@ -42,6 +42,11 @@ class Candidate:
     min_margin: float = 0.0  # the case's checks.min_margin
 
     @property
+    def flag(self) -> str | None:
+        """Why no one would build this candidate (:func:`kickback.studies.designs.impractical`)."""
+        return impractical(self.option)
+
+    @property
     def passes(self) -> bool:
         """Every check passes (before the minimum margin)."""
         return self.figures.get("error") is None and bool(self.figures.get("pass"))
@@ -51,7 +56,7 @@ class Candidate:
         """Every check passes and the switch voltage keeps at least ``min_margin`` under its
         derated limit."""
         m = self.margin
-        return self.passes and m is not None and m >= self.min_margin
+        return self.passes and m is not None and m >= self.min_margin and self.flag is None
 
     @property
     def release(self) -> float | None:
@@ -72,6 +77,8 @@ class Candidate:
         f = self.figures
         if f.get("error"):
             return f["error"]
+        if self.flag is not None:
+            return f"not offered: {self.flag}"
         if not self.passes:
             return ", ".join(f.get("failing_checks", []))
         return (f"switch-voltage margin {100 * (self.margin or 0.0):.1f} % below checks.min_margin "
