@@ -152,3 +152,45 @@ def test_sweep_of_the_duty_changes_every_point():
         assert r.figures.initial_current_A == pytest.approx(i_mean, rel=0.04)
     ratio = np.array(e)
     assert ratio[1] > 2 * ratio[0]  # about (0.6/0.3)² more energy at turn-off
+
+
+_EXACT = """title = "diode + Zener, exact laws (invented)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "80 mH"
+resistance = "30 Ω"
+release_current = "60 mA"
+[switch]
+type = "mosfet"
+on_resistance = "50 mΩ"
+rated_voltage = "60 V"
+on_resistance_gate_voltage = "10 V"
+[[clamp]]
+name = "DZ"
+across = "coil"
+[[clamp.element]]
+type = "diode"
+model = "constant-drop"
+forward_voltage = "0.8 V"
+[[clamp.element]]
+type = "zener"
+voltage = "18 V"
+"""
+
+
+def test_varying_a_key_the_case_leaves_out_gives_the_variants_structure():
+    """A key the base case does not give takes its structure from the variants: a gate voltage
+    sweep gets the gate-voltage check (pass from 10 V on: at least the gate voltage R_on is
+    specified at) on both engines alike; a saturation current makes the coil saturating, which the
+    batch engine does not cover, so the sweep runs on the detailed engine."""
+    case = load_case(_EXACT, source="exact.toml")
+    ax = parse_vary("switch.gate_voltage=5V:12V:3")  # 5, 8.5, 12 V
+    for engine in ("batch", "detailed"):
+        sw = run_sweep(case, (ax,), engine=engine)
+        assert [("switch gate voltage" in f) for f in sw.failing] == [True, True, False], engine
+    sat = run_sweep(case, (parse_vary("coil.saturation_current=0.5A:2A:2"),), engine="auto")
+    assert sat.engine == "detailed" and "saturating" in sat.engine_note
+    base = run_sweep(case, (parse_vary("supply.voltage=24V:24.0001V:2"),), engine="auto")
+    assert sat.figures["peak_voltage_V"][0] != pytest.approx(base.figures["peak_voltage_V"][0], rel=1e-9) or \
+        sat.figures["to_zero_s"][0] != pytest.approx(base.figures["to_zero_s"][0], rel=1e-6)
