@@ -166,6 +166,10 @@ class Checks:
     max_decay_time: float | None = None  # [s] to zero
     max_clamp_energy: float | None = None  # [J] per clamp
     ambient_temperature: float = 298.15  # [K] for junction temperatures (25 °C unless given)
+    #: choose: the least switch-voltage margin under the derated limit a choice must keep, as a
+    #: fraction of it (5 %: the ±5 % voltage tolerance of an E24 Zener or TVS, IEC 60063 — the
+    #: default itself is common practice, no source)
+    min_margin: float = 0.05
 
     @property
     def energy_fraction(self) -> float:

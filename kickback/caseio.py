@@ -45,6 +45,7 @@ _CONDITIONS = {
     ">=0": (lambda v: v >= 0, ">= 0"),
     ">1": (lambda v: v > 1, "> 1"),
     "(0,1]": (lambda v: 0 < v <= 1, "in (0, 1]"),
+    "[0,1)": (lambda v: 0 <= v < 1, "in [0, 1)"),
     "[0.5,10]": (lambda v: 0.5 <= v <= 10, "in [0.5, 10]"),
     "": (lambda v: True, ""),
 }
@@ -100,7 +101,7 @@ _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
           "element": _Field("t", required=True)}
 _CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
-           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K")}
+           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K"), "min_margin": _Field("n", cond="[0,1)")}
 _TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive", "motor")
 #: plain SI numbers: V·s/rad, rad/s, kg·m², N·m·s/rad, N·m
 _MOTOR = {"back_emf_constant": _Field("n", cond=">0", required=True), "speed": _Field("n", cond=">=0"),
@@ -428,7 +429,11 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise _syntax_error(err, text, name) from None
-    ctx = _Context(name, text)
+    return _build(_Context(name, text), doc, name, text)
+
+
+def _build(ctx: _Context, doc: dict[str, Any], name: str, text: str) -> Case:
+    """Validate a parsed case document into a :class:`Case` (every rule of the case file)."""
     top = {key: _Field("s") for key in _TOP}
     for key in doc:
         if key not in _TOP:
@@ -457,8 +462,6 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
     case = Case(title=title, supply=supply, coil=Coil(**coil_values), switch=switch, clamps=clamps,
                 checks=checks, source=name, text=text, options=options, drive=drive, motor=motor)
     if "tolerance" in doc:
-        from dataclasses import replace
-
         from kickback.caseio_tol import tolerances
 
         case = replace(case, tolerances=tolerances(ctx, doc["tolerance"], case))

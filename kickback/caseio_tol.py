@@ -23,8 +23,9 @@ import re
 from typing import Any
 
 from kickback.case import Case, Tolerance
+from kickback.casevary import check_ranges, resolve
 from kickback.errors import CaseError
-from kickback.keypath import get_value, unit_of
+from kickback.keypath import get_value
 from kickback.units import UnitError, parse_quantity
 
 _KEYS = {"band", "min", "max", "distribution", "sigmas", "reference"}
@@ -56,7 +57,7 @@ def _one(ctx, path, key: str, spec: dict, case: Case) -> Tolerance:
         unit, nominal = "K", None
     else:
         try:
-            unit = unit_of(key)
+            unit = resolve(case, key)  # a numeric key that applies to this case
             nominal = get_value(case, key)
         except CaseError as err:
             raise ctx.error(path, f"{err.message}") from None
@@ -99,6 +100,11 @@ def _one(ctx, path, key: str, spec: dict, case: Case) -> Tolerance:
         raise ctx.error(path, f"empty range {low:g} … {high:g} (expected min < max)")
     if not temperature and low <= 0 and nominal > 0:
         raise ctx.error(path, f"the range reaches {low:g}, not a physical value here (expected a range above 0)")
+    if not temperature:
+        try:  # the band's ends pass the case file's own rules
+            check_ranges(case, {key: (float(low), float(high))}, "band")
+        except CaseError as err:
+            raise ctx.error(path, err.message) from None
     dist = spec.get("distribution", "uniform")
     if dist not in ("uniform", "normal"):
         raise ctx.error(path + ("distribution",), f"{dist!r} is not allowed (expected uniform or normal)")

@@ -482,13 +482,16 @@ def _unit_option(source: str, option: str, value, bases) -> str | None:
               help="Unit of the value column, e.g. 'mA' or 'mV' (overrides the header).")
 @click.option("--trigger", metavar="T", help="Time in the trace of the switching instant, e.g. '1.2 ms'; "
                                              "it becomes t = 0.")
+@click.option("--clamp-resistance", metavar="R", help="With --kind decay: the clamp's series resistance "
+              "(Zener/TVS dynamic plus diode series resistance), e.g. '1.5 ohm'; a current trace cannot tell it "
+              "from L (default 0, which reads L low).")
 @click.option("--saturating", is_flag=True, help="With --kind rise: fit a saturating coil, "
                                                  "λ(i) = L0·i/(1 + |i|/I_sat).")
 @click.option("--json", "as_json", is_flag=True, help="Print the fit as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write fit.json and the residual plot fit.png/svg into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
 def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, value_unit, trigger,
-        saturating: bool, as_json: bool, out_dir, no_plot: bool) -> None:
+        clamp_resistance, saturating: bool, as_json: bool, out_dir, no_plot: bool) -> None:
     """Fit a coil's inductance and resistance to a measured current trace (generic CSV).
 
     Prints each value with its 95 % interval, the residual, and a [coil] block to paste into
@@ -512,12 +515,17 @@ def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, va
     if r_shunt is not None and not r_shunt > 0:
         _die(f"{trace}: --shunt: must be positive (expected e.g. '0.1 ohm')")
     t0 = _quantity_option(trace, "--trigger", trigger, "s") or 0.0
+    r_clamp = _quantity_option(trace, "--clamp-resistance", clamp_resistance, "Ω")
+    if r_clamp is not None and (kind != "decay" or not r_clamp >= 0):
+        _die(f"{trace}: --clamp-resistance: " + ("applies to --kind decay" if kind != "decay" else
+                                                  "must be >= 0 (expected e.g. '1.5 ohm')"))
     _unit_option(trace, "--time-unit", time_unit, ("s",))
     _unit_option(trace, "--value-unit", value_unit, ("A", "V"))
     try:
         tr = read_trace(trace, time_col=time_col, value_col=value_col, time_unit=time_unit,
                         value_unit=value_unit, trigger=t0, shunt=r_shunt, want="current")
-        result = fit_trace(tr, kind=kind, supply=v, saturating=saturating)
+        result = fit_trace(tr, kind=kind, supply=v, saturating=saturating, shunt=r_shunt,
+                           clamp_resistance=r_clamp)
     except KickbackError as err:
         _die(str(err))
     payload = to_json(result.to_dict())

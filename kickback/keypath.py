@@ -9,23 +9,28 @@ from __future__ import annotations
 import dataclasses
 import re
 
-from kickback.case import Case
+from kickback.case import Case, Drive
 from kickback.errors import CaseError
 
 _PART = re.compile(r"([a-z_]+)(?:\[(\d+)\])?$")
-#: unit of each numeric key, for parsing FROM:TO strings and labelling axes
-UNITS = {
-    "voltage": "V", "inductance": "H", "resistance": "Ω", "capacitance": "F", "release_current": "A",
-    "release_delay": "s", "initial_current": "A", "on_resistance": "Ω", "saturation_voltage": "V",
-    "fall_time": "s", "breakdown_voltage": "V", "avalanche_resistance": "Ω", "body_diode_voltage": "V",
-    "rated_voltage": "V", "rated_avalanche_energy": "J", "forward_voltage": "V", "at_current": "A",
-    "saturation_current": "A", "series_resistance": "Ω", "temperature": "K", "rated_reverse_voltage": "V",
-    "rated_surge_current": "A", "dynamic_resistance": "Ω", "rated_pulse_energy": "J", "rated_peak_power": "W",
-    "rated_pulse_width": "s", "rated_energy": "J", "max_release_time": "s", "max_peak_voltage": "V",
-    "max_decay_time": "s", "max_clamp_energy": "J", "ideality": "", "exponent": "", "derating": "",
-    "energy_derating": "",
-}
-_TABLES = {"supply": "supply", "coil": "coil", "switch": "switch", "checks": "checks"}
+_TABLES = {"supply": "supply", "coil": "coil", "switch": "switch", "checks": "checks", "drive": "drive",
+           "motor": "motor"}
+
+
+def _units() -> dict[str, str]:
+    from kickback.casevary import leaf_units
+
+    return leaf_units()
+
+
+#: unit of each numeric key name ('' for a plain number), from the case loader's key tables
+#: (:func:`kickback.casevary.leaf_units`), for parsing FROM:TO strings and labelling axes
+UNITS = _units()
+
+
+def split_path(path: str) -> list[tuple[str, int | None]]:
+    """``"clamp[0].element[1].voltage"`` → ``[("clamp", 0), ("element", 1), ("voltage", None)]``."""
+    return _split(path)
 
 
 def _split(path: str) -> list[tuple[str, int | None]]:
@@ -74,6 +79,10 @@ def _field_name(obj, name: str) -> str:
 
 
 def _step(obj, name, index, path):
+    if isinstance(obj, Drive) and name == "duty" and index is None:
+        if len(obj.duties) != 1:
+            raise CaseError(f"the case gives {len(obj.duties)} duties (expected one duty)", key=path)
+        return obj.duties[0]
     attr = _field_name(obj, name)
     if not dataclasses.is_dataclass(obj) or attr not in {f.name for f in dataclasses.fields(obj)}:
         raise CaseError(f"no key {name!r} here (expected a key of the case file)", key=path)
@@ -98,6 +107,8 @@ def _set(obj, parts, value, path):
         if isinstance(child, bool) or (child is not None and not isinstance(child, float | int)):
             raise CaseError(f"{name!r} is not a numeric value", key=path)
         new_child = value
+    if isinstance(obj, Drive) and name == "duty" and index is None:
+        return dataclasses.replace(obj, duties=(new_child,))
     if index is None:
         return dataclasses.replace(obj, **{attr: new_child})
     items = list(getattr(obj, attr))

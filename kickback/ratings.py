@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from kickback.case import Case
-from kickback.figures import Figures
+from kickback.figures import ON_STATE_FRACTION, Figures
 
 
 @dataclass(frozen=True)
@@ -64,6 +64,32 @@ def drive_checks(case: Case, fig: Figures) -> list[Check]:
         out.append(_at_least("switch", "gate voltage", s.gate_voltage, s.on_resistance_gate_voltage, "V",
                              "at least the gate voltage the on-resistance is specified at"))
     return out
+
+
+def on_state_check(name: str, on_current: float, initial_current: float) -> Check | None:
+    """A clamp that conducts while the switch is on fails (None when it does not conduct).
+
+    A clamp is meant to take the coil's current only after turn-off; one that conducts in the DC
+    on-state (a lone Zener across the coil conducts forward) loads the supply and the switch and
+    heats itself for as long as the switch is on. The row appears only when the clamp's on-state
+    current exceeds ``ON_STATE_FRACTION`` × the initial coil current (the level at which the
+    figures report it), and then it fails; its limit is 0 A and it has no margin.
+
+    Parameters
+    ----------
+    name : str
+        The clamp's name.
+    on_current : float
+        The clamp's current in the DC on-state [A] (either sign).
+    initial_current : float
+        The coil's on-state current [A].
+    """
+    limit = ON_STATE_FRACTION * abs(initial_current)
+    value = abs(on_current)
+    if value <= limit:
+        return None
+    return Check(name, "current while the switch is on", float(value), 0.0, None, False, "A",
+                 "a clamp must not conduct while the switch is on")
 
 
 def _junction_check(part: str, value: float, limit: float, ambient: float) -> Check:
@@ -134,6 +160,9 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
                                            case.checks.ambient_temperature))
         if ck.max_clamp_energy is not None:
             out.append(_check(cl.name, "clamp energy", cf.energy_J, ck.max_clamp_energy, 1.0, "J", "case limit"))
+        on_row = on_state_check(cl.name, cf.on_state_current_A, fig.initial_current_A)
+        if on_row is not None:
+            out.append(on_row)
     if fig.switch_junction_peak_K is not None and s.max_junction_temperature is not None:
         out.append(_junction_check("switch", fig.switch_junction_peak_K, s.max_junction_temperature,
                                    ck.ambient_temperature))

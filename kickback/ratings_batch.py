@@ -13,6 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from kickback.figures import ON_STATE_FRACTION
+
 
 @dataclass(frozen=True)
 class CheckColumn:
@@ -118,6 +120,13 @@ def check_columns(case, cols: dict, get, n: int) -> dict:
         mc = get("checks.max_clamp_energy")
         if np.any(np.isfinite(mc)):
             put(_col(cl.name, "clamp energy", "J", cols[f"clamps[{k}].energy_J"], mc, 1.0, np.isfinite(mc)))
+        # a clamp that conducts while the switch is on fails (kickback.ratings.on_state_check)
+        on_i = np.abs(cols[f"clamps[{k}].on_state_current_A"])
+        lim = ON_STATE_FRACTION * np.abs(cols["coil.initial_current_A"])
+        conducts = np.isfinite(on_i) & (on_i > lim)
+        if np.any(conducts):
+            put(CheckColumn(cl.name, "current while the switch is on", "A", on_i, np.where(conducts, 0.0, np.nan),
+                            np.full(n, np.nan), ~conducts, conducts))
     s = case.switch
     if s.type == "bjt" and s.gain is not None and s.drive_voltage is not None and s.base_resistance is not None:
         i_b = (get("switch.drive_voltage") - get("switch.base_emitter_voltage")) / get("switch.base_resistance")

@@ -5,12 +5,13 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import pytest
 from click.testing import CliRunner
 
 from kickback import load_case
 from kickback.cli import main
 from kickback.studies.compare import compare
-from kickback.studies.designs import DIODE_DROP, allowed_voltage, builtin_options, on_current
+from kickback.studies.designs import allowed_voltage, builtin_options, diode_drop, on_current
 from kickback.studies.eseries import E12, E24
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
@@ -28,10 +29,10 @@ def test_builtin_options_are_sized_to_the_derated_switch():
     v_allow, vs, i0 = allowed_voltage(case), case.supply.voltage, on_current(case)
     assert v_allow == 0.8 * 60.0
     z = next(o for o in builtin_options(case) if "Zener" in o.name).clamps[0].elements[1]
-    assert _mantissa(z.voltage) in E24 and z.voltage <= v_allow - vs - DIODE_DROP
+    assert _mantissa(z.voltage) in E24 and z.voltage <= v_allow - vs - diode_drop(i0)
     r = next(o for o in builtin_options(case) if o.name.startswith("diode +") and "Ω" in o.name)
     res = r.clamps[0].elements[1].resistance
-    assert _mantissa(res) in E12 and res * i0 <= v_allow - vs - DIODE_DROP
+    assert _mantissa(res) in E12 and res * i0 <= v_allow - vs - diode_drop(i0)
     rc = next(o for o in builtin_options(case) if o.name.startswith("RC")).clamps[0]
     c = rc.elements[1].capacitance
     # energy rule for the snubber capacitor (Mohan, Undeland & Robbins, ch. 27): ½·L·i0² ≤ ½·C·ΔV²
@@ -91,3 +92,74 @@ def test_cli_compare_json_files_and_exit(tmp_path):
     failing = CliRunner().invoke(main, ["compare", str(CASES / "unclamped_mosfet.toml")])
     assert failing.exit_code == 1
     assert "FAIL" in failing.stdout and "avalanche" in failing.stdout
+
+
+_HIGH_CURRENT = """title = "3 A coil, Zener sized at its own current (invented)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "20 mH"
+resistance = "8 Ω"
+[switch]
+type = "ideal"
+rated_voltage = "55 V"
+[checks]
+derating = 0.89
+"""
+
+
+def _generic_diode_drop(i):
+    """The generic diode (0.9 V at 1 A, n = 1.8, R_s = 50 mΩ) by the Shockley law written here:
+    v = n·V_T·ln(1 + i/I_s) + R_s·i, I_s from the terminal point, V_T = kT/q at 25 °C (CODATA
+    constants from scipy)."""
+    import math
+
+    from scipy.constants import Boltzmann, elementary_charge
+
+    vt = Boltzmann * 298.15 / elementary_charge
+    i_s = 1.0 / math.expm1((0.9 - 0.05 * 1.0) / (1.8 * vt))
+    return 1.8 * vt * math.log1p(i / i_s) + 0.05 * i
+
+
+def test_builtin_zener_sized_at_the_coils_current():
+    """At 3 A the generic diode drops about 1.05 V, not its 0.9 V at 1 A: v_allow − V_s − V_d =
+    0.89·55 − 24 − 1.05 ≈ 23.9 V, so the E24 Zener (IEC 60063) is 22 V (24 V would put the node at
+    49.05 V, over the 48.95 V limit). With an ideal switch and Zener the node sits at
+    V_s + V_d(i0) + V_Z (DESIGN §3), checked against the simulated peak."""
+    case = load_case(_HIGH_CURRENT, source="hc.toml")
+    i0, v_allow = 3.0, 0.89 * 55.0
+    vd = _generic_diode_drop(i0)
+    head = v_allow - 24.0 - vd
+    e24 = [m * 10.0 ** k for k in range(-1, 3) for m in E24]
+    want = max(v for v in e24 if v <= head + 1e-12)
+    assert want == 22.0 and 24.0 <= v_allow - 24.0 - 0.9, "the 1 A drop would have picked 24 V"
+    opts = builtin_options(case)
+    z = next(o for o in opts if "Zener" in o.name).clamps[0].elements[1]
+    assert z.voltage == want
+    r = next(o for o in opts if o.name.startswith("diode +") and "Ω" in o.name).clamps[0].elements[1]
+    assert r.resistance * i0 <= head
+    cmp = compare(case)
+    row = next(x for x in cmp.rows if "Zener" in x.name)
+    assert row.result.figures.peak_voltage_V == pytest.approx(24.0 + vd + want, rel=1e-6)
+    assert row.result.figures.peak_voltage_V <= v_allow and not row.failing
+
+
+def test_snubber_capacitor_no_board_carries_is_flagged():
+    """½·L·i0² = ½·C·(v_allow − V_s)² (Mohan, Undeland & Robbins, ch. 27) asks for
+    0.02·9/24.95² ≈ 290 µF here: above the 10 µF a snubber is built with (common practice), so
+    compare does not offer it and choose rejects every such RC candidate with the reason."""
+    from kickback.studies.choose import choose
+
+    case = load_case(_HIGH_CURRENT, source="hc.toml")
+    c_rule = 0.02 * 9.0 / (0.89 * 55.0 - 24.0) ** 2
+    assert c_rule > 10e-6
+    cmp = compare(case)
+    rc = next(x for x in cmp.rows if x.name.startswith("RC"))
+    assert rc.result is None and rc.flag and "snubber capacitor" in rc.flag
+    assert rc.to_dict()["impractical"] == rc.flag
+    ch = choose(case, workers=1)
+    assert not [c for c in ch.ranked if c.family == "RC snubber"]
+    big = [c for c in ch.rejected if c.family == "RC snubber" and c.value > 10e-6]
+    assert big and all(c.why_not.startswith("not offered") for c in big)
+    small = [c for c in ch.rejected + ch.ranked if c.family == "RC snubber" and c.value <= 10e-6]
+    assert all(not c.why_not.startswith("not offered") for c in small if not c.ok)

@@ -264,3 +264,44 @@ def test_ratings_of_a_simulated_diode_zener_clamp():
     _assert_row(_row(res.checks, "DZ: D1", "peak current"), 0.8, 0.96, True, tol)
     _assert_row(_row(res.checks, "case", "peak switch voltage"), 48.7, 50.0, True, tol)
     assert res.passed is False, "one failing check fails the case"
+
+
+# ============================================================================ clamp conducting while on
+def _lone_zener_case(vs=24.0, r=30.0, r_on=0.5, vz=20.0, rd=1.5, vf=0.7):
+    zener = Element("zener", voltage=vz, dynamic_resistance=rd, forward_voltage=vf)
+    return Case("lone Zener across the coil (invented)", Supply(vs), Coil(0.08, r),
+                Switch("mosfet", on_resistance=r_on, rated_voltage=60.0), (Clamp("Z1", "coil", (zener,)),),
+                Checks())
+
+
+@pytest.mark.parametrize("engine", ["detailed", "batch"])
+def test_clamp_conducting_while_on_fails(engine):
+    """A lone Zener across the coil conducts forward while the switch is on: a failed check, on both
+    engines, with the on-state current of the DC node balance solved by hand (Kirchhoff's current law,
+    linear pieces): v/R_on = (Vs − v)/R + (Vs − V_f − v)/r_d, i_Z = (Vs − V_f − v)/r_d."""
+    vs, r, r_on, vf, rd = 24.0, 30.0, 0.5, 0.7, 1.5
+    v = (vs / r + (vs - vf) / rd) / (1 / r_on + 1 / r + 1 / rd)
+    i_z = (vs - vf - v) / rd
+    assert i_z > 10.0  # the hand solution: about 11.5 A through the Zener's forward path
+    res = simulate(_lone_zener_case(vs, r, r_on, 20.0, rd, vf), engine=engine)
+    row = _row(res.checks, "Z1", "current while the switch is on")
+    assert row.value == pytest.approx(i_z, rel=1e-9)
+    assert row.passed is False and row.limit == 0.0
+    assert res.passed is False
+
+
+def test_clamp_conducting_while_on_batch_columns_agree():
+    """ratings_batch gives the same row (value, pass) as ratings, and only where the clamp conducts in
+    the on-state: a supply of 0.5 V stays below the Zener's 0.7 V forward drop, so that variant has no
+    row."""
+    from kickback.studies.many import simulate_many
+
+    case = _lone_zener_case()
+    many = simulate_many(case, {"supply.voltage": [0.5, 12.0, 24.0]})
+    col = many.checks["Z1: current while the switch is on"]
+    assert list(col.applies) == [False, True, True]
+    assert list(col.passed) == [True, False, False]
+    assert list(many.passed[1:]) == [False, False]
+    for k, vs in enumerate([12.0, 24.0], start=1):
+        v = (vs / 30.0 + (vs - 0.7) / 1.5) / (1 / 0.5 + 1 / 30.0 + 1 / 1.5)  # node balance as above
+        assert col.value[k] == pytest.approx((vs - 0.7 - v) / 1.5, rel=1e-9)

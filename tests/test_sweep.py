@@ -184,3 +184,38 @@ def test_cli_sweep_falls_back_to_the_detailed_engine_and_says_why():
                                        "--engine", "batch"])
     assert forced.exit_code == 2 and "batch engine" in forced.stderr and "Traceback" not in forced.output
     assert len(forced.stderr.strip().splitlines()) == 1
+
+
+def test_sweep_plot_marks_each_failure_on_the_curve_of_its_check():
+    """The failure markers sit on the curve of the figure whose check fails: the peak-voltage panel
+    marks exactly the points above rated_voltage × derating (DESIGN §5), the release curve exactly
+    the points above max_release_time — found here from the figures and the rule, not from the
+    sweep's verdicts."""
+    import dataclasses
+
+    from kickback.outputs.sweeps import sweep_figure
+
+    case = load_case(VALVE)
+    case = dataclasses.replace(case, checks=dataclasses.replace(case.checks, max_release_time=7e-3))
+    sw = run_sweep(case, (parse_vary("clamp[0].element[1].voltage=2V:30V:8"),), engine="detailed")
+    x = sw.points[:, 0]
+    peak = np.array(sw.figures["peak_voltage_V"])
+    release = np.array(sw.figures["release_s"], float)
+    v_fail = x[peak > case.switch.rated_voltage * case.checks.derating]
+    r_fail = x[release > 7e-3]
+    assert v_fail.size and r_fail.size and not set(v_fail) & set(r_fail), "both kinds of failure, apart"
+    fig = sweep_figure(sw)
+    a1, a2, a3 = fig.axes[:3]
+
+    def marked(ax, gid):
+        lines = [ln for ln in ax.get_lines() if ln.get_gid() == gid]
+        return np.sort(np.concatenate([ln.get_xdata() for ln in lines])) if lines else np.array([])
+
+    np.testing.assert_array_equal(marked(a1, "fail:peak_voltage_V"), np.sort(v_fail))
+    np.testing.assert_array_equal(marked(a2, "fail:release_s"), np.sort(r_fail))
+    # and the markers sit on the curve's own values
+    ln = next(ln for ln in a2.get_lines() if ln.get_gid() == "fail:release_s")
+    np.testing.assert_allclose(ln.get_ydata(), release[np.isin(x, r_fail)])
+    for ax in (a1, a2, a3):
+        assert not marked(ax, "fail:clamp_energy_J").size and not marked(ax, "fail:to_zero_s").size
+    assert not marked(a2, "fail:peak_voltage_V").size and not marked(a1, "fail:release_s").size

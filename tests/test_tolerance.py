@@ -69,7 +69,7 @@ def test_section_parsed_to_absolute_bands():
 
 
 @pytest.mark.parametrize("extra, words", [
-    ('[tolerance."coil.colour"]\nband = "5 %"\n', "not a numeric"),
+    ('[tolerance."coil.colour"]\nband = "5 %"\n', "unknown key in \\[coil\\]"),
     ('[tolerance."coil.inductance"]\nband = "5 V"\n', "wrong unit"),
     ('[tolerance."coil.inductance"]\nmin = "2 H"\nmax = "1 H"\n', "empty range"),
     ('[tolerance."coil.inductance"]\nband = "5 %"\ndistribution = "cauchy"\n', "uniform or normal"),

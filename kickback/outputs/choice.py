@@ -6,12 +6,14 @@ import numpy as np
 
 from kickback.outputs.sweeps import engine_footnote, engine_lines
 from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.studies.choose import RELEASE_TIE
 from kickback.units import format_quantity as q
 
 
 def choice_table(ch, n_show: int = 12) -> str:
     lines = [ch.case.title, "", f"feasible choices ({len(ch.ranked)} of {len(ch.ranked) + len(ch.rejected)}), "
-             "fastest release first, then switch-voltage margin, then fewest parts:"]
+             f"at least {100 * ch.case.checks.min_margin:g} % switch-voltage margin (checks.min_margin); fastest "
+             f"release first (within {100 * RELEASE_TIE:g} %: larger margin first), then fewest parts:"]
     rows = [["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"]]
     for k, c in enumerate(ch.ranked[:n_show]):
         f = c.figures

@@ -13,6 +13,9 @@ def comparison_table(cmp) -> str:
     for r in cmp.rows:
         d = r.to_dict()
         name = ("* " if r.own else "  ") + r.name
+        if r.flag is not None:
+            rows.append([name, "—", "—", "—", "—", "—", "—", f"not offered: {r.flag}"])
+            continue
         if r.result is None:
             rows.append([name, "—", "—", "—", "—", "—", "—", f"cannot simulate: {r.error}"])
             continue
@@ -25,8 +28,8 @@ def comparison_table(cmp) -> str:
     lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
     lines += ["", "* the case's own clamp set (sets the exit status)"]
     if cmp.builtin:
-        lines.append("  other options: built-in families sized to the derated switch voltage (generic diode "
-                     "0.9 V at 1 A; ideal Zener/TVS); give your own parts as [[option]] in the case")
+        lines.append("  other options: built-in families sized to the derated switch voltage at the coil's current "
+                     "(generic diode 0.9 V at 1 A; ideal Zener/TVS); give your own parts as [[option]] in the case")
     lines += ["", _wrap(CAUTIONS)]
     return "\n".join(lines) + "\n"
 

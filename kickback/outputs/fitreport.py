@@ -18,8 +18,7 @@ def significant_digits(value: float, half_width: float) -> int:
 def coil_toml(fit) -> str:
     """A [coil] block ready to paste into a case file (quantities as strings)."""
     lines = ["[coil]"]
-    names = {"inductance": "inductance at zero current" if fit.saturating else "inductance",
-             "resistance": "resistance", "saturation_current": "saturation current"}
+    names = fit.coil_estimate_names()
     for key, value in fit.coil_values().items():
         e = fit.estimate(names[key])
         unit = {"inductance": "H", "resistance": "Ω", "saturation_current": "A"}[key]

@@ -220,7 +220,8 @@ def comparison_section(cmp) -> Section:
         d = r.to_dict()
         name = r.name if r.name.startswith("case") or not r.own else f"{r.name} (this case)"
         if r.result is None:
-            rows.append([name, "—", "—", "—", "—", "—", "—", f"cannot simulate: {r.error}"])
+            why = f"not offered: {r.flag}" if getattr(r, "flag", None) else f"cannot simulate: {r.error}"
+            rows.append([name, "—", "—", "—", "—", "—", "—", why])
             classes.append("fail")
             continue
         mark = ("html", '<span class="mark pass">✔ pass</span>') if d["pass"] else \

@@ -73,6 +73,39 @@ def sweep_csv(sw) -> str:
     return buf.getvalue()
 
 
+#: failing check names (``"part quantity"``) → the curve that shows the failing figure
+_CHECK_CURVE = {"switch peak voltage": "peak_voltage_V", "case peak switch voltage": "peak_voltage_V",
+                "case release time": "release_s", "case decay to zero": "to_zero_s",
+                "switch avalanche energy": "avalanche_energy_J"}
+FAIL_LABELS = {"peak_voltage_V": "switch voltage", "release_s": "release time", "to_zero_s": "decay time",
+               "clamp_energy_J": "clamp energy", "avalanche_energy_J": "avalanche energy"}
+
+
+def failure_marks(sw) -> tuple[dict, list]:
+    """Where the sweep plot marks failures: curve name → points whose check on that figure fails,
+    and the points that fail only checks of figures the plot does not draw (element ratings,
+    drive checks, a clamp conducting while the switch is on, a time that does not occur)."""
+    names = {cl.name for cl in sw.case.clamps}
+    marks: dict[str, list[int]] = {}
+    other = []
+    for k, failing in enumerate(sw.failing):
+        if sw.errors[k] or sw.passed[k]:
+            continue
+        drawn = False
+        for name in failing:
+            col = _CHECK_CURVE.get(name)
+            if col is None and name.endswith(" clamp energy") and name[:-len(" clamp energy")] in names:
+                col = "clamp_energy_J"
+            if col is not None and sw.figures[col][k] is not None:
+                marks.setdefault(col, [])
+                if k not in marks[col]:
+                    marks[col].append(k)
+                drawn = True
+        if not drawn:
+            other.append(k)
+    return marks, other
+
+
 def _arr(sw, col):
     return np.array([np.nan if x is None else x for x in sw.figures[col]], dtype=float)
 
@@ -103,16 +136,27 @@ def sweep_figure(sw):
         if limit_v:
             a1.axhline(limit_v, color="C3", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g}")
         a2.plot(x, _arr(sw, "to_zero_s"), "o-", ms=3, label="decay to zero")
-        if any(v is not None for v in sw.figures["release_s"]):
+        has_release = any(v is not None for v in sw.figures["release_s"])
+        if has_release:
             a2.plot(x, _arr(sw, "release_s"), "s-", ms=3, label="release")
         if case.checks.max_release_time:
             a2.axhline(case.checks.max_release_time, color="C3", ls="--", lw=1, label="max release time")
         a3.plot(x, _arr(sw, "clamp_energy_J"), "o-", ms=3, label="clamp energy")
         a3.plot(x, _arr(sw, "avalanche_energy_J"), "^-", ms=3, label="avalanche energy")
-        fails = ~sw.passed
-        for ax, col in ((a1, "peak_voltage_V"), (a2, "to_zero_s"), (a3, "clamp_energy_J")):
-            if fails.any():
-                ax.plot(x[fails], _arr(sw, col)[fails], "x", color="C3", ms=8, label="fails a check")
+        panel = {"peak_voltage_V": a1, "to_zero_s": a2, "release_s": a2, "clamp_energy_J": a3,
+                 "avalanche_energy_J": a3}
+        marks, other = failure_marks(sw)
+        for col, rows in marks.items():
+            if col == "release_s" and not has_release:
+                continue
+            rows = np.asarray(rows, int)
+            panel[col].plot(x[rows], _arr(sw, col)[rows], "x", color="C3", ms=8, mew=1.5,
+                            label=f"fails: {FAIL_LABELS[col]}", gid=f"fail:{col}")
+        for k in other:
+            for ax in (a1, a2, a3):
+                ax.axvline(x[k], color="C3", ls=":", lw=1, gid="fail:other",
+                           label="fails a check not drawn here" if k == other[0] else None)
+        for ax in (a1, a2, a3):
             ax.legend(fontsize=8)
             ax.grid(True, lw=0.3)
         for ax, u in ((a1, "V"), (a2, "s"), (a3, "J")):

@@ -16,7 +16,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from kickback.case import Case, Option
-from kickback.studies.designs import allowed_voltage, family_candidates
+from kickback.studies.designs import allowed_voltage, family_candidates, impractical
 from kickback.studies.pool import map_points
 from kickback.studies.sweep import point_figures, result_figures
 
@@ -39,9 +39,24 @@ class Candidate:
     v_allow: float
     engine: str = "detailed"  # the engine whose figures these are
 
+    min_margin: float = 0.0  # the case's checks.min_margin
+
+    @property
+    def flag(self) -> str | None:
+        """Why no one would build this candidate (:func:`kickback.studies.designs.impractical`)."""
+        return impractical(self.option)
+
+    @property
+    def passes(self) -> bool:
+        """Every check passes (before the minimum margin)."""
+        return self.figures.get("error") is None and bool(self.figures.get("pass"))
+
     @property
     def ok(self) -> bool:
-        return self.figures.get("error") is None and bool(self.figures.get("pass"))
+        """Every check passes and the switch voltage keeps at least ``min_margin`` under its
+        derated limit."""
+        m = self.margin
+        return self.passes and m is not None and m >= self.min_margin and self.flag is None
 
     @property
     def release(self) -> float | None:
@@ -60,7 +75,14 @@ class Candidate:
     @property
     def why_not(self) -> str:
         f = self.figures
-        return f["error"] if f.get("error") else ", ".join(f.get("failing_checks", []))
+        if f.get("error"):
+            return f["error"]
+        if self.flag is not None:
+            return f"not offered: {self.flag}"
+        if not self.passes:
+            return ", ".join(f.get("failing_checks", []))
+        return (f"switch-voltage margin {100 * (self.margin or 0.0):.1f} % below checks.min_margin "
+                f"{100 * self.min_margin:g} %")
 
     def to_dict(self) -> dict:
         return {"family": self.family, "name": self.option.name, "value": self.value, "unit": self.unit,
@@ -69,8 +91,28 @@ class Candidate:
                     k: self.figures.get(k) for k in ("peak_voltage_V", "clamp_energy_J", "to_zero_s", "release_s")}
 
 
+#: release (or decay) times closer than this fraction count as equal merit, and the larger
+#: switch-voltage margin ranks first among them (1 %: below what a bench measurement of a release
+#: time resolves — common practice, no source)
+RELEASE_TIE = 0.01
+
+
 def _rank_key(c: Candidate):
     return (c.release if c.release is not None else float("inf"), -(c.margin or 0.0), c.parts)
+
+
+def rank(candidates) -> list:
+    """Feasible candidates best first: fastest release; among releases within :data:`RELEASE_TIE`
+    of the fastest of their group, the larger switch-voltage margin, then the fewest parts."""
+    by_release = sorted(candidates, key=_rank_key)
+    out, group = [], []
+    for c in by_release:
+        if group and not (c.release is not None and group[0].release is not None
+                          and c.release <= group[0].release * (1.0 + RELEASE_TIE)):
+            out += sorted(group, key=lambda g: (-(g.margin or 0.0), g.parts))
+            group = []
+        group.append(c)
+    return out + sorted(group, key=lambda g: (-(g.margin or 0.0), g.parts))
 
 
 def _near_a_limit(pts, k: int, band: float) -> bool:
@@ -147,7 +189,8 @@ def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto
         for k, (val, unit, opt) in enumerate(lst):
             if pts.engine == "batch" and _near_a_limit(pts, k, band):
                 near.append(len(out))
-            out.append(Candidate(fam, val, unit, opt, pts.point(k), v_allow, pts.engine))
+            out.append(Candidate(fam, val, unit, opt, pts.point(k), v_allow, pts.engine,
+                                 case.checks.min_margin))
         done += len(lst)
         if progress:
             progress(done)
@@ -173,7 +216,8 @@ class Choice:
     demoted: tuple = ()  # screened as feasible, failing when confirmed by the detailed engine
 
     def to_dict(self) -> dict:
-        return {"title": self.case.title, "v_allow_V": allowed_voltage(self.case), "engine": self.engine,
+        return {"title": self.case.title, "v_allow_V": allowed_voltage(self.case),
+                "min_margin": self.case.checks.min_margin, "engine": self.engine,
                 "fits": list(self.fits), "engine_note": self.engine_note or None,
                 "confirmed_by_detailed": list(self.confirmed), "demoted_by_detailed": list(self.demoted),
                 "ranked": [c.to_dict() for c in self.ranked], "rejected": [c.to_dict() for c in self.rejected],
@@ -181,8 +225,10 @@ class Choice:
 
 
 def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engine: str = "auto") -> Choice:
-    """Feasible clamp choices ranked: fastest release (or decay to zero) first, then the switch
-    voltage margin, then the fewest parts; the others with the checks they fail.
+    """Feasible clamp choices ranked: fastest release (or decay to zero) first — releases within
+    :data:`RELEASE_TIE` count as equal and the larger switch-voltage margin wins — then the fewest
+    parts; the others with the checks they fail. A choice must keep ``checks.min_margin`` of
+    switch-voltage margin under the derated limit.
 
     The first ``n_top`` choices are simulated again with the detailed engine and returned whole;
     a choice that fails there is rejected with its reason and the next one is taken.
@@ -190,14 +236,14 @@ def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engin
     from kickback.simulation import simulate
 
     ev = evaluate(case, workers=workers, progress=progress, engine=engine)
-    ranked = sorted((c for c in ev.candidates if c.ok), key=_rank_key)
+    ranked = rank(c for c in ev.candidates if c.ok)
     rejected = [c for c in ev.candidates if not c.ok]
     top, demoted = [], []
     k = 0
     while len(top) < n_top and k < len(ranked):
         c = ranked[k]
         r = simulate(replace(case, clamps=c.option.clamps, options=()))
-        if r.passed:
+        if replace(c, figures=result_figures(r), engine="detailed").ok:
             top.append(r)
             k += 1
             continue

@@ -8,7 +8,7 @@ from kickback.case import Case, Option
 from kickback.errors import KickbackError
 from kickback.result import Result
 from kickback.simulation import simulate
-from kickback.studies.designs import builtin_options
+from kickback.studies.designs import builtin_options, impractical
 
 
 @dataclass(frozen=True)
@@ -19,6 +19,7 @@ class CompareRow:
     own: bool  # the case's own clamp set
     result: Result | None
     error: str | None = None
+    flag: str | None = None  # why no one would build this option (it is then not simulated)
 
     @property
     def failing(self) -> list[str]:
@@ -27,7 +28,7 @@ class CompareRow:
         return [f"{c.part} {c.quantity}" for c in self.result.checks if not c.passed]
 
     def to_dict(self) -> dict:
-        d = {"name": self.name, "own": self.own, "error": self.error}
+        d = {"name": self.name, "own": self.own, "error": self.error, "impractical": self.flag}
         if self.result is None:
             return d | {"pass": False}
         f = self.result.figures
@@ -77,12 +78,17 @@ def compare(case: Case, **sim_options) -> Comparison:
     Returns
     -------
     Comparison — the case's own clamp set first; an option that cannot be simulated carries
-    its error message instead of a result.
+    its error message instead of a result; a built-in option no one would build
+    (:func:`kickback.studies.designs.impractical`) carries the reason and is not simulated.
     """
     alternatives, builtin = options_for(case)
     own_name = "case: " + (", ".join(c.name for c in case.clamps) if case.clamps else "no clamp")
     rows = [_row(case, own_name, True, sim_options)]
     for opt in alternatives:
+        why = impractical(opt) if builtin else None
+        if why is not None:
+            rows.append(CompareRow(opt.name, False, None, None, why))
+            continue
         rows.append(_row(replace(case, clamps=opt.clamps, options=()), opt.name, False, sim_options))
     return Comparison(case, tuple(rows), builtin)
 

@@ -5,6 +5,9 @@ Each family is sized to the switch's derated voltage ``V_allow = derating × rat
 * plain diode — the node sits a diode drop above the supply;
 * diode + resistor — ``R`` the E12 value below ``(V_allow − V_s − V_f)/i_0``;
 * diode + Zener — ``V_Z`` the E24 value below ``V_allow − V_s − V_f``;
+
+where ``V_f`` is the generic diode's drop at the coil's own on-state current ``i_0`` (its Shockley
+law), not at the 1 A its terminal point is given at;
 * TVS from the switch node to ground — ``V_BR`` the E24 value below ``V_allow``;
 * RC snubber across the switch — ``C`` from the allowed overshoot by energy, the node ringing
   about the supply: ``½ L i_0² = ½ C (V_allow − V_s)²``, rounded up to E12, and
@@ -13,6 +16,9 @@ Each family is sized to the switch's derated voltage ``V_allow = derating × rat
 
 The generic diode (0.9 V at 1 A, n = 1.8, R_s = 50 mΩ) and the ideal Zener/TVS (zero
 dynamic resistance) are stated assumptions, not parts: put your own parts in ``[[option]]``.
+
+An option no one would build is flagged, not offered (:func:`impractical`): a snubber capacitor
+above :data:`MAX_SNUBBER_CAPACITANCE`.
 
 References
 ----------
@@ -32,7 +38,35 @@ from kickback.studies.eseries import nearest, round_down, round_up
 
 GENERIC_DIODE = dict(type="diode", model="shockley", forward_voltage=0.9, at_current=1.0, ideality=1.8,
                      series_resistance=0.05)
-DIODE_DROP = 0.9  # [V] used for sizing only
+#: a snubber capacitor larger than this is not built [F]: snubbers use film or ceramic capacitors
+#: of nanofarads to a few microfarads; tens of microfarads and more means an electrolytic, which
+#: does not take a snubber's pulse currents (common practice, no source)
+MAX_SNUBBER_CAPACITANCE = 10e-6
+
+
+def diode_drop(current: float) -> float:
+    """The generic diode's forward drop at ``current`` [V] (its Shockley law with series
+    resistance, through the terminal point 0.9 V at 1 A).
+
+    .. math:: v = n V_T \\ln(1 + i/I_s) + R_s i
+    """
+    from kickback.models import element_law
+
+    return float(element_law(Element(**GENERIC_DIODE)).voltage_at(abs(current)))
+
+
+def impractical(option: Option) -> str | None:
+    """Why no one would build ``option`` (None when nothing stands out): a capacitor in a clamp
+    above :data:`MAX_SNUBBER_CAPACITANCE`."""
+    for cl in option.clamps:
+        for el in cl.elements:
+            if el.type == "capacitor" and el.capacitance > MAX_SNUBBER_CAPACITANCE:
+                from kickback.units import format_quantity
+
+                return (f"{format_quantity(el.capacitance, 'F')} snubber capacitor: above "
+                        f"{format_quantity(MAX_SNUBBER_CAPACITANCE, 'F')}, more than a board carries as a snubber "
+                        "(film or ceramic parts run to a few µF)")
+    return None
 
 
 def allowed_voltage(case: Case) -> float:
@@ -59,7 +93,7 @@ def builtin_options(case: Case) -> tuple[Option, ...]:
     vs = case.supply.voltage
     i0 = on_current(case)
     L = case.coil.inductance
-    head = v_allow - vs - DIODE_DROP
+    head = v_allow - vs - diode_drop(i0)
     d = Element(**GENERIC_DIODE, name="D")
     opts = [Option("plain diode", (Clamp("D", "coil", (d,)),))]
     if head > 0:
@@ -112,7 +146,7 @@ def family_candidates(case: Case) -> dict[str, list[tuple[float, str, Option]]]:
     vs = case.supply.voltage
     i0 = on_current(case)
     L = case.coil.inductance
-    head = max(v_allow - vs - DIODE_DROP, 0.1 * vs)
+    head = max(v_allow - vs - diode_drop(i0), 0.1 * vs)
     d = Element(**(GENERIC_DIODE | _rated_like(case, "diode")), name="D")
     out: dict[str, list] = {"plain diode": [(0.0, "", Option("plain diode", (Clamp("D", "coil", (d,)),)))]}
     out["diode + resistor"] = [

@@ -10,12 +10,16 @@ where the model is the state before switching):
 * ``rise`` with ``saturating``: the Frölich–Kennelly coil of :mod:`kickback.models.coil`
   (L0, I_sat, R), through its exact implicit rise t(i);
 * ``decay``: the switch opens at t = 0 after the steady on-state i0 = V/R; the clamp holds the
-  switch node a constant V_c above the supply, so L·di/dt = −R·i − V_c until i = 0:
+  switch node V_c + R_c·i above the supply (a diode, Zener or TVS clamp: its knee voltage and its
+  series and dynamic resistance R_c), so L·di/dt = −(R + R_c)·i − V_c until i = 0:
 
-  .. math:: i(t) = \left(\frac{V}{R} + \frac{V_c}{R}\right) e^{-t R / L} - \frac{V_c}{R}
+  .. math:: i(t) = \left(\frac{V}{R} + \frac{V_c}{R + R_c}\right) e^{-t (R + R_c) / L}
+            - \frac{V_c}{R + R_c}
 
-  (a diode, Zener or TVS clamp; a resistive clamp is not a constant voltage and reads as a
-  smaller L).
+  The trace fixes R (from the on-state level V/R), the time constant L/(R + R_c) and the
+  asymptote −V_c/(R + R_c), not R_c itself: L and R_c trade off exactly. R_c is therefore given
+  (``clamp_resistance``, from the clamp's parts); left out, R_c = 0 is assumed, which reads L
+  low by R/(R + R_c), and the fit says so.
 
 Confidence intervals come from the covariance s²·(JᵀJ)⁻¹ at the optimum (J the Jacobian of
 the residuals, s² the residual variance on n − p degrees of freedom) with Student's t
@@ -41,6 +45,8 @@ from kickback.studies.tracecheck import MIN_POINTS, FitError, average_blocks, ch
 __all__ = ["CONFIDENCE", "MIN_POINTS", "CoilFit", "Estimate", "FitError", "fit_current", "fit_trace"]
 
 CONFIDENCE = 0.95
+#: the derived estimate of the coil's own resistance when a shunt is in series
+COIL_RESISTANCE = "coil resistance (without the shunt)"
 #: a residual RMS above this many noise standard deviations means the model misses the shape
 RESIDUAL_TO_NOISE = 1.5
 #: an I_sat above this many times the final current is "no saturation seen"
@@ -103,6 +109,7 @@ class CoilFit:
     confidence: float = CONFIDENCE
     notes: tuple[str, ...] = ()
     curve: Callable = field(default=None, repr=False, compare=False)
+    shunt_ohm: float = 0.0  # [Ω] a shunt in series with the coil, inside the fitted resistance
 
     def estimate(self, name: str) -> Estimate:
         for e in self.estimates:
@@ -129,12 +136,17 @@ class CoilFit:
         """The case file's [coil] keys this fit determines (SI): inductance, resistance, and
         ``saturation_current`` for a saturating fit that sees saturation (the inductance is
         then L0)."""
-        keys = {"inductance": "inductance", "resistance": "resistance"}
+        return {k: self.estimate(n).value for k, n in self.coil_estimate_names().items()}
+
+    def coil_estimate_names(self) -> dict[str, str]:
+        """[coil] key → the estimate that gives it (the coil's own resistance, without a shunt)."""
+        r = COIL_RESISTANCE if self.shunt_ohm else "resistance"
+        keys = {"inductance": "inductance", "resistance": r}
         if self.saturating:
-            keys = {"inductance": "inductance at zero current", "resistance": "resistance"}
+            keys = {"inductance": "inductance at zero current", "resistance": r}
             if self.saturation_seen:
                 keys["saturation_current"] = "saturation current"
-        return {k: self.estimate(n).value for k, n in keys.items()}
+        return keys
 
     def to_dict(self) -> dict:
         return {"source": self.source, "kind": self.kind, "saturating": self.saturating,
@@ -156,11 +168,18 @@ def _rise_saturating(t, p, v):
     return rise_current(t, v, R, L0, i_sat)
 
 
-def _decay(t, p, v):
-    L, R, vc = p
-    i0, ic = v / R, vc / R
-    on = (i0 + ic) * np.exp(-np.maximum(t, 0.0) * R / L) - ic
-    return np.where(t <= 0, i0, np.maximum(on, 0.0))
+def _decay_with(rc: float):
+    """The decay model with a clamp series resistance ``rc`` [Ω] (see the module docstring)."""
+    def decay(t, p, v):
+        L, R, vc = p
+        i0, ic = v / R, vc / (R + rc)
+        on = (i0 + ic) * np.exp(-np.maximum(t, 0.0) * (R + rc) / L) - ic
+        return np.where(t <= 0, i0, np.maximum(on, 0.0))
+
+    return decay
+
+
+_decay = _decay_with(0.0)
 
 
 # ---- the fit ------------------------------------------------------------------------------------
@@ -232,8 +251,8 @@ def _crossing(t, i, level, falling: bool) -> float:
     return float(ta[k - 1] + (ta[k] - ta[k - 1]) * (level - x0) / (x1 - x0)) if x1 != x0 else float(ta[k])
 
 
-def fit_current(t, i, *, kind: str, supply: float, saturating: bool = False,
-                source: str = "<trace>") -> CoilFit:
+def fit_current(t, i, *, kind: str, supply: float, saturating: bool = False, source: str = "<trace>",
+                shunt: float = 0.0, clamp_resistance: float | None = None) -> CoilFit:
     """Fit a coil model to a measured current.
 
     Parameters
@@ -244,6 +263,11 @@ def fit_current(t, i, *, kind: str, supply: float, saturating: bool = False,
     supply : float — [V] the voltage applied to the coil and its resistance while on
     saturating : bool — rise only: fit the Frölich–Kennelly coil (L0, I_sat) instead of a constant L
     source : str — name for messages
+    shunt : float — [Ω] a current shunt in series with the coil: part of the fitted resistance,
+        left out of the coil's resistance (``coil_values``)
+    clamp_resistance : float or None — decay only: [Ω] the clamp's series resistance R_c (diode
+        series plus Zener/TVS dynamic resistance); None: 0 assumed, and a note says what that
+        does to L
 
     Returns
     -------
@@ -304,19 +328,35 @@ def fit_current(t, i, *, kind: str, supply: float, saturating: bool = False,
         r0 = v / i0
         t_half = max(_crossing(t, i, 0.5 * i0, falling=True), t[t > 0][0])
         starts = [(t_half / math.log((1 + k) / (0.5 + k)) * r0, r0, k * v) for k in (0.02, 0.2, 1.0, 5.0)]
-        func = _decay
+        rc = 0.0 if clamp_resistance is None else float(clamp_resistance)
+        if not (rc >= 0 and math.isfinite(rc)):
+            raise FitError(source, f"the clamp resistance must be >= 0, got {clamp_resistance!r} Ω")
+        func = _decay_with(rc)
         names, units = ("inductance", "resistance", "clamp voltage"), ("H", "Ω", "V")
         res = _solve(func, t, i, v, starts, np.array([1e-12, 1e-9, 0.0]), np.array([np.inf] * 3), source)
-        model = ("linear coil, decay from V/R against a constant clamp voltage V_c above the supply: "
-                 "i = (V + V_c)/R·e^(−t·R/L) − V_c/R until 0")
-        derived = [("time constant L/R", "s", lambda x: x[0] / x[1]),
+        model = ("linear coil, decay from V/R against a clamp V_c + R_c·i above the supply "
+                 f"(R_c = {rc:.4g} Ω {'given' if clamp_resistance is not None else 'assumed'}): "
+                 "i = (V/R + V_c/(R + R_c))·e^(−t·(R + R_c)/L) − V_c/(R + R_c) until 0")
+        derived = [("time constant L/(R + R_c)", "s", lambda x: x[0] / (x[1] + rc)),
                    ("initial current V/R", "A", lambda x: v / x[1]),
                    ("stored energy at V/R", "J", lambda x: 0.5 * x[0] * (v / x[1]) ** 2),
-                   ("switch-node voltage V + V_c", "V", lambda x: v + x[2])]
+                   ("switch-node voltage V + V_c + R_c·V/R", "V", lambda x: v + x[2] + rc * v / x[1])]
         if res.x[2] > 0:
-            derived.append(("decay to zero", "s", lambda x: x[0] / x[1] * math.log1p(v / x[2])))
+            derived.append(("decay to zero", "s",
+                            lambda x: x[0] / (x[1] + rc) * math.log1p(v * (x[1] + rc) / (x[1] * x[2]))))
+        if clamp_resistance is None:
+            notes.append("the clamp's series resistance R_c (a Zener's dynamic resistance, a diode's series "
+                         "resistance) is not seen apart from L in a current trace: the decay fixes L/(R + R_c). "
+                         "R_c = 0 is assumed, which reads L low by the factor R/(R + R_c); give the clamp's "
+                         "resistance (--clamp-resistance) to remove that bias")
         if pre.size < 3:
             notes.append("no samples before the trigger: the on-state current V/R comes from the fit alone")
+    if shunt:
+        if not (shunt > 0 and math.isfinite(shunt)):
+            raise FitError(source, f"the shunt must be a positive resistance, got {shunt!r} Ω")
+        derived = [(COIL_RESISTANCE, "Ω", lambda x: x[1] - shunt)] + list(derived)
+        notes.append(f"the fitted resistance includes the {shunt:.4g} Ω shunt; the [coil] block gives the "
+                     "coil's own resistance without it")
     n, p = t.size, len(names)
     if n - p < 1:  # pragma: no cover - MIN_POINTS guards this
         raise FitError(source, "too few samples for the parameters")
@@ -340,16 +380,18 @@ def fit_current(t, i, *, kind: str, supply: float, saturating: bool = False,
     x = res.x.copy()
     return CoilFit(source=source, kind=kind, saturating=saturating, supply_V=v, model=model, estimates=est,
                    t=t, i=i, fitted=fitted, residual_rms=rms, dof=n - p, notes=tuple(notes),
-                   curve=lambda tt: func(np.asarray(tt, dtype=float), x, v))
+                   curve=lambda tt: func(np.asarray(tt, dtype=float), x, v), shunt_ohm=float(shunt or 0.0))
 
 
-def fit_trace(trace, *, kind: str, supply: float, saturating: bool = False) -> CoilFit:
-    """Fit a coil model to a :class:`kickback.traceio.Trace` holding a current (see :func:`fit_current`)."""
+def fit_trace(trace, *, kind: str, supply: float, saturating: bool = False, shunt: float | None = None,
+              clamp_resistance: float | None = None) -> CoilFit:
+    """Fit a coil model to a :class:`kickback.traceio.Trace` holding a current (see :func:`fit_current`;
+    ``shunt`` [Ω] the shunt the current was read across, None: none)."""
     if trace.quantity != "current":
         raise FitError(trace.source, f"column {trace.value_column!r} holds a voltage (expected a current; "
                                      "give --shunt R for a shunt voltage)")
     fit = fit_current(trace.t, trace.values, kind=kind, supply=supply, saturating=saturating,
-                      source=trace.source)
+                      source=trace.source, shunt=shunt or 0.0, clamp_resistance=clamp_resistance)
     if trace.notes:
         from dataclasses import replace
 

@@ -150,6 +150,7 @@ def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto"
     from kickback.figures_batch import CHUNK, normalize_variations
 
     var, n = normalize_variations(case, variations or {})
+    case = _with_first_values(case, var)
     used, note = pick_engine(case, engine)
     if used == "detailed":
         pts = _detailed(case, var, n, workers=workers, progress=progress)
@@ -164,6 +165,19 @@ def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto"
         again = _detailed(case, {k: v[bad] for k, v in var.items()}, bad.size, workers=workers)
         pts = _replace_rows(pts, bad, again)
     return pts
+
+
+def _with_first_values(case: Case, var: dict) -> Case:
+    """``case`` with every varied key set to its first value: a key the case leaves out (a
+    saturation current, a breakdown voltage, a gate voltage) is given in every variant, so the
+    structure the engines read from the base case — which engine covers it, which laws and
+    checks exist — is the variants' own."""
+    from kickback.keypath import set_value
+
+    for path, vals in var.items():
+        if len(vals):
+            case = set_value(case, path, float(vals[0]))
+    return case
 
 
 def from_many(case: Case, many) -> Points:

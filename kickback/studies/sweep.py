@@ -9,8 +9,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.case import Case
+from kickback.casevary import check_ranges, resolve
 from kickback.errors import CaseError, KickbackError
-from kickback.keypath import get_value, set_value, unit_of
+from kickback.keypath import unit_of
 
 #: figures reported per point: column name, unit
 COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
@@ -51,8 +52,8 @@ def parse_vary(spec: str, log: bool = False, default_n: int = 11) -> Axis:
     n = int(m["n"]) if m["n"] else default_n
     if n < 2 or n > 100_000:
         raise CaseError(f"N = {n} points (expected 2 to 100000)", key="--vary")
-    if lo <= 0 or hi <= 0:
-        raise CaseError(f"{key}: FROM and TO must be positive (got {lo:g} and {hi:g})", key="--vary")
+    if log and (lo <= 0 or hi <= 0):
+        raise CaseError(f"{key}: FROM and TO must be positive for --log (got {lo:g} and {hi:g})", key="--vary")
     values = np.geomspace(lo, hi, n) if log else np.linspace(lo, hi, n)
     return Axis(key, values, unit, log)
 
@@ -152,9 +153,18 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
 
     if not 1 <= len(axes) <= 2:
         raise CaseError(f"{len(axes)} swept values (expected one or two --vary)", key="--vary")
+    ranges = {}
     for ax in axes:
-        get_value(case, ax.path)  # raises for a path the case does not have
-        set_value(case, ax.path, float(ax.values[0]))  # raises for a value that is not numeric
+        path = ".".join(p.strip() for p in ax.path.split("."))
+        if path in ranges:
+            raise CaseError(f"{ax.path} is swept twice (expected two different keys)", key="--vary")
+        try:
+            resolve(case, path)  # a key the case file accepts, and that applies to this case
+        except CaseError as err:
+            raise CaseError(f"{err.key}: {err.message}", source=case.source, key="--vary") from None
+        ranges[path] = (float(np.min(ax.values)), float(np.max(ax.values)))
+    # every swept value passes the case file's own rules (the corners of the grid bound them all)
+    check_ranges(case, ranges, "--vary")
     points = np.array(list(itertools.product(*(ax.values for ax in axes))), dtype=float)
     variations: dict = {}
     for j, ax in enumerate(axes):

@@ -62,6 +62,22 @@ def apply(case: Case, values) -> Case:
     return case
 
 
+def check_varied(case: Case, matrix: np.ndarray) -> None:
+    """Every value the study sets — the samples, and the band ends its corners and search use —
+    passes the case file's own rules (:func:`kickback.casevary.check_ranges` over their box).
+
+    Raises
+    ------
+    CaseError — ``key="tolerance"``: the values and the rule they break.
+    """
+    from kickback.casevary import check_ranges
+
+    ends = np.array([[t.low for t in case.tolerances], [t.high for t in case.tolerances]], float)
+    rows = np.vstack([np.atleast_2d(np.asarray(matrix, float)).reshape(-1, len(case.tolerances)), ends])
+    var = variations_of(case, rows)
+    check_ranges(case, {p: (float(np.min(v)), float(np.max(v))) for p, v in var.items()}, "tolerance")
+
+
 def nominal(case: Case) -> np.ndarray:
     out = []
     for tol in case.tolerances:
@@ -202,6 +218,7 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     flist = figure_list(case)
     rng = np.random.default_rng(seed)
     matrix = sample(case, n, rng)
+    check_varied(case, matrix)
     idx = np.sort(rng.choice(n, size=min(recheck, n), replace=False)) if used == "batch" and recheck > 0 else None
     with _Recheck(case, matrix, idx, workers) as later:
         figs, passed, errors, worst, fits, retried = _monte_carlo(case, matrix, flist, used, workers, progress,

@@ -1,0 +1,263 @@
+"""Values a study varies (sweep, tolerance), checked by the case file's own rules.
+
+A varied value must pass exactly what the same value would have to pass in the case file: the
+key must exist for the case's structure (``switch.saturation_voltage`` applies to a BJT only,
+``drive.duty`` needs a ``[drive]`` with one duty), the value its key's range, and the case with
+the value in place every rule across keys (a supply below the switch's breakdown voltage, a
+derating in (0, 1], …). The rules are not written again here: the case is turned back into a
+case document and run through the loader (:func:`kickback.caseio._build`).
+
+Every rule of the case file bounds one value by others monotonically (a comparison, a product
+below a bound, a diode's ideality that moves one way with each of its parameters), so over a
+box of values — a sweep's grid, the spread of a tolerance study's samples — the rules hold
+everywhere when they hold at the box's corners: :func:`check_ranges` checks the corners.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import itertools
+import math
+
+from kickback.case import Case
+from kickback.errors import CaseError
+
+#: field kinds of the loader's tables that hold one number
+_NUMERIC = ("q", "n")
+#: at most this many varied keys are checked at every corner of their box (2^k loader runs);
+#: beyond it each key's ends are checked with the others at their nominal values
+MAX_CORNER_KEYS = 10
+
+
+def _specs():
+    from kickback.caseio import key_specs
+
+    return key_specs()
+
+
+def numeric_keys() -> dict[str, str]:
+    """Every numeric key of the case file → its unit ('' for a plain number).
+
+    Table keys read ``table.key`` (``switch.gate_voltage``); element keys ``element:TYPE.key``
+    (``element:zener.voltage``).
+    """
+    tables, elements, _ = _specs()
+    out = {f"{t}.{k}": f.unit for t, spec in tables.items() for k, f in spec.items() if f.kind in _NUMERIC}
+    out |= {f"element:{t}.{k}": f.unit for t, spec in elements.items() for k, f in spec.items()
+            if f.kind in _NUMERIC}
+    return out
+
+
+def leaf_units() -> dict[str, str]:
+    """Numeric key name → unit, over every table and element type (a name has one unit)."""
+    out: dict[str, str] = {}
+    for key, unit in numeric_keys().items():
+        out[key.rsplit(".", 1)[1]] = unit
+    return out
+
+
+def variable_paths(case: Case) -> list[str]:
+    """Every key path of ``case`` a study may vary (those :func:`resolve` accepts)."""
+    tables, elements, only = _specs()
+    out = []
+    for t, spec in tables.items():
+        for k, f in spec.items():
+            if f.kind in _NUMERIC:
+                try:
+                    resolve(case, f"{t}.{k}")
+                except CaseError:
+                    continue
+                out.append(f"{t}.{k}")
+    for i, cl in enumerate(case.clamps):
+        for j, el in enumerate(cl.elements):
+            out += [f"clamp[{i}].element[{j}].{k}" for k, f in elements[el.type].items() if f.kind in _NUMERIC]
+    return out
+
+
+def resolve(case: Case, path: str) -> str:
+    """The unit of the value at ``path`` in ``case``, if a study may vary it there.
+
+    Raises
+    ------
+    CaseError — with ``key=path``: no such key, not a number, or a key that does not apply to
+    this case (another switch type or element type, no [drive] or [motor], the other motor model).
+    """
+    from kickback.keypath import split_path
+
+    tables, elements, only = _specs()
+    parts = split_path(path)
+    name, index = parts[0]
+    if name == "clamp":
+        if index is None or len(parts) != 3 or parts[1][0] != "element" or parts[1][1] is None:
+            raise CaseError("a clamp value reads clamp[I].element[J].KEY (expected e.g. "
+                            "'clamp[0].element[1].voltage')", key=path)
+        if index >= len(case.clamps):
+            raise CaseError(f"index {index} out of range (the case has {len(case.clamps)} clamp entries)", key=path)
+        els = case.clamps[index].elements
+        if parts[1][1] >= len(els):
+            raise CaseError(f"index {parts[1][1]} out of range (clamp[{index}] has {len(els)} element entries)",
+                            key=path)
+        kind, leaf = els[parts[1][1]].type, parts[2][0]
+        field = elements[kind].get(leaf)
+        if field is None:
+            raise CaseError(f"does not apply to a {kind} element (expected one of: "
+                            f"{', '.join(k for k, f in elements[kind].items() if f.kind in _NUMERIC)})", key=path)
+    else:
+        if name not in tables or len(parts) != 2 or index is not None or parts[1][1] is not None:
+            raise CaseError(f"no key {path!r} in the case file (expected TABLE.KEY with TABLE one of "
+                            f"{', '.join(tables)}, or clamp[I].element[J].KEY)", key=path)
+        leaf = parts[1][0]
+        field = tables[name].get(leaf)
+        if field is None:
+            raise CaseError(f"unknown key in [{name}] (expected one of: "
+                            f"{', '.join(k for k, f in tables[name].items() if f.kind in _NUMERIC)})", key=path)
+        _applies(case, name, leaf, only, path)
+    if field.kind not in _NUMERIC:
+        raise CaseError(f"{leaf!r} is not a numeric value (expected a key holding one number)", key=path)
+    return field.unit
+
+
+def _applies(case: Case, table: str, leaf: str, only: dict, path: str) -> None:
+    """Refuse a table key that does not apply to the case's structure."""
+    if table == "switch" and leaf in only and only[leaf] != case.switch.type:
+        raise CaseError(f"applies to a {only[leaf]} switch, not to type '{case.switch.type}' "
+                        "(expected a key of the case's switch)", key=path)
+    if table == "drive":
+        if case.drive is None:
+            raise CaseError("the case has no [drive] (expected a key of a table the case has)", key=path)
+        if leaf == "duty" and len(case.drive.duties) != 1:
+            raise CaseError(f"the case gives {len(case.drive.duties)} duties (expected a [drive] with one duty "
+                            "to vary drive.duty)", key=path)
+    if table == "motor":
+        m = case.motor
+        if m is None:
+            raise CaseError("the case has no [motor] (expected a key of a table the case has)", key=path)
+        if leaf == "speed" and m.mechanical:
+            raise CaseError("the motor has a mechanical model (expected inertia, viscous_friction or "
+                            "load_torque, not speed)", key=path)
+        if leaf in ("inertia", "viscous_friction", "load_torque") and not m.mechanical:
+            raise CaseError("the motor runs at a fixed speed (expected motor.speed; the mechanical keys need "
+                            "motor.inertia instead of speed)", key=path)
+
+
+# --------------------------------------------------------------------------- the case as a document
+def _number(x: float, unit: str):
+    """A value as the case file writes it: a quantity string with its unit, or a plain number."""
+    if not unit:
+        return float(x)
+    import numpy as np
+
+    return f"{np.format_float_positional(float(x), unique=True, trim='-')} {unit}"
+
+
+def _table_doc(obj, spec: dict, keep: tuple = ()) -> dict:
+    """The keys of ``spec`` that ``obj`` sets: not None and not its dataclass default (a key the
+    case file could have left out), plus ``keep``."""
+    out = {}
+    defaults = {f.name: f.default for f in dataclasses.fields(obj)}
+    for key, field in spec.items():
+        if not hasattr(obj, key):
+            continue
+        val = getattr(obj, key)
+        if val is None or (key not in keep and val == defaults.get(key, dataclasses.MISSING)):
+            continue
+        if field.kind in ("q",):
+            val = _number(val, field.unit)
+        elif field.kind == "l":
+            val = [_number(x, field.unit) for x in val]
+        elif field.kind == "ln":
+            val = [float(x) for x in val]
+        out[key] = val
+    return out
+
+
+def case_doc(case: Case) -> dict:
+    """``case`` as a case document (what :func:`tomllib.loads` gives for its case file), without
+    [[option]] and [tolerance]."""
+    tables, elements, _ = _specs()
+    keep = {"ideal": (), "mosfet": ("on_resistance",), "bjt": ("saturation_voltage",)}[case.switch.type]
+    doc = {"title": case.title, "supply": _table_doc(case.supply, tables["supply"]),
+           "coil": _table_doc(case.coil, tables["coil"], ("inductance", "resistance")),
+           "switch": _table_doc(case.switch, tables["switch"], ("type",) + keep),
+           "checks": _table_doc(case.checks, tables["checks"])}
+    if case.clamps:
+        doc["clamp"] = [{"name": cl.name, "across": cl.across,
+                         "element": [_table_doc(el, elements[el.type], ("type",)) for el in cl.elements]}
+                        for cl in case.clamps]
+    if case.drive is not None:
+        d = case.drive
+        doc["drive"] = {"frequency": _number(d.frequency, "Hz"), "final_turn_off": d.final_turn_off}
+        if len(d.duties) == 1:
+            doc["drive"]["duty"] = float(d.duties[0])
+        else:
+            doc["drive"]["duties"] = [float(x) for x in d.duties]
+    if case.motor is not None:
+        doc["motor"] = _table_doc(case.motor, tables["motor"], ("back_emf_constant",))
+        if case.motor.mechanical:
+            doc["motor"].pop("speed", None)
+    return doc
+
+
+def _put(doc: dict, path: str, value: float, unit: str) -> None:
+    from kickback.keypath import split_path
+
+    parts = split_path(path)
+    node = doc
+    for name, index in parts[:-1]:
+        node = node[name] if index is None else node[name][index]
+    node[parts[-1][0]] = _number(value, unit)
+
+
+# --------------------------------------------------------------------------- checks
+def check_values(case: Case, values: dict, what: str = "--vary") -> None:
+    """Check ``case`` with the values ``{path: value}`` in place, by the case file's rules.
+
+    Raises
+    ------
+    CaseError — ``key=what``; the message names the values and the rule they break, on one line.
+    """
+    from kickback.caseio import _build, _Context
+
+    units = {path: resolve(case, path) for path in values}
+    doc = case_doc(case)
+    for path, x in values.items():
+        _put(doc, path, x, units[path])
+    try:
+        _build(_Context(case.source, ""), doc, case.source, "")
+    except CaseError as err:
+        shown = ", ".join(f"{p} = {_shown(x, units[p])}" for p, x in values.items())
+        rule = f"{err.key}: {err.message}" if err.key else err.message
+        raise CaseError(f"with {shown}: {rule}", source=case.source, key=what) from None
+
+
+def _shown(x: float, unit: str) -> str:
+    from kickback.units import format_quantity
+
+    return format_quantity(x, unit) if unit else f"{x:g}"
+
+
+def check_ranges(case: Case, ranges: dict, what: str = "--vary") -> None:
+    """Check every corner of the box ``{path: (low, high)}`` (see the module docstring).
+
+    Raises
+    ------
+    CaseError — a key that cannot be varied, or a corner that breaks a rule (``key=what``).
+    """
+    for path in ranges:
+        resolve(case, path)
+    for path, (lo, hi) in ranges.items():
+        if not (math.isfinite(lo) and math.isfinite(hi)):
+            raise CaseError(f"{path}: the values must be finite (got {lo:g} to {hi:g})", source=case.source,
+                            key=what)
+    keys = list(ranges)
+    ends = [sorted({float(ranges[k][0]), float(ranges[k][1])}) for k in keys]
+    if len(keys) <= MAX_CORNER_KEYS:
+        corners = itertools.product(*ends)
+        for corner in corners:
+            check_values(case, dict(zip(keys, corner, strict=True)), what)
+        return
+    for k, e in zip(keys, ends, strict=True):
+        for x in e:
+            check_values(case, {k: x}, what)
+    for pick in (0, -1):
+        check_values(case, {k: e[pick] for k, e in zip(keys, ends, strict=True)}, what)
