@@ -49,6 +49,44 @@ def test_ripple_against_exponential_segments(duty, vd):
     assert pf.residual <= 1e-9
 
 
+def _exact_phase_integrals(duty, vd):
+    """∫ i dt and ∫ i² dt of each phase of the exact exponential PWM waveform (first-order RL, ideal
+    switch, constant-drop freewheel diode; derived): on i = Vs/R + (i_min − Vs/R)·e^(−t/τ),
+    off i = −Vd/R + (i_max + Vd/R)·e^(−t/τ); ∫(a + b·e^(−t/τ)) = a·t + b·τ·(1 − e^(−t/τ)) and
+    ∫(a + b·e^(−t/τ))² = a²t + 2abτ(1 − e^(−t/τ)) + b²τ/2·(1 − e^(−2t/τ))."""
+    T, tau = 1 / F, L / R
+    i_min, i_max = _exact_extremes(duty, vd)
+
+    def ints(a, b, t):
+        e1, e2 = -math.expm1(-t / tau), -math.expm1(-2 * t / tau)
+        return a * t + b * tau * e1, a * a * t + 2 * a * b * tau * e1 + b * b * tau / 2 * e2
+
+    return ints(VS / R, i_min - VS / R, duty * T), ints(-vd / R, i_max + vd / R, (1 - duty) * T)
+
+
+@pytest.mark.parametrize("duty, vd", [(0.5, 0.0), (0.25, 0.7), (0.8, 0.7)], ids=["D0.5", "D0.25-diode", "D0.8-diode"])
+def test_switch_and_freewheel_averages_with_an_instant_switch(duty, vd):
+    # the switch carries the on phase, the diode the off phase; the sample at the switching instant
+    # used to hand half a step of switch current to the diode (0.1–0.9 % off)
+    (m_on, s_on), (m_off, s_off) = _exact_phase_integrals(duty, vd)
+    T = 1 / F
+    pf = pwm_figures(steady_state(Circuit(_case(vd)), duty, F))
+    el = pf.elements[0]
+    assert pf.switch_mean_A == pytest.approx(m_on / T, rel=1e-8), "switch mean"
+    assert pf.switch_rms_A == pytest.approx(math.sqrt(s_on / T), rel=1e-8), "switch RMS"
+    assert el["mean_A"] == pytest.approx(m_off / T, rel=1e-8), "freewheel mean"
+    assert el["rms_A"] == pytest.approx(math.sqrt(s_off / T), rel=1e-8), "freewheel RMS"
+    assert pf.mean_current_A == pytest.approx((m_on + m_off) / T, rel=1e-8), "coil mean"
+    assert pf.rms_current_A == pytest.approx(math.sqrt((s_on + s_off) / T), rel=1e-8), "coil RMS"
+    # the same integrals by scipy quad on the closed form (a second route to the reference)
+    from scipy.integrate import quad
+
+    i_min, _ = _exact_extremes(duty, vd)
+    tau = L / R
+    q = quad(lambda t: VS / R + (i_min - VS / R) * math.exp(-t / tau), 0, duty * T, epsabs=0, epsrel=1e-13)[0]
+    assert q == pytest.approx(m_on, rel=1e-11)
+
+
 def test_ripple_long_time_constant_limit():
     # τ ≫ T: ΔI → V·D·(1−D)/(L·f) (Batarseh & Harb, Power Electronics, §4.5); here τ/T = 2000
     case = Case("slow (demo data)", Supply(VS), Coil(1.0, 10.0), Switch("ideal"),
