@@ -1,0 +1,142 @@
+"""The final turn-off after a [drive]: it starts from the full periodic steady state at the
+turn-off instant (current, motor speed, junction stages), checked against references written here."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+from scipy.linalg import expm
+
+from kickback import simulate
+from kickback.case import Case, Checks, Clamp, Coil, Drive, Element, Motor, Supply, Switch
+
+# an invented fan-like motor (demo data): 24 V, 2 mH, 2 Ω, k = 0.02 V·s/rad, J = 2e-5 kg·m²
+VS, L, R, K, J, B, TL, VD, F = 24.0, 2e-3, 2.0, 0.02, 2e-5, 2e-5, 0.005, 0.7, 20e3
+
+
+def _motor_case(duty):
+    d = Element("diode", model="constant-drop", forward_voltage=VD)
+    return Case("final turn-off (demo data)", Supply(VS), Coil(L, R), Switch("ideal"), (Clamp("D", "coil", (d,)),),
+                drive=Drive(F, (duty,), True), motor=Motor(K, inertia=J, viscous_friction=B, load_torque=TL))
+
+
+def _affine(on: bool):
+    """x' = A·x + b for x = (i, ω): the DC machine (Fitzgerald & Kingsley, Electric Machinery,
+    DC machines) with an ideal switch (on: the coil sees Vs) or the constant-drop freewheel diode
+    conducting (off: the coil sees −Vd)."""
+    a = np.array([[-R / L, -K / L], [K / J, -B / J]])
+    b = np.array([(VS if on else -VD) / L, -TL / J])
+    return a, b
+
+
+def _flow(on: bool, t: float):
+    """Exact map x → e^{At}·x + ∫e^{As}b ds of one phase, by the augmented matrix exponential
+    (C. Van Loan, IEEE Trans. Autom. Control 23(3), 1978)."""
+    a, b = _affine(on)
+    m = np.zeros((3, 3))
+    m[:2, :2], m[:2, 2] = a, b
+    e = expm(m * t)
+    return e[:2, :2], e[:2, 2]
+
+
+def _reference(duty):
+    """Periodic state at the turn-off instant (fixed point of the exact one-cycle map, continuous
+    conduction), then the turn-off integrated tightly by scipy (DOP853, rtol 1e-12) with the energies
+    as extra states, to the current zero."""
+    T = 1 / F
+    p_on, q_on = _flow(True, duty * T)
+    p_off, q_off = _flow(False, (1 - duty) * T)
+    # at turn-off: x_off = P_on·(P_off·x_off + q_off) + q_on
+    x_off = np.linalg.solve(np.eye(2) - p_on @ p_off, p_on @ q_off + q_on)
+    assert (p_off @ x_off + q_off)[0] > 0, "continuous conduction (the closed form assumes it)"
+
+    def rhs(t, y):
+        i, w = y[0], y[1]
+        return [(-VD - R * i - K * w) / L, (K * i - B * w - TL) / J, R * i * i, VD * i, K * w * i]
+
+    i0 = x_off[0]
+    evs = []
+    for frac in (0.1, 0.01, 0.0):
+        def g(t, y, frac=frac):
+            return y[0] - frac * i0
+        g.direction = -1
+        g.terminal = frac == 0.0
+        evs.append(g)
+    sol = solve_ivp(rhs, (0, 1.0), [x_off[0], x_off[1], 0, 0, 0], method="DOP853", rtol=1e-12,
+                    atol=[1e-15, 1e-12, 1e-18, 1e-18, 1e-18], events=evs)
+    t10, t1, t0 = (float(e[0]) for e in sol.t_events)
+    return x_off, t10, t1, t0, sol.y_events[2][0][2:]
+
+
+@pytest.mark.parametrize("duty", [0.3, 0.9], ids=["D0.3", "D0.9"])
+def test_motor_final_turnoff_starts_from_the_periodic_state(duty):
+    x_off, t10, t1, t0, (e_r, e_d, e_m) = _reference(duty)
+    res = simulate(_motor_case(duty))
+    f = res.figures
+    y0 = res.waveforms.y[:, 0]
+    assert f.initial_current_A == pytest.approx(x_off[0], rel=1e-8), "current at the turn-off instant"
+    assert y0[res.waveforms.circuit.iw] == pytest.approx(x_off[1], rel=1e-8), "speed at the turn-off instant"
+    # figures against the tight reference (a DC-equilibrium start speed put them 2–25 % off)
+    assert f.to_10_percent_s == pytest.approx(t10, rel=1e-6)
+    assert f.to_1_percent_s == pytest.approx(t1, rel=1e-6)
+    assert f.to_zero_s == pytest.approx(t0, rel=1e-6)
+    assert f.resistance_energy_J == pytest.approx(e_r, rel=1e-6)
+    assert f.clamps[0].energy_J == pytest.approx(e_d, rel=1e-6)
+    assert f.motor_energy_J == pytest.approx(e_m, rel=1e-6)
+    assert abs(f.energy_balance_error) < 1e-6
+
+
+def test_final_turnoff_takes_the_duty_with_the_highest_turnoff_current():
+    case = _motor_case(0.3)
+    from dataclasses import replace
+
+    res = simulate(replace(case, drive=Drive(F, (0.3, 0.6), True)))
+    x_hi = _reference(0.6)[0]
+    assert res.figures.initial_current_A == pytest.approx(x_hi[0], rel=1e-8)
+
+
+# --- junction temperature of the final turn-off: the periodic Foster state at the instant -------------
+RON, RTH, TAUS = 0.5, (0.05, 0.4, 2.0), (20e-6, 2e-3, 0.5)
+
+
+def test_final_turnoff_junction_starts_from_the_periodic_foster_state():
+    # a MOSFET with R_on heats by R_on·i² in the on phase and not at all off (instant switch, the
+    # clamp holds the node below breakdown); its junction at the final turn-off is ambient plus each
+    # Foster stage's periodic state at that instant: the geometric series over earlier periods,
+    #   T_k = (R_k/τ_k)·∫_0^{DT} p(s)·e^{−(DT − s)/τ_k} ds / (1 − e^{−T/τ_k})   (derived; JESD51-14 Foster form)
+    # with p = R_on·i(s)², i(s) = I∞ + (i_min − I∞)·e^{−s/τ}, I∞ = Vs/(R + R_on), τ = L/(R + R_on).
+    from scipy.integrate import quad
+
+    duty, amb = 0.5, 313.15
+    d = Element("diode", model="constant-drop", forward_voltage=VD)
+    sw = Switch("mosfet", on_resistance=RON, thermal_resistance=RTH, thermal_tau=TAUS,
+                max_junction_temperature=423.15)
+    case = Case("junction (demo data)", Supply(VS), Coil(L, R), sw, (Clamp("D", "coil", (d,)),),
+                checks=Checks(ambient_temperature=amb), drive=Drive(F, (duty,), True))
+    T = 1 / F
+    tau_on, tau_off = L / (R + RON), L / R
+    i_inf = VS / (R + RON)
+    a_on, a_off = math.exp(-duty * T / tau_on), math.exp(-(1 - duty) * T / tau_off)
+    # i_max = I∞ + (i_min − I∞)·a_on, i_min = −Vd/R + (i_max + Vd/R)·a_off (exponential segments)
+    i_max = (i_inf * (1 - a_on) + a_on * (-VD / R) * (1 - a_off)) / (1 - a_on * a_off)
+    i_min = -VD / R + (i_max + VD / R) * a_off
+
+    def p(s):
+        return RON * (i_inf + (i_min - i_inf) * math.exp(-s / tau_on)) ** 2
+
+    rise = 0.0
+    for rk, tk in zip(RTH, TAUS, strict=True):
+        conv = quad(lambda s, tk=tk: p(s) * math.exp(-(duty * T - s) / tk), 0, duty * T, epsabs=0, epsrel=1e-12)[0]
+        rise += rk / tk * conv / -math.expm1(-T / tk)
+    res = simulate(case)
+    assert res.figures.initial_current_A == pytest.approx(i_max, rel=1e-8)
+    # no switch power after an instant turn-off: the peak is the start
+    assert res.figures.switch_junction_peak_K == pytest.approx(amb + rise, rel=1e-7, abs=1e-6)
+    # and the periodic peak of the cycle is the same instant (the power is highest just before it)
+    assert res.pwm[0].switch_junction_peak_K == pytest.approx(amb + rise, rel=1e-7, abs=1e-6)
+    # the mean: ambient + mean power · ΣR
+    mean_p = quad(p, 0, duty * T, epsabs=0, epsrel=1e-12)[0] / T
+    assert res.pwm[0].switch_junction_mean_K == pytest.approx(amb + mean_p * sum(RTH), rel=1e-8)
