@@ -140,3 +140,49 @@ def test_final_turnoff_junction_starts_from_the_periodic_foster_state():
     # the mean: ambient + mean power · ΣR
     mean_p = quad(p, 0, duty * T, epsabs=0, epsrel=1e-12)[0] / T
     assert res.pwm[0].switch_junction_mean_K == pytest.approx(amb + mean_p * sum(RTH), rel=1e-8)
+
+
+def test_snubber_capacitor_starts_at_its_periodic_voltage():
+    # RC snubber across an ideal switch, no other clamp (demo data). On: the node is held at 0 V and the
+    # snubber capacitor discharges through R_s; off: the coil current runs through R_s and C,
+    #   L·di/dt = Vs − (R + R_s)·i − v_c,  C·dv_c/dt = i,  node v = v_c + R_s·i   (series RLC, e.g.
+    # Alexander & Sadiku, Fundamentals of Electric Circuits, ch. 8). Both phases are linear: the periodic
+    # state at turn-off is the fixed point of the exact one-cycle map (augmented matrix exponential), and
+    # the final turn-off's peak node voltage follows from the exact solution by a bounded scalar search.
+    from scipy.optimize import minimize_scalar
+
+    vs, ll, rr, cc, rs, f, duty = 24.0, 1e-3, 10.0, 100e-9, 100.0, 20e3, 0.3
+    snub = Clamp("RC", "switch", (Element("resistor", resistance=rs), Element("capacitor", capacitance=cc)))
+    case = Case("snubber PWM (demo data)", Supply(vs), Coil(ll, rr), Switch("ideal"), (snub,),
+                drive=Drive(f, (duty,), True))
+
+    def flow(a, b, t):
+        m = np.zeros((3, 3))
+        m[:2, :2], m[:2, 2] = a, b
+        e = expm(m * t)
+        return e[:2, :2], e[:2, 2]
+
+    a_on, b_on = np.array([[-rr / ll, 0.0], [0.0, -1 / (rs * cc)]]), np.array([vs / ll, 0.0])
+    a_off, b_off = np.array([[-(rr + rs) / ll, -1 / ll], [1 / cc, 0.0]]), np.array([vs / ll, 0.0])
+    T = 1 / f
+    p_on, q_on = flow(a_on, b_on, duty * T)
+    p_off, q_off = flow(a_off, b_off, (1 - duty) * T)
+    x_off = np.linalg.solve(np.eye(2) - p_on @ p_off, p_on @ q_off + q_on)
+
+    def node(t):
+        p, q = flow(a_off, b_off, t)
+        x = p @ x_off + q
+        return x[1] + rs * x[0]
+
+    grid = np.linspace(0, 2e-4, 4001)
+    k = int(np.argmax([node(t) for t in grid]))
+    best = minimize_scalar(lambda t: -node(t), bounds=(grid[max(k - 1, 0)], grid[k + 1]), method="bounded",
+                           options={"xatol": 1e-14})
+    peak = max(-best.fun, node(0.0))
+    res = simulate(case)
+    w = res.waveforms
+    assert res.figures.initial_current_A == pytest.approx(x_off[0], rel=1e-8)
+    assert w.y[w.circuit.icap[0], 0] == pytest.approx(x_off[1], rel=1e-7), "capacitor voltage at turn-off"
+    assert x_off[1] > 1.0, "the capacitor has not discharged at turn-off: a DC on-state start would be wrong"
+    assert res.figures.peak_voltage_V == pytest.approx(peak, rel=1e-6)
+    assert abs(res.figures.energy_balance_error) < 1e-6
