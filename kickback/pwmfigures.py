@@ -45,38 +45,37 @@ class PwmFigures:
 
 
 def _integral(t, x) -> float:
-    """∫ x dt over ``t[0] … t[-1]``, each phase on its own interval (Simpson's rule for irregular
-    spacing within a phase, the trapezoid for a phase of two samples).
+    """∫ x dt over ``t[0] … t[-1]``, each phase on its own interval.
 
     ``t`` may repeat a time at a phase boundary (:func:`phase_resolved`): the integral is split
-    there, so a signal that jumps at the boundary is integrated exactly on either side.
+    there, so a signal that jumps at the boundary is integrated exactly on either side. Within a
+    phase, consecutive intervals whose lengths differ by at most 2× are taken in pairs by
+    Simpson's rule for unequal spacing (all weights positive there); any other interval by the
+    trapezoid.
+
+    References
+    ----------
+    E. Süli and D. Mayers, An Introduction to Numerical Analysis, CUP 2003, ch. 7 (Newton–Cotes
+    rules; Simpson's rule through three unequally spaced points).
     """
-    from scipy.integrate import simpson
-
-    cuts = np.flatnonzero(np.diff(t) == 0) + 1
+    t = np.asarray(t, dtype=float)
+    x = np.asarray(x, dtype=float)
+    h = np.diff(t)
     total = 0.0
-    for tt, xx in zip(np.split(t, cuts), np.split(x, cuts), strict=True):
-        if tt.size >= 3:
-            # Simpson's irregular-spacing weights blow up at extreme step ratios (a solver's first
-            # steps after a switching instant are ~1e-15 of the phase): thin such clusters first
-            keep = _thinned(tt)
-            tt, xx = tt[keep], xx[keep]
-        if tt.size >= 3:
-            total += float(simpson(xx, x=tt))
-        elif tt.size == 2:
-            total += float(np.trapezoid(xx, tt))
-    return total
-
-
-def _thinned(t, rel: float = 1e-7) -> np.ndarray:
-    """Indices of ``t`` keeping both ends and no two kept points closer than ``rel`` × span."""
-    gap = rel * (t[-1] - t[0])
-    keep = [0]
-    for k in range(1, t.size - 1):
-        if t[k] - t[keep[-1]] >= gap and t[-1] - t[k] >= gap:
-            keep.append(k)
-    keep.append(t.size - 1)
-    return np.asarray(keep)
+    n = 0
+    while n < h.size:
+        if h[n] == 0:
+            n += 1
+            continue
+        if n + 1 < h.size and h[n + 1] > 0 and 0.5 <= h[n + 1] / h[n] <= 2.0:
+            h0, h1 = h[n], h[n + 1]
+            total += (h0 + h1) / 6.0 * ((2.0 - h1 / h0) * x[n] + (h0 + h1) ** 2 / (h0 * h1) * x[n + 1]
+                                        + (2.0 - h0 / h1) * x[n + 2])
+            n += 2
+        else:
+            total += 0.5 * h[n] * (x[n] + x[n + 1])
+            n += 1
+    return float(total)
 
 
 def _mean_rms(t, x) -> tuple[float, float]:
@@ -153,11 +152,13 @@ def phase_resolved(w) -> Resolved:
 def _junction(t, p, r, tau, ambient):
     if r is None:
         return None, None
-    from kickback.models.thermal import foster_periodic
+    from kickback.models.thermal import foster_peak, foster_periodic_stages
 
-    rise = foster_periodic(t, np.clip(p, 0.0, None), r, tau)
-    mean = _integral(t, np.clip(p, 0.0, None)) / (t[-1] - t[0]) * float(sum(r))
-    return float(ambient + mean), float(ambient + rise.max())
+    p = np.clip(p, 0.0, None)
+    # the periodic stage states at the cycle's start, then the peak sought between samples too
+    start = foster_periodic_stages(t, p, r, tau)[:, 0]
+    mean = _integral(t, p) / (t[-1] - t[0]) * float(sum(r))
+    return float(ambient + mean), float(ambient + foster_peak(t, p, r, tau, start))
 
 
 def pwm_figures(ss: SteadyState) -> PwmFigures:
