@@ -143,3 +143,24 @@ def test_demo_pwm_case_and_cli(tmp_path):
     assert out.exit_code == 0
     d = json.loads(out.stdout)
     assert [p["duty"] for p in d["pwm"]] == [0.3, 0.5] and "ripple_A" in d["pwm"][0]
+
+
+def test_averages_in_discontinuous_conduction():
+    # diode + Zener clamp: the current reaches zero in the off phase and stays there (derived, first-order
+    # RL): on i = I∞·(1 − e^(−t/τ)) from zero; off i = (i_max + Vc/R)·e^(−t/τ) − Vc/R to its zero at
+    # t_z = τ·ln(1 + R·i_max/Vc); the clamp's energy per cycle is Vc·∫i dt
+    vc, duty = 20.7, 0.4
+    cl = Clamp("DZ", "coil", (Element("diode", model="constant-drop", forward_voltage=0.7),
+                              Element("zener", voltage=20.0)))
+    case = Case("discontinuous (demo data)", Supply(VS), Coil(L, R), Switch("ideal"), (cl,))
+    pf = pwm_figures(steady_state(Circuit(case), duty, F))
+    T, tau, inf = 1 / F, L / R, VS / R
+    i_max = -inf * math.expm1(-duty * T / tau)
+    tz = tau * math.log(1 + R * i_max / vc)
+    assert tz < (1 - duty) * T, "discontinuous (the closed form assumes it)"
+    q_on = inf * duty * T + inf * tau * math.expm1(-duty * T / tau)
+    q_off = -(i_max + vc / R) * tau * math.expm1(-tz / tau) - vc / R * tz
+    assert pf.switch_mean_A == pytest.approx(q_on / T, rel=1e-7)
+    assert pf.elements[0]["mean_A"] == pytest.approx(q_off / T, rel=1e-7)
+    assert pf.elements[1]["energy_J"] == pytest.approx(20.0 * q_off, rel=1e-7)
+    assert pf.max_current_A == pytest.approx(i_max, rel=1e-8)
