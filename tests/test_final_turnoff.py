@@ -186,3 +186,49 @@ def test_snubber_capacitor_starts_at_its_periodic_voltage():
     assert x_off[1] > 1.0, "the capacitor has not discharged at turn-off: a DC on-state start would be wrong"
     assert res.figures.peak_voltage_V == pytest.approx(peak, rel=1e-6)
     assert abs(res.figures.energy_balance_error) < 1e-6
+
+
+def test_clamp_junction_of_the_final_turnoff_starts_from_its_periodic_state():
+    # a constant-drop freewheel diode with a Foster network (demo data): it dissipates Vd·i in the off phase,
+    # i(u) = −Vd/R + (i_max + Vd/R)·e^(−u/τ) after each turn-off (first-order RL, derived). Each stage's
+    # periodic state at the turn-off instant is the off phase's convolution, carried through the on phase
+    # and summed over all earlier periods (geometric series, JESD51-14 Foster form); the final turn-off adds
+    # the same convolution on top of T_k0·e^(−u/τ_k). Kickback's power is sampled (linear between samples):
+    # held to 1e-4 of the rise.
+    from scipy.integrate import quad
+    from scipy.optimize import minimize_scalar
+
+    from kickback.case import Checks
+
+    duty, amb, rth, taus = 0.4, 300.0, (1.0, 5.0), (50e-6, 2e-3)
+    d = Element("diode", model="constant-drop", forward_voltage=VD, thermal_resistance=rth, thermal_tau=taus)
+    case = Case("diode junction (demo data)", Supply(VS), Coil(1e-3, 10.0), Switch("ideal"),
+                (Clamp("D", "coil", (d,)),), checks=Checks(ambient_temperature=amb), drive=Drive(F, (duty,), True))
+    ll, rr, T = 1e-3, 10.0, 1 / F
+    tau = ll / rr
+    a_on, a_off = math.exp(-duty * T / tau), math.exp(-(1 - duty) * T / tau)
+    i_max = (VS / rr * (1 - a_on) + a_on * (-VD / rr) * (1 - a_off)) / (1 - a_on * a_off)
+
+    def p(u):
+        return max(VD * (-VD / rr + (i_max + VD / rr) * math.exp(-u / tau)), 0.0)
+
+    def conv(u, tk):
+        return quad(lambda s: p(s) * math.exp(-(u - s) / tk), 0, u, epsabs=0, epsrel=1e-12)[0]
+
+    t_off = (1 - duty) * T
+    start = [rk / tk * conv(t_off, tk) * math.exp(-duty * T / tk) / -math.expm1(-T / tk)
+             for rk, tk in zip(rth, taus, strict=True)]
+
+    def rise(u):
+        return sum(s0 * math.exp(-u / tk) + rk / tk * conv(u, tk) for s0, rk, tk in zip(start, rth, taus, strict=True))
+
+    uz = tau * math.log(1 + rr * i_max / VD)
+    grid = np.linspace(0, uz, 201)
+    k = int(np.argmax([rise(u) for u in grid]))
+    best = minimize_scalar(lambda u: -rise(u), bounds=(grid[max(k - 1, 0)], grid[min(k + 1, 200)]),
+                           method="bounded", options={"xatol": 1e-13})
+    expect = max(-best.fun, rise(0.0))
+    res = simulate(case)
+    got = res.figures.clamps[0].elements[0].junction_peak_K - amb
+    assert sum(start) > 0.05 * expect, "the periodic state is a real part of the peak here"
+    assert got == pytest.approx(expect, rel=1e-4)
