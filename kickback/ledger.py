@@ -14,7 +14,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-
 #: the energy left in the coil is a ledger term above this fraction of the input
 LEFT_IN_COIL_SHOWN = 1e-9
 
