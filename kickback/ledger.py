@@ -5,9 +5,8 @@ resistance, the switch (turn-off crossover, avalanche, body diode) and each clam
 + converted by a motor's back-EMF + left in capacitors and in the coil. The terms come in that
 order, each with its side: ``"in"``, ``"out"`` or ``"left"``.
 
-The text table, the HTML report (table, bars, summary sentence) and the JSON's ``ledger`` list
-all read :func:`ledger_terms`; :func:`ledger_residual` of the terms is the result's
-``energy_balance_error``.
+The text table and the HTML report (table, bars, summary sentence) read :func:`ledger_terms`;
+the JSON lists no terms, and its ``energy_balance_error`` is :func:`ledger_residual` of them.
 """
 
 from __future__ import annotations
