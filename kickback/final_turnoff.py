@@ -79,7 +79,7 @@ def thermal_start(ss: SteadyState) -> dict:
 
     c = ss.waveforms.circuit
     t_off = ss.duty / ss.frequency
-    rs = phase_resolved(ss.waveforms)
+    rs = phase_resolved(ss.waveforms, ss.switch_current_turnoff)
     # the last sample at the instant is the start of the off phase; the stages are continuous
     at = int(np.searchsorted(rs.t, t_off, side="right")) - 1
     out = {}

@@ -106,14 +106,28 @@ class Resolved:
     chains: list
 
 
-def phase_resolved(w) -> Resolved:
+def phase_resolved(w, i_on: float | None = None) -> Resolved:
     """The cycle ``w`` sampled phase by phase (see :class:`Resolved`).
 
     The sampled waveforms give a time shared by two phases once, evaluated in the later phase's
     mode: at an instant turn-off the switch current there reads 0 and the trapezoid between it
     and the last on-state sample hands half a step of switch current to the freewheel path.
     Here each phase keeps both of its ends.
+
+    ``i_on`` [A]: the channel current this cycle's turn-off starts from (the circuit keeps only the
+    last one it solved: several duties share one circuit).
     """
+    c = w.circuit
+    saved = c.i_on
+    if i_on is not None:
+        c.i_on = i_on
+    try:
+        return _phase_resolved(w)
+    finally:
+        c.i_on = saved
+
+
+def _phase_resolved(w) -> Resolved:
     from kickback.engine.sampling import derived_with_pin
 
     c = w.circuit
@@ -166,7 +180,7 @@ def pwm_figures(ss: SteadyState) -> PwmFigures:
     w = ss.waveforms
     c = w.circuit
     case = c.case
-    rs = phase_resolved(w)
+    rs = phase_resolved(w, ss.switch_current_turnoff)
     t = rs.t
     f = ss.frequency
     i = rs.i_coil

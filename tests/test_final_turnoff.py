@@ -232,3 +232,22 @@ def test_clamp_junction_of_the_final_turnoff_starts_from_its_periodic_state():
     got = res.figures.clamps[0].elements[0].junction_peak_K - amb
     assert sum(start) > 0.05 * expect, "the periodic state is a real part of the peak here"
     assert got == pytest.approx(expect, rel=1e-4)
+
+
+def test_order_of_the_duties_does_not_change_the_final_turnoff():
+    # the duties share one circuit; each cycle's switch power (its 1 µs fall included) must be evaluated
+    # with its own turn-off current, whatever duty was solved last (a property: same case, same answer)
+    d = Element("diode", model="constant-drop", forward_voltage=VD)
+    sw = Switch("mosfet", on_resistance=RON, fall_time=1e-6, thermal_resistance=RTH, thermal_tau=TAUS)
+
+    def run(duties):
+        case = Case("order (demo data)", Supply(VS), Coil(L, R), sw, (Clamp("D", "coil", (d,)),),
+                    drive=Drive(F, duties, True))
+        return simulate(case)
+
+    a, b = run((0.7, 0.3)), run((0.3, 0.7))
+    assert a.figures.switch_junction_peak_K == pytest.approx(b.figures.switch_junction_peak_K, rel=1e-9)
+    pa = {p.duty: p for p in a.pwm}
+    for p in b.pwm:
+        assert p.switch_rms_A == pytest.approx(pa[p.duty].switch_rms_A, rel=1e-9)
+        assert p.switch_junction_peak_K == pytest.approx(pa[p.duty].switch_junction_peak_K, rel=1e-9)
