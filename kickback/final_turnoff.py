@@ -6,8 +6,8 @@ junction's Foster stages follow a periodic steady state. The last turn-off happe
 turn-off instant ``t = D·T`` of that cycle; of the case's duties the one with the highest coil
 current there is taken (the worst case for the clamp and the switch). Starting from a DC
 on-state at that current instead puts a motor at the speed its DC equilibrium has for the peak
-current (far too fast under PWM: the back-EMF at turn-off too high, the decay about 25 % short)
-and every junction at ambient.
+current (too fast under PWM: the back-EMF at turn-off too high; the decay was 16 % short at duty
+0.3 and 2.6 % short on the fan demo at duty 0.9) and every junction at ambient.
 """
 
 from __future__ import annotations
