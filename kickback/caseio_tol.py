@@ -10,8 +10,8 @@ sigmas = 3
 min = "21.6 V"                # or an absolute range
 max = "26.4 V"
 
-[tolerance.coil_temperature]  # the coil resistance follows copper's temperature coefficient
-min = "-20 °C"
+[tolerance.coil_temperature]  # the coil resistance follows copper's coefficient, IEC 60028:
+min = "-20 °C"                # R(T) = R_ref·(1 + α20·(T − 20 °C))/(1 + α20·(T_ref − 20 °C)), α20 = 0.00393/K
 max = "85 °C"
 reference = "20 °C"           # the temperature coil.resistance is given at (default 20 °C)
 ```
@@ -114,6 +114,15 @@ def _one(ctx, path, key: str, spec: dict, case: Case) -> Tolerance:
     ref = None
     if temperature:
         ref = q("reference") if "reference" in spec else 293.15
+        from kickback.models.passive import COPPER_ZERO_K
+
+        # the linear copper law gives zero resistance at 20 °C − 1/α20 (IEC 60028): nothing at or below it
+        if ref <= COPPER_ZERO_K:
+            raise ctx.error(path + ("reference",), f"{ref - 273.15:.4g} °C is at or below copper's zero-resistance "
+                            f"point {COPPER_ZERO_K - 273.15:.4g} °C (expected a winding temperature above it)")
+        if low <= COPPER_ZERO_K:
+            raise ctx.error(path, f"the range reaches {low - 273.15:.4g} °C, at or below copper's zero-resistance "
+                            f"point {COPPER_ZERO_K - 273.15:.4g} °C (expected a range above it)")
     elif "reference" in spec:
         raise ctx.error(path + ("reference",), "only coil_temperature takes a reference")
     line = ctx.where.line_of(path)

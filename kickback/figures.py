@@ -132,9 +132,9 @@ def junction_peak(t, p, r, tau, ambient: float) -> float | None:
     (None without one): ambient plus the largest rise, exact for p linear between samples."""
     if r is None:
         return None
-    from kickback.models.thermal import foster_response
+    from kickback.models.thermal import foster_peak
 
-    return float(ambient + np.max(foster_response(t, np.clip(p, 0.0, None), r, tau), initial=0.0))
+    return float(ambient + foster_peak(t, np.clip(p, 0.0, None), r, tau))
 
 
 def chain_signals(w: Waveforms, k: int):

@@ -74,3 +74,26 @@ def test_thermal_keys_are_checked(tmp_path):
                               'thermal_resistance = ["0.05 K", "0.5 K/W", "20 K/W"]'))
     with pytest.raises(ValueError, match="K/W"):
         load_case(p)
+
+
+def test_foster_stages_start_and_periodic_square_wave():
+    from kickback.models.thermal import foster_periodic_stages, foster_stages
+
+    r, tau = (2.0, 5.0), (1e-4, 3e-3)
+    # a stage started at T0 with no power decays as T0·e^(−t/τ) (first-order RC, any circuits text)
+    t = np.linspace(0, 5e-3, 2001)
+    st = foster_stages(t, np.zeros_like(t), r, tau, start=(3.0, 7.0))
+    assert st[0] == pytest.approx(3.0 * np.exp(-t / tau[0]), rel=1e-12, abs=1e-300)
+    assert st[1] == pytest.approx(7.0 * np.exp(-t / tau[1]), rel=1e-12)
+    # square power wave P on for D·T: each stage at the end of the on part is the geometric series
+    # P·R·(1 − a_on)/(1 − a_on·a_off), a = e^(−t/τ) (derived); a repeated time carries the jump exactly
+    P, T, D = 10.0, 2e-4, 0.3
+    ton = np.linspace(0, D * T, 50)
+    toff = np.linspace(D * T, T, 80)
+    tt = np.concatenate([ton, toff])
+    pp = np.concatenate([np.full(ton.size, P), np.zeros(toff.size)])
+    per = foster_periodic_stages(tt, pp, r, tau)
+    for k in range(2):
+        a_on, a_off = np.exp(-D * T / tau[k]), np.exp(-(1 - D) * T / tau[k])
+        assert per[k, ton.size - 1] == pytest.approx(P * r[k] * (1 - a_on) / (1 - a_on * a_off), rel=1e-12)
+        assert per[k, 0] == pytest.approx(per[k, -1], rel=1e-12), "periodic"

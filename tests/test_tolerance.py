@@ -60,6 +60,44 @@ def test_copper_coefficient_iec_60028():
     assert hot.coil.resistance == pytest.approx(30.0 * 1.25545, rel=1e-12)
 
 
+def _iec_60028(r_ref, t, t_ref):
+    """IEC 60028: α20 = 0.00393 /K relative to the resistance at 20 °C; a resistance given at
+    T_ref goes back to 20 °C first: R(T) = R_ref·(1 + α20·(T − 20 °C))/(1 + α20·(T_ref − 20 °C))."""
+    a20 = 0.00393
+    return r_ref * (1 + a20 * (t - 20.0)) / (1 + a20 * (t_ref - 20.0))
+
+
+@pytest.mark.parametrize("t_c, t_ref_c", [(-20.0, 60.0), (85.0, 60.0), (20.0, 60.0), (-40.0, 105.0), (85.0, 20.0)],
+                         ids=["-20C-ref60", "85C-ref60", "20C-ref60", "-40C-ref105", "85C-ref20"])
+def test_copper_reference_other_than_20c(t_c, t_ref_c):
+    expect = _iec_60028(47.0, t_c, t_ref_c)
+    assert copper_resistance(47.0, t_c + 273.15, t_ref_c + 273.15) == pytest.approx(expect, rel=1e-12)
+
+
+def test_tolerance_corners_with_a_warm_reference():
+    # coil.resistance = 30 Ω given at 60 °C; the corners −20 °C and 85 °C follow IEC 60028 (not α20 applied
+    # relative to 60 °C, which was 6 % low at −20 °C)
+    from kickback.studies.tolerance import variations_of
+
+    case = load_case(TOL + 'reference = "60 °C"\n')
+    cold, hot = 253.15, 358.15
+    m = np.array([[0.1, 24.0, 20.0, cold], [0.1, 24.0, 20.0, hot]])
+    got = variations_of(case, m)["coil.resistance"]
+    assert got == pytest.approx([_iec_60028(30.0, -20.0, 60.0), _iec_60028(30.0, 85.0, 60.0)], rel=1e-12)
+    assert apply(case, m[0]).coil.resistance == pytest.approx(_iec_60028(30.0, -20.0, 60.0), rel=1e-12)
+    # at its own reference the resistance is the one given
+    assert apply(case, [0.1, 24.0, 20.0, 333.15]).coil.resistance == pytest.approx(30.0, rel=1e-12)
+
+
+@pytest.mark.parametrize("lines, words", [
+    ('min = "-250 °C"\nmax = "85 °C"\n', "zero-resistance"),
+    ('min = "-20 °C"\nmax = "85 °C"\nreference = "-240 °C"\n', "zero-resistance"),
+], ids=["range-below-copper-zero", "reference-below-copper-zero"])
+def test_coil_temperature_below_coppers_zero_point_is_refused(lines, words):
+    with pytest.raises(CaseError, match=words):
+        load_case(BASE + "[tolerance.coil_temperature]\n" + lines)
+
+
 def test_section_parsed_to_absolute_bands():
     tols = {t.path: t for t in load_case(TOL).tolerances}
     assert (tols["coil.inductance"].low, tols["coil.inductance"].high) == pytest.approx((0.09, 0.11))

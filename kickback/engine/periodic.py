@@ -55,6 +55,9 @@ class SteadyState:
         come within the same tolerance (from the contraction; None when it does not contract)
     residual : float — relative fixed-point residual reached (``|Φ(x) − x|`` of the reported
         cycle, relative to each state's scale)
+    x_turnoff : ndarray or None — dynamic states at the turn-off instant ``t = D·T`` of the
+        reported cycle (coil current or flux, node and snubber-capacitor voltages, motor speed)
+    switch_current_turnoff : float or None — [A] the channel current the turn-off starts from
     """
 
     duty: float
@@ -67,6 +70,8 @@ class SteadyState:
     contraction: float
     brute_force_cycles: int | None
     residual: float
+    x_turnoff: np.ndarray | None = None
+    switch_current_turnoff: float | None = None
 
 
 def scales(c: Circuit) -> np.ndarray:
@@ -110,6 +115,8 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
         # turn-off: the channel current falls from what it carries now
         v = float(runner.y[1]) if c.capacitive else c.node_voltage(t_on, runner.y)
         c.i_on = c.split_currents(t_on, v, runner.y)[0] - c.g_leak * v
+        # the state at the turn-off instant, for a final turn-off from the periodic state
+        runner.x_turnoff, runner.i_turnoff = runner.y[: c.ie].copy(), float(c.i_on)
         c.conducting = False
         tf = c.switch.fall_time
         if tf > 0:
@@ -194,7 +201,8 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             solves += 1
     rho, brute = brute_force_estimate(c, x, jm)
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
-    return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid)
+    return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
+                       runner.i_turnoff)
 
 
 def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:

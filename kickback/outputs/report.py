@@ -149,9 +149,15 @@ def summary_line(result) -> str:
     if case.coil.release_current is not None:
         bits.append("never released" if f.release_s is None else f"released after {q(f.release_s, 's')}")
     bits.append(f"current to zero after {q(f.to_zero_s, 's')}")
-    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
+    from kickback.ledger import ledger_input, ledger_terms
+
+    terms = ledger_terms(f, case)
+    total = ledger_input(terms)
+    # the sinks of the ledger, a clamp's elements taken together
     sinks = [(c.energy_J, f"clamp {c.name}") for c in f.clamps]
-    sinks += [(f.resistance_energy_J, "the coil resistance"), (f.avalanche_energy_J, "switch avalanche")]
+    words = {"motor": "the motor's back-EMF", "coil_resistance": "the coil resistance"}
+    sinks += [(t.energy_J, words.get(t.key, t.label)) for t in terms
+              if t.side == "out" and not t.key.startswith("clamp[")]
     e, where = max(sinks)
     bits.append(f"{q(f.stored_energy_J, 'J')} stored in the coil, the largest share ({100 * e / total:.0f} %) "
                 f"taken by {where}")

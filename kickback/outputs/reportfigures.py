@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from kickback.figures import chain_signals
-from kickback.outputs.reportparts import ledger_items, share
+from kickback.outputs.reportparts import ledger_items, ledger_total, share
 from kickback.units import format_quantity as q
 
 
@@ -13,7 +13,7 @@ def ledger_figure(result):
     from matplotlib.ticker import EngFormatter
 
     f = result.figures
-    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
+    total = ledger_total(result)
     items = [it for it in ledger_items(result) if abs(it[2]) > 1e-9 * total or it[1] == "stored in the coil"]
     fig = Figure(figsize=(6.6, 0.7 + 0.26 * len(items)), layout="constrained")
     ax = fig.subplots()

@@ -202,7 +202,8 @@ def initial_current_origin(case) -> str:
         return "given"
     drive = getattr(case, "drive", None)
     if drive is not None and getattr(drive, "final_turn_off", False):
-        return "the highest current of the [drive] steady state (final turn-off)"
+        return ("the highest current of the [drive] steady state (final turn-off): the periodic state at "
+                "the turn-off instant — current, capacitor voltages, motor speed, junction temperatures")
     return "set by the study that made this case"
 
 
@@ -293,23 +294,18 @@ def check_table(result) -> str:
 
 
 def ledger_items(result) -> list[tuple[str, str, float]]:
-    """(side, label, energy [J]) of the ledger: 'in' terms, then 'out' terms, then what is left."""
-    f = result.figures
-    items = [("in", "stored in the coil", f.stored_energy_J),
-             ("in", "stored in capacitors", f.initial_capacitor_energy_J),
-             ("in", "from the supply", f.supply_energy_J),
-             ("out", "coil resistance", f.resistance_energy_J),
-             ("out", "switch: turn-off crossover", f.crossover_energy_J),
-             ("out", "switch: avalanche", f.avalanche_energy_J)]
-    if f.body_diode_energy_J:
-        items.append(("out", "switch: body diode", f.body_diode_energy_J))
-    for cl in f.clamps:
-        items += [("out", f"{cl.name}: {el.name}", el.energy_J) for el in cl.elements if el.type != "capacitor"]
-    items.append(("left", "left in capacitors", f.left_in_capacitors_J))
-    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
-    if f.left_in_coil_J > 1e-6 * total:
-        items.append(("left", "left in the coil", f.left_in_coil_J))
-    return items
+    """(side, label, energy [J]) of the ledger (:func:`kickback.ledger.ledger_terms`): 'in' terms,
+    then 'out' terms, then what is left."""
+    from kickback.ledger import ledger_terms
+
+    return [(t.side, t.label, t.energy_J) for t in ledger_terms(result.figures, result.case)]
+
+
+def ledger_total(result) -> float:
+    """The ledger's input [J] (:func:`kickback.ledger.ledger_input`), the base of every share."""
+    from kickback.ledger import ledger_input, ledger_terms
+
+    return ledger_input(ledger_terms(result.figures, result.case))
 
 
 def share(x: float, total: float) -> str:
@@ -321,7 +317,7 @@ def share(x: float, total: float) -> str:
 
 def ledger_table(result) -> str:
     f = result.figures
-    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
+    total = ledger_total(result)
     rows = [[side, label, q(x, "J"), "" if side == "in" else share(x, total)]
             for side, label, x in ledger_items(result)]
     status = "within" if abs(f.energy_balance_error) <= BALANCE_DEFECT else "OUTSIDE (a defect)"

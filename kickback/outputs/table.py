@@ -55,27 +55,15 @@ def result_table(result) -> str:
         ["", "to zero", q(f.to_zero_s, "s"), "release", q(f.release_s, "s")],
     ])
     lines += ["", "energy ledger"]
-    total = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
+    from kickback.ledger import ledger_input, ledger_terms
 
-    def row(label, x):
-        return [label, q(x, "J"), f"{100 * x / total:.1f} %"]
-
-    ledger = [["", "energy", "share"],
-              ["in: stored in coil", q(f.stored_energy_J, "J"), ""],
-              ["in: stored in capacitors", q(f.initial_capacitor_energy_J, "J"), ""],
-              ["in: from supply", q(f.supply_energy_J, "J"), ""],
-              row("out: coil resistance", f.resistance_energy_J),
-              row("out: switch turn-off crossover", f.crossover_energy_J),
-              row("out: switch avalanche", f.avalanche_energy_J)]
-    if f.body_diode_energy_J:
-        ledger.append(row("out: switch body diode", f.body_diode_energy_J))
-    if result.case.motor is not None:
-        ledger.append(row("out: to the motor (back-EMF)", f.motor_energy_J))
-    for cl in f.clamps:
-        ledger += [row(f"out: {cl.name} / {el.name}", el.energy_J) for el in cl.elements if el.type != "capacitor"]
-    ledger.append(row("left in capacitors", f.left_in_capacitors_J))
-    if f.left_in_coil_J > 1e-6 * total:
-        ledger.append(row("left in coil", f.left_in_coil_J))
+    terms = ledger_terms(f, result.case)
+    total = ledger_input(terms)
+    ledger = [["", "energy", "share"]]
+    for term in terms:
+        label = term.label if term.side == "left" else f"{term.side}: {term.label}"
+        pct = "" if term.side == "in" else f"{100 * term.energy_J / total:.1f} %"
+        ledger.append([label, q(term.energy_J, "J"), pct])
     ledger.append(["balance residual", f"{f.energy_balance_error:.1e}", ""])
     lines += _grid(ledger)
     if f.clamps:
@@ -142,5 +130,7 @@ def pwm_section(result) -> str:
             lines.append(f"    {e['clamp']} / {e['element']}: mean {q(e['mean_A'], 'A')}, RMS {q(e['rms_A'], 'A')}, "
                          f"{q(e['energy_J'], 'J')} per cycle = {q(e['power_W'], 'W')}{tj}")
     if result.case.drive.final_turn_off:
-        lines.append("  the turn-off figures above start from the highest steady-state current (final turn-off)")
+        lines.append("  the turn-off figures above start from the periodic steady state at the turn-off instant "
+                     "with the highest current (final turn-off): current, capacitor voltages, motor speed, "
+                     "junction temperatures")
     return "\n".join(lines)

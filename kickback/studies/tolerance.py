@@ -11,7 +11,7 @@ import numpy as np
 from kickback.case import Case
 from kickback.errors import CaseError
 from kickback.keypath import get_value, set_value
-from kickback.models.passive import copper_resistance
+from kickback.models.passive import COPPER_ZERO_K, copper_resistance
 
 #: figures followed by the study, with their unit and whether a larger value is worse
 FIGURES = (("peak_voltage_V", "V", True), ("clamp_energy_J", "J", True), ("avalanche_energy_J", "J", True),
@@ -30,7 +30,8 @@ def figure_list(case: Case) -> tuple[tuple[str, str, bool], ...]:
 
 def sample(case: Case, n: int, rng: np.random.Generator) -> np.ndarray:
     """``n`` draws of every toleranced value, shape (n, k) [SI]; normal draws are kept inside the
-    physical range by redrawing the few that cross zero."""
+    physical range by redrawing the few that cross zero (a coil temperature: copper's zero-resistance
+    point, IEC 60028)."""
     cols = []
     for tol in case.tolerances:
         if tol.distribution == "uniform":
@@ -38,11 +39,12 @@ def sample(case: Case, n: int, rng: np.random.Generator) -> np.ndarray:
         else:
             mid, sd = 0.5 * (tol.low + tol.high), 0.5 * (tol.high - tol.low) / tol.k_sigma
             x = rng.normal(mid, sd, n)
-            if tol.path != "coil_temperature":
-                bad = x <= 0
-                while bad.any():
-                    x[bad] = rng.normal(mid, sd, int(bad.sum()))
-                    bad = x <= 0
+            # keep the draws physical: above 0, or above copper's zero-resistance point
+            floor = COPPER_ZERO_K if tol.path == "coil_temperature" else 0.0
+            bad = x <= floor
+            while bad.any():
+                x[bad] = rng.normal(mid, sd, int(bad.sum()))
+                bad = x <= floor
         cols.append(x)
     return np.column_stack(cols) if cols else np.zeros((n, 0))
 
