@@ -118,3 +118,13 @@ def test_sweep_of_a_datasheet_key_moves_the_batch_figure():
     i0 = 24.0 / 20.0
     want = [sum(p * q for p, q in zip(_line(33.3, 1e-3, vc, 12.4), (1.0, i0), strict=True)) for vc in vcs]
     np.testing.assert_allclose(many.figures["switch.peak_voltage_V"], want, rtol=1e-6)
+
+
+def test_compare_speaks_in_datasheet_words():
+    from kickback.outputs.comparison import comparison_table
+    from kickback.studies.compare import compare
+
+    text = comparison_table(compare(_case(TVS)))
+    assert "V_WM 30 V, V_BR 33.3 V at I_T 1 mA, V_C 48.4 V at I_PP 12.4 A" in text
+    # built-in TVS: 0.8 × 80 V = 64 V derated limit → E24 62 V (IEC 60063), ideal: V_C = V_BR
+    assert "TVS to ground, clamping 62 V, stand-off ≥ 24 V" in text

@@ -82,3 +82,20 @@ def datasheet_words(element: Element) -> str:
             if element.impedance is not None:
                 parts.append(f"Z_ZT {q(element.impedance, 'Ω')}")
     return ", ".join(parts)
+
+
+def part_words(element: Element) -> str:
+    """A Zener or TVS in datasheet words: its datasheet values when given so, else the model's
+    breakdown voltage (an ideal part, r_d = 0, clamps at it: V_C = V_BR); '' for other types."""
+    from kickback.units import format_quantity as q
+
+    if element.type not in ("zener", "tvs"):
+        return ""
+    kind = "Zener" if element.type == "zener" else "TVS"
+    if from_datasheet(element):
+        return f"{kind} {datasheet_words(element)}"
+    v, r_d = element.voltage, element.dynamic_resistance
+    sym = "V_Z" if element.type == "zener" else "V_BR"
+    slope = f", r_d {q(r_d, 'Ω')}" if r_d else f" (ideal: clamps at {sym})"
+    standoff = f"V_WM {q(element.standoff_voltage, 'V')}, " if element.standoff_voltage is not None else ""
+    return f"{kind} {standoff}{sym} {q(v, 'V')}{slope}"

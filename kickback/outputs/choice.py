@@ -48,7 +48,11 @@ def choice_table(ch, n_show: int = 12) -> str:
             shown = ", ".join(names[:4]) + (f" … ({len(names)})" if len(names) > 4 else "")
             lines.append(f"  {fam}: {shown} — {why}")
     lines += ["", "Candidates use a generic diode (0.9 V at 1 A) and ideal Zener/TVS; ratings of the case's own",
-              "elements of each type are carried over. Choose real parts and check them with `kickback run`.",
+              "elements of each type are carried over. An ideal TVS clamps at its breakdown voltage (V_C = V_BR at",
+              "any current): pick a part whose clamping voltage V_C at the coil current stays below the switch limit",
+              "and whose stand-off voltage V_WM is at least the supply. Give a part as its datasheet does",
+              "(standoff_voltage, breakdown_voltage at test_current, clamping_voltage at peak_pulse_current) and",
+              "check it with `kickback run`.",
               "", _wrap(CAUTIONS)]
     return "\n".join(lines) + "\n"
 
