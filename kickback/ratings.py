@@ -35,7 +35,7 @@ class Check:
 
     def to_dict(self) -> dict:
         return {"part": self.part, "quantity": self.quantity, "value": self.value, "limit": self.limit,
-                "margin": self.margin, "pass": self.passed}
+                "margin": self.margin, "pass": self.passed, "unit": self.unit}
 
 
 def _check(part, quantity, value, rating, fraction, unit, note="") -> Check:
