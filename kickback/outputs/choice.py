@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from kickback.outputs.sweeps import engine_footnote, engine_lines
+from kickback.outputs.sweeps import engine_footnote, engine_lines, engine_words
 from kickback.outputs.table import CAUTIONS, _grid, _wrap
 from kickback.studies.choose import RELEASE_TIE
 from kickback.units import format_quantity as q
@@ -22,7 +22,7 @@ def choice_table(ch, n_show: int = 12) -> str:
     lines += _grid(rows)
     if len(ch.ranked) > n_show:
         lines.append(f"  … {len(ch.ranked) - n_show} more feasible (see --json)")
-    lines += ["", f"candidates screened by the {ch.engine} engine:"]
+    lines += ["", f"candidates screened by the {engine_words(ch)}:"]
     lines += [f"  {x}" for x in engine_lines(ch)]
     if ch.confirmed:
         lines.append(f"  near a limit, judged on the detailed engine's figures: {', '.join(ch.confirmed)}")
@@ -115,6 +115,6 @@ def tradeoff_figure(ch):
     ax.grid(True, lw=0.3)
     ax.legend(fontsize=8, loc="upper right", title="filled: passes; open: fails; size: clamp energy",
               title_fontsize=8)
-    fig.suptitle(f"{case.title} — release against switch voltage ({ch.engine} engine)", fontsize=11)
+    fig.suptitle(f"{case.title} — release against switch voltage ({engine_words(ch)})", fontsize=11)
     engine_footnote(fig, ch)
     return fig
