@@ -450,6 +450,13 @@ def _quantity_option(source: str, option: str, value, unit: str) -> float | None
     if value is None:
         return None
     try:
+        float(value)
+    except ValueError:
+        pass
+    else:  # a bare number on a command line: the hint is the command line's, not the case file's
+        typed = {"Ω": "ohm"}.get(unit, unit)
+        _die(f"{source}: {option}: no unit in {value!r} (give a unit: {option} {value.strip()}{typed})")
+    try:
         return parse_quantity(value, unit)
     except UnitError as err:
         _die(f"{source}: {option}: {err.message}")
