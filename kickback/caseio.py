@@ -209,10 +209,14 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
     return value
 
 
+def did_you_mean(word: str, choices) -> str:
+    """``"; did you mean 'x'?"`` for the closest of ``choices`` to a mistyped ``word``, else ''."""
+    close = difflib.get_close_matches(word, list(choices), n=1)
+    return f"; did you mean '{close[0]}'?" if close else ""
+
+
 def _unknown(ctx: _Context, path: KeyPath, allowed: dict[str, _Field], what: str) -> CaseError:
-    key = str(path[-1])
-    close = difflib.get_close_matches(key, list(allowed), n=1)
-    hint = f"; did you mean '{close[0]}'?" if close else ""
+    hint = did_you_mean(str(path[-1]), allowed)
     return ctx.error(path, f"unknown key in {what}{hint} (allowed keys: {', '.join(allowed)})")
 
 
