@@ -65,8 +65,9 @@ class Result:
             "clamps": [
                 {"name": c.name, "across": c.across, "energy_J": c.energy_J, "peak_current_A": c.peak_current_A,
                  "conduction_s": c.conduction_s,
-                 "elements": [{"type": e.type, "name": e.name, "energy_J": e.energy_J, "peak_voltage_V": e.peak_voltage_V,
-                               "peak_current_A": e.peak_current_A, "standoff_voltage_V": e.standoff_voltage_V}
+                 "elements": [{"type": e.type, "name": e.name, "energy_J": e.energy_J,
+                               "peak_voltage_V": e.peak_voltage_V, "peak_current_A": e.peak_current_A,
+                               "standoff_voltage_V": e.standoff_voltage_V}
                               for e in c.elements]}
                 for c in f.clamps
             ],
