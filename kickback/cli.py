@@ -172,7 +172,7 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
 
     c = _load(case)
     try:
-        axes = tuple(parse_vary(v, log) for v in varies)
+        axes = tuple(parse_vary(v, log, case=c) for v in varies)
         n = 1
         for ax in axes:
             n *= len(ax.values)
