@@ -11,6 +11,7 @@ from __future__ import annotations
 import difflib
 import math
 import os
+import re
 import tomllib
 from dataclasses import dataclass, replace
 from typing import Any
@@ -53,7 +54,8 @@ _CONDITIONS = {
 
 @dataclass(frozen=True)
 class _Field:
-    """What one key holds: kind q(uantity) n(umber) s(tring) b(ool) c(hoice) t(ables)."""
+    """What one key holds: kind q(uantity) n(umber) f(raction: a number or a percentage string)
+    s(tring) b(ool) c(hoice) t(ables)."""
 
     kind: str
     unit: str = ""
@@ -69,6 +71,8 @@ class _Field:
             return f"an array of values in {self.unit}, e.g. ['{example(self.unit)}']"
         if self.kind == "n":
             return f"a plain number{' ' + cond if cond else ''}"
+        if self.kind == "f":
+            return f"a fraction{' ' + cond if cond else ''} or a percentage, e.g. 0.8 or '80 %'"
         if self.kind == "c":
             return "one of: " + ", ".join(self.choices)
         return {"s": "a string in quotes", "b": "true or false", "t": "an array of tables"}[self.kind]
@@ -79,6 +83,8 @@ def _q(unit: str, cond: str = ">0", required: bool = False) -> _Field:
 
 
 _STRING, _BOOL = _Field("s"), _Field("b")
+#: a percentage string, "80 %" (a fraction 0.8 is written as a plain number)
+_PERCENT = re.compile(r"\s*(\d+(?:\.\d*)?|\.\d+)\s*%\s*")
 #: a Foster thermal network of a part: stage resistances and time constants, and its Tj limit
 _THERMAL = {"thermal_resistance": _Field("l", "K/W", ">0"), "thermal_tau": _Field("l", "s", ">0"),
             "max_junction_temperature": _q("K")}
@@ -99,9 +105,9 @@ _SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_di
                 "overdrive": "bjt", "gate_voltage": "mosfet", "on_resistance_gate_voltage": "mosfet"}
 _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
           "element": _Field("t", required=True)}
-_CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
+_CHECKS = {"derating": _Field("f", cond="(0,1]"), "energy_derating": _Field("f", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
-           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K"), "min_margin": _Field("n", cond="[0,1)")}
+           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K"), "min_margin": _Field("f", cond="[0,1)")}
 _TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive", "motor")
 #: plain SI numbers: V·s/rad, rad/s, kg·m², N·m·s/rad, N·m
 _MOTOR = {"back_emf_constant": _Field("n", cond=">0", required=True), "speed": _Field("n", cond=">=0"),
@@ -171,7 +177,12 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
         except UnitError as err:
             raise ctx.error(path, err.message) from None
         shown = format_quantity(value, field.unit)
-    elif field.kind == "n":
+    elif field.kind == "f" and isinstance(raw, str):
+        m = _PERCENT.fullmatch(raw)
+        if m is None:
+            raise ctx.error(path, f"cannot read {raw!r} as a percentage (expected {field.expected()})")
+        value, shown = float(m[1]) / 100.0, raw.strip()
+    elif field.kind in ("n", "f"):
         if isinstance(raw, bool) or not isinstance(raw, int | float):
             raise wrong()
         if not math.isfinite(raw):

@@ -23,7 +23,7 @@ from kickback.case import Case
 from kickback.errors import CaseError
 
 #: field kinds of the loader's tables that hold one number
-_NUMERIC = ("q", "n")
+_NUMERIC = ("q", "n", "f")
 #: at most this many varied keys are checked at every corner of their box (2^k loader runs);
 #: beyond it each key's ends are checked with the others at their nominal values
 MAX_CORNER_KEYS = 10
