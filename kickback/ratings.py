@@ -211,3 +211,44 @@ def pwm_checks(case: Case, pf) -> list[Check]:
             out.append(_junction_check(part, ef["junction_peak_K"], el.max_junction_temperature,
                                        ck.ambient_temperature))
     return out
+
+
+#: a switch given no breakdown_voltage whose node rises above this multiple of its voltage rating
+#: gets a finding: a real MOSFET or transistor avalanches a little above its rated voltage (about
+#: 1.1–1.3 × the rating — common practice, from memory), so the node could not go that high
+NO_BREAKDOWN_RATED_RATIO = 1.5
+#: the same without a voltage rating: this multiple of the supply voltage (common practice, no source)
+NO_BREAKDOWN_SUPPLY_RATIO = 5.0
+
+
+def no_breakdown_finding(case, peak_voltage: float) -> str | None:
+    """A finding when a switch with no ``breakdown_voltage`` rings far above what a real part holds.
+
+    Above :data:`NO_BREAKDOWN_RATED_RATIO` × ``rated_voltage`` (or, with no rating,
+    :data:`NO_BREAKDOWN_SUPPLY_RATIO` × the supply) the peak is an artefact of a switch that never
+    breaks down; the case should give the part's breakdown voltage. None below the threshold.
+    """
+    from kickback.units import format_quantity as q
+
+    s = case.switch
+    if s.breakdown_voltage is not None:
+        return None
+    if s.rated_voltage is not None:
+        limit, basis = NO_BREAKDOWN_RATED_RATIO * s.rated_voltage, \
+            f"{NO_BREAKDOWN_RATED_RATIO:g} × its {q(s.rated_voltage, 'V')} rating"
+    else:
+        limit, basis = NO_BREAKDOWN_SUPPLY_RATIO * case.supply.voltage, \
+            f"{NO_BREAKDOWN_SUPPLY_RATIO:g} × the {q(case.supply.voltage, 'V')} supply"
+    if not peak_voltage > limit:
+        return None
+    return (f"the switch node rings to {q(peak_voltage, 'V')}, above {basis}, because the case gives the switch no "
+            "breakdown_voltage: a real part avalanches near its voltage rating and the node stops there; give "
+            "switch.breakdown_voltage (and rated_avalanche_energy) to see the avalanche")
+
+
+def with_switch_findings(case, figures):
+    """``figures`` with :func:`no_breakdown_finding` added to its findings when it applies."""
+    from dataclasses import replace
+
+    note = no_breakdown_finding(case, figures.peak_voltage_V)
+    return figures if note is None else replace(figures, findings=figures.findings + (note,))
