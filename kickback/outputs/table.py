@@ -109,14 +109,19 @@ def pwm_section(result) -> str:
     """The repetitive-switching figures, one row per duty."""
     d = result.case.drive
     lines = [f"repetitive switching at {q(d.frequency, 'Hz')} (periodic steady state by shooting)"]
-    rows = [["duty", "ripple", "mean I", "RMS I", "conduction", "crossover", "clamp", "avalanche/cycle",
-             "switch Tj peak"]]
+    rows = [["duty", "ripple", "mean I", "RMS I", "conduction ¹", "C discharge ²", "crossover", "clamp",
+             "avalanche/cycle", "switch Tj peak"]]
     for p in result.pwm:
         clamp_w = sum(e["power_W"] for e in p.elements)
         rows.append([f"{p.duty:g}", q(p.ripple_A, "A"), q(p.mean_current_A, "A"), q(p.rms_current_A, "A"),
-                     q(p.conduction_loss_W, "W"), q(p.crossover_loss_W, "W"), q(clamp_w, "W"),
+                     q(p.conduction_loss_W, "W"), q(p.turn_on_discharge_loss_W, "W"), q(p.crossover_loss_W, "W"),
+                     q(clamp_w, "W"),
                      q(p.avalanche_energy_J, "J"), _tj(p.switch_junction_peak_K)])
     lines += _grid(rows)
+    lines += ["  ¹ the switch's on-state loss (I²·R_on, V_sat·I) while it conducts",
+              "  ² the node capacitance (output and winding capacitance, lone capacitors across the switch or coil)",
+              "    discharged through the switch at each turn-on: ½·C·ΔV²·f, ΔV the node's fall from the periodic",
+              "    state at turn-on to the on-state; part of the switch's loss, shown apart from conduction"]
     for p in result.pwm:
         brute = "—" if p.brute_force_cycles is None else f"{p.brute_force_cycles}"
         lines.append(f"  duty {p.duty:g}: {p.cycle_solves} cycle solves; plain repetition from zero would need "
