@@ -176,3 +176,28 @@ def test_a_switch_with_no_breakdown_that_rings_high_gets_a_finding(r, rating, th
     assert bool(found) == (f.peak_voltage_V > threshold) == expect, (f.peak_voltage_V, f.findings)
     if found:
         assert "avalanches near its voltage rating" in found[0]
+
+
+# ------------------------------------------------------------------------------------------ tables
+def test_clamp_elements_have_their_own_columns_and_footnotes():
+    from kickback.outputs.table import result_table
+
+    text = result_table(simulate(load_case(VALVE)))
+    head = next(ln for ln in text.splitlines() if "peak voltage ¹" in ln).split()
+    assert head[:3] == ["clamp", "element", "type"] and "stand-off" in head
+    d1 = next(ln for ln in text.splitlines() if ln.split()[:3] == ["D1+Z1", "D1", "diode"])
+    assert "peak" not in d1 and "stand-off" not in d1  # values only under their own headers
+    assert "¹ peak voltage:" in text and "² stand-off: the largest reverse voltage" in text
+
+
+def test_junction_margin_says_its_basis():
+    """conveyor_brake has a Foster network on its TVS: the margin is of the allowed rise,
+    (T_max − T_j)/(T_max − T_amb), recomputed here from the row's own value and limit."""
+    from kickback.outputs.table import result_table
+
+    res = simulate(load_case(ROOT / "cases" / "conveyor_brake.toml"))
+    (tj,) = [ck for ck in res.checks if ck.unit == "K"]
+    amb = res.case.checks.ambient_temperature
+    assert tj.margin == pytest.approx((tj.limit - tj.value) / (tj.limit - amb), rel=1e-12)
+    text = result_table(res)
+    assert f"{100 * tj.margin:+.1f} % ‡" in text and "(T_max − T_j)/(T_max − T_ambient) ‡" in text
