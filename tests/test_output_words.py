@@ -201,3 +201,24 @@ def test_junction_margin_says_its_basis():
     assert tj.margin == pytest.approx((tj.limit - tj.value) / (tj.limit - amb), rel=1e-12)
     text = result_table(res)
     assert f"{100 * tj.margin:+.1f} % ‡" in text and "(T_max − T_j)/(T_max − T_ambient) ‡" in text
+
+
+# ------------------------------------------------------------------------------------------ python
+def test_simulate_many_pairs_and_grid_crosses():
+    """Paired lists give n variants; grid gives every combination in itertools.product's order
+    (the Python standard library is the reference)."""
+    import itertools
+
+    from kickback.studies.many import grid, simulate_many
+
+    ls, vz = [0.10, 0.12, 0.15], [15.0, 22.0]
+    g = grid({"coil.inductance": ls, "clamp[0].element[1].voltage": vz})
+    assert list(zip(g["coil.inductance"], g["clamp[0].element[1].voltage"], strict=True)) == \
+        list(itertools.product(ls, vz))
+    case = load_case(VALVE)
+    crossed = simulate_many(case, g, workers=1)
+    paired = simulate_many(case, {"coil.inductance": ls[:2], "clamp[0].element[1].voltage": vz}, workers=1)
+    assert crossed.figures["switch.peak_voltage_V"].shape == (6,)
+    assert paired.figures["switch.peak_voltage_V"].shape == (2,)
+    # the paired variant (0.12 H, 22 V) is the crossed variant number 3
+    assert crossed.figures["switch.peak_voltage_V"][3] == paired.figures["switch.peak_voltage_V"][1]
