@@ -22,7 +22,7 @@ def choice_table(ch, n_show: int = 12) -> str:
     lines += _grid(rows)
     if len(ch.ranked) > n_show:
         lines.append(f"  … {len(ch.ranked) - n_show} more feasible (see --json)")
-    lines += ["", f"candidates screened by the {engine_words(ch)}:"]
+    lines += ["", "how the candidates were screened:"]
     lines += [f"  {x}" for x in engine_lines(ch)]
     if ch.confirmed:
         lines.append(f"  near a limit, judged on the detailed engine's figures: {', '.join(ch.confirmed)}")

@@ -120,7 +120,7 @@ def tvs_option_name(v_clamp: float, supply: float) -> str:
     """A built-in TVS option in a datasheet's words: the ideal TVS clamps at its breakdown voltage
     (V_C = V_BR at any current), and a part for it must stand off the supply (V_WM ≥ V_s), which
     sits across it whenever the switch is off."""
-    return f"TVS to ground, clamping {_eng(v_clamp, 'V')}, stand-off ≥ {_eng(supply, 'V')}"
+    return f"TVS to ground (clamping {_eng(v_clamp, 'V')}; stand-off ≥ {_eng(supply, 'V')})"
 
 
 def _eng(x: float, unit: str) -> str:
