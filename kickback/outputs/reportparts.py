@@ -263,7 +263,7 @@ def clamp_table(result) -> str:
     notes = " ".join(x.strip() for x in ELEMENT_NOTES)
     return table(["chain / element", "energy", "peak current", "peak voltage ¹", "peak power",
                   "pulse width (E / P)", "stand-off ²", "conduction time"], rows, "figures", classes) + \
-        f'<p class="note">{escape(notes)}</p>'
+        f'<p class="note">{escape(notes).replace(" ² ", "<br>² ")}</p>'
 
 
 def _checked(value, unit) -> str:
