@@ -92,6 +92,11 @@ def on_state_check(name: str, on_current: float, initial_current: float) -> Chec
                  "a clamp must not conduct while the switch is on")
 
 
+#: how the working-voltage check of a lone TVS is formed
+WORKING_NOTE = ("the supply against the stand-off voltage V_WM, not derated (V_WM is already the datasheet's "
+                "largest voltage with no conduction): a lone TVS holds the supply whenever it must not conduct")
+
+
 def _junction_check(part: str, value: float, limit: float, ambient: float) -> Check:
     """Junction temperature; the margin is the share of the allowed rise above ambient left."""
     span = limit - ambient
@@ -150,6 +155,9 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
                     out.append(_check(part, "pulse energy", ef.energy_J, el.rated_pulse_energy, de, "J", enote))
                 if el.rated_peak_power is not None:
                     out.append(_peak_power_check(part, el, ef, de))
+                if el.type == "tvs" and el.standoff_voltage is not None and len(cl.elements) == 1:
+                    out.append(_check(part, "working voltage", case.supply.voltage, el.standoff_voltage, 1.0, "V",
+                                      WORKING_NOTE))
             elif el.type in ("resistor", "varistor"):
                 if el.rated_energy is not None:
                     out.append(_check(part, "pulse energy", ef.energy_J, el.rated_energy, de, "J", enote))

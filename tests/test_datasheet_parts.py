@@ -128,3 +128,14 @@ def test_compare_speaks_in_datasheet_words():
     assert "V_WM 30 V, V_BR 33.3 V at I_T 1 mA, V_C 48.4 V at I_PP 12.4 A" in text
     # built-in TVS: 0.8 × 80 V = 64 V derated limit → E24 62 V (IEC 60063), ideal: V_C = V_BR
     assert "TVS to ground (clamping 62 V; stand-off ≥ 24 V)" in text
+
+
+@pytest.mark.parametrize("engine", ["detailed", "batch"])
+@pytest.mark.parametrize(("vwm", "passes"), [(30.0, True), (20.0, False)])
+def test_lone_tvs_working_voltage_is_checked_against_the_supply(engine, vwm, passes):
+    """A lone TVS across the switch holds the supply whenever the switch is off: V_WM must be at
+    least the supply (the datasheet's largest voltage with no conduction; not derated)."""
+    case = _case(TVS.replace('standoff_voltage = "30 V"', f'standoff_voltage = "{vwm:g} V"'))
+    (row,) = [ck for ck in simulate(case, engine=engine).checks if ck.quantity == "working voltage"]
+    assert (row.value, row.limit, row.passed) == (24.0, vwm, passes)
+    assert row.margin == pytest.approx((vwm - 24.0) / vwm, rel=1e-12)
