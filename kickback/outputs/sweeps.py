@@ -43,7 +43,7 @@ def engine_words(study) -> str:
     if cands:
         n = sum(c.engine == "detailed" for c in cands)
         return f"batch engine, {n} of {len(cands)} candidates on the detailed engine"
-    return "batch engine, some variants on the detailed engine (each on the engine that covers it)"
+    return "batch engine, some variants on the detailed engine (the note says how many)"
 
 
 def engine_lines(study) -> list[str]:
