@@ -22,7 +22,11 @@ def simulate(case, **options):
 
 
 def simulate_many(case, variations=None, **options):
-    """Simulate many variants of ``case`` with the batch engine; see :func:`kickback.studies.many.simulate_many`."""
+    """Simulate many variants of ``case`` with the batch engine; see :func:`kickback.studies.many.simulate_many`.
+
+    The value lists are paired element by element (variant k takes the k-th value of every key),
+    not crossed; ``kickback.studies.many.grid`` gives every combination.
+    """
     from kickback.studies.many import simulate_many as _many
 
     return _many(case, variations, **options)

@@ -16,7 +16,7 @@ from kickback.engine.batch_params import BatchCircuit, value_getter
 from kickback.engine.detailed import Waveforms
 from kickback.errors import SolverError
 from kickback.figures_batch import columns, figures_of
-from kickback.ratings import rating_checks
+from kickback.ratings import rating_checks, with_switch_findings
 from kickback.result import Result
 
 #: samples per segment of the returned waveforms (uniform, plus a geometric run near its start)
@@ -39,7 +39,7 @@ def simulate_batch(case: Case) -> Result:
     if not bc.ok[0]:
         raise SolverError(f"batch engine: {bc.why[0]}")
     cols = columns(bc, st)
-    figures = figures_of(bc, cols)
+    figures = with_switch_findings(case, figures_of(bc, cols))
     checks = rating_checks(case, figures)
     return Result(case, figures, tuple(checks), _waveforms(bc, st, circuit, cols))
 

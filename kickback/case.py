@@ -76,13 +76,22 @@ class Element:
     rated_surge_current: float | None = None  # [A]
     rated_average_current: float | None = None  # [A] repetitive switching
     # zener / tvs / varistor
-    voltage: float | None = None  # [V] breakdown (zener/tvs) or voltage at at_current (varistor)
+    #: [V] breakdown at zero current (zener/tvs), V_Z at test_current when a zener gives one,
+    #: or the voltage at at_current (varistor)
+    voltage: float | None = None
     dynamic_resistance: float = 0.0  # [ohm]
     bidirectional: bool = False
     rated_pulse_energy: float | None = None  # [J]
     rated_peak_power: float | None = None  # [W]
     rated_pulse_width: float | None = None  # [s]
     exponent: float | None = None  # varistor alpha
+    # zener / tvs as a datasheet gives them (the law follows from them: models.breakdown.breakdown_line)
+    standoff_voltage: float | None = None  # [V] tvs working (stand-off) voltage V_WM
+    breakdown_voltage: float | None = None  # [V] tvs breakdown voltage V_BR at test_current
+    test_current: float | None = None  # [A] tvs I_T of V_BR; zener I_ZT of voltage (then V_Z at I_ZT)
+    clamping_voltage: float | None = None  # [V] tvs V_C at peak_pulse_current
+    peak_pulse_current: float | None = None  # [A] tvs I_PP
+    impedance: float | None = None  # [ohm] zener Z_ZT at test_current
     # resistor / varistor
     resistance: float | None = None  # [ohm]
     rated_energy: float | None = None  # [J]

@@ -11,6 +11,7 @@ from __future__ import annotations
 import difflib
 import math
 import os
+import re
 import tomllib
 from dataclasses import dataclass, replace
 from typing import Any
@@ -53,7 +54,8 @@ _CONDITIONS = {
 
 @dataclass(frozen=True)
 class _Field:
-    """What one key holds: kind q(uantity) n(umber) s(tring) b(ool) c(hoice) t(ables)."""
+    """What one key holds: kind q(uantity) n(umber) f(raction: a number or a percentage string)
+    s(tring) b(ool) c(hoice) t(ables)."""
 
     kind: str
     unit: str = ""
@@ -69,6 +71,8 @@ class _Field:
             return f"an array of values in {self.unit}, e.g. ['{example(self.unit)}']"
         if self.kind == "n":
             return f"a plain number{' ' + cond if cond else ''}"
+        if self.kind == "f":
+            return f"a fraction{' ' + cond if cond else ''} or a percentage, e.g. 0.8 or '80 %'"
         if self.kind == "c":
             return "one of: " + ", ".join(self.choices)
         return {"s": "a string in quotes", "b": "true or false", "t": "an array of tables"}[self.kind]
@@ -79,6 +83,8 @@ def _q(unit: str, cond: str = ">0", required: bool = False) -> _Field:
 
 
 _STRING, _BOOL = _Field("s"), _Field("b")
+#: a percentage string, "80 %" (a fraction 0.8 is written as a plain number)
+_PERCENT = re.compile(r"\s*(\d+(?:\.\d*)?|\.\d+)\s*%\s*")
 #: a Foster thermal network of a part: stage resistances and time constants, and its Tj limit
 _THERMAL = {"thermal_resistance": _Field("l", "K/W", ">0"), "thermal_tau": _Field("l", "s", ">0"),
             "max_junction_temperature": _q("K")}
@@ -99,9 +105,9 @@ _SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_di
                 "overdrive": "bjt", "gate_voltage": "mosfet", "on_resistance_gate_voltage": "mosfet"}
 _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
           "element": _Field("t", required=True)}
-_CHECKS = {"derating": _Field("n", cond="(0,1]"), "energy_derating": _Field("n", cond="(0,1]"),
+_CHECKS = {"derating": _Field("f", cond="(0,1]"), "energy_derating": _Field("f", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
-           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K"), "min_margin": _Field("n", cond="[0,1)")}
+           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K"), "min_margin": _Field("f", cond="[0,1)")}
 _TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive", "motor")
 #: plain SI numbers: V·s/rad, rad/s, kg·m², N·m·s/rad, N·m
 _MOTOR = {"back_emf_constant": _Field("n", cond=">0", required=True), "speed": _Field("n", cond=">=0"),
@@ -112,16 +118,19 @@ _DRIVE = {"frequency": _q("Hz", required=True), "duty": _Field("n"), "duties": _
 _OPTION = {"name": _Field("s", required=True), "clamp": _Field("t")}
 
 _COMMON = {"type": _Field("c", required=True, choices=ELEMENT_TYPES), "name": _STRING}
-_BREAKDOWN = {"voltage": _q("V", required=True), "dynamic_resistance": _q("Ω", ">=0"),
+_BREAKDOWN = {"voltage": _q("V"), "dynamic_resistance": _q("Ω", ">=0"),
               "forward_voltage": _q("V"), "rated_pulse_energy": _q("J"), "rated_peak_power": _q("W"),
-              "rated_pulse_width": _q("s")}
+              "rated_pulse_width": _q("s"), "test_current": _q("A")}
+#: a TVS as its datasheet gives it: V_WM, V_BR at I_T, V_C at I_PP (IEC 61643-321 terms)
+_TVS_DATASHEET = {"standoff_voltage": _q("V"), "breakdown_voltage": _q("V"), "clamping_voltage": _q("V"),
+                  "peak_pulse_current": _q("A")}
 _ELEMENTS: dict[str, dict[str, _Field]] = {
     "diode": {"model": _Field("c", choices=("shockley", "constant-drop")), "forward_voltage": _q("V"),
               "at_current": _q("A"), "ideality": _Field("n", cond="[0.5,10]"),
               "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"), "temperature": _q("K"),
               "rated_reverse_voltage": _q("V"), "rated_surge_current": _q("A"), "rated_average_current": _q("A")},
-    "zener": _BREAKDOWN,
-    "tvs": {**_BREAKDOWN, "bidirectional": _BOOL},
+    "zener": {**_BREAKDOWN, "voltage": _q("V", required=True), "impedance": _q("Ω", ">=0")},
+    "tvs": {**_BREAKDOWN, **_TVS_DATASHEET, "bidirectional": _BOOL},
     "resistor": {"resistance": _q("Ω", required=True), "rated_energy": _q("J")},
     "capacitor": {"capacitance": _q("F", required=True), "rated_voltage": _q("V")},
     "varistor": {"voltage": _q("V", required=True), "at_current": _q("A"),
@@ -168,7 +177,12 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
         except UnitError as err:
             raise ctx.error(path, err.message) from None
         shown = format_quantity(value, field.unit)
-    elif field.kind == "n":
+    elif field.kind == "f" and isinstance(raw, str):
+        m = _PERCENT.fullmatch(raw)
+        if m is None:
+            raise ctx.error(path, f"cannot read {raw!r} as a percentage (expected {field.expected()})")
+        value, shown = float(m[1]) / 100.0, raw.strip()
+    elif field.kind in ("n", "f"):
         if isinstance(raw, bool) or not isinstance(raw, int | float):
             raise wrong()
         if not math.isfinite(raw):
@@ -206,10 +220,14 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
     return value
 
 
+def did_you_mean(word: str, choices) -> str:
+    """``"; did you mean 'x'?"`` for the closest of ``choices`` to a mistyped ``word``, else ''."""
+    close = difflib.get_close_matches(word, list(choices), n=1)
+    return f"; did you mean '{close[0]}'?" if close else ""
+
+
 def _unknown(ctx: _Context, path: KeyPath, allowed: dict[str, _Field], what: str) -> CaseError:
-    key = str(path[-1])
-    close = difflib.get_close_matches(key, list(allowed), n=1)
-    hint = f"; did you mean '{close[0]}'?" if close else ""
+    hint = did_you_mean(str(path[-1]), allowed)
     return ctx.error(path, f"unknown key in {what}{hint} (allowed keys: {', '.join(allowed)})")
 
 
@@ -346,6 +364,10 @@ def _element(ctx: _Context, path: KeyPath, raw: dict[str, Any]) -> Element:
     _check_thermal(ctx, path, v)
     if kind == "diode":
         _check_diode(ctx, path, v)
+    elif kind in ("zener", "tvs"):
+        from kickback.caseio_parts import check_breakdown
+
+        check_breakdown(ctx, path, kind, v)
     elif kind == "varistor":
         v.setdefault("at_current", 1e-3)  # varistor voltage is conventionally stated at 1 mA
     return Element(**v, path=format_path(path))

@@ -23,7 +23,7 @@ from kickback.case import Case
 from kickback.errors import CaseError
 
 #: field kinds of the loader's tables that hold one number
-_NUMERIC = ("q", "n")
+_NUMERIC = ("q", "n", "f")
 #: at most this many varied keys are checked at every corner of their box (2^k loader runs);
 #: beyond it each key's ends are checked with the others at their nominal values
 MAX_CORNER_KEYS = 10
@@ -64,7 +64,7 @@ def variable_paths(case: Case) -> list[str]:
         for k, f in spec.items():
             if f.kind in _NUMERIC:
                 try:
-                    resolve(case, f"{t}.{k}")
+                    _resolve(case, f"{t}.{k}")
                 except CaseError:
                     continue
                 out.append(f"{t}.{k}")
@@ -80,8 +80,22 @@ def resolve(case: Case, path: str) -> str:
     Raises
     ------
     CaseError — with ``key=path``: no such key, not a number, or a key that does not apply to
-    this case (another switch type or element type, no [drive] or [motor], the other motor model).
+    this case (another switch type or element type, no [drive] or [motor], the other motor model);
+    a mistyped path gets the case loader's "did you mean" with the closest path this case can vary.
     """
+    try:
+        return _resolve(case, path)
+    except CaseError as err:
+        from kickback.caseio import did_you_mean
+
+        hint = did_you_mean(path.replace(" ", ""), variable_paths(case))
+        if not hint:
+            raise
+        head, sep, tail = err.message.partition(" (expected")
+        raise CaseError(head + hint + sep + tail, source=err.source, line=err.line, key=err.key) from None
+
+
+def _resolve(case: Case, path: str) -> str:
     from kickback.keypath import split_path
 
     tables, elements, only = _specs()

@@ -172,7 +172,7 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
 
     c = _load(case)
     try:
-        axes = tuple(parse_vary(v, log) for v in varies)
+        axes = tuple(parse_vary(v, log, case=c) for v in varies)
         n = 1
         for ax in axes:
             n *= len(ax.values)
@@ -449,6 +449,13 @@ def _quantity_option(source: str, option: str, value, unit: str) -> float | None
 
     if value is None:
         return None
+    try:
+        float(value)
+    except ValueError:
+        pass
+    else:  # a bare number on a command line: the hint is the command line's, not the case file's
+        typed = {"Ω": "ohm"}.get(unit, unit)
+        _die(f"{source}: {option}: no unit in {value!r} (give a unit: {option} {value.strip()}{typed})")
     try:
         return parse_quantity(value, unit)
     except UnitError as err:

@@ -48,8 +48,11 @@ def unit_of(path: str) -> str:
     """The unit symbol of the value a key path names ('' for a plain number)."""
     leaf = _split(path)[-1][0]
     if leaf not in UNITS:
-        raise CaseError(f"{leaf!r} is not a numeric case value (expected one of: {', '.join(sorted(UNITS))})",
-                        key=path)
+        from kickback.caseio import did_you_mean
+
+        hint = did_you_mean(leaf, UNITS)
+        expected = "a numeric key of the case file" if hint else f"one of: {', '.join(sorted(UNITS))}"
+        raise CaseError(f"{leaf!r} is not a numeric case value{hint} (expected {expected})", key=path)
     return UNITS[leaf]
 
 

@@ -23,6 +23,8 @@ class PwmFigures:
     rms_current_A: float
     switch_mean_A: float
     switch_rms_A: float
+    #: the channel's on-phase loss less the node-capacitance discharge at turn-on: the I²·R_on
+    #: (or V_sat·I) loss while on
     conduction_loss_W: float
     crossover_energy_J: float
     crossover_loss_W: float
@@ -39,6 +41,10 @@ class PwmFigures:
     mean_speed_rad_s: float | None = None  # DC motor
     mean_torque_Nm: float | None = None
     cycle: object = field(default=None, repr=False, compare=False)  # Waveforms of the steady cycle
+    #: the node capacitance (C_oss, winding and lone clamp capacitors) discharged through the
+    #: channel at each turn-on, ½·C·ΔV² per cycle [J] and × f [W] (see :func:`turn_on_discharge`)
+    turn_on_discharge_energy_J: float = 0.0
+    turn_on_discharge_loss_W: float = 0.0
 
     def to_dict(self) -> dict:
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.__dict__.items() if k != "cycle"}
@@ -175,6 +181,31 @@ def _junction(t, p, r, tau, ambient):
     return float(ambient + mean), float(ambient + foster_peak(t, p, r, tau, start))
 
 
+def turn_on_discharge(ss: SteadyState) -> float:
+    """Energy the channel takes at each turn-on from the node capacitance, per cycle [J].
+
+    At turn-on the node falls from its voltage at the end of the off phase ``V`` (the periodic
+    state at the cycle start) to the switch's on-state voltage ``V_on`` at the coil current of that
+    instant (R_on·i, V_sat, 0 for an ideal switch): the capacitance to ground
+    (C_oss and capacitors across the switch) discharges through the channel, and the capacitance
+    to the supply (winding, capacitors across the coil) charges by the same step through it. A
+    capacitor stepped by ΔV through a resistance dissipates ½·C·ΔV² in it whatever the resistance.
+
+    .. math:: E = \\tfrac12 (C_{gnd} + C_{+}) (V - V_{on})^2
+
+    References
+    ----------
+    N. Mohan, T. M. Undeland and W. P. Robbins, Power Electronics, 3rd ed., Wiley 2003, ch. 24
+    (switching losses: the ½·C_oss·V² capacitive turn-on loss).
+    """
+    c = ss.waveforms.circuit
+    if c.iv is None:
+        return 0.0
+    w = ss.waveforms
+    dv = float(ss.x[c.iv]) - float(c.switch.on_state.voltage(float(w.i_coil[0])))
+    return 0.5 * c.C_node * dv * dv
+
+
 def pwm_figures(ss: SteadyState) -> PwmFigures:
     """Figures of the steady-state cycle ``ss``."""
     w = ss.waveforms
@@ -203,13 +234,15 @@ def pwm_figures(ss: SteadyState) -> PwmFigures:
     s = case.switch
     sw_tj_mean, sw_tj_peak = _junction(t, rs.v * i_sw, s.thermal_resistance, s.thermal_tau, amb)
     e_av = float(e_on[3] + e_off[3])
+    e_cap = turn_on_discharge(ss)
     return PwmFigures(
         duty=ss.duty, frequency_Hz=f, ripple_A=float(i.max() - i.min()), min_current_A=float(i.min()),
         max_current_A=float(i.max()), mean_current_A=mean, rms_current_A=rms, switch_mean_A=sw_mean,
-        switch_rms_A=sw_rms, conduction_loss_W=float(e_on[2]) * f, crossover_energy_J=float(e_off[2]),
+        switch_rms_A=sw_rms, conduction_loss_W=(float(e_on[2]) - e_cap) * f, crossover_energy_J=float(e_off[2]),
         crossover_loss_W=float(e_off[2]) * f, avalanche_energy_J=e_av, avalanche_power_W=e_av * f,
         supply_power_W=float(e_on[1] + e_off[1]) * f, elements=tuple(elements),
         switch_junction_mean_K=sw_tj_mean, switch_junction_peak_K=sw_tj_peak, cycle_solves=ss.cycle_solves,
         brute_force_cycles=ss.brute_force_cycles, contraction=ss.contraction, residual=ss.residual,
         mean_speed_rad_s=_mean_rms(w.t, w.y[c.iw])[0] if c.mech else (c.motor.speed if c.motor else None),
-        mean_torque_Nm=c.k_emf * mean if c.motor else None, cycle=w)
+        mean_torque_Nm=c.k_emf * mean if c.motor else None, cycle=w, turn_on_discharge_energy_J=e_cap,
+        turn_on_discharge_loss_W=e_cap * f)

@@ -35,7 +35,7 @@ class Check:
 
     def to_dict(self) -> dict:
         return {"part": self.part, "quantity": self.quantity, "value": self.value, "limit": self.limit,
-                "margin": self.margin, "pass": self.passed}
+                "margin": self.margin, "pass": self.passed, "unit": self.unit}
 
 
 def _check(part, quantity, value, rating, fraction, unit, note="") -> Check:
@@ -90,6 +90,11 @@ def on_state_check(name: str, on_current: float, initial_current: float) -> Chec
         return None
     return Check(name, "current while the switch is on", float(value), 0.0, None, False, "A",
                  "a clamp must not conduct while the switch is on")
+
+
+#: how the working-voltage check of a lone TVS is formed
+WORKING_NOTE = ("the supply against the stand-off voltage V_WM, not derated (V_WM is already the datasheet's "
+                "largest voltage with no conduction): a lone TVS holds the supply whenever it must not conduct")
 
 
 def _junction_check(part: str, value: float, limit: float, ambient: float) -> Check:
@@ -150,6 +155,9 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
                     out.append(_check(part, "pulse energy", ef.energy_J, el.rated_pulse_energy, de, "J", enote))
                 if el.rated_peak_power is not None:
                     out.append(_peak_power_check(part, el, ef, de))
+                if el.type == "tvs" and el.standoff_voltage is not None and len(cl.elements) == 1:
+                    out.append(_check(part, "working voltage", case.supply.voltage, el.standoff_voltage, 1.0, "V",
+                                      WORKING_NOTE))
             elif el.type in ("resistor", "varistor"):
                 if el.rated_energy is not None:
                     out.append(_check(part, "pulse energy", ef.energy_J, el.rated_energy, de, "J", enote))
@@ -211,3 +219,44 @@ def pwm_checks(case: Case, pf) -> list[Check]:
             out.append(_junction_check(part, ef["junction_peak_K"], el.max_junction_temperature,
                                        ck.ambient_temperature))
     return out
+
+
+#: a switch given no breakdown_voltage whose node rises above this multiple of its voltage rating
+#: gets a finding: a real MOSFET or transistor avalanches a little above its rated voltage (about
+#: 1.1–1.3 × the rating — common practice, from memory), so the node could not go that high
+NO_BREAKDOWN_RATED_RATIO = 1.5
+#: the same without a voltage rating: this multiple of the supply voltage (common practice, no source)
+NO_BREAKDOWN_SUPPLY_RATIO = 5.0
+
+
+def no_breakdown_finding(case, peak_voltage: float) -> str | None:
+    """A finding when a switch with no ``breakdown_voltage`` rings far above what a real part holds.
+
+    Above :data:`NO_BREAKDOWN_RATED_RATIO` × ``rated_voltage`` (or, with no rating,
+    :data:`NO_BREAKDOWN_SUPPLY_RATIO` × the supply) the peak is an artefact of a switch that never
+    breaks down; the case should give the part's breakdown voltage. None below the threshold.
+    """
+    from kickback.units import format_quantity as q
+
+    s = case.switch
+    if s.breakdown_voltage is not None:
+        return None
+    if s.rated_voltage is not None:
+        limit, basis = NO_BREAKDOWN_RATED_RATIO * s.rated_voltage, \
+            f"{NO_BREAKDOWN_RATED_RATIO:g} × its {q(s.rated_voltage, 'V')} rating"
+    else:
+        limit, basis = NO_BREAKDOWN_SUPPLY_RATIO * case.supply.voltage, \
+            f"{NO_BREAKDOWN_SUPPLY_RATIO:g} × the {q(case.supply.voltage, 'V')} supply"
+    if not peak_voltage > limit:
+        return None
+    return (f"the switch node rings to {q(peak_voltage, 'V')}, above {basis}, because the case gives the switch no "
+            "breakdown_voltage: a real part avalanches near its voltage rating and the node stops there; give "
+            "switch.breakdown_voltage (and rated_avalanche_energy) to see the avalanche")
+
+
+def with_switch_findings(case, figures):
+    """``figures`` with :func:`no_breakdown_finding` added to its findings when it applies."""
+    from dataclasses import replace
+
+    note = no_breakdown_finding(case, figures.peak_voltage_V)
+    return figures if note is None else replace(figures, findings=figures.findings + (note,))

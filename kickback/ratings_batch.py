@@ -109,6 +109,9 @@ def check_columns(case, cols: dict, get, n: int) -> dict:
                     with np.errstate(invalid="ignore", divide="ignore"):
                         moved = np.where(has_w & (width > 0), r * np.sqrt(rw / width), r)  # Wunsch–Bell
                     put(_col(part, "peak power", "W", cols[pre + "peak_power_W"], moved, de, has))
+                r, has = rated("standoff_voltage")
+                if el.type == "tvs" and len(cl.elements) == 1 and np.any(has):  # kickback.ratings.WORKING_NOTE
+                    put(_col(part, "working voltage", "V", get("supply.voltage"), r, 1.0, has))
             elif el.type in ("resistor", "varistor"):
                 r, has = rated("rated_energy")
                 if np.any(has):

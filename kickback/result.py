@@ -37,7 +37,12 @@ class Result:
         return all(ck.passed for ck in self.checks)
 
     def to_dict(self) -> dict:
-        """The result contract of DESIGN.md §6 (SI units; None for a time that does not occur)."""
+        """The result contract of DESIGN.md §6 (SI units; None for a time that does not occur).
+
+        Beyond §6's keys: each check row's ``unit`` (SI symbol of its value and limit; K for a
+        temperature), each clamp element's ``name`` (the case's, else its type and place in the
+        chain, e.g. "zener 2"), and ``models``, the device models and engine that made the figures.
+        """
         f = self.figures
         return {
             "version": __version__,
@@ -60,8 +65,9 @@ class Result:
             "clamps": [
                 {"name": c.name, "across": c.across, "energy_J": c.energy_J, "peak_current_A": c.peak_current_A,
                  "conduction_s": c.conduction_s,
-                 "elements": [{"type": e.type, "energy_J": e.energy_J, "peak_voltage_V": e.peak_voltage_V,
-                               "peak_current_A": e.peak_current_A, "standoff_voltage_V": e.standoff_voltage_V}
+                 "elements": [{"type": e.type, "name": e.name, "energy_J": e.energy_J,
+                               "peak_voltage_V": e.peak_voltage_V, "peak_current_A": e.peak_current_A,
+                               "standoff_voltage_V": e.standoff_voltage_V}
                               for e in c.elements]}
                 for c in f.clamps
             ],
@@ -69,6 +75,7 @@ class Result:
             "energy_balance_error": f.energy_balance_error,
             "checks": [ck.to_dict() for ck in self.checks],
             "pass": self.passed,
+            "models": list(f.models),
         } | ({"pwm": [p.to_dict() for p in self.pwm]} if self.pwm else {})
 
     def details(self) -> dict:

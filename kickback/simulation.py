@@ -8,7 +8,7 @@ from kickback.case import Case
 from kickback.circuit import Circuit
 from kickback.engine.detailed import DEFAULT_RTOL, integrate
 from kickback.figures import compute_figures
-from kickback.ratings import rating_checks
+from kickback.ratings import rating_checks, with_switch_findings
 from kickback.result import Result
 
 
@@ -65,6 +65,7 @@ def simulate(case: Case, *, rtol: float = DEFAULT_RTOL, engine: str = "detailed"
         figures = replace(figures, models=figures.models + (
             f"final turn-off from the periodic steady state at duty {ss.duty:g}, at its turn-off instant "
             "(coil current, capacitor voltages, motor speed and junction temperatures of that instant)",))
+    figures = with_switch_findings(case, figures)
     checks = rating_checks(case, figures) + extra_checks
     return Result(case, figures, tuple(checks), waveforms, pwm)
 

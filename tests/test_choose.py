@@ -106,7 +106,8 @@ def test_choice_names_its_engine(valve_choice, tmp_path):
     from kickback.outputs.choice import choice_table
 
     text = choice_table(valve_choice)
-    assert "candidates screened by the" in text and "fit: D+Z: Shockley diode" in text
+    assert "how the candidates were screened:" in text and "fit: D+Z: Shockley diode" in text
+    assert "mixed" not in text  # the words of --engine (auto, batch, detailed), issue 20
     d = valve_choice.to_dict()
     assert d["engine"] == valve_choice.engine and d["fits"]
     assert all(c["engine"] in ("batch", "detailed") for c in d["ranked"])
@@ -147,12 +148,12 @@ def test_a_choice_at_zero_margin_is_not_ranked():
     limit = 0.75 * 68.0
     for c in ch.ranked:
         assert (limit - c.figures["peak_voltage_V"]) / limit >= 0.05 - 1e-12, c.option.name
-    tvs51 = [c for c in ch.rejected if c.option.name == "TVS 51 V to ground"]
+    tvs51 = [c for c in ch.rejected if c.option.name == "TVS to ground (clamping 51 V; stand-off ≥ 24 V)"]
     assert len(tvs51) == 1 and "min_margin" in tvs51[0].why_not
     assert tvs51[0].figures["peak_voltage_V"] == pytest.approx(limit, rel=1e-6)
     # with no minimum margin it would pass every check and rank first (the fastest release)
     loose = choose(replace(case, checks=replace(case.checks, min_margin=0.0)), workers=1)
-    assert loose.ranked[0].option.name == "TVS 51 V to ground"
+    assert loose.ranked[0].option.name == "TVS to ground (clamping 51 V; stand-off ≥ 24 V)"
 
 
 def _cand(name, release, peak, parts=1):

@@ -17,6 +17,8 @@ CASES = Path(__file__).resolve().parent.parent / "cases"
 
 CONTRACT_TOP = {"version", "title", "coil", "switch", "supply", "clamps", "left_in_capacitors_J",
                 "energy_balance_error", "checks", "pass"}
+#: keys added to DESIGN §6 (issue 20): the models list, element names, check units
+ADDED_TOP = {"models"}
 
 
 def run(*args):
@@ -36,7 +38,7 @@ def test_run_json_is_exactly_the_contract():
     res = run("run", CASES / "irrigation_valve.toml", "--json")
     assert res.exit_code == 0
     d = json.loads(res.stdout)
-    assert set(d) == CONTRACT_TOP
+    assert set(d) == CONTRACT_TOP | ADDED_TOP
     assert set(d["coil"]) == {"initial_current_A", "stored_energy_J", "resistance_energy_J", "decay_s",
                               "release_s"}
     assert set(d["coil"]["decay_s"]) == {"to_10_percent", "to_1_percent", "to_zero"}
@@ -45,9 +47,14 @@ def test_run_json_is_exactly_the_contract():
     (clamp,) = d["clamps"]
     assert set(clamp) == {"name", "across", "energy_J", "peak_current_A", "conduction_s", "elements"}
     for el in clamp["elements"]:
-        assert set(el) == {"type", "energy_J", "peak_voltage_V", "peak_current_A", "standoff_voltage_V"}
+        assert set(el) == {"type", "name", "energy_J", "peak_voltage_V", "peak_current_A", "standoff_voltage_V"}
+    assert [el["name"] for el in clamp["elements"]] == ["D1", "Z1"]  # as the case file names them
     for ck in d["checks"]:
-        assert set(ck) == {"part", "quantity", "value", "limit", "margin", "pass"}
+        assert set(ck) == {"part", "quantity", "value", "limit", "margin", "pass", "unit"}
+    units = {(ck["part"], ck["quantity"]): ck["unit"] for ck in d["checks"]}
+    assert units[("switch", "peak voltage")] == "V" and units[("case", "release time")] == "s"
+    assert units[("D1+Z1: Z1", "pulse energy")] == "J"
+    assert any("Zener" in m for m in d["models"]) and any("engine" in m for m in d["models"])
     assert d["pass"] is True
     # the stored energy follows from the reported current: ½·L·i0² with L = 120 mH (case file)
     i0 = d["coil"]["initial_current_A"]

@@ -232,12 +232,13 @@ def test_max_clamp_energy(zener_energy, passed):
 
 
 def test_check_to_dict_keys():
-    """Check.to_dict has exactly the contract keys of DESIGN §6."""
+    """Check.to_dict has exactly the contract keys of DESIGN §6 and the unit added by issue 20."""
     rows = rating_checks(_dz_case(Checks(max_release_time=12e-3)), _dz_figures())
     assert rows, "the diode/Zener case has rated parts"
     for row in rows:
         d = row.to_dict()
-        assert set(d) == {"part", "quantity", "value", "limit", "margin", "pass"}, f"keys {sorted(d)}"
+        assert set(d) == {"part", "quantity", "value", "limit", "margin", "pass", "unit"}, f"keys {sorted(d)}"
+        assert d["unit"] == row.unit and d["unit"] in {"V", "A", "J", "W", "s", "K"}
         assert d["pass"] is row.passed and d["value"] == row.value and d["limit"] == row.limit
 
 

@@ -72,7 +72,7 @@ def test_cli_sweep_files_and_exit(tmp_path):
     assert "FAIL: switch peak voltage" in res.stdout and "pass" in res.stdout
     assert sorted(p.name for p in tmp_path.iterdir()) == ["sweep.csv", "sweep.json", "sweep.png", "sweep.svg"]
     with open(tmp_path / "sweep.csv", newline="") as fh:
-        rows = list(csv.reader(fh))
+        rows = [r for r in csv.reader(fh) if not r[0].startswith("#")]  # the engine line comes first, once
     assert rows[0][0] == "clamp[0].element[1].voltage [V]" and len(rows) == 6
     assert [r[-2] for r in rows[1:]] == ["true", "true", "true", "false", "false"]
     d = json.loads((tmp_path / "sweep.json").read_text())
@@ -163,10 +163,11 @@ def test_cli_sweep_names_the_engine_and_its_fits(tmp_path):
     assert "batch engine, 3 points" in res.stdout and "fit: D1+Z1: Shockley diode" in res.stdout
     d = json.loads((tmp_path / "sweep.json").read_text())
     assert d["engine"] == "batch" and d["fits"] and d["engine_note"] is None
-    with open(tmp_path / "sweep.csv", newline="") as fh:
-        rows = list(csv.reader(fh))
+    text = (tmp_path / "sweep.csv").read_text()
+    assert text.count("Shockley") == 1 and text.startswith("# batch engine; fits: D1+Z1: Shockley diode")
+    rows = list(csv.reader(text.splitlines()[1:]))
     head = rows[0]
-    assert rows[1][head.index("engine")] == "batch" and "Shockley" in rows[1][head.index("fits")]
+    assert rows[1][head.index("engine")] == "batch" and "fits" not in head
     detailed = CliRunner().invoke(main, ["sweep", str(VALVE), "--vary", "clamp[0].element[1].voltage=10V:20V:3",
                                          "--engine", "detailed", "--workers", "1", "--json"])
     assert detailed.exit_code == 0 and json.loads(detailed.stdout)["engine"] == "detailed"

@@ -209,6 +209,14 @@ def element_piece(el, get, i0, n) -> ElementPiece:
                             invalid=bad | (vj <= 0))
     if t in ("zener", "tvs"):
         v, rd = get("voltage"), get("dynamic_resistance")
+        if el.test_current is not None:  # the datasheet's values (models.factory.breakdown_parameters)
+            from kickback.models.breakdown import breakdown_line
+
+            v_at = get("breakdown_voltage") if t == "tvs" else v
+            slope = get("impedance") if el.impedance is not None else rd
+            pulse = (get("clamping_voltage"), get("peak_pulse_current")) if el.clamping_voltage is not None \
+                else (None, None)
+            v, rd = breakdown_line(v_at, get("test_current"), *pulse, slope)
         bidir = el.bidirectional and t == "tvs"
         if bidir:
             rev = _pw_rev(-v, rd, n)

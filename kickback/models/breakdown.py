@@ -12,7 +12,8 @@ DEFAULT_FORWARD_DROP = 0.7
 
 
 def breakdown_element(voltage: float, dynamic_resistance: float = 0.0, *, bidirectional: bool = False,
-                      forward_voltage: float | None = None, kind: str = "Zener") -> PiecewiseLinearLaw:
+                      forward_voltage: float | None = None, kind: str = "Zener",
+                      datasheet: str = "") -> PiecewiseLinearLaw:
     """Zener or TVS as a piecewise-linear law, oriented to break down when ``sw`` rises.
 
     Unidirectional: breakdown at ``+voltage``; conducts forward at ``−forward_voltage``.
@@ -24,6 +25,7 @@ def breakdown_element(voltage: float, dynamic_resistance: float = 0.0, *, bidire
     dynamic_resistance : float — [Ω]
     bidirectional : bool
     forward_voltage : float or None — [V] forward drop (unidirectional only)
+    datasheet : str — the datasheet values the law was derived from, shown in its description
 
     .. math:: v = V_Z + r_Z i \\quad (i > 0)
     """
@@ -31,7 +33,53 @@ def breakdown_element(voltage: float, dynamic_resistance: float = 0.0, *, bidire
     v_rev = -voltage if bidirectional else -vf
     pieces = LinearPieces(voltage, dynamic_resistance, v_rev, dynamic_resistance)
     sides = "bidirectional" if bidirectional else "unidirectional"
-    return PiecewiseLinearLaw(pieces, f"{kind} ({sides}, {voltage:.4g} V, r_d = {dynamic_resistance:.3g} Ω)")
+    given = f"datasheet {datasheet} → model " if datasheet else ""
+    return PiecewiseLinearLaw(pieces, f"{kind} ({sides}, {given}{voltage:.4g} V, r_d = {dynamic_resistance:.3g} Ω)")
+
+
+def breakdown_line(voltage_at, test_current, clamping_voltage=None, peak_pulse_current=None,
+                   dynamic_resistance=0.0):
+    """Breakdown voltage at zero current and dynamic resistance from datasheet points.
+
+    A TVS datasheet gives the breakdown voltage V_BR at its test current I_T and the clamping
+    voltage V_C at the peak pulse current I_PP; the straight line through both points is the
+    piecewise-linear breakdown law. A Zener datasheet gives V_Z at I_ZT and the impedance Z_ZT
+    there: the line through (I_ZT, V_Z) with slope Z_ZT (``dynamic_resistance``). Scalars or
+    numpy arrays (one value per variant).
+
+    Parameters
+    ----------
+    voltage_at : float or array
+        V_BR (TVS) or V_Z (Zener) at ``test_current`` [V].
+    test_current : float or array
+        I_T or I_ZT [A].
+    clamping_voltage : float or array or None
+        V_C at ``peak_pulse_current`` [V]; None: the slope is ``dynamic_resistance``.
+    peak_pulse_current : float or array or None
+        I_PP [A].
+    dynamic_resistance : float or array
+        Slope when no clamping point is given (Z_ZT of a Zener) [Ω].
+
+    Returns
+    -------
+    voltage : float or array
+        Breakdown voltage at zero current V0 [V].
+    dynamic_resistance : float or array
+        r_d [Ω].
+
+    .. math:: r_d = \\frac{V_C - V_{BR}}{I_{PP} - I_T}, \\qquad V_0 = V_{BR} - r_d I_T
+
+    References
+    ----------
+    IEC 61643-321, Components for low-voltage surge protective devices — Specifications for
+    avalanche breakdown diodes (the terms V_WM, V_BR at I_T, V_C at I_PP; from memory). The
+    line through two points is elementary.
+    """
+    if clamping_voltage is not None:
+        r_d = (clamping_voltage - voltage_at) / (peak_pulse_current - test_current)
+    else:
+        r_d = dynamic_resistance
+    return voltage_at - r_d * test_current, r_d
 
 
 class Varistor(ElementLaw):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from kickback.outputs.sweeps import engine_footnote, engine_lines
+from kickback.outputs.sweeps import engine_footnote, engine_lines, engine_words
 from kickback.outputs.table import CAUTIONS, _grid, _wrap
 from kickback.studies.choose import RELEASE_TIE
 from kickback.units import format_quantity as q
@@ -22,7 +22,7 @@ def choice_table(ch, n_show: int = 12) -> str:
     lines += _grid(rows)
     if len(ch.ranked) > n_show:
         lines.append(f"  … {len(ch.ranked) - n_show} more feasible (see --json)")
-    lines += ["", f"candidates screened by the {ch.engine} engine:"]
+    lines += ["", "how the candidates were screened:"]
     lines += [f"  {x}" for x in engine_lines(ch)]
     if ch.confirmed:
         lines.append(f"  near a limit, judged on the detailed engine's figures: {', '.join(ch.confirmed)}")
@@ -48,7 +48,11 @@ def choice_table(ch, n_show: int = 12) -> str:
             shown = ", ".join(names[:4]) + (f" … ({len(names)})" if len(names) > 4 else "")
             lines.append(f"  {fam}: {shown} — {why}")
     lines += ["", "Candidates use a generic diode (0.9 V at 1 A) and ideal Zener/TVS; ratings of the case's own",
-              "elements of each type are carried over. Choose real parts and check them with `kickback run`.",
+              "elements of each type are carried over. An ideal TVS clamps at its breakdown voltage (V_C = V_BR at",
+              "any current): pick a part whose clamping voltage V_C at the coil current stays below the switch limit",
+              "and whose stand-off voltage V_WM is at least the supply. Give a part as its datasheet does",
+              "(standoff_voltage, breakdown_voltage at test_current, clamping_voltage at peak_pulse_current) and",
+              "check it with `kickback run`.",
               "", _wrap(CAUTIONS)]
     return "\n".join(lines) + "\n"
 
@@ -111,6 +115,6 @@ def tradeoff_figure(ch):
     ax.grid(True, lw=0.3)
     ax.legend(fontsize=8, loc="upper right", title="filled: passes; open: fails; size: clamp energy",
               title_fontsize=8)
-    fig.suptitle(f"{case.title} — release against switch voltage ({ch.engine} engine)", fontsize=11)
+    fig.suptitle(f"{case.title} — release against switch voltage ({engine_words(ch)})", fontsize=11)
     engine_footnote(fig, ch)
     return fig

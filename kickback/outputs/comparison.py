@@ -27,11 +27,30 @@ def comparison_table(cmp) -> str:
     table = _grid([r[:-1] for r in rows])
     lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
     lines += ["", "* the case's own clamp set (sets the exit status)"]
+    lines += _part_lines(cmp)
     if cmp.builtin:
-        lines.append("  other options: built-in families sized to the derated switch voltage at the coil's current "
-                     "(generic diode 0.9 V at 1 A; ideal Zener/TVS); give your own parts as [[option]] in the case")
+        note = ("other options: built-in families sized to the derated switch voltage at the coil's current "
+                "(generic diode 0.9 V at 1 A; ideal Zener/TVS: a built-in TVS clamps at its breakdown voltage, "
+                "V_C = V_BR, and needs a part with stand-off V_WM at least the supply); give your own parts as "
+                "[[option]] in the case")
+        lines.append("  " + _wrap(note).replace("\n", "\n  "))
     lines += ["", _wrap(CAUTIONS)]
     return "\n".join(lines) + "\n"
+
+
+def _part_lines(cmp) -> list[str]:
+    """The Zener and TVS parts of the case's own clamps and its [[option]] sets in datasheet words
+    (stand-off V_WM, breakdown V_BR at I_T, clamping V_C at I_PP)."""
+    from kickback.models.factory import part_words
+
+    sets = [("case", cmp.case.clamps)] + [(o.name, o.clamps) for o in cmp.case.options]
+    out = []
+    for name, clamps in sets:
+        words = [f"{cl.name if el.name in (None, cl.name) else cl.name + '/' + el.name}: {part_words(el)}"
+                 for cl in clamps for el in cl.elements if part_words(el)]
+        if words:
+            out.append(f"  {name}: " + "; ".join(words))
+    return ["  Zener/TVS parts in datasheet words:"] + out if out else []
 
 
 def comparison_figure(cmp):

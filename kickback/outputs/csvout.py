@@ -10,6 +10,22 @@ import numpy as np
 from kickback.figures import chain_signals
 
 
+def csv_unit(unit: str) -> tuple[str, float]:
+    """A column's unit as the CSV header shows it, and the offset to add to SI values: kelvin
+    is shown in °C like every other output (t/°C = T/K − 273.15, BIPM SI Brochure, 9th ed.);
+    a plain number reads ``1``."""
+    if unit == "K":
+        return "°C", -273.15
+    return unit or "1", 0.0
+
+
+def csv_cell(x: float | None, offset: float = 0.0) -> str:
+    """One numeric cell (9 significant digits); empty for a value that does not occur."""
+    if x is None or x != x:
+        return ""
+    return f"{x + offset:.9g}"
+
+
 def waveform_columns(result) -> list[tuple[str, np.ndarray]]:
     """Named columns (header with unit) of a result's waveforms."""
     w = result.waveforms

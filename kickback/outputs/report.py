@@ -275,7 +275,9 @@ _UNITS = {"_A": "A", "_V": "V", "_W": "W", "_J": "J", "_K": "K", "_s": "s", "_Hz
 _PWM_ROWS = (("ripple_A", "coil current ripple"), ("min_current_A", "coil current, lowest"),
              ("max_current_A", "coil current, highest"), ("mean_current_A", "coil current, mean"),
              ("rms_current_A", "coil current, RMS"), ("switch_rms_A", "switch current, RMS"),
-             ("conduction_loss_W", "switch conduction loss"), ("crossover_loss_W", "switch crossover loss"),
+             ("conduction_loss_W", "switch conduction loss (on-state, I²·R_on or V_sat·I)"),
+             ("turn_on_discharge_loss_W", "switch turn-on loss: node capacitance discharged, ½·C·V²·f"),
+             ("crossover_loss_W", "switch crossover loss"),
              ("avalanche_power_W", "switch avalanche loss"), ("supply_power_W", "supply power"),
              ("switch_junction_mean_K", "switch junction, mean"), ("switch_junction_peak_K", "switch junction, peak"))
 

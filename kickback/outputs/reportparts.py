@@ -249,17 +249,21 @@ def clamp_table(result) -> str:
     rows, classes = [], []
     for cl in f.clamps:
         rows.append([f"{cl.name} (across the {cl.across})", q(cl.energy_J, "J"), q(cl.peak_current_A, "A"),
-                     "", "", "", q(cl.conduction_s, "s")])
+                     "", "", "", "", q(cl.conduction_s, "s")])
         classes.append("group")
         for el in cl.elements:
             rows.append([f"  {el.name} ({el.type})", q(el.energy_J, "J"), q(el.peak_current_A, "A"),
                          q(el.peak_voltage_V, "V"), q(el.peak_power_W, "W"), q(el.pulse_width_s, "s"),
-                         f"stands off {q(el.standoff_voltage_V, 'V')}"])
+                         q(el.standoff_voltage_V, "V"), ""])
             classes.append("")
     if not rows:
         return "<p>No clamp: the switch alone takes the coil current.</p>"
-    return table(["chain / element", "energy", "peak current", "peak voltage", "peak power",
-                  "pulse width (E / P)", "conduction"], rows, "figures", classes)
+    from kickback.outputs.table import ELEMENT_NOTES
+
+    notes = " ".join(x.strip() for x in ELEMENT_NOTES)
+    return table(["chain / element", "energy", "peak current", "peak voltage ¹", "peak power",
+                  "pulse width (E / P)", "stand-off ²", "conduction time"], rows, "figures", classes) + \
+        f'<p class="note">{escape(notes).replace(" ² ", "<br>² ")}</p>'
 
 
 def _checked(value, unit) -> str:

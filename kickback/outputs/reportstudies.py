@@ -7,6 +7,7 @@ from __future__ import annotations
 from html import escape
 
 from kickback.outputs import reportparts as parts
+from kickback.outputs.sweeps import engine_words
 from kickback.units import format_quantity as q
 
 
@@ -34,7 +35,7 @@ def tolerance_section(study=None):
     lo, hi = study.yield_ci
     body = (f"<p><b>Yield {100 * study.yield_:.2f} %</b> of {len(study.samples)} samples pass every check "
             f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, exact binomial); seed {study.seed}, "
-            f"{escape(study.engine)} engine.</p>")
+            f"{escape(engine_words(study))}.</p>")
     head = ["figure"] + [("min" if p == 0 else "max" if p == 100 else f"{p:g} %") for p in PERCENTILES]
     rows = []
     for f, unit, _ in study.figure_list:
@@ -70,7 +71,7 @@ def _engine_note(study, lead: str) -> str:
     """The engine of a study (and the batch engine's fits) as a note paragraph."""
     fits = "".join(f"<br>fit: {escape(f)}" for f in study.fits)
     note = f"<br>{escape(study.engine_note)}" if study.engine_note else ""
-    return f'<p class="note">{escape(lead)} {escape(study.engine)} engine.{fits}{note}</p>'
+    return f'<p class="note">{escape(lead)} {escape(engine_words(study))}.{fits}{note}</p>'
 
 
 def tradeoff_section(choice=None):

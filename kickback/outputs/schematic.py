@@ -111,6 +111,16 @@ def element_label(el: Element, index: int) -> tuple[str, ...]:
         lines = [head("Zener" if t == "zener" else "TVS")]
         if t == "tvs":
             lines.append("bidirectional" if el.bidirectional else "unidirectional")
+        if el.standoff_voltage is not None:
+            lines.append(f"VWM {q(el.standoff_voltage, 'V')}")
+        if el.test_current is not None:  # as the datasheet gives it
+            v_at = el.breakdown_voltage if t == "tvs" else el.voltage
+            lines.append(f"{'VZ' if t == 'zener' else 'VBR'} {q(v_at, 'V')} at {q(el.test_current, 'A')}")
+            if el.clamping_voltage is not None:
+                lines.append(f"VC {q(el.clamping_voltage, 'V')} at {q(el.peak_pulse_current, 'A')}")
+            if el.impedance is not None:
+                lines.append(f"ZZT {q(el.impedance, 'Ω')}")
+            return tuple(lines)
         lines.append(f"{'VZ' if t == 'zener' else 'VBR'} {q(el.voltage, 'V')}")
         if el.dynamic_resistance:
             lines.append(f"rd {q(el.dynamic_resistance, 'Ω')}")

@@ -27,11 +27,23 @@ def sweep_table(sw) -> str:
         cells.append("pass" if sw.passed[k] else "FAIL: " + ", ".join(sw.failing[k]))
         rows.append(cells)
     table = _grid([r[:-1] for r in rows])
-    lines = [f"{sw.case.title} — sweep ({sw.engine} engine, {len(sw.points)} points)"]
+    lines = [f"{sw.case.title} — sweep ({engine_words(sw)}, {len(sw.points)} points)"]
     lines += [f"  {x}" for x in engine_lines(sw)]
     lines.append("")
     lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
     return "\n".join(lines) + "\n"
+
+
+def engine_words(study) -> str:
+    """What ran, in the words of ``--engine`` (auto, batch, detailed): "batch engine", "detailed
+    engine", or where both ran "batch engine, N of M candidates on the detailed engine"."""
+    if study.engine != "mixed":
+        return f"{study.engine} engine"
+    cands = list(getattr(study, "ranked", ())) + list(getattr(study, "rejected", ()))
+    if cands:
+        n = sum(c.engine == "detailed" for c in cands)
+        return f"batch engine, {n} of {len(cands)} candidates on the detailed engine"
+    return "batch engine, some variants on the detailed engine (the note says how many)"
 
 
 def engine_lines(study) -> list[str]:
@@ -39,7 +51,7 @@ def engine_lines(study) -> list[str]:
     its fits, or why the detailed engine ran."""
     out = []
     if study.engine in ("batch", "mixed"):
-        out.append(f"{study.engine} engine: exact piecewise-linear solution, vectorised over the variants"
+        out.append(f"{engine_words(study)}: exact piecewise-linear solution, vectorised over the variants"
                    + ("; nonlinear laws as stated fits:" if study.fits else " (every law exact, no fit)"))
         out += [f"  fit: {f}" for f in study.fits]
     else:
@@ -51,7 +63,7 @@ def engine_lines(study) -> list[str]:
 
 def engine_text(study) -> str:
     """:func:`engine_lines` as one short line for CSV cells and plot notes."""
-    text = f"{study.engine} engine"
+    text = engine_words(study)
     if study.fits:
         text += "; fits: " + "; ".join(study.fits)
     if study.engine_note:
@@ -60,16 +72,22 @@ def engine_text(study) -> str:
 
 
 def sweep_csv(sw) -> str:
+    """The sweep as CSV: one comment line (``#``) with the engine and its fits, said once, then a
+    header naming every numeric column with its unit, then one row per point."""
+    from kickback.outputs.csvout import csv_cell, csv_unit
+
     buf = io.StringIO()
+    buf.write("# " + engine_text(sw).replace("\n", " ") + "; units in the column headers; sweep.json holds "
+              "the same\n")
     wr = csv.writer(buf, lineterminator="\n")
-    wr.writerow([f"{a.path} [{a.unit or '1'}]" for a in sw.axes] + [f"{c.rsplit('_', 1)[0]} [{u}]"
-                                                                     for c, u in COLUMNS]
-                + ["engine", "fits", "pass", "note"])
-    fits = "; ".join(sw.fits)
+    axes = [csv_unit(a.unit) for a in sw.axes]
+    wr.writerow([f"{a.path} [{u}]" for a, (u, _) in zip(sw.axes, axes, strict=True)]
+                + [f"{c.rsplit('_', 1)[0]} [{u}]" for c, u in COLUMNS] + ["engine", "pass", "note"])
     for k, p in enumerate(sw.points):
-        vals = ["" if sw.figures[c][k] is None else f"{sw.figures[c][k]:.9g}" for c, _ in COLUMNS]
+        vals = [csv_cell(sw.figures[c][k]) for c, _ in COLUMNS]
         note = sw.errors[k] or "; ".join(sw.failing[k])
-        wr.writerow([f"{x:.9g}" for x in p] + vals + [sw.engine, fits, str(bool(sw.passed[k])).lower(), note])
+        wr.writerow([csv_cell(x, off) for x, (_, off) in zip(p, axes, strict=True)] + vals
+                    + [sw.engine, str(bool(sw.passed[k])).lower(), note])
     return buf.getvalue()
 
 
@@ -190,7 +208,7 @@ def sweep_figure(sw):
             for axis, a in ((ax.xaxis, ax1), (ax.yaxis, ax0)):
                 _eng_axis(axis, a)
         panels[0].set_title("white line: boundary of passing designs", fontsize=9)
-    fig.suptitle(f"{case.title} — sweep ({sw.engine} engine)", fontsize=11)
+    fig.suptitle(f"{case.title} — sweep ({engine_words(sw)})", fontsize=11)
     engine_footnote(fig, sw)
     return fig
 

@@ -14,6 +14,20 @@ CAUTIONS = (
 )
 
 
+#: what the element columns of the clamps table mean (the stand-off of a freewheel diode is the
+#: supply it blocks while the switch is on, more than the voltage across it in the transient)
+ELEMENT_NOTES = (
+    "¹ peak voltage: the largest voltage across the element after turn-off, either polarity (while",
+    "  conducting: its forward or breakdown voltage with the current's drop)",
+    "² stand-off: the largest reverse voltage it blocks while its chain does not conduct, the on-state",
+    "  before turn-off included; a freewheel diode blocks the supply while the switch is on, so its",
+    "  stand-off can exceed its peak voltage in the transient. Its rating check is the reverse voltage.",
+)
+#: how a check's margin is formed
+MARGIN_NOTE = ("margin: (limit − value)/limit, the limit derated; a junction temperature's margin is the share of "
+               "the allowed rise above ambient left, (T_max − T_j)/(T_max − T_ambient) ‡")
+
+
 def _pct(x: float | None) -> str:
     return "—" if x is None else f"{100 * x:+.1f} %"
 
@@ -37,8 +51,9 @@ def check_value(x: float | None, unit: str) -> str:
 def check_rows(checks) -> list[list[str]]:
     rows = [["part", "quantity", "value", "limit", "margin", "verdict"]]
     for ck in checks:
+        mark = " ‡" if ck.unit == "K" else ""
         rows.append([ck.part, ck.quantity, check_value(ck.value, ck.unit), check_value(ck.limit, ck.unit),
-                     _pct(ck.margin), "pass" if ck.passed else "FAIL"])
+                     _pct(ck.margin) + mark, "pass" if ck.passed else "FAIL"])
     return rows
 
 
@@ -68,14 +83,19 @@ def result_table(result) -> str:
     lines += _grid(ledger)
     if f.clamps:
         lines += ["", "clamps"]
-        rows = [["name", "across", "energy", "peak current", "conduction", "on-state current"]]
+        rows = [["name", "across", "energy", "peak current", "conduction time", "current while on"]]
         for cl in f.clamps:
             rows.append([cl.name, cl.across, q(cl.energy_J, "J"), q(cl.peak_current_A, "A"), q(cl.conduction_s, "s"),
                          q(cl.on_state_current_A, "A")])
-            for el in cl.elements:
-                rows.append([f"  {el.name}", el.type, q(el.energy_J, "J"), q(el.peak_current_A, "A"),
-                             f"peak {q(el.peak_voltage_V, 'V')}", f"stand-off {q(el.standoff_voltage_V, 'V')}"])
         lines += _grid(rows)
+        lines += ["", "clamp elements"]
+        rows = [["clamp", "element", "type", "energy", "peak current", "peak voltage ¹", "stand-off ²"]]
+        for cl in f.clamps:
+            for el in cl.elements:
+                rows.append([cl.name, el.name, el.type, q(el.energy_J, "J"), q(el.peak_current_A, "A"),
+                             q(el.peak_voltage_V, "V"), q(el.standoff_voltage_V, "V")])
+        lines += _grid(rows)
+        lines += [f"  {x}" for x in ELEMENT_NOTES]
     else:
         lines += ["", "clamps: none"]
     if result.pwm:
@@ -83,6 +103,8 @@ def result_table(result) -> str:
     lines += ["", "checks"]
     if result.checks:
         lines += _grid(check_rows(result.checks))
+        if any(ck.unit == "K" for ck in result.checks):
+            lines += ["  " + _wrap(MARGIN_NOTE, 98).replace("\n", "\n  ")]
     else:
         lines.append("  no ratings given: nothing to check")
     n_fail = sum(not ck.passed for ck in result.checks)
@@ -109,14 +131,19 @@ def pwm_section(result) -> str:
     """The repetitive-switching figures, one row per duty."""
     d = result.case.drive
     lines = [f"repetitive switching at {q(d.frequency, 'Hz')} (periodic steady state by shooting)"]
-    rows = [["duty", "ripple", "mean I", "RMS I", "conduction", "crossover", "clamp", "avalanche/cycle",
-             "switch Tj peak"]]
+    rows = [["duty", "ripple", "mean I", "RMS I", "conduction ³", "C discharge ⁴", "crossover", "clamp",
+             "avalanche/cycle", "switch Tj peak"]]
     for p in result.pwm:
         clamp_w = sum(e["power_W"] for e in p.elements)
         rows.append([f"{p.duty:g}", q(p.ripple_A, "A"), q(p.mean_current_A, "A"), q(p.rms_current_A, "A"),
-                     q(p.conduction_loss_W, "W"), q(p.crossover_loss_W, "W"), q(clamp_w, "W"),
+                     q(p.conduction_loss_W, "W"), q(p.turn_on_discharge_loss_W, "W"), q(p.crossover_loss_W, "W"),
+                     q(clamp_w, "W"),
                      q(p.avalanche_energy_J, "J"), _tj(p.switch_junction_peak_K)])
     lines += _grid(rows)
+    lines += ["  ³ the switch's on-state loss (I²·R_on, V_sat·I) while it conducts",
+              "  ⁴ the node capacitance (output and winding capacitance, lone capacitors across the switch or coil)",
+              "    discharged through the switch at each turn-on: ½·C·ΔV²·f, ΔV the node's fall from the periodic",
+              "    state at turn-on to the on-state; part of the switch's loss, shown apart from conduction"]
     for p in result.pwm:
         brute = "—" if p.brute_force_cycles is None else f"{p.brute_force_cycles}"
         lines.append(f"  duty {p.duty:g}: {p.cycle_solves} cycle solves; plain repetition from zero would need "

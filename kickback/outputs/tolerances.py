@@ -7,7 +7,7 @@ import io
 
 import numpy as np
 
-from kickback.outputs.sweeps import engine_footnote, engine_lines
+from kickback.outputs.sweeps import engine_footnote, engine_lines, engine_words
 from kickback.outputs.table import CAUTIONS, _grid, _wrap
 from kickback.studies.tolerance import PERCENTILES
 from kickback.units import format_quantity as q
@@ -44,7 +44,7 @@ def _params(d: dict) -> str:
 
 def tolerance_table(tr) -> str:
     lines = [f"{tr.case.title} — tolerance study: {len(tr.samples)} samples, seed {tr.seed}, "
-             f"{tr.engine} engine"]
+             f"{engine_words(tr)}"]
     lines += [f"  {x}" for x in engine_lines(tr)]
     lines.append("")
     lo, hi = tr.yield_ci
@@ -117,13 +117,19 @@ def recheck_rows(tr) -> list[tuple[str, str]]:
 
 
 def samples_csv(tr) -> str:
+    """The samples as CSV: a header naming every numeric column with its unit (temperatures in °C,
+    like every other output), one row per sample."""
+    from kickback.outputs.csvout import csv_cell, csv_unit
+
     buf = io.StringIO()
     wr = csv.writer(buf, lineterminator="\n")
-    wr.writerow([f"{n} [{_unit(n) or '1'}]" for n in tr.names] + [f"{f} [{u}]".replace(f"_{u} [", " [")
-                                                                  for f, u, _ in tr.figure_list] + ["pass", "note"])
+    units = [csv_unit(_unit(n)) for n in tr.names]
+    wr.writerow([f"{n} [{u}]" for n, (u, _) in zip(tr.names, units, strict=True)]
+                + [f"{f} [{u}]".replace(f"_{u} [", " [") for f, u, _ in tr.figure_list] + ["pass", "note"])
     for k, row in enumerate(tr.samples):
-        figs = ["" if np.isnan(tr.figures[f][k]) else f"{tr.figures[f][k]:.9g}" for f, _, _ in tr.figure_list]
-        wr.writerow([f"{x:.9g}" for x in row] + figs + [str(bool(tr.passed[k])).lower(), tr.errors[k] or ""])
+        figs = [csv_cell(tr.figures[f][k]) for f, _, _ in tr.figure_list]
+        wr.writerow([csv_cell(x, off) for x, (_, off) in zip(row, units, strict=True)] + figs
+                    + [str(bool(tr.passed[k])).lower(), tr.errors[k] or ""])
     return buf.getvalue()
 
 
@@ -154,7 +160,7 @@ def tolerance_figure(tr):
         ax.set_ylabel("samples")
     for ax in axes[len(shown):]:
         ax.set_visible(False)
-    fig.suptitle(f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} % ({tr.engine} engine)",
+    fig.suptitle(f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} % ({engine_words(tr)})",
                  fontsize=11)
     engine_footnote(fig, tr)
     return fig

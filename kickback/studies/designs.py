@@ -106,7 +106,7 @@ def builtin_options(case: Case) -> tuple[Option, ...]:
     if v_allow > 1.1 * vs:
         vt = round_down(v_allow, "E24")
         if vt > 1.05 * vs:
-            opts.append(Option(f"TVS {_eng(vt, 'V')} to ground", (Clamp("TVS", "switch", (Element(
+            opts.append(Option(tvs_option_name(vt, vs), (Clamp("TVS", "switch", (Element(
                 "tvs", name="TVS", voltage=vt),)),)))
         c = round_up(L * i0 * i0 / (v_allow - vs) ** 2, "E12")
         r = nearest(math.sqrt(L / c), "E12")
@@ -114,6 +114,13 @@ def builtin_options(case: Case) -> tuple[Option, ...]:
             Element("resistor", name="R", resistance=r), Element("capacitor", name="C", capacitance=c))),)))
     opts.append(Option("no clamp", ()))
     return tuple(opts)
+
+
+def tvs_option_name(v_clamp: float, supply: float) -> str:
+    """A built-in TVS option in a datasheet's words: the ideal TVS clamps at its breakdown voltage
+    (V_C = V_BR at any current), and a part for it must stand off the supply (V_WM ≥ V_s), which
+    sits across it whenever the switch is off."""
+    return f"TVS to ground (clamping {_eng(v_clamp, 'V')}; stand-off ≥ {_eng(supply, 'V')})"
 
 
 def _eng(x: float, unit: str) -> str:
@@ -158,7 +165,7 @@ def family_candidates(case: Case) -> dict[str, list[tuple[float, str, Option]]]:
             "zener", name="Z", voltage=vz, **_rated_like(case, "zener")))),)))
         for vz in values_between(max(0.1 * vs, 2.0), 1.3 * head, "E24")]
     out["TVS to ground"] = [
-        (vt, "V", Option(f"TVS {_eng(vt, 'V')} to ground", (Clamp("TVS", "switch", (Element(
+        (vt, "V", Option(tvs_option_name(vt, vs), (Clamp("TVS", "switch", (Element(
             "tvs", name="TVS", voltage=vt, **_rated_like(case, "tvs")),)),)))
         for vt in values_between(1.1 * vs, 1.3 * v_allow, "E24")]
     c_rule = L * i0 * i0 / max(v_allow - vs, 0.05 * vs) ** 2

@@ -1,7 +1,8 @@
 """Many variants of one case at once: the batch engine's figures and checks as columns.
 
 ``simulate_many(case, {"coil.inductance": [...], "clamp[0].element[1].voltage": [...]})`` runs
-every variant (variant k takes the k-th value of every key, the case's own value for the rest)
+every variant (variant k takes the k-th value of every key, the case's own value for the rest —
+the lists are paired, not crossed; :func:`grid` gives every combination)
 with the exact piecewise-linear batch engine, in chunks, and returns a :class:`ManyResult`:
 one array per figure (names like the result contract: ``switch.peak_voltage_V``,
 ``coil.decay_s.to_zero``, ``clamps[0].energy_J``), one column per rating check, the verdict of
@@ -100,7 +101,9 @@ def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CH
     case : Case — the base case
     variations : dict — key path (as in the case file: "supply.voltage", "coil.inductance",
         "clamp[0].element[1].voltage", "switch.fall_time", …) → values in SI units, all of one
-        length n; None or {}: the case itself (n = 1)
+        length n; None or {}: the case itself (n = 1). The lists are paired element by element,
+        not crossed: variant k takes the k-th value of every key (n variants, not the product of
+        the lengths). For every combination, pass :func:`grid` of the lists.
     chunk : int — variants per batch; memory is bounded by it (times the workers), not by n
     workers : int or None — processes sharing the chunks (None: one per CPU from 5000 variants
         on; 1: in this process only)
@@ -124,6 +127,25 @@ def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CH
         passed &= np.where(c.applies, c.passed, True)
     status = np.where(ok, "ok", "failed")
     return ManyResult(case, var, cols, checks, passed, status, why.astype(str), tuple(fits))
+
+
+def grid(variations: dict) -> dict[str, np.ndarray]:
+    """Every combination of the value lists, as paired columns for :func:`simulate_many`.
+
+    Parameters
+    ----------
+    variations : dict — key path → values (any lengths n1, n2, …)
+
+    Returns
+    -------
+    dict — key path → array of n1·n2·… values; the last key varies fastest (the order of
+    :func:`itertools.product` and of ``numpy.meshgrid(..., indexing="ij")``)
+    """
+    keys = list(variations)
+    if not keys:
+        return {}
+    mesh = np.meshgrid(*(np.asarray(variations[k], dtype=float).ravel() for k in keys), indexing="ij")
+    return {k: m.ravel() for k, m in zip(keys, mesh, strict=True)}
 
 
 def fit_effect(case: Case) -> dict:

@@ -296,6 +296,9 @@ def concat(parts: list[Points]) -> Points:
     fits = tuple(dict.fromkeys(f for p in parts for f in p.fits))
     notes = "; ".join(dict.fromkeys(p.note for p in parts if p.note))
     engines = {p.engine for p in parts}
+    if len(engines) > 1:
+        on_detailed = sum(p.n for p in parts if p.engine == "detailed")
+        notes = "; ".join(x for x in (notes, f"{on_detailed} of {n} variants ran on the detailed engine") if x)
     return Points(parts[0].engine if len(engines) == 1 else "mixed", figs, checks,
                   np.concatenate([p.passed for p in parts]), np.concatenate([p.errors for p in parts]),
                   fits, notes, sum(p.retried for p in parts))

@@ -29,8 +29,11 @@ class Axis:
     log: bool = False
 
 
-def parse_vary(spec: str, log: bool = False, default_n: int = 11) -> Axis:
+def parse_vary(spec: str, log: bool = False, default_n: int = 11, case=None) -> Axis:
     """Read ``KEY=FROM:TO[:N]``; FROM and TO as quantities ("12 V") or plain SI numbers.
+
+    With ``case`` the key must be one this case can vary (a mistyped key gets a "did you mean"
+    with the closest such path).
 
     Raises
     ------
@@ -43,7 +46,7 @@ def parse_vary(spec: str, log: bool = False, default_n: int = 11) -> Axis:
         raise CaseError(f"cannot read {spec!r} (expected KEY=FROM:TO[:N], e.g. "
                         "clamp[0].element[1].voltage=12V:36V:13)", key="--vary")
     key = m["key"].strip()
-    unit = unit_of(key)
+    unit = resolve(case, key) if case is not None else unit_of(key)
     try:
         lo, hi = (parse_quantity(_number_or_text(m[x]), unit or "1", key=key) if unit else float(m[x])
                   for x in ("lo", "hi"))
