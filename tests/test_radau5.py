@@ -159,3 +159,199 @@ def test_fixed_step_error_is_fifth_order(h):
 
     order = np.log2(err(h) / err(h / 2))
     assert 4.6 < order < 5.5, f"observed order {order:.2f} at h = {h}"
+
+
+# ---------------------------------------------------------------- stiff test problems vs scipy
+def test_robertson_matches_scipy_radau_and_published_values():
+    # Robertson's chemical kinetics (Hairer & Wanner II §IV.1, §IV.10), t = 40
+    y0 = [1.0, 0.0, 0.0]
+    ref = _scipy(rober, rober_jac, (0.0, 40.0), y0, np.zeros(0), 1e-10, 1e-14)  # scipy, tight
+    r = solve(rober, rober_jac, (0.0, 40.0), y0, rtol=1e-10, atol=1e-14)
+    assert r.status == 0, r.message
+    np.testing.assert_allclose(r.y[:, -1], ref.y[:, -1], rtol=1e-8, err_msg="vs scipy Radau")
+    # reference values at t = 40 (Hairer & Wanner's test set, from memory)
+    np.testing.assert_allclose(r.y[:, -1], [0.7158270687, 0.9185534764e-5, 0.2841637457], rtol=2e-9)
+    assert r.y[:, -1].sum() == pytest.approx(1.0, abs=1e-12)  # mass conservation, exact for the ODE
+
+
+def test_van_der_pol_matches_scipy_radau_and_published_values():
+    # y1' = y2, eps y2' = (1 - y1^2) y2 - y1, y(0) = (2, 0), t = 2
+    ref = _scipy(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], np.array([1e-3]), 1e-10, 1e-10)  # scipy, tight
+    r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-3], rtol=1e-10, atol=1e-10)
+    assert r.status == 0, r.message
+    np.testing.assert_allclose(r.y[:, -1], ref.y[:, -1], rtol=1e-7, err_msg="eps = 1e-3 vs scipy Radau")
+    # eps = 1e-6 (mu = 1e6 in the scaled form): Hairer & Wanner II §IV.10 reference solution at
+    # t = 2, from memory: y1 = 1.706167732170483, y2 = -0.8928097010248125
+    r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-6], rtol=1e-10, atol=1e-10)
+    assert r.status == 0, r.message
+    np.testing.assert_allclose(r.y[:, -1], [1.706167732170483, -0.8928097010248125], rtol=1e-7)
+
+
+#: reference end states (from memory, checked against a tight scipy solve in the tests above)
+_REFERENCE_END = {"robertson": np.array([0.7158270687, 0.9185534764e-5, 0.2841637457]),
+                  "van_der_pol": np.array([1.706167732170483, -0.8928097010248125])}
+
+
+@pytest.mark.parametrize("name", ["robertson", "van_der_pol"])
+@pytest.mark.parametrize("rtol", [1e-4, 1e-6, 1e-8], ids=lambda v: f"rtol={v:g}")
+def test_step_count_comparable_to_scipy_radau(name, rtol):
+    # the same method with the same controller family: within 25 % of scipy's accepted steps
+    # (measured: -10 % … +5 %), at the same accuracy (end-state error at most 10× scipy's, in
+    # units of the tolerance, against the reference end states)
+    f, jac, span, y0, p = {"robertson": (rober, rober_jac, (0.0, 40.0), [1.0, 0.0, 0.0], np.zeros(0)),
+                           "van_der_pol": (vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], np.array([1e-6]))}[name]
+    atol = rtol * 1e-3
+    s = _scipy(f, jac, span, y0, p, rtol, atol)
+    r = solve(f, jac, span, y0, p, rtol=rtol, atol=atol)
+    assert r.status == 0, r.message
+    ratio = r.counts["n_accepted"] / (len(s.t) - 1)
+    assert 0.75 < ratio < 1.25, f"{r.counts['n_accepted']} steps vs scipy {len(s.t) - 1}"
+    exact = _REFERENCE_END[name]
+    sc = atol + rtol * np.abs(exact)
+    e_ours, e_scipy = np.max(np.abs(r.y[:, -1] - exact) / sc), np.max(np.abs(s.y[:, -1] - exact) / sc)
+    assert e_ours <= 10 * max(e_scipy, 0.1), f"error {e_ours:.3g} vs scipy {e_scipy:.3g} (tolerance units)"
+
+
+# ---------------------------------------------------------------- events
+def test_terminal_event_at_closed_form_crossing():
+    # y' = -y / tau: y = exp(-t / tau) falls through 0.1 at t = tau ln 10 (closed form)
+    tau = 2e-3
+    M = np.array([[-1.0 / tau]])
+    p = np.concatenate([M.ravel(), [0.1]])
+    r = solve(linear, linear_jac, (0.0, 1.0), [1.0], p, rtol=1e-8, atol=1e-12, events=crossings,
+              directions=[-1, 0], terminal=[1, 0])
+    assert r.status == 1, r.message
+    assert r.t_events[0] == pytest.approx([tau * np.log(10.0)], rel=1e-8)
+    assert r.t[-1] == pytest.approx(tau * np.log(10.0), rel=1e-8)
+    assert r.y[0, -1] == pytest.approx(0.1, rel=1e-7)
+    assert r.t_events[1].size == 0  # y never reaches 0
+
+
+def test_events_with_direction_on_an_oscillation():
+    # y'' = -y, y = cos t: rising zeros at 3π/2 + 2kπ, falling at π/2 + 2kπ (closed form)
+    M = np.array([[0.0, 1.0], [-1.0, 0.0]])
+    p = np.concatenate([M.ravel(), [-2.0]])  # event 0: y0 + 2 never crosses
+    r = solve(linear, linear_jac, (0.0, 20.0), [1.0, 0.0], p, rtol=1e-9, atol=1e-12, events=crossings,
+              directions=[0, 1], terminal=[0, 0])
+    assert r.status == 0, r.message
+    expected = [1.5 * np.pi + 2 * k * np.pi for k in range(3)]
+    np.testing.assert_allclose(r.t_events[1], expected, rtol=1e-8)
+    np.testing.assert_allclose(r.y_events[1][:, 0], 0.0, atol=1e-9)
+    assert r.t_events[0].size == 0
+
+
+# ---------------------------------------------------------------- the residual check
+def _clamp_reference(p, t):
+    """Closed form of the piecewise-linear clamp problem: the matrix exponential on each side of
+    the clamp threshold (mpmath at 40 digits while clamped — the clamped system is too stiff,
+    ‖A·t‖ ~ 1e12, for a double-precision exponential — scipy.linalg.expm for the damped LC ring),
+    the crossing time by brentq."""
+    import mpmath
+    from scipy.optimize import brentq
+
+    L, C, Vc, g, Rp = p
+    mpmath.mp.dps = 40
+    a1 = mpmath.matrix([[0, -1 / mpmath.mpf(L), 0], [1 / mpmath.mpf(C), -(1 / mpmath.mpf(Rp) + g) / mpmath.mpf(C),
+                                                      g * mpmath.mpf(Vc) / mpmath.mpf(C)], [0, 0, 0]])
+    x0 = mpmath.matrix([1, Vc, 1])
+
+    def on(tt):
+        x = mpmath.expm(a1 * mpmath.mpf(tt)) * x0
+        return np.array([float(x[0]), float(x[1])]), float(x[1] - Vc)
+
+    t_off = brentq(lambda tt: on(tt)[1], 1e-3, 2.0, xtol=1e-15, rtol=1e-15)
+    x_off = on(t_off)[0]
+    a2 = np.array([[0.0, -1.0 / L], [1.0 / C, -1.0 / (Rp * C)]])
+    return np.array([on(tt)[0] if tt <= t_off else expm(a2 * (tt - t_off)) @ x_off for tt in t]).T
+
+
+def test_residual_check_rejects_unconverged_newton_at_a_clamp_switching_off():
+    # a coil current charging a node held by a hard clamp (conductance g = 1e6 S, 1 µF): when the
+    # current reverses the clamp lets go and the node rings. The Jacobian of the clamped state
+    # (-g/C = -1e12 /s) damps every Newton correction, so an iteration with it "converges" on
+    # the clamped trajectory after the clamp has let go. Reference: the closed form above.
+    p = np.array([1.0, 1e-6, 1.0, 1e6, 1e4])
+    kw = dict(rtol=1e-6, atol=1e-9)
+    r = solve(clamp, clamp_jac, (0.0, 1.5), [1.0, 1.0], p, **kw)
+    assert r.status == 0, r.message
+    assert r.counts["n_residual_reject"] >= 1
+    k = np.unique(np.linspace(0, r.t.size - 1, 80).astype(int))  # 80 of the steps (mpmath is slow)
+    err = np.max(np.abs(r.y[:, k] - _clamp_reference(p, r.t[k])), axis=1)
+    assert err[0] < 1e-5 and err[1] < 1e-4, f"max error (i, v) = {err}"
+    # the same run with the check off accepts a wrong trajectory: the case really needs the check
+    r0 = solve(clamp, clamp_jac, (0.0, 1.5), [1.0, 1.0], p, residual_check=0, **kw)
+    assert r0.counts["n_residual_reject"] == 0
+    k = np.unique(np.linspace(0, r0.t.size - 1, 80).astype(int))
+    assert np.max(np.abs(r0.y[:, k] - _clamp_reference(p, r0.t[k]))) > 1e-2
+    # the kept-Jacobian check alone (what radau_check.py adds to scipy) fires on this case too
+    r1 = solve(clamp, clamp_jac, (0.0, 1.5), [1.0, 1.0], p, residual_check=1, rtol=1e-4, atol=1e-7)
+    assert r1.counts["n_residual_reject"] >= 1
+
+
+# ---------------------------------------------------------------- failures say why
+def test_blow_up_ends_with_a_reason_not_a_nan():
+    # y' = y^2, y(0) = 1: y = 1/(1 - t) is unbounded at t = 1 (closed form); asked to reach t = 2
+    r = solve(blowup, blowup_jac, (0.0, 2.0), [1.0], rtol=1e-6, atol=1e-9)
+    assert r.status < 0
+    assert "step size underflow" in r.message or "too many steps" in r.message, r.message
+    assert np.all(np.isfinite(r.y)), "a failed run keeps only finite accepted steps"
+    # it stops at the singularity, with y huge (the position of the pole carries the global error)
+    assert abs(r.t[-1] - 1.0) < 1e-6 and r.y[0, -1] > 1e6, f"stopped at t = {r.t[-1]}, y = {r.y[0, -1]}"
+
+
+def test_too_many_steps_is_reported():
+    r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-6], rtol=1e-6, atol=1e-6, max_steps=20)
+    assert r.status == -1 and "too many steps" in r.message and "20 accepted" in r.message
+    assert r.counts["n_accepted"] == 20
+
+
+def test_bad_start_and_bad_arguments():
+    r = solve(blowup, blowup_jac, (0.0, 1.0), [np.finfo(float).max])  # y^2 overflows to inf at once
+    assert r.status == -3 and "not finite" in r.message
+    with pytest.raises(IntegratorArgumentError, match="t_span"):
+        solve(blowup, blowup_jac, (1.0, 0.0), [1.0])
+    with pytest.raises(IntegratorArgumentError, match="rtol"):
+        solve(blowup, blowup_jac, (0.0, 1.0), [1.0], rtol=0.0)
+    with pytest.raises(IntegratorArgumentError, match="one entry per event"):
+        solve(linear, linear_jac, (0.0, 1.0), [1.0], [-1.0, 0.1], events=crossings, directions=[1], terminal=[0, 0])
+
+
+def test_max_step_and_first_step_are_kept():
+    M = np.array([[-1.0]])
+    r = solve(linear, linear_jac, (0.0, 1.0), [1.0], M.ravel(), rtol=1e-6, atol=1e-9, first_step=1e-5,
+              max_step=0.05)
+    assert r.status == 0, r.message
+    assert r.t[1] - r.t[0] == pytest.approx(1e-5)
+    assert np.max(np.diff(r.t)) <= 0.05 * (1 + 1e-12)
+    assert r.y[0, -1] == pytest.approx(np.exp(-1.0), rel=1e-6)  # closed form
+
+
+# ---------------------------------------------------------------- the uncompiled path, the cache
+def test_plain_python_path_runs_the_same_algorithm():
+    kw = dict(rtol=1e-6, atol=1e-9)
+    a = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], **kw)
+    b = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], compiled=False, **kw)
+    assert a.counts == b.counts
+    np.testing.assert_allclose(b.y, a.y, rtol=1e-12, atol=1e-18)
+
+
+def test_works_where_no_cache_folder_is_writable(tmp_path):
+    # NUMBA_CACHE_DIR below a plain file cannot be created (not even by root); with only that
+    # locator allowed numba refuses cache=True, and the switch compiles uncached instead
+    blocker = tmp_path / "file"
+    blocker.write_text("not a folder")
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(blocker / "cache"),
+               NUMBA_CACHE_LOCATOR_CLASSES="UserProvidedCacheLocator")
+    code = textwrap.dedent("""
+        import numpy as np
+        from kickback.engine import radau5_jit
+        @radau5_jit.jit
+        def twice(x):
+            return 2.0 * x
+        assert twice(np.ones(2))[0] == 2.0
+        assert radau5_jit.CACHE_UNAVAILABLE
+        print("ok")
+    """)
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120,
+                         cwd=os.path.dirname(os.path.dirname(__file__)))
+    assert out.returncode == 0 and out.stdout.strip() == "ok", out.stderr

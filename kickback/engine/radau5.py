@@ -140,7 +140,7 @@ def _plain(fn):
 
 def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, first_step: float | None = None,
           max_step: float = np.inf, max_steps: int = 100_000, events=None, directions=None, terminal=None,
-          fixed_step: float | None = None, residual_check: int = 1, newton_tol: float | None = None,
+          fixed_step: float | None = None, residual_check: int = 2, newton_tol: float | None = None,
           compiled: bool = True) -> Radau5Result:
     """Integrate y' = rhs(t, y, params) from t_span[0] to t_span[1] with Radau IIA (order 5).
 
@@ -170,10 +170,10 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
     fixed_step : float, optional
         Constant step without error control (order studies).
     residual_check : int
-        0: no check. 1 (default): a step converged with a Jacobian kept from an earlier step
+        0: no check. 1: a step converged with a Jacobian kept from an earlier step
         must have a collocation residual :math:`Z - h(A \\otimes I)F(Z)` within the error
         tolerance, else the Jacobian is refreshed and the step repeated (what ``radau_check.py``
-        adds to scipy). 2: every step takes one more Newton correction with the Jacobian at its
+        adds to scipy). 2 (default): every step takes one more Newton correction with the Jacobian at its
         end point, which must be within the tolerance, else the step is halved — this also catches
         a Jacobian evaluated at the step's start that is already wrong inside the step (a law
         switching within it); the accepted end Jacobian serves the next step.

@@ -21,9 +21,15 @@ Algorithm (Hairer & Wanner, Solving ODEs II, 2nd ed. 1996, §IV.8):
   \\mathrm{fac}\\,(h/h_{acc})(\\mathrm{err}_{acc}/\\mathrm{err}^2)^{1/4})` (Gustafsson's predictive
   controller), fac = 0.9·(2k_max+1)/(2k_max+k).
 * Jacobian kept after a step whose Newton rate was ≤ 1e-3; LU kept when h would change by a
-  factor in [1, 1.2]. A step converged with a kept Jacobian is checked: the collocation residual
-  :math:`Z - h(A \\otimes I)F(Z)` must be within the error tolerance (kickback's addition, see
-  ``radau_check.py``), else the Jacobian is refreshed and the step repeated.
+  factor in [1, 1.2].
+* Residual check (kickback's addition, see ``radau_check.py``): a simplified Newton iteration
+  whose Jacobian is far from the true one (a clamp law switching off inside the step) makes tiny
+  corrections and "converges" on a wrong stage solution. ``residual_check = 1``: a step
+  converged with a kept Jacobian must have a collocation residual
+  :math:`Z - h(A \\otimes I)F(Z)` within the error tolerance, else the Jacobian is refreshed and
+  the step repeated. ``residual_check = 2``: every converged step takes one more Newton
+  correction with the Jacobian at its end point; it must be within the tolerance, else the
+  step is halved (the end Jacobian and its factors serve the next step).
 """
 
 from __future__ import annotations
