@@ -355,3 +355,16 @@ def test_works_where_no_cache_folder_is_writable(tmp_path):
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120,
                          cwd=os.path.dirname(os.path.dirname(__file__)))
     assert out.returncode == 0 and out.stdout.strip() == "ok", out.stderr
+
+
+def test_wrong_output_shapes_are_refused_before_the_compiled_loop():
+    # the compiled loop does not check bounds: a Jacobian of the wrong size must never reach it
+    with pytest.raises(IntegratorArgumentError, match=r"jac\(t0, y0, params\) has shape \(3, 3\), expected \(2, 2\)"):
+        solve(vdp, rober_jac, (0.0, 1.0), [1.0, 1.0], [1.0])
+    with pytest.raises(IntegratorArgumentError, match=r"jac\(t0, y0, params\) failed"):
+        solve(blowup, blowup_jac, (0.0, 1.0), [1.0, 1.0])
+    with pytest.raises(IntegratorArgumentError, match="events"):
+        solve(linear, linear_jac, (0.0, 1.0), [1.0], [-1.0, 0.1], events=crossings, directions=[1, 1, 1],
+              terminal=[0, 0, 0])
+    with pytest.raises(IntegratorArgumentError, match="atol"):
+        solve(blowup, blowup_jac, (0.0, 1.0), [1.0], atol=0.0)

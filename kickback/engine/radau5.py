@@ -138,6 +138,20 @@ def _plain(fn):
     return getattr(fn, "py_func", fn)
 
 
+def _check_shapes(rhs, jac, events, t0, y0, p, m):
+    """Call each function once at the start: the compiled loop does not check bounds, so a
+    wrong output shape must be caught here."""
+    n = y0.size
+    shapes = [("rhs", rhs, (n,)), ("jac", jac, (n, n))] + ([("events", events, (m,))] if events is not None else [])
+    for name, fn, shape in shapes:
+        try:
+            out = np.asarray(fn(t0, y0.copy(), p.copy()))
+        except Exception as exc:  # the user's function, any failure: say which one
+            raise IntegratorArgumentError(f"{name}(t0, y0, params) failed: {exc}") from exc
+        if out.shape != shape:
+            raise IntegratorArgumentError(f"{name}(t0, y0, params) has shape {out.shape}, expected {shape}")
+
+
 def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, first_step: float | None = None,
           max_step: float = np.inf, max_steps: int = 100_000, events=None, directions=None, terminal=None,
           fixed_step: float | None = None, residual_check: int = 2, newton_tol: float | None = None,
@@ -195,8 +209,8 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
     if n == 0 or not np.all(np.isfinite(y0)):
         raise IntegratorArgumentError("y0 must be a non-empty finite vector")
     atol_v = np.array(np.broadcast_to(np.asarray(atol, dtype=float), (n,)), dtype=float)
-    if not (rtol > 0 and np.all(atol_v >= 0) and np.all(atol_v + rtol > 0)):
-        raise IntegratorArgumentError("rtol must be > 0 and atol ≥ 0")
+    if not (rtol > 0 and np.all(atol_v > 0)):
+        raise IntegratorArgumentError("rtol and every atol must be > 0")
     p = np.array(np.zeros(0) if params is None else params, dtype=float).ravel()
     m = 0
     if events is not None:
@@ -207,6 +221,7 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
     ev_term = np.zeros(m, np.int64) if terminal is None else np.asarray(terminal, dtype=np.int64).ravel()
     if ev_dir.size != m or ev_term.size != m:
         raise IntegratorArgumentError("directions and terminal need one entry per event")
+    _check_shapes(rhs, jac, events, t0, y0, p, m)
     if residual_check not in (0, 1, 2):
         raise IntegratorArgumentError(f"residual_check must be 0, 1 or 2, got {residual_check!r}")
     if newton_tol is None:
