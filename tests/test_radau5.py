@@ -368,3 +368,5 @@ def test_wrong_output_shapes_are_refused_before_the_compiled_loop():
               terminal=[0, 0, 0])
     with pytest.raises(IntegratorArgumentError, match="atol"):
         solve(blowup, blowup_jac, (0.0, 1.0), [1.0], atol=0.0)
+    with pytest.raises(IntegratorArgumentError, match="rhs is a plain Python function"):
+        solve(blowup.py_func, blowup_jac, (0.0, 1.0), [1.0])

@@ -229,6 +229,10 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
     args = (t0, t1, y0, p, float(rtol), atol_v, float(first_step or 0.0), float(max_step), int(max_steps),
             ev_dir, ev_term, float(fixed_step or 0.0), int(residual_check), float(newton_tol))
     if compiled:
+        for name, fn in (("rhs", rhs), ("jac", jac), ("events", events)):
+            if fn is not None and not hasattr(fn, "py_func"):
+                raise IntegratorArgumentError(f"{name} is a plain Python function: compile it with njit_{name} "
+                                              "(or pass compiled=False)")
         loop, no_events = _compiled()
         out = loop(rhs, jac, events if events is not None else no_events, *args)
     else:
