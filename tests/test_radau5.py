@@ -370,3 +370,30 @@ def test_wrong_output_shapes_are_refused_before_the_compiled_loop():
         solve(blowup, blowup_jac, (0.0, 1.0), [1.0], atol=0.0)
     with pytest.raises(IntegratorArgumentError, match="rhs is a plain Python function"):
         solve(blowup.py_func, blowup_jac, (0.0, 1.0), [1.0])
+
+
+@njit_rhs
+def diode_node(t, y, p):  # a current source I charging a capacitance C shunted by a Shockley diode
+    i_src, i_s, vt, c = p[0], p[1], p[2], p[3]
+    return (i_src - i_s * np.expm1(y / vt)) / c
+
+
+@njit_jac
+def diode_node_jac(t, y, p):
+    i_s, vt, c = p[1], p[2], p[3]
+    return (-i_s / vt * np.exp(y / vt) / c).reshape((1, 1))
+
+
+def test_exponential_law_overflowing_inside_newton_is_handled():
+    # C v' = I - Is (exp(v/VT) - 1), v(0) = 0. With w = exp(-v/VT): w' = -(a w - b)/VT, a = (I + Is)/C,
+    # b = Is/C, so v = -VT ln(b/a + (1 - b/a) exp(-a t/VT)) (closed form). A first step 4000 times the
+    # time constant makes the Newton iterate jump to volts where exp(v/VT) overflows to inf: the
+    # step must shrink, with no warning and no NaN.
+    i_src, i_s, vt, c = 1e-3, 1e-14, 0.025693, 1e-9
+    r = solve(diode_node, diode_node_jac, (0.0, 1e-4), [0.0], [i_src, i_s, vt, c], rtol=1e-8, atol=1e-12,
+              first_step=1e-4)
+    assert r.status == 0, r.message
+    a, b = (i_src + i_s) / c, i_s / c
+    exact = -vt * np.log(b / a + (1 - b / a) * np.exp(-a * r.t / vt))
+    np.testing.assert_allclose(r.y[0], exact, rtol=1e-6, atol=1e-10)
+    assert r.counts["n_newton_fail"] >= 1
