@@ -397,3 +397,30 @@ def test_exponential_law_overflowing_inside_newton_is_handled():
     exact = -vt * np.log(b / a + (1 - b / a) * np.exp(-a * r.t / vt))
     np.testing.assert_allclose(r.y[0], exact, rtol=1e-6, atol=1e-10)
     assert r.counts["n_newton_fail"] >= 1
+
+
+def test_numba_disabled_runs_everything_as_plain_python():
+    # NUMBA_DISABLE_JIT=1 (numba's own debugging switch): the same counts as the compiled run
+    code = textwrap.dedent("""
+        import numpy as np
+        from kickback.engine.radau5 import njit_jac, njit_rhs, solve
+        @njit_rhs
+        def f(t, y, p):
+            return np.array([-0.04 * y[0] + 1e4 * y[1] * y[2], 0.04 * y[0] - 1e4 * y[1] * y[2] - 3e7 * y[1] ** 2,
+                             3e7 * y[1] ** 2])
+        @njit_jac
+        def jac(t, y, p):
+            return np.array([[-0.04, 1e4 * y[2], 1e4 * y[1]], [0.04, -1e4 * y[2] - 6e7 * y[1], -1e4 * y[1]],
+                             [0.0, 6e7 * y[1], 0.0]])
+        assert not hasattr(f, "py_func")  # really plain Python
+        r = solve(f, jac, (0.0, 1.0), [1.0, 0.0, 0.0], rtol=1e-6, atol=1e-9)
+        print(r.counts["n_accepted"], repr(float(r.y[0, -1])))
+    """)
+    env = dict(os.environ, NUMBA_DISABLE_JIT="1")
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=300,
+                         cwd=os.path.dirname(os.path.dirname(__file__)))
+    assert out.returncode == 0, out.stderr
+    steps, y_end = out.stdout.split()
+    r = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], rtol=1e-6, atol=1e-9)
+    assert int(steps) == r.counts["n_accepted"]
+    assert float(y_end) == pytest.approx(r.y[0, -1], rel=1e-12)

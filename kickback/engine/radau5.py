@@ -5,7 +5,8 @@ arrays, ``params`` a 1-D parameter array — and are compiled with :func:`njit_r
 :func:`njit_jac` and :func:`njit_events` (fixed signatures). The stepping loop receives them as
 first-class function values, so ONE compiled loop serves every problem and is cached on disk; a
 circuit becomes one ``rhs`` that reads its elements from ``params``. ``compiled=False`` runs the
-same loop as plain Python (for debugging; the functions' ``.py_func`` are called).
+same loop as plain Python (for debugging; the functions' ``.py_func`` are called; the small
+numeric helpers stay compiled); ``NUMBA_DISABLE_JIT=1`` makes everything plain Python.
 
 The algorithm, its sources and its constants are described in ``radau5_core`` and
 ``radau5_tableau``; this module checks the arguments, compiles, and wraps the outcome in a
@@ -21,6 +22,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 from numba import types
 
@@ -228,6 +230,8 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
         newton_tol = max(10 * np.finfo(float).eps / rtol, min(0.03, rtol ** 0.5))
     args = (t0, t1, y0, p, float(rtol), atol_v, float(first_step or 0.0), float(max_step), int(max_steps),
             ev_dir, ev_term, float(fixed_step or 0.0), int(residual_check), float(newton_tol))
+    if compiled and numba.config.DISABLE_JIT:
+        compiled = False  # NUMBA_DISABLE_JIT=1: every function is plain Python
     if compiled:
         for name, fn in (("rhs", rhs), ("jac", jac), ("events", events)):
             if fn is not None and not hasattr(fn, "py_func"):
