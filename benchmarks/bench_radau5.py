@@ -160,6 +160,20 @@ def run_one(name, f, jac, ev, span, y0, p, rtol, atol, repeat):
         ledger = (e0 - e_end - r.y[1, -1] - r.y[2, -1]) / e0
         print(f"{'':24s} events: largest time difference to scipy {dt:.1e} s; "
               f"energy ledger residual (ours) {ledger:.1e}")
+    return t_ours
+
+
+def check_costs(name, f, jac, ev, span, y0, p, rtol, atol, repeat):
+    """Time our solver with each residual-check mode (0 none, 1 kept Jacobian, 2 end Jacobian)."""
+    kw = {} if ev is None else dict(events=ev, directions=[-1, -1, -1], terminal=[0, 0, 1])
+    cells = []
+    for mode in (0, 1, 2):
+        def run(mode=mode):
+            return solve(f, jac, span, y0, p, rtol=rtol, atol=atol, residual_check=mode, **kw)
+        run()
+        t, r = _best(run, repeat)
+        cells.append(f"{1e3 * t:8.3f} ms {r.counts['n_accepted']:4d} steps {r.counts['njev']:4d} jac")
+    print(f"{name:24s} " + " | ".join(cells))
 
 
 def main():
@@ -169,6 +183,9 @@ def main():
     print(f"{'problem':24s} {'ours ms':>9s} {'scipy ms':>9s} {'ratio':>7s} {'steps':>11s} {'max |Δy_end|/tol':>17s}")
     for prob in problems():
         run_one(*prob, args.repeat)
+    print("\nresidual check: mode 0 (none) | mode 1 (kept Jacobian) | mode 2 (end Jacobian, default)")
+    for prob in problems():
+        check_costs(*prob, args.repeat)
 
 
 if __name__ == "__main__":
