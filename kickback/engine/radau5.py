@@ -48,7 +48,7 @@ MESSAGES = {
     _core.ST_FIXED_FAILED: "the Newton iteration did not converge at the fixed step size",
 }
 REASONS = {
-    _core.R_NONE: "",
+    _core.R_NONE: "the accepted steps shrank below the resolution of t (the solution may be unbounded there)",
     _core.R_NEWTON: "the Newton iteration diverged or converged too slowly",
     _core.R_ERROR: "the local error stayed above the tolerance",
     _core.R_NONFINITE: "the right-hand side became non-finite",
