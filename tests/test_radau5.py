@@ -433,3 +433,39 @@ def test_numba_disabled_runs_everything_as_plain_python():
     r = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], rtol=1e-6, atol=1e-9)
     assert int(steps) == r.counts["n_accepted"]
     assert float(y_end) == pytest.approx(r.y[0, -1], rel=1e-12)
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3, 4])
+def test_random_stiff_oscillatory_systems_match_matrix_exponential(seed):
+    # seeded random 4×4 systems with a stiff complex pair (|lambda| ~ 1e3…1e5, lightly damped) and
+    # slow real modes, in a random basis: y(t) = expm(M t) y0 (scipy.linalg.expm)
+    rng = np.random.default_rng(seed)
+    w = 10 ** rng.uniform(3, 5)
+    blocks = np.zeros((4, 4))
+    blocks[:2, :2] = [[-0.05 * w, w], [-w, -0.05 * w]]
+    blocks[2, 2], blocks[3, 3] = -rng.uniform(0.5, 2.0), -rng.uniform(5.0, 50.0)
+    S = rng.normal(size=(4, 4)) + 3 * np.eye(4)
+    M = S @ blocks @ np.linalg.inv(S)
+    y0 = rng.normal(size=4)
+    r = solve(linear, linear_jac, (0.0, 1.0), y0, M.ravel(), rtol=1e-8, atol=1e-10)
+    assert r.status == 0, r.message
+    for tq in (1e-5, 3e-3, 0.25, 1.0):
+        np.testing.assert_allclose(r.sol(tq), expm(M * tq) @ y0, rtol=1e-5, atol=1e-7, err_msg=f"t = {tq}")
+
+
+def test_event_zero_at_the_start_is_not_a_crossing_and_the_earliest_terminal_event_wins():
+    # y = exp(-t): event 0 is y - 1 (zero at t = 0, then negative: not a crossing); events 1 and 2
+    # (y - 0.5 and y - 0.4, both terminal) fall in the same long step: the run stops at ln 2
+    # (closed form) and the later zero is not recorded
+    @njit_events
+    def levels(t, y, p):
+        return np.array([y[0] - 1.0, y[0] - 0.5, y[0] - 0.4])
+
+    r = solve(linear, linear_jac, (0.0, 5.0), [1.0], [-1.0], rtol=1e-3, atol=1e-6, first_step=1.0,
+              events=levels, directions=[0, -1, -1], terminal=[1, 1, 1])
+    assert r.status == 1, r.message
+    assert r.t_events[0].size == 0 and r.t_events[2].size == 0
+    # time to the solution's accuracy at rtol 1e-3; the state there is the level, to the root tolerance
+    assert r.t_events[1] == pytest.approx([np.log(2.0)], rel=1e-4)
+    assert r.t[-1] == r.t_events[1][0] and r.y[0, -1] == pytest.approx(0.5, abs=1e-12)
+    assert r.counts["n_accepted"] <= 2, "both zeros were meant to fall in one long step"
