@@ -180,8 +180,9 @@ def test_van_der_pol_matches_scipy_radau_and_published_values():
     r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-3], rtol=1e-10, atol=1e-10)
     assert r.status == 0, r.message
     np.testing.assert_allclose(r.y[:, -1], ref.y[:, -1], rtol=1e-7, err_msg="eps = 1e-3 vs scipy Radau")
-    # eps = 1e-6 (mu = 1e6 in the scaled form): Hairer & Wanner II §IV.10 reference solution at
-    # t = 2, from memory: y1 = 1.706167732170483, y2 = -0.8928097010248125
+    # eps = 1e-6 (mu = 1/sqrt(eps) = 1e3 in y'' - mu (1 - y^2) y' + y = 0, time scaled by mu):
+    # Hairer & Wanner II §IV.10 reference solution at t = 2, from memory:
+    # y1 = 1.706167732170483, y2 = -0.8928097010248125
     r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-6], rtol=1e-10, atol=1e-10)
     assert r.status == 0, r.message
     np.testing.assert_allclose(r.y[:, -1], [1.706167732170483, -0.8928097010248125], rtol=1e-7)
