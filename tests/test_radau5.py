@@ -4,116 +4,25 @@ tight on the same equations, closed-form crossing times, and the classical order
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
-import textwrap
-
 import numpy as np
 import pytest
-from scipy.integrate import solve_ivp
+from radau5_problems import (
+    M_LIN,
+    clamp,
+    clamp_jac,
+    crossings,
+    linear,
+    linear_jac,
+    rober,
+    rober_jac,
+    scipy_radau,
+    vdp,
+    vdp_jac,
+)
 from scipy.linalg import expm
 
 from kickback.engine import radau5_tableau as tab
-from kickback.engine.radau5 import IntegratorArgumentError, njit_events, njit_jac, njit_rhs, solve
-
-# ---------------------------------------------------------------- test problems (njit, cached)
-M_LIN = np.array([[-1.0, 0.5, 0.0], [0.0, -1e3, 2e2], [0.0, 0.0, -1e6]])
-
-
-@njit_rhs
-def linear(t, y, p):
-    n = y.size
-    out = np.zeros(n)
-    for i in range(n):
-        for j in range(n):
-            out[i] += p[i * n + j] * y[j]
-    return out
-
-
-@njit_jac
-def linear_jac(t, y, p):
-    n = y.size
-    return p[: n * n].copy().reshape((n, n))
-
-
-@njit_rhs
-def rober(t, y, p):
-    out = np.empty(3)
-    out[0] = -0.04 * y[0] + 1e4 * y[1] * y[2]
-    out[2] = 3e7 * y[1] ** 2
-    out[1] = -out[0] - out[2]
-    return out
-
-
-@njit_jac
-def rober_jac(t, y, p):
-    J = np.zeros((3, 3))
-    J[0, 0], J[0, 1], J[0, 2] = -0.04, 1e4 * y[2], 1e4 * y[1]
-    J[2, 1] = 6e7 * y[1]
-    J[1, 0], J[1, 1], J[1, 2] = 0.04, -1e4 * y[2] - 6e7 * y[1], -1e4 * y[1]
-    return J
-
-
-@njit_rhs
-def vdp(t, y, p):  # Van der Pol in the scaled form y1' = y2, eps y2' = (1 - y1^2) y2 - y1
-    out = np.empty(2)
-    out[0] = y[1]
-    out[1] = ((1.0 - y[0] ** 2) * y[1] - y[0]) / p[0]
-    return out
-
-
-@njit_jac
-def vdp_jac(t, y, p):
-    J = np.empty((2, 2))
-    J[0, 0], J[0, 1] = 0.0, 1.0
-    J[1, 0], J[1, 1] = (-2.0 * y[0] * y[1] - 1.0) / p[0], (1.0 - y[0] ** 2) / p[0]
-    return J
-
-
-@njit_rhs
-def clamp(t, y, p):  # coil current y0 into a node y1 with capacitance, a leak and a hard clamp
-    L, C, Vc, g, Rp = p[0], p[1], p[2], p[3], p[4]
-    out = np.empty(2)
-    out[0] = -y[1] / L
-    out[1] = (y[0] - y[1] / Rp - g * max(y[1] - Vc, 0.0)) / C
-    return out
-
-
-@njit_jac
-def clamp_jac(t, y, p):
-    L, C, Vc, g, Rp = p[0], p[1], p[2], p[3], p[4]
-    J = np.zeros((2, 2))
-    J[0, 1] = -1.0 / L
-    J[1, 0] = 1.0 / C
-    J[1, 1] = (-1.0 / Rp - (g if y[1] > Vc else 0.0)) / C
-    return J
-
-
-@njit_events
-def crossings(t, y, p):  # y0 - 0.1 and y0 itself
-    out = np.empty(2)
-    out[0] = y[0] - p[1]
-    out[1] = y[0]
-    return out
-
-
-@njit_rhs
-def blowup(t, y, p):  # y' = y^2: y = 1/(1 - t) leaves every bound at t = 1
-    return y * y
-
-
-@njit_jac
-def blowup_jac(t, y, p):
-    return (2.0 * y).reshape((1, 1))
-
-
-def _py(fn, p):
-    return lambda t, y: fn.py_func(t, y, p)
-
-
-def _scipy(fn, jac, span, y0, p, rtol, atol, **kw):
-    return solve_ivp(_py(fn, p), span, y0, method="Radau", rtol=rtol, atol=atol, jac=_py(jac, p), **kw)
+from kickback.engine.radau5 import njit_events, solve
 
 
 # ---------------------------------------------------------------- the method's coefficients
@@ -165,7 +74,7 @@ def test_fixed_step_error_is_fifth_order(h):
 def test_robertson_matches_scipy_radau_and_published_values():
     # Robertson's chemical kinetics (Hairer & Wanner II §IV.1, §IV.10), t = 40
     y0 = [1.0, 0.0, 0.0]
-    ref = _scipy(rober, rober_jac, (0.0, 40.0), y0, np.zeros(0), 1e-10, 1e-14)  # scipy, tight
+    ref = scipy_radau(rober, rober_jac, (0.0, 40.0), y0, np.zeros(0), 1e-10, 1e-14)  # scipy, tight
     r = solve(rober, rober_jac, (0.0, 40.0), y0, rtol=1e-10, atol=1e-14)
     assert r.status == 0, r.message
     np.testing.assert_allclose(r.y[:, -1], ref.y[:, -1], rtol=1e-8, err_msg="vs scipy Radau")
@@ -176,7 +85,7 @@ def test_robertson_matches_scipy_radau_and_published_values():
 
 def test_van_der_pol_matches_scipy_radau_and_published_values():
     # y1' = y2, eps y2' = (1 - y1^2) y2 - y1, y(0) = (2, 0), t = 2
-    ref = _scipy(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], np.array([1e-3]), 1e-10, 1e-10)  # scipy, tight
+    ref = scipy_radau(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], np.array([1e-3]), 1e-10, 1e-10)  # scipy, tight
     r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-3], rtol=1e-10, atol=1e-10)
     assert r.status == 0, r.message
     np.testing.assert_allclose(r.y[:, -1], ref.y[:, -1], rtol=1e-7, err_msg="eps = 1e-3 vs scipy Radau")
@@ -202,7 +111,7 @@ def test_step_count_comparable_to_scipy_radau(name, rtol):
     f, jac, span, y0, p = {"robertson": (rober, rober_jac, (0.0, 40.0), [1.0, 0.0, 0.0], np.zeros(0)),
                            "van_der_pol": (vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], np.array([1e-6]))}[name]
     atol = rtol * 1e-3
-    s = _scipy(f, jac, span, y0, p, rtol, atol)
+    s = scipy_radau(f, jac, span, y0, p, rtol, atol)
     r = solve(f, jac, span, y0, p, rtol=rtol, atol=atol)
     assert r.status == 0, r.message
     ratio = r.counts["n_accepted"] / (len(s.t) - 1)
@@ -287,153 +196,6 @@ def test_residual_check_rejects_unconverged_newton_at_a_clamp_switching_off():
     # the kept-Jacobian check alone (what radau_check.py adds to scipy) fires on this case too
     r1 = solve(clamp, clamp_jac, (0.0, 1.5), [1.0, 1.0], p, residual_check=1, rtol=1e-4, atol=1e-7)
     assert r1.counts["n_residual_reject"] >= 1
-
-
-# ---------------------------------------------------------------- failures say why
-def test_blow_up_ends_with_a_reason_not_a_nan():
-    # y' = y^2, y(0) = 1: y = 1/(1 - t) is unbounded at t = 1 (closed form); asked to reach t = 2
-    r = solve(blowup, blowup_jac, (0.0, 2.0), [1.0], rtol=1e-6, atol=1e-9)
-    assert r.status < 0
-    assert "step size underflow" in r.message and "unbounded" in r.message, r.message
-    assert np.all(np.isfinite(r.y)), "a failed run keeps only finite accepted steps"
-    # it stops at the singularity, with y huge (the position of the pole carries the global error)
-    assert abs(r.t[-1] - 1.0) < 1e-6 and r.y[0, -1] > 1e6, f"stopped at t = {r.t[-1]}, y = {r.y[0, -1]}"
-
-
-def test_too_many_steps_is_reported():
-    r = solve(vdp, vdp_jac, (0.0, 2.0), [2.0, 0.0], [1e-6], rtol=1e-6, atol=1e-6, max_steps=20)
-    assert r.status == -1 and "too many steps" in r.message and "20 accepted" in r.message
-    assert r.counts["n_accepted"] == 20
-
-
-def test_bad_start_and_bad_arguments():
-    r = solve(blowup, blowup_jac, (0.0, 1.0), [np.finfo(float).max])  # y^2 overflows to inf at once
-    assert r.status == -3 and "not finite" in r.message
-    with pytest.raises(IntegratorArgumentError, match="t_span"):
-        solve(blowup, blowup_jac, (1.0, 0.0), [1.0])
-    with pytest.raises(IntegratorArgumentError, match="rtol"):
-        solve(blowup, blowup_jac, (0.0, 1.0), [1.0], rtol=0.0)
-    with pytest.raises(IntegratorArgumentError, match="one entry per event"):
-        solve(linear, linear_jac, (0.0, 1.0), [1.0], [-1.0, 0.1], events=crossings, directions=[1], terminal=[0, 0])
-
-
-def test_max_step_and_first_step_are_kept():
-    M = np.array([[-1.0]])
-    r = solve(linear, linear_jac, (0.0, 1.0), [1.0], M.ravel(), rtol=1e-6, atol=1e-9, first_step=1e-5,
-              max_step=0.05)
-    assert r.status == 0, r.message
-    assert r.t[1] - r.t[0] == pytest.approx(1e-5)
-    assert np.max(np.diff(r.t)) <= 0.05 * (1 + 1e-12)
-    assert r.y[0, -1] == pytest.approx(np.exp(-1.0), rel=1e-6)  # closed form
-
-
-# ---------------------------------------------------------------- the uncompiled path, the cache
-def test_plain_python_path_runs_the_same_algorithm():
-    kw = dict(rtol=1e-6, atol=1e-9)
-    a = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], **kw)
-    b = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], compiled=False, **kw)
-    assert a.counts == b.counts
-    np.testing.assert_allclose(b.y, a.y, rtol=1e-12, atol=1e-18)
-
-
-def test_works_where_no_cache_folder_is_writable(tmp_path):
-    # NUMBA_CACHE_DIR below a plain file cannot be created (not even by root); with only that
-    # locator allowed numba refuses cache=True, and the switch compiles uncached instead
-    blocker = tmp_path / "file"
-    blocker.write_text("not a folder")
-    env = dict(os.environ, NUMBA_CACHE_DIR=str(blocker / "cache"),
-               NUMBA_CACHE_LOCATOR_CLASSES="UserProvidedCacheLocator")
-    code = textwrap.dedent("""
-        import numpy as np
-        from kickback.engine import radau5_jit
-        @radau5_jit.jit
-        def twice(x):
-            return 2.0 * x
-        assert twice(np.ones(2))[0] == 2.0
-        assert radau5_jit.CACHE_UNAVAILABLE
-        print("ok")
-    """)
-    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120,
-                         cwd=os.path.dirname(os.path.dirname(__file__)))
-    assert out.returncode == 0 and out.stdout.strip() == "ok", out.stderr
-
-
-def test_wrong_output_shapes_are_refused_before_the_compiled_loop():
-    # the compiled loop does not check bounds: a Jacobian of the wrong size must never reach it
-    with pytest.raises(IntegratorArgumentError, match=r"jac\(t0, y0, params\) has shape \(3, 3\), expected \(2, 2\)"):
-        solve(vdp, rober_jac, (0.0, 1.0), [1.0, 1.0], [1.0])
-    with pytest.raises(IntegratorArgumentError, match=r"jac\(t0, y0, params\) failed"):
-        solve(blowup, blowup_jac, (0.0, 1.0), [1.0, 1.0])
-    with pytest.raises(IntegratorArgumentError, match="events"):
-        solve(linear, linear_jac, (0.0, 1.0), [1.0], [-1.0, 0.1], events=crossings, directions=[1, 1, 1],
-              terminal=[0, 0, 0])
-    with pytest.raises(IntegratorArgumentError, match="atol"):
-        solve(blowup, blowup_jac, (0.0, 1.0), [1.0], atol=0.0)
-    with pytest.raises(IntegratorArgumentError, match="rhs is a plain Python function"):
-        solve(blowup.py_func, blowup_jac, (0.0, 1.0), [1.0])
-
-
-@njit_rhs
-def diode_node(t, y, p):  # a current source I charging a capacitance C shunted by a Shockley diode
-    i_src, i_s, vt, c = p[0], p[1], p[2], p[3]
-    return (i_src - i_s * np.expm1(y / vt)) / c
-
-
-@njit_jac
-def diode_node_jac(t, y, p):
-    i_s, vt, c = p[1], p[2], p[3]
-    return (-i_s / vt * np.exp(y / vt) / c).reshape((1, 1))
-
-
-def test_exponential_law_overflowing_inside_newton_is_handled():
-    # C v' = I - Is (exp(v/VT) - 1), v(0) = 0. With w = exp(-v/VT): w' = -(a w - b)/VT, a = (I + Is)/C,
-    # b = Is/C, so v = -VT ln(b/a + (1 - b/a) exp(-a t/VT)) (closed form). A first step 4000 times the
-    # time constant makes the Newton iterate jump to volts where exp(v/VT) overflows to inf: the
-    # step must shrink, with no warning and no NaN.
-    i_src, i_s, vt, c = 1e-3, 1e-14, 0.025693, 1e-9
-    r = solve(diode_node, diode_node_jac, (0.0, 1e-4), [0.0], [i_src, i_s, vt, c], rtol=1e-8, atol=1e-12,
-              first_step=1e-4)
-    assert r.status == 0, r.message
-    a, b = (i_src + i_s) / c, i_s / c
-    exact = -vt * np.log(b / a + (1 - b / a) * np.exp(-a * r.t / vt))
-    np.testing.assert_allclose(r.y[0], exact, rtol=1e-6, atol=1e-10)
-    assert r.counts["n_newton_fail"] >= 1
-
-
-def test_newton_divergence_is_named_when_it_ends_a_fixed_step_run():
-    # the diode node of the test above at a fixed step 4000 times its time constant: the Newton
-    # iteration cannot converge and there is no step control to help — the run stops and says so
-    r = solve(diode_node, diode_node_jac, (0.0, 1e-4), [0.0], [1e-3, 1e-14, 0.025693, 1e-9], fixed_step=1e-4)
-    assert r.status == -4, r.message
-    assert "Newton iteration did not converge" in r.message and "non-finite" in r.message, r.message
-    assert np.all(np.isfinite(r.y))
-
-
-def test_numba_disabled_runs_everything_as_plain_python():
-    # NUMBA_DISABLE_JIT=1 (numba's own debugging switch): the same counts as the compiled run
-    code = textwrap.dedent("""
-        import numpy as np
-        from kickback.engine.radau5 import njit_jac, njit_rhs, solve
-        @njit_rhs
-        def f(t, y, p):
-            return np.array([-0.04 * y[0] + 1e4 * y[1] * y[2], 0.04 * y[0] - 1e4 * y[1] * y[2] - 3e7 * y[1] ** 2,
-                             3e7 * y[1] ** 2])
-        @njit_jac
-        def jac(t, y, p):
-            return np.array([[-0.04, 1e4 * y[2], 1e4 * y[1]], [0.04, -1e4 * y[2] - 6e7 * y[1], -1e4 * y[1]],
-                             [0.0, 6e7 * y[1], 0.0]])
-        assert not hasattr(f, "py_func")  # really plain Python
-        r = solve(f, jac, (0.0, 1.0), [1.0, 0.0, 0.0], rtol=1e-6, atol=1e-9)
-        print(r.counts["n_accepted"], repr(float(r.y[0, -1])))
-    """)
-    env = dict(os.environ, NUMBA_DISABLE_JIT="1")
-    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=300,
-                         cwd=os.path.dirname(os.path.dirname(__file__)))
-    assert out.returncode == 0, out.stderr
-    steps, y_end = out.stdout.split()
-    r = solve(rober, rober_jac, (0.0, 1.0), [1.0, 0.0, 0.0], rtol=1e-6, atol=1e-9)
-    assert int(steps) == r.counts["n_accepted"]
-    assert float(y_end) == pytest.approx(r.y[0, -1], rel=1e-12)
 
 
 @pytest.mark.parametrize("seed", [1, 2, 3, 4])
