@@ -1,0 +1,192 @@
+"""The command line's boundary: one line and exit 2 on every failure, 130 on Ctrl-C, no traceback.
+
+Everything a user can trigger ends here as one line on stderr naming the file, the key or the
+option and what was expected. Library warnings (numpy, scipy, matplotlib) never reach the
+terminal as they are: they are counted and said once in kickback's words. Worker processes
+forked during a command ignore SIGINT and warnings; the parent stops them on Ctrl-C.
+
+``KICKBACK_DEBUG=1`` lets tracebacks and library warnings through (for a bug report).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import signal
+import sys
+import warnings
+
+import click
+
+__all__ = ["Guarded", "FiniteFloatRange", "current_source", "note", "set_source"]
+
+#: exit statuses (README "Exit status"): 2 bad input or a case that cannot be solved
+EXIT_BAD = 2
+EXIT_INTERRUPTED = 130  # 128 + SIGINT, the shell's convention
+EXIT_TERMINATED = 143  # 128 + SIGTERM
+
+_STATE = {"source": None, "active": False, "hook": False}
+
+
+def set_source(source) -> None:
+    """Name the file a command works on, for messages of failures raised without one."""
+    _STATE["source"] = None if source is None else str(source)
+
+
+def current_source() -> str:
+    return _STATE["source"] or "kickback"
+
+
+def one_line(text: str) -> str:
+    """``text`` on one line: control characters shown as escapes, newlines as spaces."""
+    text = " ".join(str(text).split("\n"))
+    return "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
+
+
+def note(message: str) -> None:
+    """A one-line note on stderr."""
+    click.echo(one_line(message), err=True)
+
+
+class _Terminated(BaseException):
+    """SIGTERM, raised like KeyboardInterrupt so that cleanup runs."""
+
+
+def _stop_workers() -> None:
+    import multiprocessing
+
+    for proc in multiprocessing.active_children():
+        proc.terminate()
+
+
+def _on_sigint(signum, frame):
+    _stop_workers()
+    raise KeyboardInterrupt
+
+
+def _on_sigterm(signum, frame):
+    _stop_workers()
+    raise _Terminated
+
+
+def _child_after_fork() -> None:
+    """In a worker forked during a command: Ctrl-C is the parent's to handle; no warnings printed."""
+    if _STATE["active"]:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        warnings.simplefilter("ignore")
+
+
+def _library_warnings(caught) -> None:
+    """Say once, in our words, that numpy/scipy/matplotlib warned (KICKBACK_DEBUG shows them)."""
+    from kickback.errors import KickbackWarning
+
+    own = [w for w in caught if issubclass(w.category, KickbackWarning)]
+    for w in own:
+        note(f"warning: {w.message}")
+    other = [w for w in caught if not issubclass(w.category, KickbackWarning)]
+    if not other:
+        return
+    if os.environ.get("KICKBACK_DEBUG"):
+        for w in other:
+            note(f"debug: {w.category.__name__}: {w.message} ({w.filename}:{w.lineno})")
+        return
+    kinds = sorted({w.category.__name__ for w in other})
+    note(f"note: {len(other)} warning(s) of the numerical libraries ({', '.join(kinds)}) were handled inside "
+         "kickback and not shown (KICKBACK_DEBUG=1 shows them)")
+
+
+def _message(err: BaseException) -> tuple[str, int]:
+    """The line and exit status for an exception that reached the boundary."""
+    from kickback.errors import KickbackError
+
+    src = current_source()
+    if isinstance(err, KeyboardInterrupt):
+        return "interrupted (nothing written)", EXIT_INTERRUPTED
+    if isinstance(err, _Terminated):
+        return "terminated (nothing written)", EXIT_TERMINATED
+    if isinstance(err, KickbackError):
+        return (str(err) if getattr(err, "source", None) else f"{src}: {err}"), EXIT_BAD
+    if isinstance(err, MemoryError):
+        return (f"{src}: out of memory (expected a case of ordinary size; see the bounds in the README)",
+                EXIT_BAD)
+    if isinstance(err, RecursionError):
+        return f"{src}: nested too deeply (expected a case of ordinary structure)", EXIT_BAD
+    if isinstance(err, BrokenPipeError):
+        return "", EXIT_BAD
+    if isinstance(err, OSError):
+        where = err.filename or src
+        return f"{where}: {err.strerror or err} (expected a readable input and a writable output)", EXIT_BAD
+    return (f"{src}: the case could not be solved: internal error ({type(err).__name__}: {err}); please report "
+            "it with the case file (KICKBACK_DEBUG=1 shows the traceback)", EXIT_BAD)
+
+
+class Guarded(click.Group):
+    """A click group whose commands fail with one line and a stated exit status."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        try:
+            rv = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        except click.exceptions.NoArgsIsHelpError as err:
+            click.echo(err.ctx.get_help(), err=True)
+            sys.exit(EXIT_BAD)
+        except click.UsageError as err:
+            command = err.ctx.command_path if err.ctx is not None else "kickback"
+            note(f"{command}: {err.format_message()} (see '{command} --help')")
+            sys.exit(EXIT_BAD)
+        except click.ClickException as err:
+            note(f"kickback: {err.format_message()}")
+            sys.exit(err.exit_code)
+        except click.Abort:
+            note("interrupted (nothing written)")
+            sys.exit(EXIT_INTERRUPTED)
+        sys.exit(rv if isinstance(rv, int) else 0)
+
+    def invoke(self, ctx):
+        if not _STATE["hook"]:
+            os.register_at_fork(after_in_child=_child_after_fork)
+            _STATE["hook"] = True
+        main_thread = signal.getsignal(signal.SIGINT) is not None and _is_main_thread()
+        old = (signal.signal(signal.SIGINT, _on_sigint), signal.signal(signal.SIGTERM, _on_sigterm)) \
+            if main_thread else None
+        _STATE["active"], _STATE["source"] = True, None
+        caught: list = []
+        try:
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                try:
+                    return super().invoke(ctx)
+                except (SystemExit, click.exceptions.Exit, click.ClickException):
+                    raise
+                except BaseException as err:  # the boundary: every failure becomes one line
+                    if os.environ.get("KICKBACK_DEBUG") and not isinstance(err, KeyboardInterrupt):
+                        raise
+                    line, status = _message(err)
+                    if line:
+                        note(line)
+                    sys.exit(status)
+        finally:
+            _STATE["active"] = False
+            if old is not None:
+                signal.signal(signal.SIGINT, old[0])
+                signal.signal(signal.SIGTERM, old[1])
+            _library_warnings(caught)
+
+
+def _is_main_thread() -> bool:
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
+
+
+class FiniteFloatRange(click.FloatRange):
+    """A float option in a closed range that refuses NaN and infinities (click's range lets NaN in)."""
+
+    name = "finite float range"
+
+    def convert(self, value, param, ctx):
+        rv = super().convert(value, param, ctx)
+        if not math.isfinite(rv):
+            self.fail(f"{value!r} is not a finite number (expected {self._describe_range()})", param, ctx)
+        return rv
