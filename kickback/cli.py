@@ -193,6 +193,8 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
     """
     import os
 
+    import numpy as np
+
     from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.sweeps import sweep_csv, sweep_table
@@ -202,6 +204,10 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
     out = _out(out_dir)
     try:
         axes = tuple(parse_vary(v, log) for v in varies)
+        for ax in axes:
+            if not np.all(np.isfinite(ax.values)):
+                _die(f"{c.source}: --vary: {ax.path}: FROM and TO must be finite numbers (got {ax.values[0]:g} "
+                     f"and {ax.values[-1]:g})")
         n = 1
         for ax in axes:
             n *= len(ax.values)
@@ -301,7 +307,7 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
 
     c = _load(case)
     trace = _read_measured(measured) if measured else None
-    target = Path(output) if output else Path.cwd() / f"{Path(case).stem}-report.html"
+    target = Path(output) if output is not None else Path.cwd() / f"{Path(case).stem}-report.html"
     try:
         check_writable(target, "-o", folder=False)
     except OutputError as err:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import signal
 import sys
 import warnings
@@ -39,7 +40,7 @@ def current_source() -> str:
 
 def one_line(text: str) -> str:
     """``text`` on one line: control characters shown as escapes, newlines as spaces."""
-    text = " ".join(str(text).split("\n"))
+    text = re.sub(r"\s*[\n\r\t]+\s*", " ", str(text))
     return "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
 
 
@@ -91,8 +92,8 @@ def _library_warnings(caught) -> None:
             note(f"debug: {w.category.__name__}: {w.message} ({w.filename}:{w.lineno})")
         return
     kinds = sorted({w.category.__name__ for w in other})
-    note(f"note: {len(other)} warning(s) of the numerical libraries ({', '.join(kinds)}) were handled inside "
-         "kickback and not shown (KICKBACK_DEBUG=1 shows them)")
+    note(f"note: the numerical libraries raised {len(other)} warning(s) ({', '.join(kinds)}); kickback's own "
+         "checks decide the result, so they are not shown (KICKBACK_DEBUG=1 shows them)")
 
 
 def _message(err: BaseException) -> tuple[str, int]:
@@ -101,9 +102,9 @@ def _message(err: BaseException) -> tuple[str, int]:
 
     src = current_source()
     if isinstance(err, KeyboardInterrupt):
-        return "interrupted (nothing written)", EXIT_INTERRUPTED
+        return "interrupted", EXIT_INTERRUPTED
     if isinstance(err, _Terminated):
-        return "terminated (nothing written)", EXIT_TERMINATED
+        return "terminated", EXIT_TERMINATED
     if isinstance(err, KickbackError):
         return (str(err) if getattr(err, "source", None) else f"{src}: {err}"), EXIT_BAD
     if isinstance(err, MemoryError):
@@ -139,7 +140,7 @@ class Guarded(click.Group):
             note(f"kickback: {err.format_message()}")
             sys.exit(err.exit_code)
         except click.Abort:
-            note("interrupted (nothing written)")
+            note("interrupted")
             sys.exit(EXIT_INTERRUPTED)
         sys.exit(rv if isinstance(rv, int) else 0)
 
