@@ -12,7 +12,7 @@ from __future__ import annotations
 import unicodedata
 from typing import Any
 
-__all__ = ["LIMITS", "USUAL", "check_structure", "count_error", "plain_number_note", "text_problem"]
+__all__ = ["LIMITS", "MAGNITUDE", "USUAL", "check_structure", "count_error", "plain_number_note", "text_problem"]
 
 #: upper bounds of a case (README "Bounds"); a case beyond them is refused
 LIMITS = {
@@ -24,6 +24,9 @@ LIMITS = {
     "tolerances": 64,  # [tolerance] entries
     "text": 200,  # characters in a title or name
 }
+
+#: magnitude of any quantity in SI, besides 0: beyond it the device laws and energies over- or underflow
+MAGNITUDE = (1e-30, 1e15)
 
 #: usual range (low, high) of a plain number per unit, in SI; a key's own range overrides it
 USUAL: dict[str, tuple[float, float]] = {
@@ -115,6 +118,6 @@ def plain_number_note(key: str, raw: Any, value: float, unit: str) -> str | None
     lo, hi = USUAL_BY_KEY.get(key, USUAL_BY_KEY.get(last, USUAL[unit]))
     if lo <= abs(value) <= hi:
         return None
-    return (f"the plain number {raw!r} is read in SI as {format_quantity(value, unit)}, outside the usual "
+    return (f"the plain number {raw:g} is read in SI as {format_quantity(value, unit)}, outside the usual "
             f"{format_quantity(lo, unit)} to {format_quantity(hi, unit)} for this key (write the unit if "
             f"another value was meant, e.g. '{example(unit)}')")

@@ -30,7 +30,7 @@ from kickback.case import (
     Supply,
     Switch,
 )
-from kickback.casebounds import check_structure, count_error, plain_number_note, text_problem
+from kickback.casebounds import MAGNITUDE, check_structure, count_error, plain_number_note, text_problem
 from kickback.casetext import read_text as _read
 from kickback.casetext import syntax_error as _syntax_error
 from kickback.errors import CaseError
@@ -171,6 +171,10 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
         except UnitError as err:
             raise ctx.error(path, err.message) from None
         shown = format_quantity(value, field.unit)
+        if value != 0 and not MAGNITUDE[0] <= abs(value) <= MAGNITUDE[1]:
+            zero = ", or 0" if _CONDITIONS[field.cond][0](0.0) else ""
+            raise ctx.error(path, f"{shown} is outside the range kickback computes with ({MAGNITUDE[0]:g} to "
+                                  f"{MAGNITUDE[1]:g} {field.unit}{zero}; expected {field.expected()})")
         why = plain_number_note(format_path(path), raw, value, field.unit)
         if why and _CONDITIONS[field.cond][0](value):
             ctx.notes.append(str(ctx.error(path, why)))
@@ -333,6 +337,11 @@ def _check_diode(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
     if not point:
         return
     vf, i_at, rs = v["forward_voltage"], v["at_current"], v.get("series_resistance", 0.0)
+    if "ideality" in v and (vf - rs * i_at) / (v["ideality"] * thermal_voltage(v.get("temperature", T25))) > 700:
+        # I_s = I/(exp(V_j/(n V_T)) - 1) would underflow below 1e-300 A: not a diode (Shockley law)
+        raise ctx.error(path + ("forward_voltage",), f"{format_quantity(vf, 'V')} at "
+                        f"{format_quantity(i_at, 'A')} with ideality {v['ideality']:g} is no junction drop "
+                        "(expected a diode's forward voltage, e.g. '0.85 V')")
     if rs * i_at >= vf:
         raise ctx.error(path + ("series_resistance",), "series_resistance × at_current = "
                         f"{format_quantity(rs * i_at, 'V')} leaves no junction drop below forward_voltage "
