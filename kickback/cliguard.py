@@ -49,10 +49,6 @@ def note(message: str) -> None:
     click.echo(one_line(message), err=True)
 
 
-class _Terminated(BaseException):
-    """SIGTERM, raised like KeyboardInterrupt so that cleanup runs."""
-
-
 def _stop_workers() -> None:
     import multiprocessing
 
@@ -60,20 +56,27 @@ def _stop_workers() -> None:
         proc.terminate()
 
 
-def _on_sigint(signum, frame):
-    _stop_workers()
-    raise KeyboardInterrupt
+def _on_signal(signum, frame):
+    """SIGINT or SIGTERM during a command: stop the workers, remove what is being written, one line, exit.
 
+    Exits at once (``os._exit``) rather than raising into whatever runs now: an exception raised
+    inside a worker pool's bookkeeping can leave it waiting forever. The output sets are swapped
+    in with these signals held back, so an exit here never leaves a mixed set.
+    """
+    from kickback.outputs.files import discard_pending
 
-def _on_sigterm(signum, frame):
     _stop_workers()
-    raise _Terminated
+    discard_pending()
+    interrupted = signum == signal.SIGINT
+    os.write(2, b"interrupted\n" if interrupted else b"terminated\n")
+    os._exit(EXIT_INTERRUPTED if interrupted else EXIT_TERMINATED)
 
 
 def _child_after_fork() -> None:
     """In a worker forked during a command: Ctrl-C is the parent's to handle; no warnings printed."""
     if _STATE["active"]:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)  # the parent stops its workers with SIGTERM
         warnings.simplefilter("ignore")
 
 
@@ -103,8 +106,6 @@ def _message(err: BaseException) -> tuple[str, int]:
     src = current_source()
     if isinstance(err, KeyboardInterrupt):
         return "interrupted", EXIT_INTERRUPTED
-    if isinstance(err, _Terminated):
-        return "terminated", EXIT_TERMINATED
     if isinstance(err, KickbackError):
         return (str(err) if getattr(err, "source", None) else f"{src}: {err}"), EXIT_BAD
     if isinstance(err, MemoryError):
@@ -149,7 +150,7 @@ class Guarded(click.Group):
             os.register_at_fork(after_in_child=_child_after_fork)
             _STATE["hook"] = True
         main_thread = signal.getsignal(signal.SIGINT) is not None and _is_main_thread()
-        old = (signal.signal(signal.SIGINT, _on_sigint), signal.signal(signal.SIGTERM, _on_sigterm)) \
+        old = (signal.signal(signal.SIGINT, _on_signal), signal.signal(signal.SIGTERM, _on_signal)) \
             if main_thread else None
         _STATE["active"], _STATE["source"] = True, None
         caught: list = []

@@ -20,7 +20,21 @@ from pathlib import Path
 
 from kickback.errors import OutputError
 
-__all__ = ["check_writable", "write_atomic", "write_set"]
+__all__ = ["PENDING", "check_writable", "discard_pending", "write_atomic", "write_set"]
+
+#: staging folders and temporary files being written now (removed by a signal handler on exit)
+PENDING: set[str] = set()
+
+
+def discard_pending() -> None:
+    """Remove every staging folder and temporary file still pending (safe to call from a signal handler)."""
+    for path in list(PENDING):
+        if os.path.isdir(path):
+            shutil.rmtree(path, ignore_errors=True)
+        else:
+            with contextlib.suppress(OSError):
+                os.unlink(path)
+        PENDING.discard(path)
 
 
 def _umask() -> int:
@@ -115,11 +129,14 @@ def write_atomic(path: str | os.PathLike, data: str | bytes) -> Path:
         raise OutputError(f"cannot write: {err.strerror or err} (expected a writable folder)",
                           source=str(path)) from None
     os.close(fd)
+    PENDING.add(tmp)
     try:
         _write(Path(tmp), data)
         with _signals_held():
             os.replace(tmp, path)
+            PENDING.discard(tmp)
     except BaseException as err:
+        PENDING.discard(tmp)
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         if isinstance(err, OSError) and not isinstance(err, OutputError):
@@ -160,6 +177,7 @@ def write_set(out: str | os.PathLike, files: dict[str, str | bytes], family: tup
     except OSError as err:
         raise OutputError(f"--out: cannot write in {base}: {err.strerror or err} (expected a writable folder)",
                           source=str(out)) from None
+    PENDING.add(str(stage))
     try:
         for name, data in files.items():
             _write(stage / name, data)
@@ -175,7 +193,9 @@ def write_set(out: str | os.PathLike, files: dict[str, str | bytes], family: tup
                     if name not in files and (out / name).is_file():
                         os.unlink(out / name)
                 os.rmdir(stage)
+            PENDING.discard(str(stage))
     except BaseException as err:
+        PENDING.discard(str(stage))
         shutil.rmtree(stage, ignore_errors=True)
         if isinstance(err, OSError) and not isinstance(err, OutputError):
             raise OutputError(f"--out: cannot write: {err.strerror or err} (expected a writable folder with "
