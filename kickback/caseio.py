@@ -427,6 +427,37 @@ def _clamps(ctx: _Context, raw: Any, where: KeyPath = ("clamp",)) -> tuple[Clamp
     return tuple(clamps)
 
 
+def value_problem(case: Case, path: str, value: float) -> str | None:
+    """Why ``value`` cannot stand at the key ``path`` of ``case`` (a sweep's or a band's end), or None.
+
+    The loader's own rule for the key: its condition (> 0, in (0, 1], …), the temperature range
+    and the magnitude bound; None when the key has no rule here.
+    """
+    from kickback.keypath import get_value
+
+    head, _, leaf = path.rpartition(".")
+    top = head.split("[", 1)[0].split(".", 1)[0]
+    tables = {"supply": _SUPPLY, "coil": _COIL, "switch": _SWITCH, "checks": _CHECKS}
+    if top in tables and "." not in head:
+        field = tables[top].get(leaf)
+    else:
+        try:
+            owner = get_value(case, head) if head else None
+        except (CaseError, AttributeError, IndexError, TypeError):
+            return None
+        field = _ELEMENTS.get(getattr(owner, "type", ""), {}).get(leaf)
+    if field is None or field.kind not in ("q", "n") or not math.isfinite(value):
+        return None if field is None or math.isfinite(value) else f"{value} is not a finite number"
+    check, text = _CONDITIONS[field.cond]
+    shown = format_quantity(value, field.unit) if field.kind == "q" else f"{value:g}"
+    if not check(value):
+        return f"must be {text}, got {shown} (expected {field.expected()})"
+    if field.kind == "q" and value != 0 and not MAGNITUDE[0] <= abs(value) <= MAGNITUDE[1]:
+        return (f"{shown} is outside the range kickback computes with ({MAGNITUDE[0]:g} to {MAGNITUDE[1]:g} "
+                f"{field.unit})")
+    return None
+
+
 def key_specs() -> tuple[dict, dict, dict]:
     """The case file's keys with their kinds and units: (tables, element types, switch-only keys).
 
@@ -517,4 +548,11 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
             raise ctx.error(("tolerance",), too_many)
 
         case = replace(case, tolerances=tolerances(ctx, doc["tolerance"], case))
+        for tol in case.tolerances:
+            for end, value in (("min", tol.low), ("max", tol.high)):
+                why = value_problem(case, tol.path, value) if tol.path != "coil_temperature" else (
+                    None if _CONDITIONS["T"][0](value) else f"must be {_CONDITIONS['T'][1]}, got "
+                    f"{format_quantity(value, 'K')}")
+                if why:
+                    raise ctx.error(("tolerance", tol.path), f"the band's {end} end {why}")
     return replace(case, notes=tuple(ctx.notes)) if ctx.notes else case

@@ -195,6 +195,7 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
 
     import numpy as np
 
+    from kickback.caseio import value_problem
     from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.sweeps import sweep_csv, sweep_table
@@ -208,6 +209,10 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
             if not np.all(np.isfinite(ax.values)):
                 _die(f"{c.source}: --vary: {ax.path}: FROM and TO must be finite numbers (got {ax.values[0]:g} "
                      f"and {ax.values[-1]:g})")
+            for end in (float(ax.values[0]), float(ax.values[-1])):
+                why = value_problem(c, ax.path, end)
+                if why:
+                    _die(f"{c.source}: --vary: {ax.path}: {why}")
         n = 1
         for ax in axes:
             n *= len(ax.values)
