@@ -263,6 +263,7 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
 
     c = _load(case)
     out = _out(out_dir)
+    _check_room_for_a_clamp(c)
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
         ch = run_choose(c, workers=workers, engine=engine)
@@ -280,6 +281,19 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
         _write_files(out, files, ("choose.json",) + _pictures("tradeoff"))
     click.echo(payload if as_json else choice_table(ch), nl=False)
     sys.exit(0 if ch.ranked else 1)
+
+
+def _check_room_for_a_clamp(c) -> None:
+    """Exit 2 when the derated switch voltage is not above the supply: no clamp can be chosen then."""
+    from kickback.studies.designs import allowed_voltage
+    from kickback.units import format_quantity
+
+    v_allow, vs = allowed_voltage(c), c.supply.voltage
+    if not v_allow > vs:
+        key = "switch.rated_voltage" if c.switch.rated_voltage is not None else "switch.breakdown_voltage"
+        _die(f"{c.source}: {key}: × checks.derating = {format_quantity(v_allow, 'V')} is not above the supply "
+             f"{format_quantity(vs, 'V')}, so no clamp can keep the switch within it (expected a derated rating "
+             "above the supply voltage)")
 
 
 @main.command()
@@ -335,6 +349,8 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
             study = run_tolerance(c, tol_samples, seed, workers=min(os.cpu_count() or 1, 8))
         if with_choose:
             import os
+
+            _check_room_for_a_clamp(c)
 
             from kickback.studies.choose import choose as run_choose
 

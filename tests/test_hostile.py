@@ -335,6 +335,8 @@ OPTIONS = [
     ("vary-out-of-range-index", ["sweep", "@", "--vary", "clamp[5].element[0].voltage=1V:2V:3"], ["clamp[5]"]),
     ("vary-text-key", ["sweep", "@", "--vary", "title=1:2:3"], ["title", "not a numeric"]),
     ("vary-wrong-unit", ["sweep", "@", "--vary", "coil.inductance=1V:2V:3"], ["--vary", "unit"]),
+    ("choose-rating-below-supply", ["choose", "$"], ["switch.rated_voltage", "not above the supply"]),
+    ("report-choose-rating-below-supply", ["report", "$", "--choose"], ["switch.rated_voltage"]),
     ("tolerance-without-section", ["tolerance", "#"], ["tolerance", "no [tolerance] section"]),
     ("report-tolerance-without-section", ["report", "#", "--tolerance", "5"], ["tolerance"]),
     ("new-bogus", ["new", "toaster"], ["toaster"]),
@@ -368,7 +370,8 @@ OPTIONS = [
 def test_bad_option(tmp_path, args, words):
     case = write(tmp_path, VALVE)
     plain = write(tmp_path, VALVE[:VALVE.index("# Demo tolerances")], "plain.toml")
-    args = [case if a == "@" else plain if a == "#" else a for a in args]
+    low = write(tmp_path, VALVE.replace('rated_voltage = "60 V"', 'rated_voltage = "1 pV"'), "low.toml")
+    args = [{"@": case, "#": plain, "$": low}.get(a, a) if isinstance(a, str) else a for a in args]
     status, out, err = invoke(args, cwd=tmp_path)
     assert_clean(status, out, err, 2, *words)
     assert not list(tmp_path.glob("*-report.html"))
