@@ -340,6 +340,13 @@ def read_trace(path, *, time_col: str | None = None, value_col: str | None = Non
         t, v = t[finite], v[finite]
     if t.size == 0:
         raise TraceError(source, "no numeric rows with finite values (expected numbers)")
+    from kickback.casebounds import MAGNITUDE
+
+    for k, x, unit in ((kt, t, "s"), (kv, v, vu[1])):
+        big = float(np.max(np.abs(x)))
+        if big > MAGNITUDE[1]:
+            raise TraceError(source, f"column {header[k]!r}: values up to {big:.3g} {unit} are outside the range "
+                                     f"kickback computes with (expected at most {MAGNITUDE[1]:g} {unit})")
     if t.size > 1 and np.any(np.diff(t) <= 0):
         k = int(np.nonzero(np.diff(t) <= 0)[0][0])
         raise TraceError(source, f"column {header[kt]!r}: time does not increase after row {k + 1} of "

@@ -389,6 +389,7 @@ TRACES = [
     ("nan-only", b"t [s],i [A]\nnan,nan\nnan,nan\n", "finite"),
     ("binary", bytes(range(256)) * 8, "no numeric rows"),
     ("too-large", b"t [s],i [A]\n" + b"0,0\n" * 1, "too large"),
+    ("huge-values", b"t [s],i [A]\n0,1e300\n1,2e300\n2,3e300\n", "outside the range"),
     ("fifo", None, "FIFO"),
     ("dev-zero", None, "character device"),
     ("directory", None, "directory"),
