@@ -157,6 +157,9 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
         cmp = run_compare(c)
     except KickbackError as err:
         _die(str(err))
+    own = cmp.own
+    if own.result is None:
+        _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
     payload = to_json(cmp.to_dict())
     if out_dir is not None:
         files = {"compare.json": payload}
@@ -166,9 +169,6 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
             files |= _figure_files("compare", comparison_figure(cmp))
         _write_files(out, files, ("compare.json",) + _pictures("compare"))
     click.echo(payload if as_json else comparison_table(cmp), nl=False)
-    own = cmp.own
-    if own.result is None:
-        _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
     sys.exit(0 if own.result.passed else 1)
 
 

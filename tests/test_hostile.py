@@ -641,3 +641,16 @@ def test_fifo_case_does_not_hang(tmp_path):
     proc = _spawn(["run", tmp_path / "pipe.toml"], tmp_path)
     stdout, stderr = proc.communicate(timeout=30)
     assert_clean(proc.returncode, stdout, stderr, 2, "pipe.toml", "FIFO")
+
+
+def test_compare_whose_own_clamp_fails_prints_and_writes_nothing(tmp_path, monkeypatch):
+    from types import SimpleNamespace
+
+    import kickback.studies.compare
+
+    failed = SimpleNamespace(own=SimpleNamespace(result=None, error="no path for the coil current"),
+                             to_dict=lambda: {})
+    monkeypatch.setattr(kickback.studies.compare, "compare", lambda case, **kw: failed)
+    status, out, err = invoke(["compare", write(tmp_path, VALVE), "--out", tmp_path / "out"], cwd=tmp_path)
+    assert_clean(status, out, err, 2, "case.toml", "own clamp", "no path for the coil current")
+    assert not (tmp_path / "out").exists()
