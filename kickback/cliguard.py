@@ -26,6 +26,8 @@ EXIT_BAD = 2
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, the shell's convention
 EXIT_TERMINATED = 143  # 128 + SIGTERM
 
+MAX_LINE = 1200  # characters of one message line
+
 _STATE = {"source": None, "active": False, "hook": False}
 
 
@@ -41,7 +43,10 @@ def current_source() -> str:
 def one_line(text: str) -> str:
     """``text`` on one line: control characters shown as escapes, newlines as spaces."""
     text = re.sub(r"\s*[\n\r\t]+\s*", " ", str(text))
-    return "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
+    text = "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
+    if len(text) > MAX_LINE:  # a 1 MB value quoted in a message: keep where and what was expected
+        text = f"{text[:MAX_LINE * 2 // 3]} … {text[-MAX_LINE // 3:]}"
+    return text
 
 
 def note(message: str) -> None:

@@ -50,6 +50,7 @@ def assert_clean(status, out, err, expected_status, *words, stdout_empty=True):
     assert "Traceback" not in err + out, err
     lines = [ln for ln in err.splitlines() if ln.strip() and not ln.startswith("note: ")]
     assert len(lines) == 1, f"expected one line on stderr, got {lines!r}"
+    assert len(lines[0]) < 2000, f"a line of {len(lines[0])} characters"
     for word in words:
         assert word in lines[0], f"{word!r} not in {lines[0]!r}"
     assert "\x1b" not in err and "\x07" not in err, repr(err)
@@ -117,6 +118,7 @@ CASE_FILES = [
     ("array-quantity", sub('"120 mH"', '["120 mH"]'), ["coil.inductance", "array"]),
     ("table-quantity", sub('"120 mH"', "{ value = 1 }"), ["coil.inductance", "table"]),
     ("date-quantity", sub('"120 mH"', "1979-05-27"), ["coil.inductance", "date"]),
+    ("megabyte-value", sub('"120 mH"', '"1 ' + "x" * 900_000 + '"'), ["coil.inductance", "expected a value in H"]),
     ("empty-string", sub('"120 mH"', '""'), ["coil.inductance", "empty"]),
     ("temperature-0.01K", sub("ideality = 1.9", 'ideality = 1.9\ntemperature = "0.01 K"'),
      ["temperature", "173.15 K"]),
