@@ -38,30 +38,41 @@ def read_text(path_or_text: str | os.PathLike[str], source: str | None) -> tuple
 def read_bounded(path: Path, name: str, limit: int, what: str) -> bytes:
     """The bytes of a regular file of at most ``limit`` bytes, or a CaseError saying why not.
 
-    The file type is checked before it is opened (a FIFO would block, /dev/zero never ends),
-    and at most ``limit + 1`` bytes are read (a file may grow after the check).
+    The file is opened without blocking (a FIFO would wait for a writer, /proc/kmsg for the
+    kernel) and its type checked on the open descriptor; at most ``limit + 1`` bytes are read
+    (/dev/zero never ends, a file may grow after the check).
     """
     try:
-        st = os.stat(path)
+        fd = os.open(path, os.O_RDONLY | os.O_NONBLOCK | getattr(os, "O_CLOEXEC", 0))
     except FileNotFoundError:
         raise CaseError(f"file not found (expected {what})", source=name) from None
     except OSError as err:
         raise CaseError(f"cannot read the file: {err.strerror or err} (expected {what})", source=name) from None
-    for test, kind in _KINDS:
-        if test(st.st_mode):
-            raise CaseError(f"is {kind}, not a regular file (expected {what})", source=name)
-    if st.st_size > limit:
-        raise CaseError(f"{st.st_size:,} bytes, too large (expected {what} of at most {limit:,} bytes)",
-                        source=name)
     try:
-        with open(path, "rb") as fh:
-            data = fh.read(limit + 1)
+        st = os.fstat(fd)
+        for test, kind in _KINDS:
+            if test(st.st_mode):
+                raise CaseError(f"is {kind}, not a regular file (expected {what})", source=name)
+        if st.st_size > limit:
+            raise CaseError(f"{st.st_size:,} bytes, too large (expected {what} of at most {limit:,} bytes)",
+                            source=name)
+        chunks, size = [], 0
+        while size <= limit:
+            chunk = os.read(fd, min(1 << 20, limit + 1 - size))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            size += len(chunk)
+    except BlockingIOError:
+        raise CaseError(f"reading would wait for data (expected {what}, a regular file)", source=name) from None
     except OSError as err:
         raise CaseError(f"cannot read the file: {err.strerror or err} (expected {what})", source=name) from None
-    if len(data) > limit:
+    finally:
+        os.close(fd)
+    if size > limit:
         raise CaseError(f"more than {limit:,} bytes, too large (expected {what} of at most {limit:,} bytes)",
                         source=name)
-    return data
+    return b"".join(chunks)
 
 
 def syntax_error(err: tomllib.TOMLDecodeError, text: str, source: str) -> CaseError:

@@ -236,6 +236,10 @@ def _path_kind(tmp_path: Path, kind: str) -> tuple[str, str]:
         return "/dev/zero", "character device"
     if kind == "/dev/urandom":
         return "/dev/urandom", "character device"
+    if kind == "link-to-dev-zero":
+        link = tmp_path / "zero.toml"
+        os.symlink("/dev/zero", link)
+        return str(link), "character device"
     if kind == "symlink-loop":
         loop = tmp_path / "loop.toml"
         os.symlink(loop, loop)
@@ -243,7 +247,8 @@ def _path_kind(tmp_path: Path, kind: str) -> tuple[str, str]:
     raise AssertionError(kind)
 
 
-PATH_KINDS = ("missing", "directory", "fifo", "under-a-file", "/dev/zero", "/dev/urandom", "symlink-loop")
+PATH_KINDS = ("missing", "directory", "fifo", "under-a-file", "/dev/zero", "/dev/urandom", "symlink-loop",
+              "link-to-dev-zero")
 
 
 @pytest.mark.parametrize("kind", PATH_KINDS)
