@@ -331,6 +331,7 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
         check_writable(target, "-o", folder=False)
     except OutputError as err:
         _die(str(err))
+    _report_date()  # a bad SOURCE_DATE_EPOCH fails here, before the work
     cmp = None
     try:
         if with_compare or c.options:
@@ -384,7 +385,11 @@ def _report_date() -> str:
     from datetime import UTC, datetime
 
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    when = datetime.fromtimestamp(int(epoch), UTC) if epoch and epoch.isdigit() else datetime.now(UTC)
+    try:
+        when = datetime.fromtimestamp(int(epoch), UTC) if epoch and epoch.isdigit() else datetime.now(UTC)
+    except (OverflowError, ValueError, OSError):
+        _die(f"SOURCE_DATE_EPOCH: {epoch[:40]!r} is not a date kickback can write (expected seconds since "
+             "1970-01-01, e.g. 1700000000)")
     return when.strftime("%Y-%m-%d %H:%M:%S UTC")
 
 

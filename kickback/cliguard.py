@@ -10,6 +10,7 @@ forked during a command ignore SIGINT and warnings; the parent stops them on Ctr
 
 from __future__ import annotations
 
+import logging
 import math
 import os
 import re
@@ -100,8 +101,8 @@ def _library_warnings(caught) -> None:
             note(f"debug: {w.category.__name__}: {w.message} ({w.filename}:{w.lineno})")
         return
     kinds = sorted({w.category.__name__ for w in other})
-    note(f"note: the numerical libraries raised {len(other)} warning(s) ({', '.join(kinds)}); kickback's own "
-         "checks decide the result, so they are not shown (KICKBACK_DEBUG=1 shows them)")
+    note(f"note: the libraries underneath (numpy, scipy, matplotlib) raised {len(other)} warning(s) "
+         f"({', '.join(kinds)}); they are not shown (KICKBACK_DEBUG=1 shows them)")
 
 
 def _message(err: BaseException) -> tuple[str, int]:
@@ -125,6 +126,18 @@ def _message(err: BaseException) -> tuple[str, int]:
         return f"{where}: {err.strerror or err} (expected a readable input and a writable output)", EXIT_BAD
     return (f"{src}: the case could not be solved: internal error ({type(err).__name__}: {err}); please report "
             "it with the case file (KICKBACK_DEBUG=1 shows the traceback)", EXIT_BAD)
+
+
+class _LogCollector(logging.Handler):
+    """Collects what libraries log (matplotlib's cache-folder message) instead of printing it."""
+
+    def __init__(self):
+        super().__init__(logging.WARNING)
+        self.records: list = []
+
+    def emit(self, record):
+        self.records.append(warnings.WarningMessage(record.getMessage(), UserWarning, record.pathname,
+                                                    record.lineno))
 
 
 class Guarded(click.Group):
@@ -159,6 +172,9 @@ class Guarded(click.Group):
             if main_thread else None
         _STATE["active"], _STATE["source"] = True, None
         caught: list = []
+        logs = _LogCollector()
+        root = logging.getLogger()
+        root.addHandler(logs)
         try:
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
@@ -175,6 +191,8 @@ class Guarded(click.Group):
                     sys.exit(status)
         finally:
             _STATE["active"] = False
+            root.removeHandler(logs)
+            caught = list(caught) + logs.records
             if old is not None:
                 signal.signal(signal.SIGINT, old[0])
                 signal.signal(signal.SIGTERM, old[1])

@@ -661,3 +661,26 @@ def test_compare_whose_own_clamp_fails_prints_and_writes_nothing(tmp_path, monke
     status, out, err = invoke(["compare", write(tmp_path, VALVE), "--out", tmp_path / "out"], cwd=tmp_path)
     assert_clean(status, out, err, 2, "case.toml", "own clamp", "no path for the coil current")
     assert not (tmp_path / "out").exists()
+
+
+def test_bad_source_date_epoch_is_refused_before_the_work(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "9" * 30)
+    status, out, err = invoke(["report", write(tmp_path, VALVE), "-o", tmp_path / "r.html"], cwd=tmp_path)
+    assert_clean(status, out, err, 2, "SOURCE_DATE_EPOCH", "seconds since 1970")
+    assert not (tmp_path / "r.html").exists()
+
+
+def test_library_log_messages_are_counted_not_printed(tmp_path, monkeypatch):
+    import logging
+
+    import kickback.simulation
+
+    real = kickback.simulation.simulate
+
+    def chatty(*args, **kwargs):
+        logging.getLogger("matplotlib").warning("Matplotlib created a temporary cache directory")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(kickback.simulation, "simulate", chatty)
+    status, out, err = invoke(["run", write(tmp_path, VALVE)], cwd=tmp_path)
+    assert status == 0 and "cache directory" not in err and "1 warning(s)" in err, err
