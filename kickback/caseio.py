@@ -411,6 +411,14 @@ def _clamps(ctx: _Context, raw: Any, where: KeyPath = ("clamp",)) -> tuple[Clamp
         if too_many:
             raise ctx.error(path + ("element",), too_many)
         elements = tuple(_element(ctx, path + ("element", j), e) for j, e in enumerate(v["element"]))
+        seen: dict[str, int] = {}
+        for j, e in enumerate(elements):
+            if e.name in seen:
+                raise ctx.error(path + ("element", j, "name"), f"element name {e.name!r} used twice in this clamp, "
+                                f"by element[{seen[e.name]}] and element[{j}] (expected unique names: checks are "
+                                "listed by name)")
+            if e.name:
+                seen[e.name] = j
         capacitors = [j for j, e in enumerate(elements) if e.type == "capacitor"]
         if len(capacitors) > 1:
             raise ctx.error(path + ("element", capacitors[1]), "a second capacitor in one chain (expected "

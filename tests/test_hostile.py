@@ -157,6 +157,7 @@ CASE_FILES = [
     ("escape-in-key", top('"a\\u001bb" = 1'), ["control character"]),
     ("escape-in-quantity", sub('"120 mH"', '"120 mH\\u001b"'), ["coil.inductance", "U+001B"]),
     ("duplicate-clamp-names", add(CLAMP.replace("[checks]", "")), ["clamp[1].name", "used twice"]),
+    ("duplicate-element-names", sub('name = "Z1"', 'name = "D1"'), ["clamp[0].element[1].name", "used twice"]),
     ("default-name-clash", lambda t: t.replace('name = "D1+Z1"', 'name = "clamp 2"') + "\n" + CLAMP.replace(
         'name = "D1+Z1"\n', ""), ["clamp", "used twice"]),
     ("33-clamps", lambda t: NO_CLAMP + "\n" + "".join(
