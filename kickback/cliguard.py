@@ -86,23 +86,49 @@ def _child_after_fork() -> None:
         warnings.simplefilter("ignore")
 
 
-def _library_warnings(caught) -> None:
-    """Say once, in our words, that numpy/scipy/matplotlib warned (KICKBACK_DEBUG shows them)."""
-    from kickback.errors import KickbackWarning
+class _Tally:
+    """Warnings and library log records of one command: counts by kind, the first few kept (bounded)."""
 
-    own = [w for w in caught if issubclass(w.category, KickbackWarning)]
-    for w in own:
-        note(f"warning: {w.message}")
-    other = [w for w in caught if not issubclass(w.category, KickbackWarning)]
-    if not other:
-        return
-    if os.environ.get("KICKBACK_DEBUG"):
-        for w in other:
-            note(f"debug: {w.category.__name__}: {w.message} ({w.filename}:{w.lineno})")
-        return
-    kinds = sorted({w.category.__name__ for w in other})
-    note(f"note: the libraries underneath (numpy, scipy, matplotlib) raised {len(other)} warning(s) "
-         f"({', '.join(kinds)}); they are not shown (KICKBACK_DEBUG=1 shows them)")
+    KEEP = 20
+
+    def __init__(self):
+        self.counts: dict[str, int] = {}
+        self.first: list[str] = []
+
+    def add(self, kind: str, text: str, where: str) -> None:
+        self.counts[kind] = self.counts.get(kind, 0) + 1
+        if len(self.first) < self.KEEP:
+            self.first.append(f"{kind}: {text} ({where})")
+
+    def showwarning(self, message, category, filename, lineno, file=None, line=None):
+        from kickback.errors import KickbackWarning
+
+        if issubclass(category, KickbackWarning):
+            note(f"warning: {message}")
+        else:
+            self.add(category.__name__, str(message), f"{filename}:{lineno}")
+
+    def report(self) -> None:
+        """Say once, in our words, that numpy/scipy/matplotlib warned (KICKBACK_DEBUG shows them)."""
+        if not self.counts:
+            return
+        if os.environ.get("KICKBACK_DEBUG"):
+            for line in self.first:
+                note(f"debug: {line}")
+        total = sum(self.counts.values())
+        note(f"note: the libraries underneath (numpy, scipy, matplotlib) raised {total} warning(s) "
+             f"({', '.join(sorted(self.counts))}); they are not shown (KICKBACK_DEBUG=1 shows them)")
+
+
+class _LogCollector(logging.Handler):
+    """Counts what libraries log (matplotlib's cache-folder message) instead of printing it."""
+
+    def __init__(self, tally: _Tally):
+        super().__init__(logging.WARNING)
+        self.tally = tally
+
+    def emit(self, record):
+        self.tally.add(f"{record.name} log", record.getMessage(), f"{record.pathname}:{record.lineno}")
 
 
 def _message(err: BaseException) -> tuple[str, int]:
@@ -126,18 +152,6 @@ def _message(err: BaseException) -> tuple[str, int]:
         return f"{where}: {err.strerror or err} (expected a readable input and a writable output)", EXIT_BAD
     return (f"{src}: the case could not be solved: internal error ({type(err).__name__}: {err}); please report "
             "it with the case file (KICKBACK_DEBUG=1 shows the traceback)", EXIT_BAD)
-
-
-class _LogCollector(logging.Handler):
-    """Collects what libraries log (matplotlib's cache-folder message) instead of printing it."""
-
-    def __init__(self):
-        super().__init__(logging.WARNING)
-        self.records: list = []
-
-    def emit(self, record):
-        self.records.append(warnings.WarningMessage(record.getMessage(), UserWarning, record.pathname,
-                                                    record.lineno))
 
 
 class Guarded(click.Group):
@@ -164,20 +178,21 @@ class Guarded(click.Group):
         sys.exit(rv if isinstance(rv, int) else 0)
 
     def invoke(self, ctx):
-        if not _STATE["hook"]:
+        if not _STATE["hook"] and hasattr(os, "register_at_fork"):
             os.register_at_fork(after_in_child=_child_after_fork)
             _STATE["hook"] = True
         main_thread = signal.getsignal(signal.SIGINT) is not None and _is_main_thread()
         old = (signal.signal(signal.SIGINT, _on_signal), signal.signal(signal.SIGTERM, _on_signal)) \
             if main_thread else None
         _STATE["active"], _STATE["source"] = True, None
-        caught: list = []
-        logs = _LogCollector()
+        tally = _Tally()
+        logs = _LogCollector(tally)
         root = logging.getLogger()
         root.addHandler(logs)
         try:
-            with warnings.catch_warnings(record=True) as caught:
+            with warnings.catch_warnings():
                 warnings.simplefilter("always")
+                warnings.showwarning = tally.showwarning
                 try:
                     return super().invoke(ctx)
                 except (SystemExit, click.exceptions.Exit, click.ClickException):
@@ -192,11 +207,10 @@ class Guarded(click.Group):
         finally:
             _STATE["active"] = False
             root.removeHandler(logs)
-            caught = list(caught) + logs.records
             if old is not None:
                 signal.signal(signal.SIGINT, old[0])
                 signal.signal(signal.SIGTERM, old[1])
-            _library_warnings(caught)
+            tally.report()
 
 
 def _is_main_thread() -> bool:

@@ -101,7 +101,7 @@ def check_writable(path: str | os.PathLike, option: str, *, folder: bool) -> Pat
 @contextlib.contextmanager
 def _signals_held():
     """Hold SIGINT and SIGTERM back (delivered on exit) so that a rename loop is never cut short."""
-    if threading.current_thread() is not threading.main_thread():
+    if threading.current_thread() is not threading.main_thread() or not hasattr(signal, "pthread_sigmask"):
         yield
         return
     held = {signal.SIGINT, signal.SIGTERM}
