@@ -86,6 +86,9 @@ def check_structure(doc: dict, fail) -> None:
             why = text_problem(node)
             if why and not why.endswith(f"at most {LIMITS['text']})"):
                 fail(path, why)
+            digit = next((c for c in node if c.isdigit() and not c.isascii()), None)
+            if digit and path and path[-1] not in ("title", "name"):
+                fail(path, f"holds the digit {digit!r} (U+{ord(digit):04X}) (expected ASCII digits 0-9 in a value)")
 
 
 def count_error(what: str, n: int, limit_key: str) -> str | None:

@@ -204,6 +204,9 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
     c = _load(case)
     out = _out(out_dir)
     try:
+        for v in varies:
+            if any(ch.isdigit() and not ch.isascii() for ch in v):
+                _die(f"{c.source}: --vary: {v!r} holds a digit other than 0-9 (expected ASCII digits)")
         axes = tuple(parse_vary(v, log) for v in varies)
         for ax in axes:
             if not np.all(np.isfinite(ax.values)):

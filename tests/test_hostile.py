@@ -101,8 +101,10 @@ CASE_FILES = [
     ("rkm", sub('"36 Ω"', '"3R6"'), ["coil.resistance", "RKM"]),
     ("meg", sub('"36 Ω"', '"1 megohm"'), ["coil.resistance", "meg"]),
     ("capital-K", sub('"36 Ω"', '"1 KΩ"'), ["coil.resistance", "kilo"]),
-    ("fullwidth-digits", sub('"120 mH"', '"\uff11\uff12\uff10 mH"'), ["coil.inductance", "cannot read"]),
-    ("arabic-digits", sub('"120 mH"', '"\u0661\u0662\u0660 mH"'), ["coil.inductance", "cannot read"]),
+    ("fullwidth-digits", sub('"120 mH"', '"\uff11\uff12\uff10 mH"'), ["coil.inductance", "ASCII digits"]),
+    ("arabic-digits", sub('"120 mH"', '"\u0661\u0662\u0660 mH"'), ["coil.inductance", "ASCII digits"]),
+    ("fullwidth-percent-band", sub('band = "10 %"', 'band = "\uff11\uff10 %"'),
+     ['tolerance."coil.inductance".band', "ASCII digits"]),
     ("nan-string", sub('"120 mH"', '"nan H"'), ["coil.inductance", "finite"]),
     ("nan-float", sub('"120 mH"', "nan"), ["coil.inductance", "finite"]),
     ("inf-float", sub('"120 mH"', "inf"), ["coil.inductance", "finite"]),
@@ -330,6 +332,7 @@ OPTIONS = [
     ("vary-too-many", ["sweep", "@", "--vary", "coil.inductance=1mH:2mH:1000000"], ["--vary"]),
     ("vary-product", ["sweep", "@", "--vary", "coil.inductance=1mH:2mH:2000", "--vary",
                       "supply.voltage=10V:20V:2000"], ["--vary", "at most 1,000,000"]),
+    ("vary-fullwidth-n", ["sweep", "@", "--vary", "coil.inductance=1mH:2mH:\uff15"], ["--vary", "ASCII"]),
     ("vary-nan", ["sweep", "@", "--vary", "checks.derating=nan:0.9:3"], ["--vary", "finite"]),
     ("vary-negative", ["sweep", "@", "--vary", "coil.inductance=-1mH:2mH:3"], ["--vary", "positive"]),
     ("vary-unknown-key", ["sweep", "@", "--vary", "coil.inductanse=1mH:2mH:3"], ["coil.inductanse"]),
@@ -685,3 +688,11 @@ def test_library_log_messages_are_counted_not_printed(tmp_path, monkeypatch):
     monkeypatch.setattr(kickback.simulation, "simulate", chatty)
     status, out, err = invoke(["run", write(tmp_path, VALVE)], cwd=tmp_path)
     assert status == 0 and "cache directory" not in err and "1 warning(s)" in err, err
+
+
+@pytest.mark.parametrize("text", ["\uff11\uff10 mH", "\u0661\u0660 mH", "1\u0660 mH"])
+def test_quantity_reader_takes_ascii_digits_only(text):
+    from kickback.units import UnitError, parse_quantity
+
+    with pytest.raises(UnitError, match="cannot read"):
+        parse_quantity(text, "H")
