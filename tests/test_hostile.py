@@ -630,6 +630,20 @@ def _spawn(args, cwd):
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
 
 
+def _wait_for_workers(pid: int, timeout: float = 60.0) -> None:
+    """Until the command runs its worker processes (its signal handlers are in place by then)."""
+    children = Path(f"/proc/{pid}/task/{pid}/children")
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        if not children.exists():
+            time.sleep(4)
+            return
+        if children.read_text().split():
+            time.sleep(0.5)
+            return
+        time.sleep(0.1)
+
+
 @pytest.mark.parametrize(("sig", "status", "word"), [(signal.SIGINT, 130, "interrupted"),
                                                      (signal.SIGTERM, 143, "terminated")], ids=("SIGINT", "SIGTERM"))
 def test_signal_during_a_sweep_with_workers(tmp_path, sig, status, word):
@@ -639,7 +653,7 @@ def test_signal_during_a_sweep_with_workers(tmp_path, sig, status, word):
     (out / "sweep.json").write_text("previous")
     proc = _spawn(["sweep", case, "--vary", "coil.inductance=50mH:200mH:400", "--engine", "detailed",
                    "--workers", "2", "--out", out], tmp_path)
-    time.sleep(4)
+    _wait_for_workers(proc.pid)
     os.killpg(proc.pid, sig)  # the whole group, as a terminal's Ctrl-C does
     stdout, stderr = proc.communicate(timeout=60)
     assert_clean(proc.returncode, stdout, stderr, status, word)
