@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from kickback import __version__
-from kickback.cliguard import FiniteFloatRange, Guarded, note, set_source
+from kickback.cliguard import FiniteFloatRange, Guarded, located, note, set_source
 from kickback.progress import with_progress as _with_progress
 
 TEMPLATES = ("relay", "valve", "motor")
@@ -28,10 +28,8 @@ def _die(message: str) -> None:
 
 
 def _fail(case, err) -> None:
-    """Exit 2 with a located message (a CaseError carries its file already)."""
-    from kickback.errors import CaseError
-
-    _die(str(err) if isinstance(err, CaseError) else f"{case.source}: {err}")
+    """Exit 2 with a located message (the case's file when the error names none)."""
+    _die(located(err, case.source))
 
 
 def _load(path: str):
@@ -156,7 +154,7 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
     try:
         cmp = run_compare(c)
     except KickbackError as err:
-        _die(str(err))
+        _die(located(err, c.source))
     own = cmp.own
     if own.result is None:
         _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
@@ -271,7 +269,7 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
     try:
         ch = run_choose(c, workers=workers, engine=engine)
     except CaseError as err:
-        _die(str(err))
+        _die(located(err, c.source))
     except SolverError as err:
         _die(f"{c.source}: --engine: {err}")
     payload = to_json(ch.to_dict())
@@ -436,7 +434,7 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
                             lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
                                                            engine=engine, recheck=recheck))
     except CaseError as err:
-        _die(str(err))
+        _die(located(err, c.source))
     except SolverError as err:
         _die(f"{c.source}: --engine: {err}")
     payload = to_json(tr.to_dict())
@@ -579,7 +577,7 @@ def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, va
                         value_unit=value_unit, trigger=t0, shunt=r_shunt, want="current")
         result = fit_trace(tr, kind=kind, supply=v, saturating=saturating)
     except KickbackError as err:
-        _die(str(err))
+        _die(located(err, trace))
     payload = to_json(result.to_dict())
     if out_dir is not None:
         files = {"fit.json": payload}

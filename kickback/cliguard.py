@@ -20,7 +20,7 @@ import warnings
 
 import click
 
-__all__ = ["Guarded", "FiniteFloatRange", "current_source", "note", "set_source"]
+__all__ = ["Guarded", "FiniteFloatRange", "current_source", "located", "note", "set_source"]
 
 #: exit statuses (README "Exit status"): 2 bad input or a case that cannot be solved
 EXIT_BAD = 2
@@ -131,6 +131,16 @@ class _LogCollector(logging.Handler):
         self.tally.add(f"{record.name} log", record.getMessage(), f"{record.pathname}:{record.lineno}")
 
 
+def located(err, source: str) -> str:
+    """The one-line text of a kickback error, with ``source`` as its file when it names none."""
+    if getattr(err, "source", None):
+        return str(err)
+    key, message = getattr(err, "key", None), getattr(err, "message", None)
+    if message is not None:  # a CaseError or UnitError raised without the file: name it here
+        return f"{source}: {key}: {message}" if key else f"{source}: {message}"
+    return f"{source}: {err}"
+
+
 def _message(err: BaseException) -> tuple[str, int]:
     """The line and exit status for an exception that reached the boundary."""
     from kickback.errors import KickbackError
@@ -139,7 +149,7 @@ def _message(err: BaseException) -> tuple[str, int]:
     if isinstance(err, KeyboardInterrupt):
         return "interrupted", EXIT_INTERRUPTED
     if isinstance(err, KickbackError):
-        return (str(err) if getattr(err, "source", None) else f"{src}: {err}"), EXIT_BAD
+        return located(err, src), EXIT_BAD
     if isinstance(err, MemoryError):
         return (f"{src}: out of memory (expected a case of ordinary size; see the bounds in the README)",
                 EXIT_BAD)

@@ -449,6 +449,10 @@ FAULTS = [
     ("library-value-error", ValueError("`first_step` exceeds bounds."), 2, ["case.toml", "internal error"]),
     ("multi-line-message", RuntimeError("line one\nline two"), 2, ["line one line two"]),
     ("ctrl-c", KeyboardInterrupt(), 130, ["interrupted"]),
+    ("case-error-without-file", __import__("kickback.errors").errors.CaseError("bad value", key="coil.x"), 2,
+     ["case.toml: coil.x: bad value"]),
+    ("solver-error", __import__("kickback.errors").errors.SolverError("no path for the current"), 2,
+     ["case.toml: no path for the current"]),
 ]
 
 
