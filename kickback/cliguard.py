@@ -50,9 +50,22 @@ def one_line(text: str) -> str:
     return text
 
 
+#: library phrases that reach messages through an engine's error, in kickback's words
+_LIBRARY_WORDS = {
+    "Required step size is less than spacing between numbers.":
+        "the step size fell below the resolution of the time axis (the case is too stiff or ill-posed there)",
+    "`first_step` exceeds bounds.": "the first step is longer than the phase",
+    "math range error": "a value overflowed the floating-point range",
+    "float division by zero": "a division by zero",
+}
+
+
 def note(message: str) -> None:
-    """A one-line note on stderr."""
-    click.echo(one_line(message), err=True)
+    """A one-line note on stderr, library phrases put in kickback's words."""
+    text = one_line(message)
+    for phrase, words in _LIBRARY_WORDS.items():
+        text = text.replace(phrase, words)
+    click.echo(text, err=True)
 
 
 def _stop_workers() -> None:

@@ -449,6 +449,9 @@ FAULTS = [
     ("library-value-error", ValueError("`first_step` exceeds bounds."), 2, ["case.toml", "internal error"]),
     ("multi-line-message", RuntimeError("line one\nline two"), 2, ["line one line two"]),
     ("ctrl-c", KeyboardInterrupt(), 130, ["interrupted"]),
+    ("scipy-step-message", __import__("kickback.errors").errors.SolverError(
+        "the solver failed in the decay phase at t = 1e-05 s: Required step size is less than spacing between "
+        "numbers."), 2, ["decay phase", "resolution of the time axis"]),
     ("case-error-without-file", __import__("kickback.errors").errors.CaseError("bad value", key="coil.x"), 2,
      ["case.toml: coil.x: bad value"]),
     ("solver-error", __import__("kickback.errors").errors.SolverError("no path for the current"), 2,
