@@ -199,3 +199,4 @@ class Case:
     tolerances: tuple[Tolerance, ...] = ()  # spreads for the tolerance study
     drive: Drive | None = None  # repetitive switching
     motor: Motor | None = None  # the coil is a DC motor winding
+    notes: tuple[str, ...] = ()  # loader notes for stderr (a plain number far from its key's usual range)

@@ -31,6 +31,7 @@ from kickback.case import (
     Supply,
     Switch,
 )
+from kickback.casebounds import MAGNITUDE, check_structure, count_error, plain_number_note, text_problem
 from kickback.casetext import read_text as _read
 from kickback.casetext import syntax_error as _syntax_error
 from kickback.errors import CaseError
@@ -48,6 +49,8 @@ _CONDITIONS = {
     "(0,1]": (lambda v: 0 < v <= 1, "in (0, 1]"),
     "[0,1)": (lambda v: 0 <= v < 1, "in [0, 1)"),
     "[0.5,10]": (lambda v: 0.5 <= v <= 10, "in [0.5, 10]"),
+    # the device laws' range (silicon parts, -100 °C to 300 °C); 0.01 K would overflow V_T = kT/q
+    "T": (lambda v: 173.15 <= v <= 573.15, "between 173.15 K and 573.15 K (-100 °C to 300 °C)"),
     "": (lambda v: True, ""),
 }
 
@@ -84,10 +87,10 @@ def _q(unit: str, cond: str = ">0", required: bool = False) -> _Field:
 
 _STRING, _BOOL = _Field("s"), _Field("b")
 #: a percentage string, "80 %" (a fraction 0.8 is written as a plain number)
-_PERCENT = re.compile(r"\s*(\d+(?:\.\d*)?|\.\d+)\s*%\s*")
+_PERCENT = re.compile(r"\s*([0-9]+(?:\.[0-9]*)?|\.[0-9]+)\s*%\s*")
 #: a Foster thermal network of a part: stage resistances and time constants, and its Tj limit
 _THERMAL = {"thermal_resistance": _Field("l", "K/W", ">0"), "thermal_tau": _Field("l", "s", ">0"),
-            "max_junction_temperature": _q("K")}
+            "max_junction_temperature": _q("K", "T")}
 
 _SUPPLY = {"voltage": _q("V", required=True)}
 _COIL = {"inductance": _q("H", required=True), "resistance": _q("Ω", ">=0", True),
@@ -107,7 +110,8 @@ _CLAMP = {"name": _STRING, "across": _Field("c", required=True, choices=ACROSS),
           "element": _Field("t", required=True)}
 _CHECKS = {"derating": _Field("f", cond="(0,1]"), "energy_derating": _Field("f", cond="(0,1]"),
            "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
-           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K"), "min_margin": _Field("f", cond="[0,1)")}
+           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K", "T"),
+           "min_margin": _Field("f", cond="[0,1)")}
 _TOP = ("title", "supply", "coil", "switch", "clamp", "option", "checks", "tolerance", "drive", "motor")
 #: plain SI numbers: V·s/rad, rad/s, kg·m², N·m·s/rad, N·m
 _MOTOR = {"back_emf_constant": _Field("n", cond=">0", required=True), "speed": _Field("n", cond=">=0"),
@@ -127,7 +131,7 @@ _TVS_DATASHEET = {"standoff_voltage": _q("V"), "breakdown_voltage": _q("V"), "cl
 _ELEMENTS: dict[str, dict[str, _Field]] = {
     "diode": {"model": _Field("c", choices=("shockley", "constant-drop")), "forward_voltage": _q("V"),
               "at_current": _q("A"), "ideality": _Field("n", cond="[0.5,10]"),
-              "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"), "temperature": _q("K"),
+              "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"), "temperature": _q("K", "T"),
               "rated_reverse_voltage": _q("V"), "rated_surge_current": _q("A"), "rated_average_current": _q("A")},
     "zener": {**_BREAKDOWN, "voltage": _q("V", required=True), "impedance": _q("Ω", ">=0")},
     "tvs": {**_BREAKDOWN, **_TVS_DATASHEET, "bidirectional": _BOOL},
@@ -155,6 +159,7 @@ class _Context:
     def __init__(self, source: str, text: str):
         self.source = source
         self.where = LineLocator(text)
+        self.notes: list[str] = []
 
     def error(self, path: KeyPath, message: str) -> CaseError:
         line = self.where.line_of(path) or 1
@@ -177,6 +182,13 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
         except UnitError as err:
             raise ctx.error(path, err.message) from None
         shown = format_quantity(value, field.unit)
+        if value != 0 and not MAGNITUDE[0] <= abs(value) <= MAGNITUDE[1]:
+            zero = ", or 0" if _CONDITIONS[field.cond][0](0.0) else ""
+            raise ctx.error(path, f"{shown} is outside the range kickback computes with ({MAGNITUDE[0]:g} to "
+                                  f"{MAGNITUDE[1]:g} {field.unit}{zero}; expected {field.expected()})")
+        why = plain_number_note(format_path(path), raw, value, field.unit)
+        if why and _CONDITIONS[field.cond][0](value):
+            ctx.notes.append(str(ctx.error(path, why)))
     elif field.kind == "f" and isinstance(raw, str):
         m = _PERCENT.fullmatch(raw)
         if m is None:
@@ -185,6 +197,10 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
     elif field.kind in ("n", "f"):
         if isinstance(raw, bool) or not isinstance(raw, int | float):
             raise wrong()
+        if isinstance(raw, int) and abs(raw) > 2**1023:
+            raise ctx.error(path, f"an integer of about {raw.bit_length() * 0.30103:.0f} digits "
+                                  "is not a finite number in floating point "
+                                  f"(expected {field.expected()})")
         if not math.isfinite(raw):
             raise ctx.error(path, f"{raw} is not a finite number (expected {field.expected()})")
         value, shown = float(raw), f"{raw}"
@@ -213,6 +229,11 @@ def _value(ctx: _Context, path: KeyPath, field: _Field, raw: Any) -> Any:
     else:
         if not isinstance(raw, bool if field.kind == "b" else str):
             raise wrong()
+        if field.kind == "s":
+            why = text_problem(raw)
+            if why:
+                raise ctx.error(path, why)
+            return " ".join(raw.split())  # one line in tables, CSV cells and the report
         return raw
     check, text = _CONDITIONS[field.cond]
     if not check(value):
@@ -336,6 +357,11 @@ def _check_diode(ctx: _Context, path: KeyPath, v: dict[str, Any]) -> None:
     if not point:
         return
     vf, i_at, rs = v["forward_voltage"], v["at_current"], v.get("series_resistance", 0.0)
+    if "ideality" in v and (vf - rs * i_at) / (v["ideality"] * thermal_voltage(v.get("temperature", T25))) > 700:
+        # I_s = I/(exp(V_j/(n V_T)) - 1) would underflow below 1e-300 A: not a diode (Shockley law)
+        raise ctx.error(path + ("forward_voltage",), f"{format_quantity(vf, 'V')} at "
+                        f"{format_quantity(i_at, 'A')} with ideality {v['ideality']:g} is no junction drop "
+                        "(expected a diode's forward voltage, e.g. '0.85 V')")
     if rs * i_at >= vf:
         raise ctx.error(path + ("series_resistance",), "series_resistance × at_current = "
                         f"{format_quantity(rs * i_at, 'V')} leaves no junction drop below forward_voltage "
@@ -379,6 +405,9 @@ def _options(ctx: _Context, raw: Any) -> tuple[Option, ...]:
         return ()
     if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
         raise ctx.error(("option",), f"got {_kind_of(raw)} (expected an array of tables [[option]])")
+    too_many = count_error("[[option]] tables", len(raw), "options")
+    if too_many:
+        raise ctx.error(("option",), too_many)
     out = []
     for i, item in enumerate(raw):
         v = _table(ctx, ("option", i), item, _OPTION, "[[option]]")
@@ -395,17 +424,38 @@ def _clamps(ctx: _Context, raw: Any, where: KeyPath = ("clamp",)) -> tuple[Clamp
         return ()
     if not isinstance(raw, list) or not all(isinstance(item, dict) for item in raw):
         raise ctx.error(where, f"got {_kind_of(raw)} (expected an array of tables [[{format_path(where)}]])")
+    too_many = count_error(f"[[{format_path(where)}]] tables", len(raw), "clamps")
+    if too_many:
+        raise ctx.error(where, too_many)
     clamps = []
     for i, item in enumerate(raw):
         path: KeyPath = where + (i,)
         v = _table(ctx, path, item, _CLAMP, "[[clamp]]")
+        too_many = count_error("elements in one chain", len(v["element"]), "elements")
+        if too_many:
+            raise ctx.error(path + ("element",), too_many)
         elements = tuple(_element(ctx, path + ("element", j), e) for j, e in enumerate(v["element"]))
+        seen: dict[str, int] = {}
+        for j, e in enumerate(elements):
+            if e.name in seen:
+                raise ctx.error(path + ("element", j, "name"), f"element name {e.name!r} used twice in this clamp, "
+                                f"by element[{seen[e.name]}] and element[{j}] (expected unique names: checks are "
+                                "listed by name)")
+            if e.name:
+                seen[e.name] = j
         capacitors = [j for j, e in enumerate(elements) if e.type == "capacitor"]
         if len(capacitors) > 1:
             raise ctx.error(path + ("element", capacitors[1]), "a second capacitor in one chain (expected "
                             f"at most one; the first is {elements[capacitors[0]].path})")
         clamps.append(Clamp(name=v.get("name", f"clamp {i + 1}"), across=v["across"], elements=elements,
                             path=format_path(path)))
+    names = [c.name for c in clamps]
+    for i, name in enumerate(names):
+        if name in names[:i]:
+            first = names.index(name)
+            key = where + (i, "name") if "name" in raw[i] else where + (first, "name")
+            raise ctx.error(key, f"clamp name {name!r} used twice, by {clamps[first].path} and {clamps[i].path} "
+                                 "(expected unique names: results and checks are listed by name)")
     return tuple(clamps)
 
 
@@ -451,11 +501,22 @@ def load_case(path_or_text: str | os.PathLike[str], *, source: str | None = None
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise _syntax_error(err, text, name) from None
+    except RecursionError:
+        raise CaseError("arrays or inline tables nested too deeply (expected at most 16 levels)", source=name,
+                        key="TOML syntax") from None
+    except ValueError as err:  # an integer of more than 4300 digits
+        raise CaseError(f"a value cannot be read: {str(err).split(';')[0]} (expected ordinary numbers)",
+                        source=name, key="TOML syntax") from None
     return _build(_Context(name, text), doc, name, text)
 
 
 def _build(ctx: _Context, doc: dict[str, Any], name: str, text: str) -> Case:
     """Validate a parsed case document into a :class:`Case` (every rule of the case file)."""
+
+    def fail(path: KeyPath, message: str):
+        raise ctx.error(path, message) if path else CaseError(message, source=name)
+
+    check_structure(doc, fail)
     top = {key: _Field("s") for key in _TOP}
     for key in doc:
         if key not in _TOP:
@@ -486,5 +547,17 @@ def _build(ctx: _Context, doc: dict[str, Any], name: str, text: str) -> Case:
     if "tolerance" in doc:
         from kickback.caseio_tol import tolerances
 
+        too_many = count_error("[tolerance] entries", len(doc["tolerance"]), "tolerances") \
+            if isinstance(doc["tolerance"], dict) else None
+        if too_many:
+            raise ctx.error(("tolerance",), too_many)
+
         case = replace(case, tolerances=tolerances(ctx, doc["tolerance"], case))
-    return case
+        for tol in case.tolerances:  # the other keys' band ends pass the loader itself (casevary)
+            if tol.path != "coil_temperature":
+                continue
+            for end, value in (("min", tol.low), ("max", tol.high)):
+                if not _CONDITIONS["T"][0](value):
+                    raise ctx.error(("tolerance", tol.path), f"the band's {end} end must be {_CONDITIONS['T'][1]}, "
+                                    f"got {format_quantity(value, 'K')}")
+    return replace(case, notes=tuple(ctx.notes)) if ctx.notes else case

@@ -8,43 +8,67 @@ from pathlib import Path
 import click
 
 from kickback import __version__
+from kickback.cliguard import FiniteFloatRange, Guarded, located, note, set_source
+from kickback.progress import with_progress as _with_progress
 
 TEMPLATES = ("relay", "valve", "motor")
 ENGINES = ("auto", "batch", "detailed")
+#: largest --seed: numpy's generators take any non-negative integer; 2**63 - 1 keeps it one machine word
+SEED = click.IntRange(0, 2**63 - 1)
+#: largest number of sweep points (all axes together) and of tolerance samples: memory stays below ~1 GiB
+MAX_POINTS = 1_000_000
 ENGINE_HELP = ("auto: the batch engine (exact piecewise-linear, all variants at once) unless the case has a "
                "feature it does not cover (thermal networks, saturating coil, [drive], motor), then the detailed "
                "engine; batch or detailed: that engine.")
 
 
 def _die(message: str) -> None:
-    click.echo(message, err=True)
+    note(message)
     sys.exit(2)
 
 
 def _fail(case, err) -> None:
-    """Exit 2 with a located message (a CaseError carries its file already)."""
-    from kickback.errors import CaseError
-
-    _die(str(err) if isinstance(err, CaseError) else f"{case.source}: {err}")
+    """Exit 2 with a located message (the case's file when the error names none)."""
+    _die(located(err, case.source))
 
 
 def _load(path: str):
+    """The case, or exit 2 with its one-line message; notes on plain numbers far from their key's
+    usual range go to stderr."""
     from kickback.caseio import load_case
     from kickback.errors import CaseError
 
+    set_source(path)
     try:
-        return load_case(Path(path))
+        case = load_case(Path(path))
     except CaseError as err:
+        _die(str(err))
+    for line in getattr(case, "notes", ()):
+        note(f"note: {line}")
+    return case
+
+
+def _out(out_dir: str | None, option: str = "--out") -> Path | None:
+    """The output folder, checked before any work (exit 2 when it cannot be written)."""
+    from kickback.errors import OutputError
+    from kickback.outputs.files import check_writable
+
+    if out_dir is None:
+        return None
+    try:
+        return check_writable(out_dir, option, folder=True)
+    except OutputError as err:
         _die(str(err))
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.group(cls=Guarded, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="kickback")
 def main() -> None:
     """kickback: the turn-off transient of a transistor-switched coil and its clamp.
 
     Peak switch-node voltage, where the coil's energy goes, decay and release times, and
-    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input.
+    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input (or a case that
+    cannot be solved), 130 interrupted.
     """
 
 
@@ -53,7 +77,7 @@ def main() -> None:
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON (the result contract) only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write result.json, waveforms.csv and plots into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the waveform plots.")
-@click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
+@click.option("--rtol", type=FiniteFloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
               help="Relative tolerance of the detailed engine.")
 @click.option("--measured", metavar="TRACE.csv", default=None,
               help="A measured coil current (unit A) or switch-node voltage (unit V) with t = 0 at "
@@ -67,6 +91,7 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     from kickback.simulation import simulate
 
     c = _load(case)
+    out = _out(out_dir)
     trace = _read_measured(measured) if measured is not None else None
     try:
         result = simulate(c, rtol=rtol)
@@ -74,8 +99,8 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
         _fail(c, err)
     payload = to_json(result.to_dict())
     extra, report = ({}, None) if trace is None else _measured_outputs(result, trace, plot=not no_plot)
-    if out_dir is not None:
-        _write_outputs(result, payload, Path(out_dir), plot=not no_plot, extra=extra)
+    if out is not None:
+        _write_outputs(result, payload, out, plot=not no_plot, extra=extra)
     if as_json:
         click.echo(payload, nl=False)
     else:
@@ -105,7 +130,7 @@ def _write_outputs(result, payload: str, out: Path, plot: bool, extra: dict | No
             for fmt in ("png", "svg"):
                 files[f"pwm.{fmt}"] = figure_bytes(pfig, fmt)
     files |= extra or {}
-    _write_files(out, files)
+    _write_files(out, files, ("result.json", "waveforms.csv") + _pictures("waveforms", "pwm", "measured"))
 
 
 @main.command()
@@ -125,10 +150,14 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
     from kickback.studies.compare import compare as run_compare
 
     c = _load(case)
+    out = _out(out_dir)
     try:
         cmp = run_compare(c)
     except KickbackError as err:
-        _die(str(err))
+        _die(located(err, c.source))
+    own = cmp.own
+    if own.result is None:
+        _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
     payload = to_json(cmp.to_dict())
     if out_dir is not None:
         files = {"compare.json": payload}
@@ -136,11 +165,8 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
             from kickback.outputs.comparison import comparison_figure
 
             files |= _figure_files("compare", comparison_figure(cmp))
-        _write_files(Path(out_dir), files)
+        _write_files(out, files, ("compare.json",) + _pictures("compare"))
     click.echo(payload if as_json else comparison_table(cmp), nl=False)
-    own = cmp.own
-    if own.result is None:
-        _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
     sys.exit(0 if own.result.passed else 1)
 
 
@@ -165,17 +191,29 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
     """
     import os
 
+    import numpy as np
+
     from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.sweeps import sweep_csv, sweep_table
     from kickback.studies.sweep import parse_vary, run_sweep
 
     c = _load(case)
+    out = _out(out_dir)
     try:
+        for v in varies:
+            if any(ch.isdigit() and not ch.isascii() for ch in v):
+                _die(f"{c.source}: --vary: {v!r} holds a digit other than 0-9 (expected ASCII digits)")
         axes = tuple(parse_vary(v, log, case=c) for v in varies)
+        for ax in axes:
+            if not np.all(np.isfinite(ax.values)):
+                _die(f"{c.source}: --vary: {ax.path}: FROM and TO must be finite numbers (got {ax.values[0]:g} "
+                     f"and {ax.values[-1]:g})")
         n = 1
         for ax in axes:
             n *= len(ax.values)
+        if n > MAX_POINTS:
+            _die(f"{c.source}: --vary: {n} points in all (expected at most {MAX_POINTS:,} points over every axis)")
         workers = workers or min(os.cpu_count() or 1, 8)
         sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress,
                                                                   engine=engine))
@@ -190,7 +228,7 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
             from kickback.outputs.sweeps import sweep_figure
 
             files |= _figure_files("sweep", sweep_figure(sw))
-        _write_files(Path(out_dir), files)
+        _write_files(out, files, ("sweep.csv", "sweep.json") + _pictures("sweep"))
     click.echo(payload if as_json else sweep_table(sw), nl=False)
     sys.exit(0 if sw.passed.all() else 1)
 
@@ -220,11 +258,13 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
     from kickback.studies.choose import choose as run_choose
 
     c = _load(case)
+    out = _out(out_dir)
+    _check_room_for_a_clamp(c)
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
         ch = run_choose(c, workers=workers, engine=engine)
     except CaseError as err:
-        _die(str(err))
+        _die(located(err, c.source))
     except SolverError as err:
         _die(f"{c.source}: --engine: {err}")
     payload = to_json(ch.to_dict())
@@ -234,9 +274,22 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
             from kickback.outputs.choice import tradeoff_figure
 
             files |= _figure_files("tradeoff", tradeoff_figure(ch))
-        _write_files(Path(out_dir), files)
+        _write_files(out, files, ("choose.json",) + _pictures("tradeoff"))
     click.echo(payload if as_json else choice_table(ch), nl=False)
     sys.exit(0 if ch.ranked else 1)
+
+
+def _check_room_for_a_clamp(c) -> None:
+    """Exit 2 when the derated switch voltage is not above the supply: no clamp can be chosen then."""
+    from kickback.studies.designs import allowed_voltage
+    from kickback.units import format_quantity
+
+    v_allow, vs = allowed_voltage(c), c.supply.voltage
+    if not v_allow > vs:
+        key = "switch.rated_voltage" if c.switch.rated_voltage is not None else "switch.breakdown_voltage"
+        _die(f"{c.source}: {key}: × checks.derating = {format_quantity(v_allow, 'V')} is not above the supply "
+             f"{format_quantity(vs, 'V')}, so no clamp can keep the switch within it (expected a derated rating "
+             "above the supply voltage)")
 
 
 @main.command()
@@ -247,10 +300,10 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
               help="Add the clamp comparison (always added when the case has [[option]] sets).")
 @click.option("--tolerance", "tol_samples", type=click.IntRange(1, 1_000_000), default=None, metavar="N",
               help="Add a tolerance study of N samples (the case needs a [tolerance] section).")
-@click.option("--seed", type=int, default=1, show_default=True, help="Random state of the tolerance study.")
+@click.option("--seed", type=SEED, default=1, show_default=True, help="Random state of the tolerance study.")
 @click.option("--choose", "with_choose", is_flag=True, help="Add the clamp choice and its trade-off picture.")
 @click.option("--measured", metavar="TRACE.csv", help="Add a measured trace over the simulated waveform.")
-@click.option("--rtol", type=click.FloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
+@click.option("--rtol", type=FiniteFloatRange(1e-12, 1e-3), default=1e-5, show_default=True,
               help="Relative tolerance of the detailed engine.")
 def report(case: str, output: str | None, with_compare: bool, tol_samples, seed: int, with_choose: bool,
            measured, rtol: float) -> None:
@@ -261,17 +314,20 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
     """
     import shlex
 
-    from kickback.errors import KickbackError
-    from kickback.outputs.files import write_atomic
+    from kickback.errors import KickbackError, OutputError
+    from kickback.outputs.files import check_writable, write_atomic
     from kickback.outputs.report import report_html, verdict
     from kickback.simulation import simulate
     from kickback.studies.compare import compare as run_compare
 
     c = _load(case)
     trace = _read_measured(measured) if measured else None
-    target = Path(output) if output else Path.cwd() / f"{Path(case).stem}-report.html"
-    if target.is_dir():
-        _die(f"{target}: -o must name a file (expected FILE.html, found a folder)")
+    target = Path(output) if output is not None else Path.cwd() / f"{Path(case).stem}-report.html"
+    try:
+        check_writable(target, "-o", folder=False)
+    except OutputError as err:
+        _die(str(err))
+    _report_date()  # a bad SOURCE_DATE_EPOCH fails here, before the work
     cmp = None
     try:
         if with_compare or c.options:
@@ -290,6 +346,8 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
             study = run_tolerance(c, tol_samples, seed, workers=min(os.cpu_count() or 1, 8))
         if with_choose:
             import os
+
+            _check_room_for_a_clamp(c)
 
             from kickback.studies.choose import choose as run_choose
 
@@ -323,15 +381,19 @@ def _report_date() -> str:
     from datetime import UTC, datetime
 
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    when = datetime.fromtimestamp(int(epoch), UTC) if epoch and epoch.isdigit() else datetime.now(UTC)
+    try:
+        when = datetime.fromtimestamp(int(epoch), UTC) if epoch and epoch.isdigit() else datetime.now(UTC)
+    except (OverflowError, ValueError, OSError):
+        _die(f"SOURCE_DATE_EPOCH: {epoch[:40]!r} is not a date kickback can write (expected seconds since "
+             "1970-01-01, e.g. 1700000000)")
     return when.strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 @main.command()
 @click.argument("case", metavar="CASE.toml")
-@click.option("--samples", type=click.IntRange(1, 10_000_000), default=1000, show_default=True,
+@click.option("--samples", type=click.IntRange(1, MAX_POINTS), default=1000, show_default=True,
               help="Monte Carlo samples.")
-@click.option("--seed", type=int, default=1, show_default=True, help="Random state: same seed, same numbers.")
+@click.option("--seed", type=SEED, default=1, show_default=True, help="Random state: same seed, same numbers.")
 @click.option("--workers", type=click.IntRange(1, 64), default=None,
               help="Worker processes (default: the machine's cores).")
 @click.option("--engine", type=click.Choice(ENGINES), default="auto", show_default=True, help=ENGINE_HELP)
@@ -357,6 +419,7 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
     from kickback.studies.tolerance import run_tolerance
 
     c = _load(case)
+    out = _out(out_dir)
     if not c.tolerances:
         _die(f"{c.source}: tolerance: the case has no [tolerance] section (expected at least one toleranced "
              'value, e.g. [tolerance."coil.inductance"] band = "10 %")')
@@ -366,7 +429,7 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
                             lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
                                                            engine=engine, recheck=recheck))
     except CaseError as err:
-        _die(str(err))
+        _die(located(err, c.source))
     except SolverError as err:
         _die(f"{c.source}: --engine: {err}")
     payload = to_json(tr.to_dict())
@@ -376,7 +439,7 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
             from kickback.outputs.tolerances import tolerance_figure
 
             files |= _figure_files("tolerance", tolerance_figure(tr))
-        _write_files(Path(out_dir), files)
+        _write_files(out, files, ("tolerance.json", "samples.csv") + _pictures("tolerance"))
     click.echo(payload if as_json else tolerance_table(tr), nl=False)
     sys.exit(0 if tr.passed.all() else 1)
 
@@ -388,28 +451,16 @@ def _figure_files(stem: str, fig) -> dict:
     return {f"{stem}.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
 
 
-def _with_progress(label: str, n: int, run):
-    """``run(progress)`` with a progress bar on stderr for long runs (``progress(n_done)``)."""
-    if n < 10:
-        return run(None)
-    with click.progressbar(length=n, label=label, file=sys.stderr) as bar:
-        done = [0]
-
-        def progress(k):
-            bar.update(k - done[0])
-            done[0] = k
-
-        return run(progress)
+def _pictures(*stems: str) -> tuple[str, ...]:
+    return tuple(f"{stem}.{fmt}" for stem in stems for fmt in ("png", "svg"))
 
 
-def _write_files(out: Path, files: dict) -> None:
-    from kickback.outputs.files import write_atomic
+def _write_files(out: Path, files: dict, family: tuple[str, ...] = ()) -> None:
+    """Write the run's files into ``out`` as one set (all or none; see outputs.files.write_set)."""
+    from kickback.outputs.files import write_set
 
-    if out.exists() and not out.is_dir():
-        _die(f"{out}: --out must name a directory (expected a folder, found a file)")
-    for name, data in files.items():
-        write_atomic(out / name, data)
-    click.echo(f"wrote {', '.join(str(out / n) for n in files)}", err=True)
+    paths = write_set(out, files, family)
+    click.echo(f"wrote {', '.join(str(p) for p in paths)}", err=True)
 
 
 # ---- measured traces: `run --measured` and `fit` -------------------------------------------------
@@ -510,6 +561,8 @@ def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, va
     from kickback.studies.fit import fit_trace
     from kickback.traceio import read_trace
 
+    set_source(trace)
+    out = _out(out_dir)
     if saturating and kind != "rise":
         _die(f"{trace}: --saturating: fits a rise only (expected --kind rise)")
     v = _quantity_option(trace, "--supply", supply, "V")
@@ -534,7 +587,7 @@ def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, va
         result = fit_trace(tr, kind=kind, supply=v, saturating=saturating, shunt=r_shunt,
                            clamp_resistance=r_clamp)
     except KickbackError as err:
-        _die(str(err))
+        _die(located(err, trace))
     payload = to_json(result.to_dict())
     if out_dir is not None:
         files = {"fit.json": payload}
@@ -544,10 +597,10 @@ def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, va
 
             fig = fit_figure(result)
             files |= {f"fit.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
-        _write_files(Path(out_dir), files)
+        _write_files(out, files, ("fit.json",) + _pictures("fit"))
     click.echo(f"trace: {tr.source}, time {tr.time_column!r}, current {tr.value_column!r}", err=True)
-    for note in result.notes:
-        click.echo(f"note: {note}", err=True)
+    for line in result.notes:
+        note(f"note: {line}")
     click.echo(payload if as_json else fit_table(result), nl=False)
 
 

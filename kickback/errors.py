@@ -34,3 +34,19 @@ class CaseError(KickbackError, ValueError):
 
 class SolverError(KickbackError, RuntimeError):
     """The engine could not finish a case; the message says why."""
+
+
+class OutputError(KickbackError, OSError):
+    """An output file or folder cannot be written; the message names it and what was expected."""
+
+    def __init__(self, message: str, *, source: str | None = None):
+        self.message = message
+        self.source = source
+        super().__init__(f"{source}: {message}" if source else message)
+
+    def __str__(self) -> str:
+        return f"{self.source}: {self.message}" if self.source else self.message
+
+
+class KickbackWarning(UserWarning):
+    """Something the user should know that is not an error; the CLI prints it as one line."""

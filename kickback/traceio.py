@@ -24,6 +24,9 @@ from kickback.units import UnitError, parse_quantity
 
 __all__ = ["Trace", "TraceError", "read_trace", "unit_scale"]
 
+#: bounds of a trace file (README "Bounds"): bytes and rows (a long oscilloscope record, decimated)
+MAX_TRACE_BYTES = 64 << 20
+MAX_TRACE_ROWS = 2_000_000
 QUANTITIES = {"s": "time", "A": "current", "V": "voltage"}
 _UNIT_ALIASES = {"sec": "s", "secs": "s", "second": "s", "seconds": "s", "amp": "A", "amps": "A",
                  "volt": "V", "volts": "V"}
@@ -157,14 +160,21 @@ def _numeric_block(rows: list[list[str]], decimal_comma: bool):
 
 
 def _read_table(path: Path, source: str):
+    from kickback.casetext import read_bounded
+    from kickback.errors import CaseError
+
+    if not path.exists():
+        raise TraceError(source, "no such file (expected a CSV trace of time and current or voltage)")
     try:
-        text = path.read_text(encoding="utf-8-sig", errors="replace")
-    except FileNotFoundError:
-        raise TraceError(source, "no such file (expected a CSV trace of time and current or voltage)") from None
-    except OSError as err:
-        raise TraceError(source, f"cannot read the file ({err.strerror})") from None
+        data = read_bounded(path, source, MAX_TRACE_BYTES, "a CSV trace of time and current or voltage")
+    except CaseError as err:
+        raise TraceError(source, err.message) from None
+    text = data.decode("utf-8", errors="replace").removeprefix("\ufeff")
     lines = [ln for ln in text.splitlines()
              if ln.strip() and not ln.lstrip().startswith(_COMMENT_PREFIXES)]
+    if len(lines) > MAX_TRACE_ROWS:
+        raise TraceError(source, f"{len(lines):,} rows, too many (expected at most {MAX_TRACE_ROWS:,} rows; "
+                                 "decimate the trace)")
     best = None
     for delim in _DELIMITERS:
         rows = _split(lines, delim)
@@ -330,6 +340,13 @@ def read_trace(path, *, time_col: str | None = None, value_col: str | None = Non
         t, v = t[finite], v[finite]
     if t.size == 0:
         raise TraceError(source, "no numeric rows with finite values (expected numbers)")
+    from kickback.casebounds import MAGNITUDE
+
+    for k, x, unit in ((kt, t, "s"), (kv, v, vu[1])):
+        big = float(np.max(np.abs(x)))
+        if big > MAGNITUDE[1]:
+            raise TraceError(source, f"column {header[k]!r}: values up to {big:.3g} {unit} are outside the range "
+                                     f"kickback computes with (expected at most {MAGNITUDE[1]:g} {unit})")
     if t.size > 1 and np.any(np.diff(t) <= 0):
         k = int(np.nonzero(np.diff(t) <= 0)[0][0])
         raise TraceError(source, f"column {header[kt]!r}: time does not increase after row {k + 1} of "

@@ -48,10 +48,10 @@ _KELVIN_AT_0_CELSIUS = Decimal("273.15")  # exact by definition of the degree Ce
 _EXAMPLES = {"V": "24 V", "A": "500 mA", "Ω": "4.7 kΩ", "H": "80 mH", "F": "220 pF", "s": "200 ns",
              "W": "600 W", "J": "30 mJ", "Hz": "20 kHz", "K": "25 °C", "K/W": "2.5 K/W"}
 
-_NUMBER = r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
+_NUMBER = r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"  # ASCII digits only: no "１０"
 _QUANTITY_RE = re.compile(rf"(?P<num>{_NUMBER})\s*(?P<unit>.*)", re.DOTALL)
 # resistor/capacitor code with the prefix letter as decimal mark: 4k7, 2R2, R47, 1n5, 4K7Ω
-_RKM_RE = re.compile(r"[+-]?(?P<int>\d*)(?P<letter>[RrKkMGTmunpfµμ])(?P<frac>\d+)\s*\S*")
+_RKM_RE = re.compile(r"[+-]?(?P<int>[0-9]*)(?P<letter>[RrKkMGTmunpfµμ])(?P<frac>[0-9]+)\s*\S*")
 _NONFINITE_RE = re.compile(r"[+-]?(?:nan|inf(?:inity)?)\b.*", re.IGNORECASE | re.DOTALL)
 _UNIT_TOKEN_RE = re.compile(r"(?:[^\W\d_]|°|/)+")
 
@@ -211,6 +211,10 @@ def parse_quantity(value: object, unit: str, *, key: str | None = None) -> float
             raise UnitError(f"expected a number or a string, got a boolean ({_expected(unit)})")
         if isinstance(value, str):
             result = _parse_text(value, unit)
+        elif isinstance(value, int) and abs(value) > 2**1023:
+            raise UnitError(f"an integer of about {value.bit_length() * 0.30103:.0f} digits "
+                            "is not a finite number in floating point "
+                            f"({_expected(unit)})")
         elif isinstance(value, Real):
             try:
                 result = float(value) + 0.0

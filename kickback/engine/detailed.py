@@ -212,6 +212,9 @@ class PhaseRunner:
         c = self.c
         pe = self._pin_events()
         evs = list(events) + pe + ([self.ev_peak] if c.capacitive and c.pin is None else [])
+        if kw.get("first_step") is not None and 0 < t_end - self.t < 2 * kw["first_step"]:
+            # a phase shorter than the step guessed from the fall time (a fast decay after a slow fall)
+            kw = {**kw, "first_step": (t_end - self.t) / 2}
         try:
             # scipy's step-size predictor divides by the error norm, which an exactly integrated
             # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
