@@ -117,6 +117,8 @@ def _resolve(case: Case, path: str) -> str:
             raise CaseError(f"does not apply to a {kind} element (expected one of: "
                             f"{', '.join(k for k, f in elements[kind].items() if f.kind in _NUMERIC)})", key=path)
     else:
+        if name == "title" and len(parts) == 1:
+            raise CaseError("'title' is not a numeric value (expected a key holding one number)", key=path)
         if name not in tables or len(parts) != 2 or index is not None or parts[1][1] is not None:
             raise CaseError(f"no key {path!r} in the case file (expected TABLE.KEY with TABLE one of "
                             f"{', '.join(tables)}, or clamp[I].element[J].KEY)", key=path)
