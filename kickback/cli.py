@@ -73,6 +73,8 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     except KickbackError as err:
         _fail(c, err)
     payload = to_json(result.to_dict())
+    if not result.audit.passed:
+        _audit_failed(c, result, payload if as_json else None)
     extra, report = ({}, None) if trace is None else _measured_outputs(result, trace, plot=not no_plot)
     if out_dir is not None:
         _write_outputs(result, payload, Path(out_dir), plot=not no_plot, extra=extra)
@@ -85,6 +87,18 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     for finding in result.figures.findings:
         click.echo(f"warning: {finding}", err=True)
     sys.exit(0 if result.passed else 1)
+
+
+def _audit_failed(case, result, payload: str | None) -> None:
+    """Exit 2: the result failed its audit (kickback.audit), so it gets no PASS or FAIL. The
+    findings go to stderr; with --json the result object (``"pass": null`` and its ``"audit"``)
+    still goes to stdout."""
+    if payload is not None:
+        click.echo(payload, nl=False)
+    lines = [f"error: {case.source}: the result failed its audit, no verdict given "
+             f"({result.waveforms.engine} engine):"] + [f"  - {x}" for x in result.audit.findings]
+    click.echo("\n".join(lines), err=True)
+    sys.exit(2)
 
 
 def _write_outputs(result, payload: str, out: Path, plot: bool, extra: dict | None = None) -> None:
