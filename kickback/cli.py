@@ -72,9 +72,11 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
         result = simulate(c, rtol=rtol)
     except KickbackError as err:
         _fail(c, err)
-    payload = to_json(result.to_dict())
     if not result.audit.passed:
-        _audit_failed(c, result, payload if as_json else None)
+        from kickback.outputs.jsonout import audit_failed_json
+
+        _audit_failed(c, result, audit_failed_json(result.to_dict()) if as_json else None)
+    payload = to_json(result.to_dict())
     extra, report = ({}, None) if trace is None else _measured_outputs(result, trace, plot=not no_plot)
     if out_dir is not None:
         _write_outputs(result, payload, Path(out_dir), plot=not no_plot, extra=extra)

@@ -15,8 +15,9 @@ from kickback.cli import main
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 
+# DESIGN.md §6, plus "audit" (issue 14: what the result was checked for before its verdict)
 CONTRACT_TOP = {"version", "title", "coil", "switch", "supply", "clamps", "left_in_capacitors_J",
-                "energy_balance_error", "checks", "pass"}
+                "energy_balance_error", "checks", "pass", "audit"}
 
 
 def run(*args):
