@@ -136,8 +136,12 @@ def compare(d: dict, b: dict) -> dict:
         if x is None and y is None:
             continue
         diffs[name] = math.inf if (x is None) != (y is None) else _rel(x, y)
+    # energies relative to the larger of the two, floored at a share of the energy put in: 1e-3
+    # where both are exact; with a fit, 1e-2 (a varistor's fit is coarse far below its knee, where
+    # it passes a few nJ of a mJ transient)
+    floor = 1e-2 if d["fitted"] else 1e-3
     for name in ENERGIES:
-        diffs[name] = _rel(fd[name], fb[name], 1e-3 * e_in)
+        diffs[name] = _rel(fd[name], fb[name], floor * e_in)
     worse = sorted(k for k, v in diffs.items() if not v <= tol)
     flip = False
     if d["passed"] is not None and b["passed"] is not None and d["passed"] != b["passed"]:
