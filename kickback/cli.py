@@ -44,7 +44,8 @@ def main() -> None:
     """kickback: the turn-off transient of a transistor-switched coil and its clamp.
 
     Peak switch-node voltage, where the coil's energy goes, decay and release times, and
-    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input.
+    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input (or a result
+    that fails its own audit: no verdict is given).
     """
 
 
@@ -60,7 +61,11 @@ def main() -> None:
                    "turn-off: overlay it (measured.png/svg with --out) and print the differences.")
 def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: float,
         measured: str | None) -> None:
-    """Simulate one turn-off of CASE and check it against the ratings."""
+    """Simulate one turn-off of CASE and check it against the ratings.
+
+    The result is audited first (energy ledger, no negative dissipation, every check the ratings
+    call for, finite figures); a result that fails its audit gets no verdict: exit status 2.
+    """
     from kickback.errors import KickbackError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.table import result_table
@@ -157,6 +162,8 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
     own = cmp.own
     if own.result is None:
         _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
+    if not own.result.audit.passed:
+        _audit_failed(c, own.result, None)
     sys.exit(0 if own.result.passed else 1)
 
 
@@ -297,6 +304,8 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
             result = cmp.own.result
         else:
             result = simulate(c, rtol=rtol)
+        if not result.audit.passed:
+            _audit_failed(c, result, None)  # no review file with a verdict the result has not earned
         study = choice = None
         if tol_samples:
             import os

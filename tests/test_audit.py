@@ -196,6 +196,15 @@ def test_run_exits_2_on_a_missing_check(monkeypatch, case_file):
     assert "missing check: DZ: diode 1: reverse voltage" in res.stderr
 
 
+@pytest.mark.parametrize("command", ["report", "compare"])
+def test_report_and_compare_exit_2_without_a_verdict(monkeypatch, case_file, tmp_path, command):
+    _corrupt_figures(monkeypatch, avalanche_energy_J=-0.05)
+    args = [command, str(case_file)] + (["-o", str(tmp_path / "r.html")] if command == "report" else [])
+    res = CliRunner().invoke(main, args)
+    assert res.exit_code == 2 and "failed its audit" in res.stderr
+    assert not (tmp_path / "r.html").exists()
+
+
 # --- the studies: solved again on the other engine, or unsolved -----------------------------------
 
 VOLTS = [20.0, 24.0, 28.0]
