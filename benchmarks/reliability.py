@@ -106,7 +106,7 @@ def main(argv=None) -> int:
     ap.add_argument("--cases", type=int, default=10_000, help="cases to draw (default 10000)")
     ap.add_argument("--start", type=int, default=0, help="first seed (default 0)")
     ap.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
-    ap.add_argument("--limit", type=float, default=10.0, help="seconds before a case is killed (default 10)")
+    ap.add_argument("--limit", type=float, default=5.0, help="seconds before a case is killed (default 5)")
     ap.add_argument("--log", type=Path, default=None, help="JSON-lines record of every solve (resumes)")
     ap.add_argument("--save", type=Path, default=None, help="write each failing case's TOML here")
     args = ap.parse_args(argv)
