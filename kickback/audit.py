@@ -261,11 +261,12 @@ def audit_result(result) -> Audit:
 
 
 def audit_many(many) -> list[tuple[str, ...]]:
-    """Audit every simulated variant of a :class:`~kickback.studies.many.ManyResult`; the
-    findings per variant (a variant not simulated has none: it has no verdict anyway)."""
+    """Audit every simulated variant of a :class:`~kickback.studies.many.ManyResult` (status
+    other than "failed"); the findings per variant (a variant not simulated has none: it has no
+    verdict anyway)."""
     from kickback.engine.batch_params import value_getter
 
     n = many.n
     present = {name: np.asarray(c.applies, bool) for name, c in many.checks.items()}
     get = value_getter(many.case, many.variations, n)
-    return audit_columns(many.case, many.figures, present, get, n, rows=np.nonzero(many.ok)[0])
+    return audit_columns(many.case, many.figures, present, get, n, rows=np.nonzero(many.status != "failed")[0])

@@ -238,6 +238,15 @@ def test_batch_audit_failure_is_solved_on_the_detailed_engine(monkeypatch, case)
     assert pts.passed[1] == ref.passed
 
 
+def test_simulate_many_gives_no_verdict_to_an_audit_failed_variant(monkeypatch, case):
+    from kickback.studies.many import simulate_many
+
+    _corrupt_batch(monkeypatch, 1)
+    many = simulate_many(case, {"supply.voltage": VOLTS}, workers=1)
+    assert list(many.status) == ["ok", "audit failed", "ok"]
+    assert not many.passed[1] and "negative dissipation: switch avalanche" in many.message[1]
+
+
 def test_unsolved_on_both_engines_gets_no_verdict(monkeypatch, case):
     from kickback.studies.sweep import Axis, run_sweep
 

@@ -56,7 +56,7 @@ def _batch(case):
     from kickback.studies.many import simulate_many
 
     m = simulate_many(case, workers=1)
-    if not m.ok[0]:
+    if m.status[0] == "failed":  # not simulated ("audit failed" is judged below)
         raise SolverError(f"batch engine: {m.message[0]}")
     c = m.figures
 

@@ -276,7 +276,7 @@ def from_many(case: Case, many) -> Points:
     """A :class:`~kickback.studies.many.ManyResult` as :class:`Points`."""
     f = many.figures
     n = many.n
-    ok = many.ok
+    ok = many.status != "failed"  # simulated ("audit failed" rows too: evaluate() settles them)
     figs = {name: np.asarray(f[col], float).copy() for name, col in _BATCH.items()}
     total = np.where(ok, 0.0, np.nan)
     for k in range(len(case.clamps)):
