@@ -83,7 +83,7 @@ def summarize(records: list[dict], n_cases: int) -> str:
                 continue
             over = [d for v, d in vals if v > c_tol(fitted)]
             worst = vals[0][0]
-            lines.append(f"    {name:22s} worst {worst:9.3g}  over {len(over):4d}" +
+            lines.append(f"    {name:22s} worst {worst:9.3g} (case {vals[0][1]['seed']:5d})  over {len(over):4d}" +
                          (f"   seeds {_seeds(over)}" if over else ""))
     return "\n".join(lines) + "\n"
 
