@@ -67,8 +67,8 @@ def main() -> None:
     """kickback: the turn-off transient of a transistor-switched coil and its clamp.
 
     Peak switch-node voltage, where the coil's energy goes, decay and release times, and
-    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input (or a case that
-    cannot be solved), 130 interrupted.
+    rating checks. Exit status: 0 all checks pass, 1 a check fails, 2 bad input, a case that
+    cannot be solved, or a result that fails its own audit (no verdict is given), 130 interrupted.
     """
 
 
@@ -84,7 +84,11 @@ def main() -> None:
                    "turn-off: overlay it (measured.png/svg with --out) and print the differences.")
 def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: float,
         measured: str | None) -> None:
-    """Simulate one turn-off of CASE and check it against the ratings."""
+    """Simulate one turn-off of CASE and check it against the ratings.
+
+    The result is audited first (energy ledger, no negative dissipation, every check the ratings
+    call for, finite figures); a result that fails its audit gets no verdict: exit status 2.
+    """
     from kickback.errors import KickbackError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.table import result_table
@@ -97,6 +101,10 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
         result = simulate(c, rtol=rtol)
     except KickbackError as err:
         _fail(c, err)
+    if not result.audit.passed:
+        from kickback.outputs.jsonout import audit_failed_json
+
+        _audit_failed(c, result, audit_failed_json(result.to_dict()) if as_json else None)
     payload = to_json(result.to_dict())
     extra, report = ({}, None) if trace is None else _measured_outputs(result, trace, plot=not no_plot)
     if out is not None:
@@ -110,6 +118,17 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     for finding in result.figures.findings:
         click.echo(f"warning: {finding}", err=True)
     sys.exit(0 if result.passed else 1)
+
+
+def _audit_failed(case, result, payload: str | None) -> None:
+    """Exit 2: the result failed its audit (kickback.audit), so it gets no PASS or FAIL. The
+    findings go to stderr; with --json the result object (``"pass": null`` and its ``"audit"``)
+    still goes to stdout."""
+    if payload is not None:
+        click.echo(payload, nl=False)
+    click.echo(f"error: {case.source}: the result failed its audit, no verdict given "
+               f"({result.waveforms.engine} engine): " + "; ".join(result.audit.findings), err=True)
+    sys.exit(2)
 
 
 def _write_outputs(result, payload: str, out: Path, plot: bool, extra: dict | None = None) -> None:
@@ -158,6 +177,8 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
     own = cmp.own
     if own.result is None:
         _die(f"{c.source}: the case's own clamp cannot be simulated: {own.error}")
+    if not own.result.audit.passed:
+        _audit_failed(c, own.result, None)
     payload = to_json(cmp.to_dict())
     if out_dir is not None:
         files = {"compare.json": payload}
@@ -337,6 +358,8 @@ def report(case: str, output: str | None, with_compare: bool, tol_samples, seed:
             result = cmp.own.result
         else:
             result = simulate(c, rtol=rtol)
+        if not result.audit.passed:
+            _audit_failed(c, result, None)  # no review file with a verdict the result has not earned
         study = choice = None
         if tol_samples:
             import os

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 from kickback import __version__
 from kickback.case import Case
@@ -23,7 +24,9 @@ class Result:
     figures : Figures
     checks : tuple of Check
     waveforms : Waveforms
-    passed : bool — every check passes
+    passed : bool or None — every check passes; None when the result failed its audit
+        (:mod:`kickback.audit`): such a result carries no verdict
+    audit : Audit — ledger, dissipations, the checks the ratings call for, finite figures
     """
 
     case: Case
@@ -32,8 +35,19 @@ class Result:
     waveforms: Waveforms = field(repr=False)
     pwm: tuple = ()  # PwmFigures per duty of the case's [drive]
 
+    @cached_property
+    def audit(self):
+        """The audit of this result (:func:`kickback.audit.audit_result`)."""
+        from kickback.audit import audit_result
+
+        return audit_result(self)
+
     @property
-    def passed(self) -> bool:
+    def passed(self) -> bool | None:
+        """Every check passes (True) or one fails (False); None when the audit failed: the
+        figures are not trusted, so no verdict is given."""
+        if not self.audit.passed:
+            return None
         return all(ck.passed for ck in self.checks)
 
     def to_dict(self) -> dict:
@@ -76,6 +90,7 @@ class Result:
             "checks": [ck.to_dict() for ck in self.checks],
             "pass": self.passed,
             "models": list(f.models),
+            "audit": self.audit.to_dict(),
         } | ({"pwm": [p.to_dict() for p in self.pwm]} if self.pwm else {})
 
     def details(self) -> dict:

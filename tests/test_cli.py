@@ -15,10 +15,11 @@ from kickback.cli import main
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 
+# DESIGN.md §6, plus "audit" (issue 14: what the result was checked for before its verdict)
 CONTRACT_TOP = {"version", "title", "coil", "switch", "supply", "clamps", "left_in_capacitors_J",
                 "energy_balance_error", "checks", "pass"}
 #: keys added to DESIGN §6 (issue 20): the models list, element names, check units
-ADDED_TOP = {"models"}
+ADDED_TOP = {"models", "audit"}
 
 
 def run(*args):

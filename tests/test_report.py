@@ -419,7 +419,13 @@ def test_verdict_words():
     assert verdict(result)[0] == "PASS"
     from dataclasses import replace
 
-    assert verdict(replace(result, checks=()))[0] == "NOT CHECKED"
+    # the valve's ratings call for its checks: without them the result fails its audit
+    assert verdict(replace(result, checks=()))[0] == "NO VERDICT"
+    bare = load_case('title = "no ratings (demo data)"\n[supply]\nvoltage = "24 V"\n[coil]\ninductance = "0.1 H"\n'
+                     'resistance = "48 Ω"\n[switch]\ntype = "ideal"\n[[clamp]]\nname = "D"\nacross = "coil"\n'
+                     '[[clamp.element]]\ntype = "diode"\nmodel = "constant-drop"\nforward_voltage = "0.7 V"\n',
+                     source="bare.toml")
+    assert verdict(simulate(bare))[0] == "NOT CHECKED", "a case with no ratings and no limits"
 
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")

@@ -103,7 +103,7 @@ def plot_result(result, ax=None):
     axes["current"].legend(fontsize=8, loc="upper right")
     if "edge current" in axes:
         axes["edge current"].legend(fontsize=8, loc="center right")
-    verdict = "PASS" if result.passed else "FAIL"
+    verdict = "NO VERDICT (audit failed)" if result.passed is None else ("PASS" if result.passed else "FAIL")
     fig.suptitle(f"{result.case.title} — {verdict}", fontsize=11)
     return fig, axes
 

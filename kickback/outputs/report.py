@@ -128,6 +128,8 @@ def verdict(result) -> tuple[str, str, str]:
     """(word, css class, one line) of the overall verdict."""
     checks = result.checks
     failing = [c for c in checks if not c.passed]
+    if result.passed is None:
+        return "NO VERDICT", "unchecked", "the result failed its audit: " + "; ".join(result.audit.findings)
     if not checks:
         return "NOT CHECKED", "unchecked", "the case gives no ratings and no limits: nothing was checked"
     if failing:

@@ -108,8 +108,12 @@ def result_table(result) -> str:
     else:
         lines.append("  no ratings given: nothing to check")
     n_fail = sum(not ck.passed for ck in result.checks)
-    verdict = "PASS" if result.passed else f"FAIL ({n_fail} of {len(result.checks)} checks fail)"
+    if result.passed is None:
+        verdict = "none — the result failed its audit:"
+    else:
+        verdict = "PASS" if result.passed else f"FAIL ({n_fail} of {len(result.checks)} checks fail)"
     lines += ["", f"verdict: {verdict}"]
+    lines += [f"  - {x}" for x in result.audit.findings]
     if f.findings:
         lines += ["", "findings"] + [f"  - {x}" for x in f.findings]
     lines += ["", "models"] + [f"  - {x}" for x in f.models]

@@ -39,9 +39,11 @@ class ManyResult:
     figures : dict — figure name → float array; NaN: the time does not occur, or the variant
         was not simulated (see ``status``)
     checks : dict — check name ("part: quantity") → :class:`CheckColumn`
-    passed : bool array — every applicable check passes (False for a variant not simulated)
-    status : str array — "ok" or "failed"
-    message : str array — why a variant failed ("" when ok)
+    passed : bool array — every applicable check passes (False for a variant not simulated, and
+        for one whose result failed its audit: that variant has no verdict, see ``status``)
+    status : str array — "ok", "failed" (not simulated) or "audit failed" (simulated, but the
+        result failed :mod:`kickback.audit`: its figures are kept for diagnosis, not trusted)
+    message : str array — why a variant failed or what its audit found ("" when ok)
     fits : tuple of str — the piecewise-linear fits of nonlinear laws used (empty: exact models)
     """
 
@@ -118,6 +120,8 @@ def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CH
     CaseError — an unknown key path, a non-numeric key, or value arrays of unequal length.
     """
     variations = variations or {}
+    from kickback.audit import audit_many
+
     var, n = normalize_variations(case, variations)
     cols, ok, why, fits = run_columns(case, var, chunk=chunk, progress=progress, workers=workers)
     get = value_getter(case, var, n)
@@ -126,7 +130,15 @@ def simulate_many(case: Case, variations: dict | None = None, *, chunk: int = CH
     for c in checks.values():
         passed &= np.where(c.applies, c.passed, True)
     status = np.where(ok, "ok", "failed")
-    return ManyResult(case, var, cols, checks, passed, status, why.astype(str), tuple(fits))
+    res = ManyResult(case, var, cols, checks, passed, status, why.astype(str), tuple(fits))
+    found = audit_many(res)
+    bad = np.array([bool(f) for f in found], bool)
+    if bad.any():  # no verdict for a variant whose result fails its audit
+        message = res.message.astype(object)
+        message[bad] = ["result failed its audit: " + "; ".join(f) for f, b in zip(found, bad, strict=True) if b]
+        res = dataclasses.replace(res, passed=passed & ~bad, status=np.where(bad, "audit failed", status),
+                                  message=message.astype(str))
+    return res
 
 
 def grid(variations: dict) -> dict[str, np.ndarray]:

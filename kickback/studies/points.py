@@ -15,11 +15,18 @@ runs:
 A variant the batch engine could not simulate (a reason in its status) is run again by the
 detailed engine, up to :data:`RETRY_MAX` of them per call, so the reference engine has the last
 word on what cannot be simulated.
+
+Every simulated variant is audited (:mod:`kickback.audit`: ledger, negative dissipation, the
+checks its ratings call for, finite figures) before it gets a verdict. A variant that fails the
+audit is solved again on the other engine (up to :data:`RETRY_MAX` per call; the batch engine only
+where it covers the case); if that result fails its audit too, or cannot be had, the variant is
+unsolved: no verdict, no figures, its error says why. :attr:`Points.note` says how many and on
+which engine.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -67,6 +74,11 @@ class Points:
     fits : tuple of str — piecewise-linear fits of nonlinear laws the batch engine used
     note : str — why the detailed engine ran where the batch engine was asked for ("" otherwise)
     retried : int — variants the batch engine could not simulate, run again by the detailed one
+    findings : object array or None — per variant, the audit findings of the engine that ran it
+        (an empty tuple: it passed)
+    audit_failed : int — variants whose result failed the audit of the first engine
+    audit_solved : int — of those, solved again on ``audit_engine`` with a passing audit
+    audit_engine : str — the engine that solved them again ("" when none did)
     """
 
     engine: str
@@ -77,10 +89,19 @@ class Points:
     fits: tuple = ()
     note: str = ""
     retried: int = 0
+    findings: np.ndarray | None = None
+    audit_failed: int = 0
+    audit_solved: int = 0
+    audit_engine: str = ""
 
     @property
     def n(self) -> int:
         return int(self.passed.size)
+
+    @property
+    def audit_note(self) -> str:
+        """How many variants failed their audit, how many another engine solved ("" when none)."""
+        return audit_note(self.audit_failed, self.audit_solved, self.audit_engine)
 
     def failing(self, k: int) -> list[str]:
         """Names of the checks variant k fails."""
@@ -147,24 +168,109 @@ def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto"
     CaseError — an unknown key path, a non-numeric key or value arrays of unequal length
     SolverError — ``engine="batch"`` for a case the batch engine does not cover
     """
-    from kickback.figures_batch import CHUNK, normalize_variations
+    from kickback.figures_batch import normalize_variations
+    from kickback.studies.many import batch_unsupported
 
     var, n = normalize_variations(case, variations or {})
     case = _with_first_values(case, var)
     used, note = pick_engine(case, engine)
     if used == "detailed":
         pts = _detailed(case, var, n, workers=workers, progress=progress)
-        return Points(pts.engine, pts.figures, pts.checks, pts.passed, pts.errors, note=note)
+        pts = replace(pts, note=note)
+        audit_bad = _audit_failed(pts)
+        before = {int(k): pts.findings[k] for k in audit_bad}
+        redo = audit_bad[:retry] if batch_unsupported(case) is None else audit_bad[:0]
+        if redo.size:
+            pts = _replace_rows(pts, redo, _batch(case, _take(var, redo), redo.size, chunk), count=False)
+        return _settle(pts, audit_bad, redo, "detailed", "batch", before)
+    step = None if progress is None else (lambda done, _n: progress(done))
+    pts = _batch(case, var, n, chunk, progress=step)
+    bad = np.nonzero(pts.errors != None)[0][:retry]  # noqa: E711 - elementwise on an object array
+    audit_bad = _audit_failed(pts)
+    before = {int(k): pts.findings[k] for k in audit_bad}
+    redo = audit_bad[:retry]
+    rows = np.union1d(bad, redo).astype(int)
+    if rows.size:
+        again = _detailed(case, _take(var, rows), rows.size, workers=workers)
+        pts = _replace_rows(pts, rows, again, count=False)
+        pts = replace(pts, retried=pts.retried + int(bad.size))
+    return _settle(pts, audit_bad, redo, "batch", "detailed", before)
+
+
+def audit_note(failed: int, solved: int, other: str) -> str:
+    """The sentence a study prints about variants that failed their audit ("" when none did)."""
+    if not failed:
+        return ""
+    text = f"{failed} variant(s) failed the audit of their result (kickback.audit)"
+    if solved:
+        text += f": {solved} solved again on the {other} engine"
+    if failed - solved:
+        text += f"{',' if solved else ':'} {failed - solved} unsolved (no verdict, counted as failed)"
+    return text
+
+
+def _take(var: dict, rows) -> dict:
+    return {k: np.asarray(v)[rows] for k, v in var.items()}
+
+
+def _batch(case: Case, var: dict, n: int, chunk, progress=None) -> Points:
+    """Every variant by the batch engine, with each variant's audit findings."""
+    from kickback.audit import audit_many
+    from kickback.figures_batch import CHUNK
     from kickback.studies.many import simulate_many
 
-    step = None if progress is None else (lambda done, _n: progress(done))
-    many = simulate_many(case, var, chunk=chunk or CHUNK, progress=step)
+    many = simulate_many(case, var, chunk=chunk or CHUNK, progress=progress)
     pts = from_many(case, many)
-    bad = np.nonzero(pts.errors != None)[0][:retry]  # noqa: E711 - elementwise on an object array
-    if bad.size:
-        again = _detailed(case, {k: v[bad] for k, v in var.items()}, bad.size, workers=workers)
-        pts = _replace_rows(pts, bad, again)
-    return pts
+    found = np.empty(pts.n, dtype=object)
+    found[:] = audit_many(many)
+    return replace(pts, findings=found)
+
+
+def _audit_failed(pts: Points) -> np.ndarray:
+    """Rows simulated whose result failed its audit."""
+    if pts.findings is None:
+        return np.zeros(0, int)
+    return np.array([k for k in range(pts.n) if pts.errors[k] is None and pts.findings[k]], int)
+
+
+def _settle(pts: Points, audit_bad: np.ndarray, redo: np.ndarray, first: str, other: str,
+            before: dict) -> Points:
+    """Rows whose result (still) fails its audit become unsolved: no verdict, no figures, an error
+    that says why; the counts and the note say how many and which engine solved the others.
+
+    ``audit_bad`` are the rows that failed the audit of the ``first`` engine (``before``: their
+    findings), ``redo`` those of them run again on the ``other`` engine."""
+    redo_set = {int(k) for k in redo}
+    solved = sum(1 for k in redo_set if pts.errors[k] is None and not pts.findings[k])
+    still = _audit_failed(pts)
+    unsolved = sorted(set(still.tolist()) | (redo_set - {k for k in redo_set if pts.errors[k] is None}))
+    if unsolved:
+        figs = {k: v.copy() for k, v in pts.figures.items()}
+        checks = {}
+        for name, c in pts.checks.items():
+            cols = [a.copy() for a in (c.value, c.limit, c.margin, c.passed, c.applies)]
+            for a, fill in zip(cols, (np.nan, np.nan, np.nan, True, False), strict=True):
+                a[unsolved] = fill
+            checks[name] = CheckCol(*cols)
+        passed, errors = pts.passed.copy(), pts.errors.copy()
+        for k in unsolved:
+            if k in before:
+                why = f"the {first} engine: " + "; ".join(before[k])
+                if k in redo_set:
+                    why += (f"; the {other} engine: " + ("; ".join(pts.findings[k]) if errors[k] is None
+                                                         else f"could not solve it ({errors[k]})"))
+            else:
+                why = "the detailed engine: " + "; ".join(pts.findings[k])
+            errors[k] = "no verdict: the result failed its audit on " + why
+            passed[k] = False
+            for a in figs.values():
+                a[k] = np.nan
+        pts = replace(pts, figures=figs, checks=checks, passed=passed, errors=errors)
+    failed = len(set(audit_bad.tolist()) | set(still.tolist()))
+    pts = replace(pts, audit_failed=pts.audit_failed + failed, audit_solved=pts.audit_solved + int(solved),
+                  audit_engine=other if solved else pts.audit_engine)
+    note = "; ".join(x for x in (pts.note, audit_note(failed, int(solved), other)) if x)
+    return replace(pts, note=note)
 
 
 def _with_first_values(case: Case, var: dict) -> Case:
@@ -184,7 +290,7 @@ def from_many(case: Case, many) -> Points:
     """A :class:`~kickback.studies.many.ManyResult` as :class:`Points`."""
     f = many.figures
     n = many.n
-    ok = many.ok
+    ok = many.status != "failed"  # simulated ("audit failed" rows too: evaluate() settles them)
     figs = {name: np.asarray(f[col], float).copy() for name, col in _BATCH.items()}
     total = np.where(ok, 0.0, np.nan)
     for k in range(len(case.clamps)):
@@ -247,11 +353,14 @@ def from_rows(case: Case, rows: list[dict]) -> Points:
     errors = np.empty(n, dtype=object)
     errors[:] = [r.get("error") for r in rows]
     passed = np.array([bool(r.get("pass")) and r.get("error") is None for r in rows], bool)
-    return Points("detailed", _ordered(figs), checks, passed, errors)
+    found = np.empty(n, dtype=object)
+    found[:] = [tuple(r.get("audit") or ()) for r in rows]
+    return Points("detailed", _ordered(figs), checks, passed, errors, findings=found)
 
 
-def _replace_rows(pts: Points, rows: np.ndarray, again: Points) -> Points:
-    """``pts`` with the variants ``rows`` taken from ``again`` (the detailed engine's run of them)."""
+def _replace_rows(pts: Points, rows: np.ndarray, again: Points, count: bool = True) -> Points:
+    """``pts`` with the variants ``rows`` taken from ``again`` (the other engine's run of them);
+    ``count``: add them to :attr:`Points.retried`."""
     figs = {k: v.copy() for k, v in pts.figures.items()}
     for k, v in again.figures.items():
         figs.setdefault(k, np.full(pts.n, np.nan))[rows] = v
@@ -269,7 +378,18 @@ def _replace_rows(pts: Points, rows: np.ndarray, again: Points) -> Points:
     passed[rows] = again.passed
     errors = pts.errors.copy()
     errors[rows] = again.errors
-    return Points(pts.engine, figs, checks, passed, errors, pts.fits, pts.note, pts.retried + int(rows.size))
+    found = _findings(pts)
+    found[rows] = list(_findings(again))
+    fits = tuple(dict.fromkeys(pts.fits + again.fits))
+    return replace(pts, figures=figs, checks=checks, passed=passed, errors=errors, fits=fits, findings=found,
+                   retried=pts.retried + (int(rows.size) if count else 0))
+
+
+def _findings(pts: Points) -> np.ndarray:
+    """The findings column of ``pts`` (a copy; empty tuples where it has none)."""
+    out = np.empty(pts.n, dtype=object)
+    out[:] = [()] * pts.n if pts.findings is None else list(pts.findings)
+    return out
 
 
 def concat(parts: list[Points]) -> Points:
@@ -299,9 +419,13 @@ def concat(parts: list[Points]) -> Points:
     if len(engines) > 1:
         on_detailed = sum(p.n for p in parts if p.engine == "detailed")
         notes = "; ".join(x for x in (notes, f"{on_detailed} of {n} variants ran on the detailed engine") if x)
+    failed = sum(p.audit_failed for p in parts)
+    solved = sum(p.audit_solved for p in parts)
+    other = "/".join(dict.fromkeys(p.audit_engine for p in parts if p.audit_engine))
     return Points(parts[0].engine if len(engines) == 1 else "mixed", figs, checks,
                   np.concatenate([p.passed for p in parts]), np.concatenate([p.errors for p in parts]),
-                  fits, notes, sum(p.retried for p in parts))
+                  fits, notes, sum(p.retried for p in parts), np.concatenate([_findings(p) for p in parts]),
+                  failed, solved, other)
 
 
 def evaluate_cases(cases: list[Case], *, engine: str = "auto", workers: int = 1, progress=None) -> Points:

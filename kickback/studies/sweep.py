@@ -95,7 +95,9 @@ class SweepResult:
         for k in range(len(self.points)):
             row = {ax.path: float(self.points[k, j]) for j, ax in enumerate(self.axes)}
             row |= {c: self.figures[c][k] for c, _ in COLUMNS}
-            row |= {"pass": bool(self.passed[k]), "failing_checks": self.failing[k], "error": self.errors[k]}
+            # a point that could not be simulated (or failed its audit twice) has no verdict
+            row |= {"pass": None if self.errors[k] is not None else bool(self.passed[k]),
+                    "failing_checks": self.failing[k], "error": self.errors[k]}
             out.append(row)
         return out
 
@@ -124,7 +126,7 @@ def result_figures(r) -> dict:
             "avalanche_energy_J": f.avalanche_energy_J, "to_10_percent_s": f.to_10_percent_s,
             "to_1_percent_s": f.to_1_percent_s, "to_zero_s": f.to_zero_s, "release_s": f.release_s,
             "pass": r.passed, "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed],
-            "error": None,
+            "error": None, "audit": list(r.audit.findings),
             "checks": [(f"{c.part} {c.quantity}", c.value, c.limit, c.margin, c.passed) for c in r.checks],
             "stored_energy_J": f.stored_energy_J, "energy_balance_error": f.energy_balance_error} | {
                 f"clamp[{k}].energy_J": c.energy_J for k, c in enumerate(f.clamps)}

@@ -223,13 +223,17 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     check_varied(case, matrix)
     idx = np.sort(rng.choice(n, size=min(recheck, n), replace=False)) if used == "batch" and recheck > 0 else None
     with _Recheck(case, matrix, idx, workers) as later:
-        figs, passed, errors, worst, fits, retried = _monte_carlo(case, matrix, flist, used, workers, progress,
-                                                                  chunk)
+        figs, passed, errors, worst, fits, retried, audited = _monte_carlo(case, matrix, flist, used, workers,
+                                                                           progress, chunk)
         study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
         check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
     if retried:
         note = (note + "; " if note else "") + (f"{retried} sample(s) the batch engine could not simulate were run "
                                                 "by the detailed engine")
+    if audited[0]:
+        from kickback.studies.points import audit_note
+
+        note = (note + "; " if note else "") + audit_note(*audited)
     k = int(passed.sum())
     pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
            for f, a in figs.items()}
@@ -319,6 +323,7 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
     worst: dict = {}
     fits: list = []
     retried = 0
+    audited = [0, 0, ""]  # samples that failed their audit, solved again, on which engine
     for start in range(0, n, max(1, chunk)):
         rows = slice(start, min(n, start + chunk))
 
@@ -334,6 +339,7 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         errors[rows] = pts.errors
         fits += [x for x in pts.fits if x not in fits]
         retried += pts.retried
+        audited = [audited[0] + pts.audit_failed, audited[1] + pts.audit_solved, pts.audit_engine or audited[2]]
         for name, c in pts.checks.items():
             key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
             j = int(np.argmin(key))
@@ -341,7 +347,7 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
                 continue
             if name not in worst or key[j] < worst[name][0]:
                 worst[name] = (key[j], start + j, c.value[j], c.limit[j], c.margin[j])
-    return figs, passed, errors, worst, tuple(fits), retried
+    return figs, passed, errors, worst, tuple(fits), retried, tuple(audited)
 
 
 def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, budget) -> dict:

@@ -1,0 +1,146 @@
+"""Wide-range property tests (issue 14, DESIGN.md §9): random valid cases over the ranges engineers
+use, through both engines.
+
+For every drawn case (``tests/wide_range.py``, one per seed):
+
+* the detailed engine solves it — no exception, no stated solver failure, no warning, finished
+  within the time limit — and its result passes the audit (:mod:`kickback.audit`);
+* the batch engine, where it covers the case, does not crash (a stated "cannot take this case"
+  is allowed: the studies then fall back to the detailed engine), emits no warning, and its
+  result passes the audit;
+* where both solve it, the two engines check each other: the same verdict (unless a check sits
+  within the tolerance of its limit), and the headline figures — peak switch voltage, decay to
+  10 % and 1 %, release time, the energies in the coil resistance, the avalanche, the turn-off
+  crossover and the clamps — within 1e-4 relative where both use the same piecewise-linear laws
+  (two exact solutions of one model, issue 14), within :data:`wide_range_check.FIT_TOL` where the
+  batch engine uses its 3-segment fit of a Shockley diode or a varistor.
+
+The CI share is :data:`N_CI` cases (seeds 0 … N−1); ``KICKBACK_WIDE_CASES=5000`` runs more (the
+long run), ``KICKBACK_WIDE_START`` moves the first seed, ``KICKBACK_WIDE_LIMIT`` the seconds after
+which a case is killed (default 8). Each failing test's id names its seed: regenerate the case
+with ``python -c "import sys; sys.path.insert(0, 'tests'); from wide_range import draw;
+print(draw(SEED).text)"``.
+
+Seeds that fail today because of known engine defects are marked xfail (not strict) with the
+defect named; remove a seed from :data:`KNOWN` once its defect is fixed (an XPASS says so).
+"""
+
+from __future__ import annotations
+
+import os
+
+import pytest
+from wide_range_check import compare, run_pool
+
+N_CI = 200
+N = int(os.environ.get("KICKBACK_WIDE_CASES", N_CI))
+START = int(os.environ.get("KICKBACK_WIDE_START", 0))
+LIMIT = float(os.environ.get("KICKBACK_WIDE_LIMIT", 8.0))
+
+# known defects at the time of writing (branch audit, before the engine fixes of issue 14);
+# found by `python benchmarks/reliability.py --cases 1000`, listed in ../scratch/found-*.md
+PWM = "detailed engine: the PWM steady state does not converge"
+SLOW_DRIVE = "detailed engine: a [drive] steady state takes far over 2 s"
+SLOW = "detailed engine: over 2 s (diode + varistor, diode + RC, …)"
+STEP = "detailed engine: solver error 'required step size is less than spacing between numbers'"
+CHAIN = "detailed engine: 'no chain current reaches N V' (Shockley diode in series with a varistor)"
+LEDGER = "detailed engine: energy ledger residual above 1e-3"
+BODY_DIODE = "detailed engine: negative body-diode energy (node pinned after the coil current reverses)"
+OVERFLOW = "detailed engine: RuntimeWarning overflow/invalid value inside the solve"
+STANDOFF = "detailed engine: a Shockley diode's on-state reverse voltage missed (large I_s)"
+RTOL = "detailed engine: figures off by ~2e-4 at the default rtol 1e-5"
+BATCH_STOPITERATION = "batch engine: bare StopIteration on a Shockley diode + varistor chain"
+BATCH_NEG_AVALANCHE = "batch engine: negative avalanche energy, avalanche check dropped"
+BATCH_AUDIT = "batch engine: ledger residual or negative element energy"
+BATCH_DISAGREE = "batch engine: exact-law figure differs from the detailed engine's"
+FIT = "batch engine: 3-segment fit moves an energy by more than 5 %"
+
+KNOWN = {
+    11: (PWM, SLOW_DRIVE), 14: (FIT, SLOW), 16: (OVERFLOW,), 18: (FIT, SLOW), 25: (SLOW_DRIVE,), 27: (SLOW_DRIVE,),
+    33: (STEP,), 34: (CHAIN,), 39: (SLOW_DRIVE,), 49: (SLOW_DRIVE,), 54: (BATCH_STOPITERATION, CHAIN),
+    58: (BATCH_STOPITERATION,), 60: (FIT,), 68: (BATCH_STOPITERATION, SLOW), 73: (BATCH_STOPITERATION, SLOW),
+    90: (OVERFLOW,), 97: (FIT, OVERFLOW), 106: (OVERFLOW,), 108: (OVERFLOW,), 116: (OVERFLOW,), 117: (OVERFLOW,),
+    124: (SLOW_DRIVE,), 130: (BATCH_STOPITERATION,), 135: (BATCH_STOPITERATION, SLOW), 137: (BATCH_AUDIT,),
+    144: (STEP,), 146: (SLOW,), 147: (BATCH_STOPITERATION,), 157: (SLOW_DRIVE,), 167: (FIT,), 171: (OVERFLOW,),
+    172: (SLOW_DRIVE,), 174: (SLOW_DRIVE,), 179: (BATCH_STOPITERATION,), 180: (BATCH_NEG_AVALANCHE,),
+    183: (SLOW_DRIVE,), 184: (SLOW_DRIVE,), 185: (SLOW_DRIVE,), 186: (FIT, OVERFLOW), 190: (SLOW_DRIVE,),
+    192: (LEDGER,), 198: (OVERFLOW,),
+}
+
+
+def _param(seed):
+    if seed in KNOWN:
+        return pytest.param(seed, id=f"case{seed}", marks=pytest.mark.xfail(reason="; ".join(KNOWN[seed]),
+                                                                             strict=False))
+    return pytest.param(seed, id=f"case{seed}")
+
+
+@pytest.fixture(scope="module")
+def solved():
+    """Every case on both engines, in two worker processes (a case over LIMIT s is killed)."""
+    tasks = [(s, e, True) for s in range(START, START + N) for e in ("detailed", "batch")]
+    out: dict = {}
+    for rec in run_pool(tasks, workers=2, limit=LIMIT):
+        out.setdefault(rec["seed"], {})[rec["engine"]] = rec
+    return out
+
+
+def problems(d: dict, b: dict) -> list[str]:
+    """What is wrong with one case's two records (empty: nothing)."""
+    out = []
+    for r in (d, b):
+        name = r["engine"]
+        if r["status"] == "timeout":
+            out.append(f"{name}: not finished within {LIMIT:g} s")
+        elif r["status"] == "crash":
+            out.append(f"{name}: bare exception {r['message']}")
+        elif r["status"] == "stated" and name == "detailed":
+            out.append(f"detailed: solver failure on a valid case: {r['message']}")
+        if r["status"] == "ok" and r["audit"]:
+            out.append(f"{name}: audit failed: " + "; ".join(r["audit"]))
+        if r.get("warnings"):
+            out.append(f"{name}: warnings " + "; ".join(r["warnings"]))
+    if d["status"] == "ok" and b["status"] == "ok" and not d["audit"] and not b["audit"]:
+        c = compare(d, b)
+        if c["flip"]:
+            out.append(f"verdicts differ: detailed {d['passed']}, batch {b['passed']}")
+        for name in c["worse"]:
+            out.append(f"{name} differs by {c['figures'][name]:.3g} relative (tolerance {c['tol']:g}): detailed "
+                       f"{d['figures'][name]!r}, batch {b['figures'][name]!r}")
+    return out
+
+
+@pytest.mark.parametrize("seed", [_param(s) for s in range(START, START + N)])
+def test_wide_range_case(solved, seed):
+    recs = solved[seed]
+    found = problems(recs["detailed"], recs["batch"])
+    assert not found, f"case {seed} ({recs['detailed']['label']}): " + " | ".join(found)
+
+
+def test_the_generator_reaches_every_family():
+    # the draw covers what issue 14 lists, within the CI share's first 200 seeds
+    from wide_range import COIL_FAMILIES, EXTRAS, SWITCH_FAMILIES, draw
+
+    drawn = [draw(s) for s in range(200)]
+    families = {f for d in drawn for f in d.families}
+    assert families >= {f"coil:{x}" for x in COIL_FAMILIES} | {f"switch:{x}" for x in SWITCH_FAMILIES}
+    assert {x for d in drawn for x in d.extras} == set(EXTRAS)
+    assert any(not d.families for d in drawn), "a case with no clamp"
+    assert any(len(d.families) >= 2 for d in drawn), "clamps in parallel"
+    text = "".join(d.text for d in drawn)
+    for key in ('type = "ideal"', 'type = "bjt"', 'type = "mosfet"', "breakdown_voltage", 'model = "shockley"',
+                'model = "constant-drop"', "bidirectional = true", "bidirectional = false", "fall_time"):
+        assert key in text, key
+
+
+def test_draws_are_reproducible_and_valid():
+    from wide_range import draw
+
+    from kickback.caseio import load_case
+
+    assert draw(7).text == draw(7).text and draw(7).text != draw(8).text
+    for s in range(300):
+        case = load_case(draw(s).text, source=f"case {s}")  # raises CaseError on an invalid draw
+        vs = case.supply.voltage
+        assert 3.0 <= vs <= 400.0 and 10e-6 <= case.coil.inductance <= 5.0 and 0.1 <= case.coil.resistance <= 5000.0
+        assert case.switch.fall_time <= 10e-6 and case.switch.capacitance <= 10e-9 and case.coil.capacitance <= 10e-9
