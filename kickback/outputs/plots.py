@@ -43,6 +43,8 @@ def window_mask(t, t_end):
 
 
 def _draw(ax_v, ax_i, result, t_end=None):
+    from matplotlib.ticker import MaxNLocator
+
     _, Eng = _setup()
     w = result.waveforms
     f = result.figures
@@ -79,13 +81,14 @@ def _draw(ax_v, ax_i, result, t_end=None):
         ax.grid(True, lw=0.4, alpha=0.6)
         if t_end is not None:
             ax.set_xlim(min(0.0, float(t[0])), t_end)
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
     ax_v.set_ylabel("switch-node voltage")
     ax_i.set_ylabel("current")
     ax_i.set_xlabel("time after turn-off")
 
 
 #: fixed layout of the run figure [in]
-LEFT, GAP, RIGHT_PAD, BOTTOM, ROW_GAP, LEGEND_GAP = 0.95, 1.05, 0.15, 0.6, 0.25, 0.2
+LEFT, GAP, RIGHT_PAD, BOTTOM, ROW_GAP, LEGEND_GAP = 1.05, 1.1, 0.15, 0.6, 0.25, 0.2
 
 
 def plot_result(result, ax=None):
@@ -143,7 +146,7 @@ def plot_result(result, ax=None):
     for ax_ in grid.flat:  # GridSpec.update moves only pyplot's figures' axes
         ax_.set_position(ax_.get_subplotspec().get_position(fig))
     for ax_ in grid[:, 0]:
-        ax_.yaxis.set_label_coords(-(LEFT - 0.32) / widths[0], 0.5)  # y labels aligned, clear of ticks
+        ax_.yaxis.set_label_coords(-(LEFT - 0.22) / widths[0], 0.5)  # y labels aligned, clear of ticks
     return fig, axes
 
 

@@ -97,7 +97,7 @@ def waveform_figure(result, t_zoom: float | None):
     (drawn from 0 to exactly ``t_zoom``, the window its title states). One legend per row, to the
     right of the figure, so that none covers a trace."""
     from matplotlib.figure import Figure
-    from matplotlib.ticker import EngFormatter
+    from matplotlib.ticker import EngFormatter, MaxNLocator
 
     from kickback.outputs.plots import window_mask
 
@@ -135,6 +135,7 @@ def waveform_figure(result, t_zoom: float | None):
                                label="end of run: current at zero" if ax is ai else "_")
         else:
             ap.set_xlim(min(0.0, float(t[0])), t_end)
+            ap.xaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
         av.set_title(title, fontsize=9.5)
         for ax, unit, name in ((av, "V", "switch-node voltage"), (ai, "A", "current"),
                                (ap, "W", "dissipated power")):

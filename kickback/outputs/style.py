@@ -147,8 +147,13 @@ def free_legend(ax, others=(), candidates=CORNERS, **kw):
         box = leg.get_window_extent(renderer)
         if not any(_covers(a, box) for a in (ax, *others)):
             return leg
+    from matplotlib.transforms import offset_copy
+
+    right = max(a.yaxis.get_tightbbox(renderer).x1 for a in (ax, *others)) - ax.bbox.x1  # right-hand ticks
     leg.set_loc("upper left")
-    leg.set_bbox_to_anchor((1.02, 1.0), transform=ax.transAxes)
+    leg.set_bbox_to_anchor((1.0, 1.0), transform=offset_copy(ax.transAxes, fig=ax.figure,
+                                                             x=max(right, 0.0) * 72.0 / ax.figure.dpi + 6.0,
+                                                             units="points"))
     return leg
 
 
