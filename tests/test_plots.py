@@ -286,3 +286,16 @@ def test_palette_roles_drawn_together_stay_apart_in_greyscale():
     assert abs(style.luma(style.VOLTAGE["color"]) - style.luma(style.COIL["color"])) >= LUMA_STEP
     seen = {(style.series_style(n)["color"], str(style.series_style(n)["ls"])) for n in range(7)}
     assert len({c for c, _ in seen}) == 7 and len({d for _, d in seen}) == 7
+
+
+def test_edge_window_ends_exactly_at_its_stated_end():
+    from kickback.outputs.plots import Window
+
+    t = np.array([0.0, 1e-7, 3e-7, 9e-7, 1.4e-6, 2e-6])
+    x = np.array([0.0, 5.0, 20.0, 45.0, 46.0, 40.0])
+    win = Window(t, 1.2e-6)
+    assert win.t[-1] == pytest.approx(1.2e-6) and win.t.max() <= 1.2e-6 * (1 + 1e-12)
+    # the added point lies on the straight segment matplotlib draws between the samples (numpy.interp)
+    assert win(x)[-1] == pytest.approx(np.interp(1.2e-6, t, x))
+    assert Window(t, None)(x).tolist() == x.tolist()
+    assert Window(t, 3e-7)(x).tolist() == [0.0, 5.0, 20.0]  # a sample exactly at the end: nothing added

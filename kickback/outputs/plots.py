@@ -31,15 +31,32 @@ def edge_window(result) -> float | None:
     return min(end, 8 * edge)
 
 
-def window_mask(t, t_end):
-    """Samples to draw for a window ending at ``t_end`` [s]: all up to it and the first one after,
-    so that the trace reaches the window's right edge (the axis is then limited to ``t_end``)."""
-    import numpy as np
+class Window:
+    """The samples of a time window from the start to ``t_end`` [s] (None: all): those up to it and
+    one interpolated at ``t_end``, so that a trace reaches the window's right edge exactly and nothing
+    lies beyond it (the line drawn between two samples is straight, so the picture is the same).
 
-    if t_end is None:
-        return slice(None)
-    k = int(np.searchsorted(t, t_end, side="right"))
-    return slice(0, min(k + 1, len(t)))
+    ``Window(t, t_end).t`` are the times; calling it on a signal sampled at ``t`` gives its values.
+    """
+
+    def __init__(self, t, t_end: float | None):
+        import numpy as np
+
+        self._t, self._end = np.asarray(t, dtype=float), t_end
+        n = len(self._t)
+        self._k = n if t_end is None else int(np.searchsorted(self._t, t_end, side="right"))
+        self._cut = t_end is not None and 0 < self._k < n and self._t[self._k - 1] < t_end
+        self.t = self(self._t)
+
+    def __call__(self, x):
+        import numpy as np
+
+        x = np.asarray(x, dtype=float)
+        if not self._cut:
+            return x[:self._k]
+        k, t = self._k, self._t
+        share = (self._end - t[k - 1]) / (t[k] - t[k - 1])
+        return np.append(x[:k], x[k - 1] + share * (x[k] - x[k - 1]))
 
 
 def _draw(ax_v, ax_i, result, t_end=None):
@@ -49,14 +66,14 @@ def _draw(ax_v, ax_i, result, t_end=None):
     w = result.waveforms
     f = result.figures
     case = result.case
-    m = window_mask(w.t, t_end)
-    t = w.t[m]
-    ax_v.plot(t, w.v[m], label="switch-node voltage", **style.VOLTAGE)
-    ax_i.plot(t, w.i_coil[m], label="coil current", **style.COIL)
+    m = Window(w.t, t_end)
+    t = m.t
+    ax_v.plot(t, m(w.v), label="switch-node voltage", **style.VOLTAGE)
+    ax_i.plot(t, m(w.i_coil), label="coil current", **style.COIL)
     if t_end is not None:
-        ax_i.plot(t, (w.i_channel + w.i_offstate)[m], label="switch current", **style.SWITCH_CURRENT)
+        ax_i.plot(t, m(w.i_channel + w.i_offstate), label="switch current", **style.SWITCH_CURRENT)
     for n, k in enumerate(w.circuit.active_chains):
-        ax_i.plot(t, w.i_chains[n][m], label=f"clamp '{w.circuit.chains[k].name}' current", **style.clamp_style(n))
+        ax_i.plot(t, m(w.i_chains[n]), label=f"clamp '{w.circuit.chains[k].name}' current", **style.clamp_style(n))
     rated = case.switch.rated_voltage
     if rated is not None:
         lim = rated * case.checks.derating

@@ -99,7 +99,7 @@ def waveform_figure(result, t_zoom: float | None):
     from matplotlib.figure import Figure
     from matplotlib.ticker import EngFormatter, MaxNLocator
 
-    from kickback.outputs.plots import window_mask
+    from kickback.outputs.plots import Window
 
     w = result.waveforms
     power = _power_signals(result)
@@ -112,21 +112,21 @@ def waveform_figure(result, t_zoom: float | None):
     for c, (t_end, title) in enumerate(cols):
         av, ai, ap = grid[:, c]
         whole = t_end is None
-        m = window_mask(w.t, t_end)
-        t = w.t[m]
-        av.plot(t, w.v[m], label="switch-node voltage", **style.VOLTAGE)
+        m = Window(w.t, t_end)
+        t = m.t
+        av.plot(t, m(w.v), label="switch-node voltage", **style.VOLTAGE)
         _limits(av, result, show_peak=whole or result.figures.peak_time_s <= t_end)
-        ai.plot(t, w.i_coil[m], label="coil current", **style.COIL)
+        ai.plot(t, m(w.i_coil), label="coil current", **style.COIL)
         if not whole:
-            ai.plot(t, (w.i_channel + w.i_offstate)[m], label="switch current", **style.SWITCH_CURRENT)
+            ai.plot(t, m(w.i_channel + w.i_offstate), label="switch current", **style.SWITCH_CURRENT)
         for n, k in enumerate(w.circuit.active_chains):
-            ai.plot(t, w.i_chains[n][m], label=f"clamp {w.circuit.chains[k].name}", **style.clamp_style(n))
+            ai.plot(t, m(w.i_chains[n]), label=f"clamp {w.circuit.chains[k].name}", **style.clamp_style(n))
         _release(ai, result, whole)
         for n, (label, p) in enumerate(power):
             if label == "switch":
-                ap.plot(t, p[m], label="switch (crossover, avalanche)", **style.SWITCH_CURRENT)
+                ap.plot(t, m(p), label="switch (crossover, avalanche)", **style.SWITCH_CURRENT)
             else:
-                ap.plot(t, p[m], label=label, **style.clamp_style(n))
+                ap.plot(t, m(p), label=label, **style.clamp_style(n))
         if whole:
             ap.set_xlim(-0.02 * end, end)
             if end > 1.05 * w.t[-1]:
