@@ -242,10 +242,7 @@ def comparison_section(cmp) -> Section:
              "ideal Zener and TVS) — they show the trade-off, they are not parts."
              if cmp.builtin else "Alternatives: the case's own [[option]] sets.")
     body += f'<p class="note">{escape(where)} Each option is checked against the same ratings and limits.</p>'
-    fig = comparison_figure(cmp)
-    for ax in fig.axes:  # legends beside the plots, so they cover no curve
-        if ax.get_legend() is not None:
-            ax.legend(fontsize=8.5, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
+    fig = comparison_figure(cmp)  # its legends sit beside the plots already, clear of every curve
     body += _figure(fig, "cmp", "Switch-node voltage and coil current of every option "
                     "(logarithmic time axis); the thick line is this case.")
     return Section("comparison", "Clamp comparison", body)
@@ -421,7 +418,7 @@ def report_html(result, *, comparison=None, command: str = "", date: str = "", v
         Section("checks", "Checks", parts.check_table(result) + "<h3>Turn-off figures</h3>"
                 + parts.figures_table(result) + "<h3>Clamp duty</h3>" + parts.clamp_table(result)),
         Section("ledger", "Energy ledger", _figure(figs.ledger_figure(result), "ledger",
-                "Where the energy went: inputs (blue), dissipation (orange), left over (grey); "
+                "Where the energy went: inputs (blue), dissipation (orange), left over (grey, hatched); "
                 "shares of the total input.") + parts.ledger_table(result)),
         _waveform_section(result),
         *later,

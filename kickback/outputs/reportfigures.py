@@ -20,7 +20,10 @@ def ledger_figure(result):
     ax = fig.subplots()
     colour = {"in": style.BLUE, "out": style.ORANGE, "left": style.LIGHT_GREY}
     ys = list(range(len(items)))[::-1]
-    ax.barh(ys, [x for _, _, x in items], color=[colour[s] for s, _, _ in items], height=0.62)
+    bars = ax.barh(ys, [x for _, _, x in items], color=[colour[s] for s, _, _ in items], height=0.62)
+    for bar, (side, _, _) in zip(bars, items, strict=True):
+        if side == "left":  # hatched: apart from the orange of "out" in greyscale print too
+            bar.set(facecolor="white", edgecolor=style.GREY, hatch="////", linewidth=0.6)
     ax.set_yticks(ys, [f"{s}: {lab}" for s, lab, _ in items], fontsize=8)
     for y, (side, _, x) in zip(ys, items, strict=True):
         pct = "" if side == "in" else f"  ({share(x, total)})"
