@@ -299,3 +299,43 @@ def test_edge_window_ends_exactly_at_its_stated_end():
     assert win(x)[-1] == pytest.approx(np.interp(1.2e-6, t, x))
     assert Window(t, None)(x).tolist() == x.tolist()
     assert Window(t, 3e-7)(x).tolist() == [0.0, 5.0, 20.0]  # a sample exactly at the end: nothing added
+
+
+# (demo data) an invented MOSFET with no breakdown voltage and no clamp: the node rings to kilovolts
+# and the coil current swings to about −0.8 A before it decays (through the body diode)
+RINGING = """title = "MOSFET without breakdown voltage, no clamp (demo data)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "100 mH"
+resistance = "30 Ω"
+release_current = "100 mA"
+[switch]
+type = "mosfet"
+on_resistance = "50 mΩ"
+fall_time = "100 ns"
+capacitance = "300 pF"
+rated_voltage = "60 V"
+"""
+
+
+def test_ringing_case_gets_an_edge_zoom_and_its_release_point_on_the_curve(tmp_path):
+    from kickback.outputs.reportfigures import waveform_figure
+
+    path = tmp_path / "ringing.toml"
+    path.write_text(RINGING, encoding="utf-8")
+    r = simulate(load_case(path))
+    assert r.waveforms.i_coil.min() < -0.1, "the case must ring below −release current"
+    fig, axes = r.plot()
+    assert audit(fig) == []
+    assert "edge voltage" in axes, "the first 10 µs swing is unreadable on the whole-run axis alone"
+    for figure in (fig, waveform_figure(r, edge_window(r))):
+        marks = [ln for ax in figure.axes for ln in ax.lines if ln.get_label().startswith("below release")]
+        assert marks
+        for ln in marks:  # on the drawn curve: the current there is −0.1 A (release is judged on |i|)
+            t, y = ln.get_xdata()[0], ln.get_ydata()[0]
+            assert y == pytest.approx(np.interp(t, r.waveforms.t, r.waveforms.i_coil), abs=2e-3)
+        levels = {round(ln.get_ydata()[0], 6) for ax in figure.axes for ln in ax.lines
+                  if ln.get_label().startswith("release current") or
+                  (ln.get_label() == "_" and ln.get_color() == style.RELEASE_CURRENT["color"])}
+        assert {0.1, -0.1} <= levels

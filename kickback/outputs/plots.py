@@ -21,11 +21,12 @@ def _setup():
 
 
 def edge_window(result) -> float | None:
-    """End [s] of a zoom on the turn-off edge, or None when the edge is not much faster than the decay."""
+    """End [s] of a zoom on the turn-off edge, or None when the edge is not much faster than the
+    whole run (a current that rings through zero early still gets its zoom when the run is long)."""
     f = result.figures
     w = result.waveforms
     edge = max(w.circuit.switch.fall_time, f.peak_time_s)
-    end = f.to_zero_s or w.t[-1]
+    end = max(f.to_zero_s or 0.0, float(w.t[-1]))
     if edge <= 0 or end / max(edge, 1e-300) < 50:
         return None
     return min(end, 8 * edge)
@@ -59,6 +60,26 @@ class Window:
         return np.append(x[:k], x[k - 1] + share * (x[k] - x[k - 1]))
 
 
+def release_marks(result):
+    """How to draw the release current: its levels [A] (±, when the coil current rings below
+    −release current: the release is judged on |i|), their legend label, and the point (t, i)
+    where |i| falls below it for good (None when it never does); None without a release current."""
+    import numpy as np
+
+    case, f, w = result.case, result.figures, result.waveforms
+    rel = case.coil.release_current
+    if rel is None:
+        return None
+    both = float(np.min(w.i_coil)) < -rel
+    levels = (rel, -rel) if both else (rel,)
+    label = f"release current {'±' if both else ''}{q(rel, 'A')}"
+    if f.release_s is None:
+        return levels, label, None
+    t_rel = f.release_s - case.coil.release_delay
+    side = -1.0 if float(np.interp(t_rel, w.t, w.i_coil)) < 0 else 1.0
+    return levels, label, (t_rel, side * rel)
+
+
 def _draw(ax_v, ax_i, result, t_end=None):
     from matplotlib.ticker import MaxNLocator
 
@@ -85,13 +106,14 @@ def _draw(ax_v, ax_i, result, t_end=None):
     if t_end is None or f.peak_time_s <= t_end:
         ax_v.plot([f.peak_time_s], [f.peak_voltage_V], label=f"peak {q(f.peak_voltage_V, 'V')} at "
                   f"{q(f.peak_time_s, 's')}", **style.PEAK_MARKER)
-    rel = case.coil.release_current
-    if rel is not None:
-        ax_i.axhline(rel, label=f"release current {q(rel, 'A')}", **style.RELEASE_CURRENT)
-        if f.release_s is not None:
-            t_rel = f.release_s - case.coil.release_delay
-            if t_end is None or t_rel <= t_end:
-                ax_i.plot([t_rel], [rel], label=f"below release current at {q(t_rel, 's')}", **style.RELEASE_MARKER)
+    marks = release_marks(result)
+    if marks is not None:
+        levels, label, point = marks
+        for n, level in enumerate(levels):
+            ax_i.axhline(level, label=label if n == 0 else "_", **style.RELEASE_CURRENT)
+        if point is not None and (t_end is None or point[0] <= t_end):
+            ax_i.plot([point[0]], [point[1]], label=f"below release current at {q(point[0], 's')}",
+                      **style.RELEASE_MARKER)
     for ax, unit in ((ax_v, "V"), (ax_i, "A")):
         ax.yaxis.set_major_formatter(Eng(unit=unit))
         ax.xaxis.set_major_formatter(Eng(unit="s"))

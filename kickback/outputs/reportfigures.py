@@ -76,14 +76,17 @@ def _time_span(result) -> float:
 
 
 def _release(ax, result, whole: bool):
+    from kickback.outputs.plots import release_marks
+
     case, f = result.case, result.figures
-    rel = case.coil.release_current
-    if rel is None:
+    marks = release_marks(result)
+    if marks is None:
         return
-    ax.axhline(rel, label=f"release current {q(rel, 'A')}", **style.RELEASE_CURRENT)
-    if f.release_s is not None and whole:
-        t_below = f.release_s - case.coil.release_delay
-        ax.plot([t_below], [rel], label=f"below release current at {q(t_below, 's')}", **style.RELEASE_MARKER)
+    levels, label, point = marks
+    for n, level in enumerate(levels):
+        ax.axhline(level, label=label if n == 0 else "_", **style.RELEASE_CURRENT)
+    if point is not None and whole:
+        ax.plot([point[0]], [point[1]], label=f"below release current at {q(point[0], 's')}", **style.RELEASE_MARKER)
         ax.axvline(f.release_s, label=f"released at {q(f.release_s, 's')} (+ {q(case.coil.release_delay, 's')} "
                    "delay)", **style.RELEASE)
     limit = case.checks.max_release_time
