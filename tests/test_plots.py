@@ -339,3 +339,17 @@ def test_ringing_case_gets_an_edge_zoom_and_its_release_point_on_the_curve(tmp_p
                   if ln.get_label().startswith("release current") or
                   (ln.get_label() == "_" and ln.get_color() == style.RELEASE_CURRENT["color"])}
         assert {0.1, -0.1} <= levels
+
+
+@pytest.mark.parametrize("size", [(11, 7), (6, 4)], ids=["wide", "narrow"])
+def test_footnote_and_title_stay_whole_however_long(size):
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=size, layout="constrained")
+    ax = fig.subplots()
+    ax.plot([0, 1], [0, 1], label="a line")
+    ax.set_xlabel("coil.inductance")
+    style.title(fig, "A case title that is long, " * 6 + "(demo data)")
+    style.footnote(fig, "detailed engine; the batch engine does not cover this case (TVS1: TVS1 has a thermal "
+                   "network: junction temperatures are computed by the detailed engine only): " * 3)
+    assert audit(fig) == []

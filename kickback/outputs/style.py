@@ -178,12 +178,28 @@ def row_handles(*axes) -> tuple[list, list]:
 # --- titles and notes ----------------------------------------------------------------------------
 
 def wrap_to_width(text: str, width_in: float, fontsize: float) -> str:
-    """``text`` wrapped to lines that fit ``width_in`` inches at ``fontsize`` points (an average
-    character of the default sans-serif font is about 0.55 em wide; 0.6 em keeps a margin)."""
+    """``text`` wrapped to lines that fit ``width_in`` inches at ``fontsize`` points, measured
+    with matplotlib's own text metrics (no renderer needed)."""
     import textwrap
 
-    chars = max(20, int(width_in * 72.0 / (0.6 * fontsize)))
-    return "\n".join(textwrap.wrap(text, chars)) or text
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.textpath import TextPath
+
+    prop = FontProperties(size=fontsize)
+
+    def width(s: str) -> float:  # [in]
+        return TextPath((0, 0), s, prop=prop).get_extents().width / 72.0
+
+    full = width(text) if text else 0.0
+    if full <= width_in:
+        return text
+    chars = max(20, int(len(text) * width_in / full))
+    while chars > 20:
+        lines = textwrap.wrap(text, chars)
+        if all(width(x) <= width_in for x in lines):
+            return "\n".join(lines)
+        chars = int(chars * 0.95)
+    return "\n".join(textwrap.wrap(text, chars))
 
 
 def title(fig, text: str, fontsize: float = 11):

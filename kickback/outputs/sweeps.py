@@ -116,8 +116,12 @@ def _eng_axis(axis, a, nbins: int = 8) -> None:
     ``nbins`` intervals on a linear axis (a narrow panel's labels then do not run into each other)."""
     from matplotlib.ticker import EngFormatter, LogLocator, MaxNLocator, NullFormatter
 
-    if a.log:
-        axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0) if nbins > 4 else (1.0,)))
+    decades = np.log10(max(a.values) / min(a.values)) if a.log and min(a.values) > 0 else 0.0
+    if a.log and decades < 1.0:  # within a decade: round linear steps (a log locator gives one tick)
+        axis.set_major_locator(MaxNLocator(nbins=nbins, steps=[1, 2, 2.5, 5, 10]))
+        axis.set_minor_formatter(NullFormatter())
+    elif a.log:
+        axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0) if decades * 3 <= 2 * nbins else (1.0,)))
         axis.set_minor_formatter(NullFormatter())
     else:
         axis.set_major_locator(MaxNLocator(nbins=nbins, steps=[1, 2, 2.5, 5, 10]))
