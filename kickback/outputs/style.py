@@ -179,13 +179,15 @@ def row_handles(*axes) -> tuple[list, list]:
 
 def wrap_to_width(text: str, width_in: float, fontsize: float) -> str:
     """``text`` wrapped to lines that fit ``width_in`` inches at ``fontsize`` points, measured
-    with matplotlib's own text metrics (no renderer needed)."""
+    with matplotlib's own glyph outlines (no renderer needed); 8 % is kept free because a raster
+    renders small text with hinted, wider advances (a 6.5 pt line at 130 dpi came out 2.5 % wider)."""
     import textwrap
 
     from matplotlib.font_manager import FontProperties
     from matplotlib.textpath import TextPath
 
     prop = FontProperties(size=fontsize)
+    width_in *= 0.92
 
     def width(s: str) -> float:  # [in]
         return TextPath((0, 0), s, prop=prop).get_extents().width / 72.0
