@@ -353,3 +353,24 @@ def test_footnote_and_title_stay_whole_however_long(size):
     style.footnote(fig, "detailed engine; the batch engine does not cover this case (TVS1: TVS1 has a thermal "
                    "network: junction temperatures are computed by the detailed engine only): " * 3)
     assert audit(fig) == []
+
+
+def test_free_legend_takes_a_free_corner_and_leaves_the_axes_only_when_none_is():
+    from matplotlib.figure import Figure
+
+    t = np.linspace(0.0, 1.0, 200)
+    fig = Figure(figsize=(6, 4))
+    ax = fig.subplots()
+    ax.plot(t, t, label="rising")  # upper left and lower right are free, upper right is not
+    leg = style.free_legend(ax, fontsize=8)
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    box = leg.get_window_extent(renderer)
+    assert ax.bbox.containsx(box.x0) and ax.bbox.containsx(box.x1), "a free corner exists: stay inside"
+    assert _covers(ax, box) is None
+    fig = Figure(figsize=(6, 4), layout="constrained")
+    ax = fig.subplots()
+    for k in range(7):  # horizontal lines across the whole axes: no corner is free
+        ax.plot(t, np.full_like(t, k / 6), label=f"level {k}", **style.series_style(k))
+    leg = style.free_legend(ax, fontsize=8)
+    assert audit(fig) == []
+    assert leg.get_window_extent(FigureCanvasAgg(fig).get_renderer()).x0 >= ax.bbox.x1
