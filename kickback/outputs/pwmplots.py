@@ -53,8 +53,12 @@ def pwm_figure(result, n_cycles: int = 3):
     if case.switch.rated_voltage:
         lim = case.switch.rated_voltage * case.checks.derating
         axes[1].axhline(lim, label=f"switch rating × {case.checks.derating:g} = {q(lim, 'V')}", **style.LIMIT)
-    for ax in axes:
-        style.outside_legend(ax)
+    style.outside_legend(axes[0], title="in every panel", title_fontsize=8)
+    if case.switch.rated_voltage:
+        handles, labels = axes[1].get_legend_handles_labels()
+        style.outside_legend(axes[1], handles[-1:], labels[-1:])
+    if len(result.pwm[0].cycle.circuit.chains) > 1:  # several clamps: name each line
+        style.outside_legend(axes[2])
     axes[-1].xaxis.set_major_formatter(EngFormatter(unit="s"))
     axes[-1].set_xlabel("time from turn-on (steady state)")
     style.title(fig, f"{case.title} — {n_cycles} steady-state cycles at {pf.frequency_Hz / 1e3:g} kHz")
