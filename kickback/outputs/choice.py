@@ -65,7 +65,9 @@ def tradeoff_figure(ch):
     from kickback.studies.designs import allowed_voltage
 
     case = ch.case
-    fig = Figure(figsize=(10, 6.5), layout="constrained")
+    from kickback.outputs import style
+
+    fig = Figure(figsize=(11.5, 6.5), layout="constrained")
     ax = fig.subplots()
     cands = list(ch.ranked) + list(ch.rejected)
     fams = list(dict.fromkeys(c.family for c in cands))
@@ -79,29 +81,31 @@ def tradeoff_figure(ch):
         y = np.array([c.release for c in cs], dtype=float)
         size = 15 + 160 * np.array([(c.figures.get("clamp_energy_J") or 0.0) for c in cs]) / e_max
         ok = np.array([c.ok for c in cs])
-        color = f"C{n}"
-        ax.plot(x, y, "-", color=color, lw=1, alpha=0.7)
-        ax.scatter(x[ok], y[ok], s=size[ok], color=color, label=fam, zorder=3)
-        ax.scatter(x[~ok], y[~ok], s=size[~ok], facecolors="none", edgecolors=color, zorder=3)
+        line = style.series_style(n)
+        marker = style.series_marker(n)
+        ax.plot(x, y, lw=1, alpha=0.8, marker=marker, ms=0, label=fam, **line)
+        ax.scatter(x[ok], y[ok], s=size[ok], color=line["color"], marker=marker, zorder=3, label="_passes")
+        ax.scatter(x[~ok], y[~ok], s=size[~ok], facecolors="none", edgecolors=line["color"], marker=marker,
+                   zorder=3, label="_fails")
     v_allow = allowed_voltage(case)
-    ax.axvline(v_allow, color="k", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g}")
+    ax.axvline(v_allow, label=f"switch rating × {case.checks.derating:g} = {q(v_allow, 'V')}", **style.LIMIT)
     t_max = case.checks.max_release_time
     if t_max:
-        ax.axhline(t_max, color="k", ls=":", lw=1, label="max release time")
+        ax.axhline(t_max, label=f"max release time {q(t_max, 's')}", **(style.LIMIT | {"ls": ":"}))
     ax.set_yscale("log")
     ys = [c.release for c in cands if c.release is not None and c.release > 0]
     y0, y1 = (min(ys) / 1.3, max(ys) * 1.3) if ys else (1e-6, 1.0)
     if t_max:
         y0, y1 = min(y0, t_max / 1.3), max(y1, t_max * 1.3)
     x0, x1 = ax.get_xlim()
-    ax.fill_between([x0, v_allow], y0, t_max if t_max else y1, color="C2", alpha=0.08, lw=0,
+    ax.fill_between([x0, v_allow], y0, t_max if t_max else y1, color=style.GREEN, alpha=0.1, lw=0,
                     label="feasible region")
     ax.set_xlim(x0, x1)
     ax.set_ylim(y0, y1)
     if ch.ranked:
         best = ch.ranked[0]
         ax.annotate(f"best: {best.option.name}", (best.figures["peak_voltage_V"], best.release),
-                    textcoords="offset points", xytext=(-20, 25), fontsize=9,
+                    textcoords="offset points", xytext=(12, -34), fontsize=9, va="top",
                     arrowprops={"arrowstyle": "->", "lw": 0.8})
     from matplotlib.ticker import LogLocator, NullFormatter
 
@@ -113,8 +117,11 @@ def tradeoff_figure(ch):
     ax.set_xlabel("peak switch-node voltage")
     ax.set_ylabel(("release time" if has_release else "decay to zero") + " (logarithmic)")
     ax.grid(True, lw=0.3)
-    ax.legend(fontsize=8, loc="upper right", title="filled: passes; open: fails; size: clamp energy",
-              title_fontsize=8)
-    fig.suptitle(f"{case.title} — release against switch voltage ({engine_words(ch)})", fontsize=11)
+    leg = style.outside_legend(ax, title="filled: passes\nopen: fails\nsize: clamp energy", title_fontsize=8,
+                               alignment="left")
+    for h in leg.legend_handles:  # one marker size in the key: the size in the plot is the energy
+        if hasattr(h, "set_markersize"):
+            h.set_markersize(6)
+    style.title(fig, f"{case.title} — release against switch voltage ({engine_words(ch)})")
     engine_footnote(fig, ch)
     return fig

@@ -54,11 +54,14 @@ def _part_lines(cmp) -> list[str]:
 
 
 def comparison_figure(cmp):
-    """Switch-node voltage and coil current of every option on a logarithmic time axis."""
+    """Switch-node voltage and coil current of every option on a logarithmic time axis; the
+    legend (one entry per option, shared by both panels) to the right, clear of the traces."""
     from matplotlib.figure import Figure
     from matplotlib.ticker import EngFormatter
 
-    fig = Figure(figsize=(10, 7), layout="constrained")
+    from kickback.outputs import style
+
+    fig = Figure(figsize=(11.5, 7), layout="constrained")
     av, ai = fig.subplots(2, 1, sharex=True)
     case = cmp.case
     t_min = None
@@ -67,17 +70,18 @@ def comparison_figure(cmp):
             continue
         w = r.result.waveforms
         m = w.t > 0
-        style = {"lw": 2.2 if r.own else 1.2, "color": f"C{n % 10}", "ls": "-" if r.own else "-"}
-        label = r.name + ("" if r.result.passed else " (fails)")
-        av.plot(w.t[m], w.v[m], label=label, **style)
-        ai.plot(w.t[m], w.i_coil[m], **style)
+        line = style.series_style(n) | {"lw": 2.4 if r.own else 1.3}
+        label = ("case: " if r.own and not r.name.startswith("case") else "") + r.name
+        label += "" if r.result.passed else " (fails)"
+        av.plot(w.t[m], w.v[m], label=label, **line)
+        ai.plot(w.t[m], w.i_coil[m], label=label, **line)
         t_min = w.t[m][0] if t_min is None else min(t_min, w.t[m][0])
     if case.switch.rated_voltage is not None:
         lim = case.switch.rated_voltage * case.checks.derating
-        av.axhline(lim, color="k", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g} = {q(lim, 'V')}")
+        av.axhline(lim, label=f"switch rating × {case.checks.derating:g} = {q(lim, 'V')}", **style.LIMIT)
     if case.coil.release_current is not None:
-        ai.axhline(case.coil.release_current, color="k", ls=":", lw=1, label="release current")
-        ai.legend(fontsize=8, loc="lower left")
+        ai.axhline(case.coil.release_current, label=f"release current {q(case.coil.release_current, 'A')}",
+                   **style.RELEASE_CURRENT)
     for ax, unit, label in ((av, "V", "switch-node voltage"), (ai, "A", "coil current")):
         ax.set_xscale("log")
         ax.yaxis.set_major_formatter(EngFormatter(unit=unit))
@@ -88,8 +92,9 @@ def comparison_figure(cmp):
         edge = case.switch.fall_time or min(r.result.figures.peak_time_s for r in cmp.rows if r.result) or t_min
         av.set_xlim(left=max(t_min, 0.02 * edge))
     ai.set_xlabel("time after turn-off (logarithmic)")
-    av.legend(fontsize=8, loc="center left")
-    fig.suptitle(f"{case.title} — clamp options", fontsize=11)
+    style.outside_legend(av, title="clamp option (thick: the case's own)", title_fontsize=8)
+    if case.coil.release_current is not None:
+        handles, labels = ai.get_legend_handles_labels()
+        style.outside_legend(ai, handles[-1:], labels[-1:])
+    style.title(fig, f"{case.title} — clamp options")
     return fig
-
-

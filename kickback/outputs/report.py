@@ -91,7 +91,7 @@ table.checks tr.pass td:first-child { border-left: 5px solid var(--pass); }
 figure { margin: 8px 0 14px; } figure svg { width: 100%; height: auto; display: block; }
 figcaption { font-size: 12.5px; color: #333; margin-top: 4px; }
 figure.schematic svg { width: auto; max-width: 100%; max-height: 600px; margin: 0 auto; }
-figure.wave.single svg { max-width: 860px; }
+figure.wave.single svg { max-width: 1000px; }
 table.compare td { white-space: nowrap; }
 table.compare td:first-child, table.compare td:last-child { white-space: normal; }
 pre.case { background: #f6f6f6; border: 1px solid var(--rule); padding: 8px 10px; font-size: 12px;
@@ -244,10 +244,7 @@ def comparison_section(cmp) -> Section:
              "ideal Zener and TVS) — they show the trade-off, they are not parts."
              if cmp.builtin else "Alternatives: the case's own [[option]] sets.")
     body += f'<p class="note">{escape(where)} Each option is checked against the same ratings and limits.</p>'
-    fig = comparison_figure(cmp)
-    for ax in fig.axes:  # legends beside the plots, so they cover no curve
-        if ax.get_legend() is not None:
-            ax.legend(fontsize=8.5, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0)
+    fig = comparison_figure(cmp)  # its legends sit beside the plots already, clear of every curve
     body += _figure(fig, "cmp", "Switch-node voltage and coil current of every option "
                     "(logarithmic time axis); the thick line is this case.")
     return Section("comparison", "Clamp comparison", body)
@@ -425,7 +422,7 @@ def report_html(result, *, comparison=None, command: str = "", date: str = "", v
         Section("checks", "Checks", parts.check_table(result) + "<h3>Turn-off figures</h3>"
                 + parts.figures_table(result) + "<h3>Clamp duty</h3>" + parts.clamp_table(result)),
         Section("ledger", "Energy ledger", _figure(figs.ledger_figure(result), "ledger",
-                "Where the energy went: inputs (blue), dissipation (orange), left over (grey); "
+                "Where the energy went: inputs (blue), dissipation (orange), left over (grey, hatched); "
                 "shares of the total input.") + parts.ledger_table(result)),
         _waveform_section(result),
         *later,

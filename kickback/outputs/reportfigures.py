@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from kickback.figures import chain_signals
+from kickback.outputs import style
 from kickback.outputs.reportparts import ledger_items, ledger_total, share
 from kickback.units import format_quantity as q
 
@@ -17,9 +18,12 @@ def ledger_figure(result):
     items = [it for it in ledger_items(result) if abs(it[2]) > 1e-9 * total or it[1] == "stored in the coil"]
     fig = Figure(figsize=(6.6, 0.7 + 0.26 * len(items)), layout="constrained")
     ax = fig.subplots()
-    colour = {"in": "#3b6ea8", "out": "#c8742c", "left": "#8c8c8c"}
+    colour = {"in": style.BLUE, "out": style.ORANGE, "left": style.LIGHT_GREY}
     ys = list(range(len(items)))[::-1]
-    ax.barh(ys, [x for _, _, x in items], color=[colour[s] for s, _, _ in items], height=0.62)
+    bars = ax.barh(ys, [x for _, _, x in items], color=[colour[s] for s, _, _ in items], height=0.62)
+    for bar, (side, _, _) in zip(bars, items, strict=True):
+        if side == "left":  # hatched: apart from the orange of "out" in greyscale print too
+            bar.set(facecolor="white", edgecolor=style.GREY, hatch="////", linewidth=0.6)
     ax.set_yticks(ys, [f"{s}: {lab}" for s, lab, _ in items], fontsize=8)
     for y, (side, _, x) in zip(ys, items, strict=True):
         pct = "" if side == "in" else f"  ({share(x, total)})"
@@ -45,23 +49,22 @@ def _power_signals(result):
     return out
 
 
-def _limits(ax, result, annotate: bool):
+def _limits(ax, result, show_peak: bool):
     case, f = result.case, result.figures
-    ax.axhline(case.supply.voltage, color="0.45", ls=":", lw=1, label=f"supply {q(case.supply.voltage, 'V')}")
+    ax.axhline(case.supply.voltage, label=f"supply {q(case.supply.voltage, 'V')}", **style.SUPPLY)
     if case.switch.rated_voltage is not None:
         lim = case.switch.rated_voltage * case.checks.derating
-        ax.axhline(lim, color="#c0392b", ls="--", lw=1.1,
-                   label=f"switch limit {q(lim, 'V')} ({q(case.switch.rated_voltage, 'V')} × {case.checks.derating:g})")
+        ax.axhline(lim, label=f"switch limit {q(lim, 'V')} ({q(case.switch.rated_voltage, 'V')} × "
+                   f"{case.checks.derating:g})", **style.LIMIT)
     if case.checks.max_peak_voltage is not None:
-        ax.axhline(case.checks.max_peak_voltage, color="#7d3c98", ls="--", lw=1,
-                   label=f"case limit {q(case.checks.max_peak_voltage, 'V')}")
+        ax.axhline(case.checks.max_peak_voltage, label=f"case limit {q(case.checks.max_peak_voltage, 'V')}",
+                   **style.CASE_LIMIT)
     bv = case.switch.breakdown_voltage
     if bv is not None and bv < 1.6 * max(f.peak_voltage_V, case.supply.voltage):
-        ax.axhline(bv, color="0.3", ls="-.", lw=0.9, label=f"avalanche onset {q(bv, 'V')}")
-    ax.plot([f.peak_time_s], [f.peak_voltage_V], "v", color="C0", ms=6)
-    if annotate:
-        ax.annotate(f"peak {q(f.peak_voltage_V, 'V')}\nat {q(f.peak_time_s, 's')}", (f.peak_time_s, f.peak_voltage_V),
-                    textcoords="offset points", xytext=(10, -4), fontsize=7.5, va="top")
+        ax.axhline(bv, label=f"avalanche onset {q(bv, 'V')}", **style.AVALANCHE)
+    if show_peak:
+        ax.plot([f.peak_time_s], [f.peak_voltage_V], label=f"peak {q(f.peak_voltage_V, 'V')} at "
+                f"{q(f.peak_time_s, 's')}", **style.PEAK_MARKER)
 
 
 def _time_span(result) -> float:
@@ -73,61 +76,72 @@ def _time_span(result) -> float:
 
 
 def _release(ax, result, whole: bool):
+    from kickback.outputs.plots import release_marks
+
     case, f = result.case, result.figures
-    rel = case.coil.release_current
-    if rel is None:
+    marks = release_marks(result)
+    if marks is None:
         return
-    ax.axhline(rel, color="0.45", ls=":", lw=1, label=f"release current {q(rel, 'A')}")
-    if f.release_s is not None and whole:
-        t_below = f.release_s - case.coil.release_delay
-        ax.plot([t_below], [rel], "o", color="C2", ms=5, label=f"below release current at {q(t_below, 's')}")
-        ax.axvline(f.release_s, color="C2", ls="--", lw=1,
-                   label=f"released at {q(f.release_s, 's')} (+ {q(case.coil.release_delay, 's')} delay)")
+    levels, label, point = marks
+    for n, level in enumerate(levels):
+        ax.axhline(level, label=label if n == 0 else "_", **style.RELEASE_CURRENT)
+    if point is not None and whole:
+        ax.plot([point[0]], [point[1]], label=f"below release current at {q(point[0], 's')}", **style.RELEASE_MARKER)
+        ax.axvline(f.release_s, label=f"released at {q(f.release_s, 's')} (+ {q(case.coil.release_delay, 's')} "
+                   "delay)", **style.RELEASE)
     limit = case.checks.max_release_time
     if limit is not None and whole:
         if limit <= _time_span(result):
-            ax.axvline(limit, color="#7d3c98", ls="--", lw=1, label=f"release limit {q(limit, 's')}")
+            ax.axvline(limit, label=f"release limit {q(limit, 's')}", **style.LIMIT)
         else:
             ax.plot([], [], " ", label=f"release limit {q(limit, 's')} (beyond the axis)")
 
 
 def waveform_figure(result, t_zoom: float | None):
     """Switch-node voltage with its limits, coil current with the release point, and clamp and
-    switch power — over the whole transient and, when ``t_zoom`` [s] is given, on the turn-off edge."""
+    switch power — over the whole transient and, when ``t_zoom`` [s] is given, on the turn-off edge
+    (drawn from 0 to exactly ``t_zoom``, the window its title states). One legend per row, to the
+    right of the figure, so that none covers a trace."""
     from matplotlib.figure import Figure
-    from matplotlib.ticker import EngFormatter
+    from matplotlib.ticker import EngFormatter, MaxNLocator
+
+    from kickback.outputs.plots import Window
 
     w = result.waveforms
     power = _power_signals(result)
     cols = [(None, "whole transient")] if t_zoom is None else [(t_zoom, f"turn-off edge (first {q(t_zoom, 's')})"),
                                                                (None, "whole transient")]
     end = _time_span(result)
-    fig = Figure(figsize=(9.2, 8.6) if t_zoom else (7.6, 7.6), layout="constrained")
+    fig = Figure(figsize=(11.6, 8.6) if t_zoom else (9.4, 7.6), layout="constrained")
     grid = fig.subplots(3, len(cols), sharex="col", squeeze=False,
                         gridspec_kw={"width_ratios": [1, 1.45]} if t_zoom else None)
     for c, (t_end, title) in enumerate(cols):
         av, ai, ap = grid[:, c]
         whole = t_end is None
-        m = slice(None) if whole else w.t <= t_end * 1.0001
-        t = w.t[m]
-        av.plot(t, w.v[m], color="C0", lw=1.4, label="switch node")
-        _limits(av, result, annotate=whole)
-        ai.plot(t, w.i_coil[m], color="C1", lw=1.4, label="coil current")
+        m = Window(w.t, t_end)
+        t = m.t
+        av.plot(t, m(w.v), label="switch-node voltage", **style.VOLTAGE)
+        _limits(av, result, show_peak=whole or result.figures.peak_time_s <= t_end)
+        ai.plot(t, m(w.i_coil), label="coil current", **style.COIL)
         if not whole:
-            ai.plot(t, (w.i_channel + w.i_offstate)[m], color="C4", lw=1.0, ls="--", label="switch current")
+            ai.plot(t, m(w.i_channel + w.i_offstate), label="switch current", **style.SWITCH_CURRENT)
         for n, k in enumerate(w.circuit.active_chains):
-            ai.plot(t, w.i_chains[n][m], lw=0.9, color=f"C{5 + n % 4}", label=f"clamp {w.circuit.chains[k].name}")
+            ai.plot(t, m(w.i_chains[n]), label=f"clamp {w.circuit.chains[k].name}", **style.clamp_style(n))
         _release(ai, result, whole)
         for n, (label, p) in enumerate(power):
-            style = {"color": "C4", "ls": "--"} if label == "switch" else {"color": f"C{5 + n % 4}"}
-            ap.plot(t, p[m], lw=1.1, label="switch (crossover, avalanche)" if label == "switch" else label, **style)
+            if label == "switch":
+                ap.plot(t, m(p), label="switch (crossover, avalanche)", **style.SWITCH_CURRENT)
+            else:
+                ap.plot(t, m(p), label=label, **style.clamp_style(n))
         if whole:
             ap.set_xlim(-0.02 * end, end)
             if end > 1.05 * w.t[-1]:
                 for ax in (av, ai, ap):
-                    ax.axvline(w.t[-1], color="0.55", lw=0.8, ls=(0, (1, 3)))
-                av.annotate("end of run:\ncurrent at zero", (w.t[-1], 0.5), xycoords=("data", "axes fraction"),
-                            xytext=(4, 0), textcoords="offset points", fontsize=7, color="0.35")
+                    ax.axvline(w.t[-1], color=style.LIGHT_GREY, lw=0.8, ls=(0, (1, 3)),
+                               label="end of run: current at zero" if ax is ai else "_")
+        else:
+            ap.set_xlim(min(0.0, float(t[0])), t_end)
+            ap.xaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
         av.set_title(title, fontsize=9.5)
         for ax, unit, name in ((av, "V", "switch-node voltage"), (ai, "A", "current"),
                                (ap, "W", "dissipated power")):
@@ -137,9 +151,9 @@ def waveform_figure(result, t_zoom: float | None):
             ax.grid(True, lw=0.4, alpha=0.6)
             if c == 0:
                 ax.set_ylabel(name, fontsize=9)
-            if whole or ax is ai:
-                ax.legend(fontsize=7.5, loc="best", framealpha=0.92)
         lo, hi = ai.get_ylim()
         ai.set_ylim(min(lo, -0.04 * hi), hi)  # the current axis always shows zero
         ap.set_xlabel("time after turn-off", fontsize=9)
+    for row in grid:
+        style.outside_legend(row[-1], *style.row_handles(*row[::-1]), fontsize=7.5)
     return fig

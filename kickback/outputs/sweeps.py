@@ -7,6 +7,7 @@ import io
 
 import numpy as np
 
+from kickback.outputs import style
 from kickback.outputs.table import _grid
 from kickback.studies.sweep import COLUMNS
 from kickback.units import format_quantity as q
@@ -128,13 +129,20 @@ def _arr(sw, col):
     return np.array([np.nan if x is None else x for x in sw.figures[col]], dtype=float)
 
 
-def _eng_axis(axis, a) -> None:
-    """Engineering-unit ticks; on a log axis majors at 1, 2, 5 × 10^k and no minor labels."""
-    from matplotlib.ticker import EngFormatter, LogLocator, NullFormatter
+def _eng_axis(axis, a, nbins: int = 8) -> None:
+    """Engineering-unit ticks; on a log axis majors at 1, 2, 5 × 10^k and no minor labels; at most
+    ``nbins`` intervals on a linear axis (a narrow panel's labels then do not run into each other)."""
+    from matplotlib.ticker import EngFormatter, LogLocator, MaxNLocator, NullFormatter
 
-    if a.log:
-        axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+    decades = np.log10(max(a.values) / min(a.values)) if a.log and min(a.values) > 0 else 0.0
+    if a.log and decades < 1.0:  # within a decade: round linear steps (a log locator gives one tick)
+        axis.set_major_locator(MaxNLocator(nbins=nbins, steps=[1, 2, 2.5, 5, 10]))
         axis.set_minor_formatter(NullFormatter())
+    elif a.log:
+        axis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0) if decades * 3 <= 2 * nbins else (1.0,)))
+        axis.set_minor_formatter(NullFormatter())
+    else:
+        axis.set_major_locator(MaxNLocator(nbins=nbins, steps=[1, 2, 2.5, 5, 10]))
     axis.set_major_formatter(EngFormatter(unit=a.unit))
 
 
@@ -148,19 +156,21 @@ def sweep_figure(sw):
     if len(sw.axes) == 1:
         ax0 = sw.axes[0]
         x = sw.points[:, 0]
-        fig = Figure(figsize=(9, 7), layout="constrained")
+        fig = Figure(figsize=(11, 7), layout="constrained")
         a1, a2, a3 = fig.subplots(3, 1, sharex=True)
-        a1.plot(x, _arr(sw, "peak_voltage_V"), "o-", ms=3, label="peak switch-node voltage")
+        a1.plot(x, _arr(sw, "peak_voltage_V"), marker="o", ms=3, label="peak switch-node voltage", **style.VOLTAGE)
         if limit_v:
-            a1.axhline(limit_v, color="C3", ls="--", lw=1, label=f"switch rating × {case.checks.derating:g}")
-        a2.plot(x, _arr(sw, "to_zero_s"), "o-", ms=3, label="decay to zero")
+            a1.axhline(limit_v, label=f"switch rating × {case.checks.derating:g} = {q(limit_v, 'V')}", **style.LIMIT)
+        a2.plot(x, _arr(sw, "to_zero_s"), marker="o", ms=3, label="decay to zero", **style.COIL)
         has_release = any(v is not None for v in sw.figures["release_s"])
         if has_release:
-            a2.plot(x, _arr(sw, "release_s"), "s-", ms=3, label="release")
+            a2.plot(x, _arr(sw, "release_s"), marker="s", ms=3, label="release", **style.RELEASE)
         if case.checks.max_release_time:
-            a2.axhline(case.checks.max_release_time, color="C3", ls="--", lw=1, label="max release time")
-        a3.plot(x, _arr(sw, "clamp_energy_J"), "o-", ms=3, label="clamp energy")
-        a3.plot(x, _arr(sw, "avalanche_energy_J"), "^-", ms=3, label="avalanche energy")
+            a2.axhline(case.checks.max_release_time, label=f"max release time {q(case.checks.max_release_time, 's')}",
+                       **style.LIMIT)
+        a3.plot(x, _arr(sw, "clamp_energy_J"), marker="o", ms=3, label="clamp energy", **style.clamp_style(0))
+        a3.plot(x, _arr(sw, "avalanche_energy_J"), marker="^", ms=3, label="avalanche energy",
+                **style.SWITCH_CURRENT)
         panel = {"peak_voltage_V": a1, "to_zero_s": a2, "release_s": a2, "clamp_energy_J": a3,
                  "avalanche_energy_J": a3}
         marks, other = failure_marks(sw)
@@ -168,14 +178,14 @@ def sweep_figure(sw):
             if col == "release_s" and not has_release:
                 continue
             rows = np.asarray(rows, int)
-            panel[col].plot(x[rows], _arr(sw, col)[rows], "x", color="C3", ms=8, mew=1.5,
-                            label=f"fails: {FAIL_LABELS[col]}", gid=f"fail:{col}")
+            panel[col].plot(x[rows], _arr(sw, col)[rows], label=f"fails: {FAIL_LABELS[col]}", gid=f"fail:{col}",
+                            **style.FAIL_MARKER)
         for k in other:
             for ax in (a1, a2, a3):
-                ax.axvline(x[k], color="C3", ls=":", lw=1, gid="fail:other",
-                           label="fails a check not drawn here" if k == other[0] else None)
+                ax.axvline(x[k], color=style.VERMILLION, ls=":", lw=1, gid="fail:other",
+                           label="fails a check not drawn here" if k == other[0] else "_")
         for ax in (a1, a2, a3):
-            ax.legend(fontsize=8)
+            style.outside_legend(ax)
             ax.grid(True, lw=0.3)
         for ax, u in ((a1, "V"), (a2, "s"), (a3, "J")):
             ax.yaxis.set_major_formatter(EngFormatter(unit=u))
@@ -186,7 +196,7 @@ def sweep_figure(sw):
     else:
         ax0, ax1 = sw.axes
         n0, n1 = len(ax0.values), len(ax1.values)
-        fig = Figure(figsize=(11, 4.8), layout="constrained")
+        fig = Figure(figsize=(11, 5.2), layout="constrained")
         panels = fig.subplots(1, 2)
         for ax, col, unit, title in ((panels[0], "peak_voltage_V", "V", "peak switch-node voltage"),
                                      (panels[1], "release_s" if any(v is not None for v in sw.figures["release_s"])
@@ -198,25 +208,22 @@ def sweep_figure(sw):
             ok = sw.passed.reshape(n0, n1).astype(float)
             if 0 < ok.sum() < ok.size:
                 ax.contour(ax1.values, ax0.values, ok, levels=[0.5], colors="w", linewidths=2)
-            ax.plot(*np.meshgrid(ax1.values, ax0.values)[::1], "k.", ms=1.5)
+            ax.plot(*np.meshgrid(ax1.values, ax0.values), "k.", ms=1.5, label="_points")
             ax.set_xlabel(ax1.path)
             ax.set_ylabel(ax0.path)
             if ax1.log:
                 ax.set_xscale("log")
             if ax0.log:
                 ax.set_yscale("log")
-            for axis, a in ((ax.xaxis, ax1), (ax.yaxis, ax0)):
-                _eng_axis(axis, a)
-        panels[0].set_title("white line: boundary of passing designs", fontsize=9)
-    fig.suptitle(f"{case.title} — sweep ({engine_words(sw)})", fontsize=11)
+            for axis, a, nbins in ((ax.xaxis, ax1, 4), (ax.yaxis, ax0, 8)):
+                _eng_axis(axis, a, nbins)
+        panels[0].set_title("white line: boundary of passing designs; dots: the points run", fontsize=9)
+    style.title(fig, f"{case.title} — sweep ({engine_words(sw)})")
     engine_footnote(fig, sw)
     return fig
 
 
 def engine_footnote(fig, study) -> None:
-    """The engine and its fits in small type under a figure (room kept by the layout)."""
-    import textwrap
-
-    lines = textwrap.wrap(engine_text(study), 150)
-    fig.get_layout_engine().set(rect=(0, 0.012 * (len(lines) + 1), 1, 1 - 0.012 * (len(lines) + 1)))
-    fig.text(0.01, 0.005, "\n".join(lines), fontsize=6.5, color="0.35", ha="left", va="bottom")
+    """The engine and its fits in small type under a figure; the layout keeps the axes, their
+    tick and axis labels included, above it."""
+    style.footnote(fig, engine_text(study))

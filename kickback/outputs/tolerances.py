@@ -134,33 +134,40 @@ def samples_csv(tr) -> str:
 
 
 def tolerance_figure(tr):
-    """Histograms of the figures with their limits drawn."""
+    """Histograms of the figures with their limits and the worst band corner drawn; each panel's
+    legend sits above it, under the panel's title, clear of the bars."""
     from matplotlib.figure import Figure
     from matplotlib.ticker import EngFormatter
 
+    from kickback.outputs import style
+
     case = tr.case
     shown = [(f, u) for f, u, _ in tr.figure_list if np.isfinite(tr.figures[f]).any() and np.nanmax(tr.figures[f]) > 0]
-    fig = Figure(figsize=(10, 2.6 * max(1, (len(shown) + 1) // 2)), layout="constrained")
-    axes = np.atleast_1d(fig.subplots((len(shown) + 1) // 2, 2)).ravel()
+    n_rows = max(1, (len(shown) + 1) // 2)
+    fig = Figure(figsize=(11, 0.6 + 3.0 * n_rows), layout="constrained")
+    axes = np.atleast_1d(fig.subplots(n_rows, 2)).ravel()
     limits = {"peak_voltage_V": case.switch.rated_voltage * case.checks.derating if case.switch.rated_voltage
               else None, "release_s": case.checks.max_release_time, "to_zero_s": case.checks.max_decay_time,
               "clamp_energy_J": case.checks.max_clamp_energy}
     for ax, (f, u) in zip(axes, shown, strict=False):
         a = tr.figures[f][np.isfinite(tr.figures[f])]
-        ax.hist(a, bins=min(60, max(10, int(np.sqrt(a.size)))), color="C0", alpha=0.8)
+        ax.hist(a, bins=min(60, max(10, int(np.sqrt(a.size)))), color=style.FILL, alpha=0.75,
+                label=f"{a.size} samples")
         lim = limits.get(f)
         if lim:
-            ax.axvline(lim, color="C3", ls="--", lw=1.2, label=f"limit {q(lim, u)}")
-            ax.legend(fontsize=8)
+            ax.axvline(lim, label=f"limit {q(lim, u)}", **style.LIMIT)
         c = tr.corners.get(f)
         if c:
-            ax.axvline(c["max"], color="k", ls=":", lw=1, label="worst corner")
-        ax.set_title(_label(tr, f), fontsize=9)
+            ax.axvline(c["max"], label=f"worst band corner {q(c['max'], u)}", **style.WORST)
+        ax.legend(fontsize=7.5, loc="lower left", bbox_to_anchor=(0.0, 1.0), borderaxespad=0.2, ncols=3,
+                  frameon=False, handlelength=1.8, columnspacing=1.0)
+        ax.set_title(_label(tr, f), fontsize=9.5, loc="left", pad=20)
         ax.xaxis.set_major_formatter(EngFormatter(unit=u))
+        ax.xaxis.get_major_locator().set_params(nbins=6)
         ax.set_ylabel("samples")
     for ax in axes[len(shown):]:
         ax.set_visible(False)
-    fig.suptitle(f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} % ({engine_words(tr)})",
-                 fontsize=11)
+    style.title(fig, f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} % "
+                     f"({engine_words(tr)})")
     engine_footnote(fig, tr)
     return fig
