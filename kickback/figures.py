@@ -8,11 +8,33 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.engine.detailed import ZERO_FRACTION, Waveforms
+from kickback.models.factory import chain_leakage
 
 #: a chain counts as conducting above this fraction of the initial coil current
 CONDUCTION_FRACTION = 1e-6
 #: a clamp conducting more than this fraction of the coil current in the on-state is reported
 ON_STATE_FRACTION = 1e-4
+#: an on-state current up to this multiple of the chain's reverse leakage is leakage, not conduction
+LEAKAGE_MARGIN = 1.01
+
+
+def conducts_while_on(on_current: float, initial_current: float, leakage: float = 0.0) -> bool:
+    """Whether a clamp conducts in the DC on-state (a failed check, a finding).
+
+    Its on-state current must exceed ``ON_STATE_FRACTION`` × the coil's on-state current and,
+    where a reverse-biased diode bounds the chain (:func:`kickback.models.factory.chain_leakage`),
+    that diode's leakage: a diode's saturation current is not conduction.
+
+    Parameters
+    ----------
+    on_current : float
+        The clamp's current in the DC on-state [A] (either sign).
+    initial_current : float
+        The coil's on-state current [A].
+    leakage : float
+        The chain's reverse leakage bound [A] (0: none).
+    """
+    return abs(on_current) > max(ON_STATE_FRACTION * abs(initial_current), LEAKAGE_MARGIN * leakage)
 
 
 @dataclass(frozen=True)
@@ -216,7 +238,7 @@ def compute_figures(w: Waveforms) -> Figures:
                                       energy, float(np.max(np.abs(vj), initial=0.0)),
                                       float(np.max(np.abs(ic), initial=0.0)), standoff, pk_p, width, tj))
         on_i = float(c.on.chain_currents[k]) if k < len(c.on.chain_currents) else 0.0
-        if abs(on_i) > ON_STATE_FRACTION * i0:
+        if conducts_while_on(on_i, i0, chain_leakage(ch.clamp.elements)):
             findings.append(f"clamp '{ch.name}' conducts {abs(on_i):.3g} A while the switch is on "
                             f"({abs(on_i * c.on.chain_voltages[k]):.3g} W in the clamp, extra switch current)")
         clamps.append(ClampFigures(ch.name, ch.clamp.across, sum(x.energy_J for x in els),

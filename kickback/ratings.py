@@ -5,7 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from kickback.case import Case
-from kickback.figures import ON_STATE_FRACTION, Figures
+from kickback.figures import Figures, conducts_while_on
+from kickback.models.factory import chain_leakage
 
 
 @dataclass(frozen=True)
@@ -66,7 +67,7 @@ def drive_checks(case: Case, fig: Figures) -> list[Check]:
     return out
 
 
-def on_state_check(name: str, on_current: float, initial_current: float) -> Check | None:
+def on_state_check(name: str, on_current: float, initial_current: float, leakage: float = 0.0) -> Check | None:
     """A clamp that conducts while the switch is on fails (None when it does not conduct).
 
     A clamp is meant to take the coil's current only after turn-off; one that conducts in the DC
@@ -83,10 +84,12 @@ def on_state_check(name: str, on_current: float, initial_current: float) -> Chec
         The clamp's current in the DC on-state [A] (either sign).
     initial_current : float
         The coil's on-state current [A].
+    leakage : float
+        The chain's reverse leakage bound [A] (:func:`kickback.models.factory.chain_leakage`): a
+        reverse-biased diode's saturation current is leakage, not conduction.
     """
-    limit = ON_STATE_FRACTION * abs(initial_current)
     value = abs(on_current)
-    if value <= limit:
+    if not conducts_while_on(on_current, initial_current, leakage):
         return None
     return Check(name, "current while the switch is on", float(value), 0.0, None, False, "A",
                  "a clamp must not conduct while the switch is on")
@@ -168,7 +171,8 @@ def rating_checks(case: Case, fig: Figures) -> list[Check]:
                                            case.checks.ambient_temperature))
         if ck.max_clamp_energy is not None:
             out.append(_check(cl.name, "clamp energy", cf.energy_J, ck.max_clamp_energy, 1.0, "J", "case limit"))
-        on_row = on_state_check(cl.name, cf.on_state_current_A, fig.initial_current_A)
+        on_row = on_state_check(cl.name, cf.on_state_current_A, fig.initial_current_A,
+                                chain_leakage(cl.elements))
         if on_row is not None:
             out.append(on_row)
     if fig.switch_junction_peak_K is not None and s.max_junction_temperature is not None:

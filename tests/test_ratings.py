@@ -306,3 +306,23 @@ def test_clamp_conducting_while_on_batch_columns_agree():
     for k, vs in enumerate([12.0, 24.0], start=1):
         v = (vs / 30.0 + (vs - 0.7) / 1.5) / (1 / 0.5 + 1 / 30.0 + 1 / 1.5)  # node balance as above
         assert col.value[k] == pytest.approx((vs - 0.7 - v) / 1.5, rel=1e-9)
+
+
+@pytest.mark.parametrize("engine", ["detailed", "batch"])
+def test_reverse_leakage_of_a_freewheel_diode_is_not_conduction(engine):
+    """A Shockley freewheel diode reverse-biased by the supply in the on-state carries −I_s (the
+    ideal diode's reverse saturation current, Sze & Ng, Physics of Semiconductor Devices, 3rd ed.,
+    §2.3). On a weak coil (3 V, 5 kΩ: 0.6 mA) a saturation current of 1 µA is 1.7e-3 of the coil
+    current, above ON_STATE_FRACTION: it is leakage, not conduction — no failed check, no finding.
+    The detailed engine reports the on-state current −I_s itself (the closed form for v ≫ n·V_T)."""
+    i_s = 1e-6
+    diode = Element("diode", name="D1", model="shockley", ideality=1.0, saturation_current=i_s,
+                    rated_reverse_voltage=50.0)
+    case = Case("weak relay coil, leaky freewheel diode (invented)", Supply(3.0), Coil(0.5, 5000.0),
+                Switch("mosfet", on_resistance=0.1, rated_voltage=60.0), (Clamp("D1", "coil", (diode,)),),
+                Checks())
+    res = simulate(case, engine=engine)
+    assert not [c for c in res.checks if c.quantity == "current while the switch is on"]
+    assert not [f for f in res.figures.findings if "while the switch is on" in f]
+    if engine == "detailed":
+        assert res.figures.clamps[0].on_state_current_A == pytest.approx(-i_s, rel=1e-6)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from kickback.case import Element
 from kickback.models.base import ElementLaw
 from kickback.models.breakdown import Varistor, breakdown_element, breakdown_line
@@ -42,6 +44,25 @@ def element_law(element: Element) -> ElementLaw | None:
     if t == "capacitor":
         return None
     raise ValueError(f"unknown element type {t!r}")
+
+
+def chain_leakage(elements) -> float:
+    """The reverse leakage that bounds a series chain's current [A] (0 when nothing bounds it).
+
+    A series chain's current can fall no lower than the highest of its elements' floors
+    (``ElementLaw.i_floor``): a reverse-biased Shockley diode holds the chain at −I_s whatever
+    the voltage across it, so an on-state current of that size is the diode's leakage, not
+    conduction. A chain of laws without a finite floor (a forward-biased Zener) has none: 0.
+    A capacitor carries no DC current and is skipped.
+
+    References
+    ----------
+    Sze, S. M. and Ng, K. K., *Physics of Semiconductor Devices*, 3rd ed., Wiley, 2007, §2.3
+    (the ideal diode's reverse current saturates at −I_s).
+    """
+    floors = [law.i_floor for law in (element_law(el) for el in elements) if law is not None]
+    low = max(floors, default=-math.inf)
+    return -low if math.isfinite(low) and low < 0 else 0.0
 
 
 def from_datasheet(element: Element) -> bool:
