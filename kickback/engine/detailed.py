@@ -459,9 +459,21 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
             # at: the pin is released here rather than integrated into the law's kink at zero
             runner.unpin(c.pin)
         c.pin = None  # a floating node is tested again at the phase's start
-        runner.run("ring", t_bound, [ev10, ev1, ev_rest], record)
-        bound_hit = not (dyn_energy(runner.y) <= rest_level * 1.0001)
-        if not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 and runner.t < t_bound:
+        from kickback.engine.linring import try_linear_ring
+
+        while True:
+            done, bound_hit, retry = try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps,
+                                                     RING_END_FRACTION)
+            if done:
+                break
+            # step by step: to the end, or (the ring still reaches a law's kink) for a while
+            t_stop = t_bound if retry is None else min(t_bound, runner.t + retry)
+            sol = runner.run("ring", t_stop, [ev10, ev1, ev_rest], record)
+            bound_hit = not (dyn_energy(runner.y) <= rest_level * 1.0001)
+            if sol.status == 1 or runner.t >= t_bound or not bound_hit:
+                break
+        if not done and not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 \
+                and runner.t < t_bound:
             # end on a zero of the coil current, so that it too is below 0.1 % of the start
             runner.run("ring", t_bound, [ev_cross], record)
             bound_hit = abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0
