@@ -73,7 +73,6 @@ class Chain:
                     self._rev = ShockleyDiode(d.n, d.i_s, d.r_s + rest.r_rev, d.a / d.n)
         self.active = active
         self._active_idx = [k for k, law in enumerate(self.laws) if law is not None]
-        self._last_current = 0.0
         self.band = (sum(law.band[0] for law in active), sum(law.band[1] for law in active))
         self.piecewise_linear = self.pieces is not None
 
@@ -158,7 +157,13 @@ class Chain:
             return 0.0
         p = self.exact_pieces[k] if exact else law.pieces()
         if p is not None:
-            return p.voltage_at(current) * current
+            v = p.voltage_at(current)
+            if not math.isfinite(v):
+                # a blocking piece (an ideal diode in reverse) met by a trial state of an implicit
+                # step across the pin's release: the law carries no current there, so no power
+                # (a true state has none; an infinite rate would stall the step)
+                return 0.0
+            return v * current
         if isinstance(law, ShockleyDiode):
             return law.voltage_at(current) * current
         return float(law.voltage(current)) * current
@@ -194,6 +199,24 @@ class Chain:
             return law.voltage_at(current)
         return float(law.voltage(current))
 
+    def _law_current(self, k: int, v: float) -> float:
+        """Scalar current [A] of element ``k`` alone at voltage ``v`` [V] (math only: numpy's
+        error flags would reach the vectorised caller)."""
+        law = self.laws[k]
+        p = law.pieces()
+        if p is not None:
+            return p.current_at(v)
+        if hasattr(law, "current_at"):
+            return law.current_at(v)
+        alpha = getattr(law, "alpha", None)
+        if alpha is not None:  # varistor: sign(v)·I_1·|v/V_1|^α
+            x = abs(v / law.v1)
+            try:
+                return math.copysign(law.i1 * x ** alpha, v) if v else 0.0
+            except OverflowError:
+                return math.copysign(math.inf, v)
+        return float(law.current(v))
+
     def _law_slope(self, k: int, i: float) -> float:
         """Incremental resistance dv/di [Ω] of element ``k`` at current ``i`` [A] (i ≠ 0)."""
         law = self.laws[k]
@@ -209,13 +232,13 @@ class Chain:
         h = 1e-6 * abs(i)
         return (self._law_voltage(k, i + h) - self._law_voltage(k, i - h)) / (2 * h)
 
-    def _newton(self, g, lo: float, hi: float, guess: float) -> float:
+    def _newton(self, g, lo: float, hi: float) -> float:
         """Root of the increasing ``g`` (chain voltage less the target) in [lo, hi], a bracket
         on one side of zero: Newton's method in s = ln|i| (a diode's and a varistor's voltage
         are nearly linear in it) on the summed incremental resistance, kept inside the shrinking
         bracket (a step that leaves it bisects in s), to 1e-13 relative."""
         sign = 1.0 if hi > 0 else -1.0
-        x = guess if lo < guess < hi else (0.5 * (lo + hi) if lo * hi <= 0 else sign * math.sqrt(lo * hi))
+        x = 0.5 * (lo + hi) if lo * hi <= 0 else sign * math.sqrt(lo * hi)
         for _ in range(200):
             f = g(x)
             if abs(f) <= self._v_round:
@@ -225,10 +248,15 @@ class Chain:
             else:
                 hi = x
             a_lo, a_hi = sorted((abs(lo), abs(hi)))
+            # no NaN here (a comparison with NaN raises the FPU's invalid flag, which the
+            # vectorised caller reports): a rejected Newton step is None
             slope = sum(self._law_slope(k, x) for k in self._active_idx) if x != 0 else 0.0
-            ds = -f / (slope * x) if slope > 0 and math.isfinite(slope) else math.nan
-            xn = x * math.exp(ds) if abs(ds) < 50 else math.nan
-            if not lo < xn < hi:
+            xn = None
+            if 0 < slope < math.inf:
+                ds = -f / (slope * x)
+                if abs(ds) < 50:
+                    xn = x * math.exp(ds)
+            if xn is None or not lo < xn < hi:
                 xn = sign * (math.sqrt(a_lo * a_hi) if a_lo > 0 else 0.5 * a_hi)
             if abs(xn - x) <= 1e-13 * abs(xn) or a_hi - a_lo <= 1e-15 * a_hi:
                 return xn
@@ -240,6 +268,7 @@ class Chain:
 
     def _solve_numeric(self, vx: float) -> float:
         """Series solve for chains of several nonlinear laws: the current at chain voltage ``vx``."""
+        vx = float(vx)
         lo, hi = self.band
         if lo <= vx <= hi:
             return 0.0
@@ -262,22 +291,19 @@ class Chain:
         # each law alone at the whole voltage carries more than the chain, and one of the n
         # laws holds at least vx/n: a bracket from 2n law evaluations
         n = len(self._active_idx)
-        with np.errstate(all="ignore"):
-            upper = min(abs(float(self.laws[k].current(vx))) for k in self._active_idx)
-            lower = min(abs(float(self.laws[k].current(vx / n))) for k in self._active_idx)
+        upper = min(abs(self._law_current(k, vx)) for k in self._active_idx)
+        lower = min(abs(self._law_current(k, vx / n)) for k in self._active_idx)
         if math.isfinite(upper) and math.isfinite(lower) and upper > 0 and g(sign * upper) * sign >= 0 \
                 and g(sign * lower) * sign <= 0:
             lo, hi_ = sorted((sign * lower, sign * upper))
-            x = self._newton(g, lo, hi_, self._last_current)
-            self._last_current = x
-            return x
+            # a deterministic start (not the last solution): event functions evaluate this
+            # twice at the same voltage and must get the same current
+            return self._newton(g, lo, hi_)
         a, b = 0.0, sign * 1e-6
         while abs(b) < 1e300:
             gb = g(b)
             if gb * sign >= 0:
-                x = self._newton(g, min(a, b), max(a, b), self._last_current)
-                self._last_current = x
-                return x
+                return self._newton(g, min(a, b), max(a, b))
             if math.isnan(gb):
                 break
             a, b = b, b * 4.0

@@ -123,7 +123,6 @@ class Circuit(FloatingNode):
         #: ``t_turnoff`` (the current falls from ``i_on`` over the fall time, then the switch is off)
         self.conducting = False
         self.t_turnoff = 0.0
-        self.dv_di = 0.0
         self._pos = {k: n for n, k in enumerate(self.active_chains)}
         self._thresholds = self._node_thresholds()
 
@@ -521,8 +520,6 @@ class Circuit(FloatingNode):
                 G = max(G, gs) if math.isfinite(gs) else G
         finite = math.isfinite(G) and G > 0
         dv_di = 1.0 / G if finite else 0.0
-        #: [V/A] the node voltage's sensitivity to the coil current at the last Jacobian
-        self.dv_di = dv_di
         dv_dcap = {k: (g[2 + self._pos[k]] / G if finite else 0.0) for k in self.cap_chains}
         jm[0, 0] = -k0 * (self.R + dv_di) * g0
         for k in self.cap_chains:
