@@ -72,6 +72,7 @@ class Chain:
                     self._fwd = ShockleyDiode(d.n, d.i_s, d.r_s + rest.r_fwd, d.a / d.n)
                     self._rev = ShockleyDiode(d.n, d.i_s, d.r_s + rest.r_rev, d.a / d.n)
         self.active = active
+        self._active_idx = [k for k, law in enumerate(self.laws) if law is not None]
         self.band = (sum(law.band[0] for law in active), sum(law.band[1] for law in active))
         self.piecewise_linear = self.pieces is not None
 
@@ -123,6 +124,8 @@ class Chain:
             if vx < rest.v_rev:
                 return self._rev.current_at(vx - rest.v_rev)
             return 0.0
+        if self._smooth is None:
+            return self._solve_numeric(float(vx))
         return float(self.current(vx))
 
     def conductance_at(self, voltage: float, v_cap: float = 0.0) -> float:
@@ -154,22 +157,126 @@ class Chain:
             return 0.0
         p = self.exact_pieces[k] if exact else law.pieces()
         if p is not None:
-            return p.voltage_at(current) * current
+            v = p.voltage_at(current)
+            if not math.isfinite(v):
+                # a blocking piece (an ideal diode in reverse) met by a trial state of an implicit
+                # step across the pin's release: the law carries no current there, so no power
+                # (a true state has none; an infinite rate would stall the step)
+                return 0.0
+            return v * current
         if isinstance(law, ShockleyDiode):
             return law.voltage_at(current) * current
         return float(law.voltage(current)) * current
 
+    def powers_at(self, current: float, voltage: float, v_cap: float = 0.0, exact: bool = False) -> list[float]:
+        """Power [W] in each non-capacitor element (in chain order) at chain current [A] and
+        chain voltage [V]; they add up to the chain's power less the capacitor's.
+
+        A chain with nonlinear laws gives its residual voltage (the chain voltage less what the
+        other elements' laws drop) to one nonlinear element — the only one, or the one with the
+        smallest reverse current: a reverse-biased Shockley diode near its saturation current
+        holds what its clipped law cannot show, and its power is that voltage times the current.
+        """
+        ks = [k for k, law in enumerate(self.laws) if law is not None]
+        if current == 0.0:
+            return [0.0] * len(ks)
+        if self.pieces is not None:
+            return [self.power_at(k, current, exact) for k in ks]
+        if self._smooth is not None:
+            big = self.laws.index(self._smooth[0])
+        else:
+            big = max(ks, key=lambda j: self.laws[j].i_floor)
+        volts = {k: self._law_voltage(k, current) for k in ks if k != big}
+        volts[big] = (voltage - v_cap) - sum(volts.values())
+        return [volts[k] * current for k in ks]
+
+    def _law_voltage(self, k: int, current: float) -> float:
+        law = self.laws[k]
+        p = law.pieces()
+        if p is not None:
+            return p.voltage_at(current)
+        if hasattr(law, "voltage_at"):
+            return law.voltage_at(current)
+        return float(law.voltage(current))
+
+    def _law_current(self, k: int, v: float) -> float:
+        """Scalar current [A] of element ``k`` alone at voltage ``v`` [V] (math only: numpy's
+        error flags would reach the vectorised caller)."""
+        law = self.laws[k]
+        p = law.pieces()
+        if p is not None:
+            return p.current_at(v)
+        if hasattr(law, "current_at"):
+            return law.current_at(v)
+        alpha = getattr(law, "alpha", None)
+        if alpha is not None:  # varistor: sign(v)·I_1·|v/V_1|^α
+            x = abs(v / law.v1)
+            try:
+                return math.copysign(law.i1 * x ** alpha, v) if v else 0.0
+            except OverflowError:
+                return math.copysign(math.inf, v)
+        return float(law.current(v))
+
+    def _law_slope(self, k: int, i: float) -> float:
+        """Incremental resistance dv/di [Ω] of element ``k`` at current ``i`` [A] (i ≠ 0)."""
+        law = self.laws[k]
+        p = law.pieces()
+        if p is not None:
+            return p.r_fwd if i > 0 else p.r_rev
+        if isinstance(law, ShockleyDiode):
+            return law.a / max(law.i_s + i, 1e-300) + law.r_s
+        v = self._law_voltage(k, i)
+        alpha = getattr(law, "alpha", None)
+        if alpha is not None:
+            return v / (alpha * i)
+        h = 1e-6 * abs(i)
+        return (self._law_voltage(k, i + h) - self._law_voltage(k, i - h)) / (2 * h)
+
+    def _newton(self, g, lo: float, hi: float) -> float:
+        """Root of the increasing ``g`` (chain voltage less the target) in [lo, hi], a bracket
+        on one side of zero: Newton's method in s = ln|i| (a diode's and a varistor's voltage
+        are nearly linear in it) on the summed incremental resistance, kept inside the shrinking
+        bracket (a step that leaves it bisects in s), to 1e-13 relative."""
+        sign = 1.0 if hi > 0 else -1.0
+        x = 0.5 * (lo + hi) if lo * hi <= 0 else sign * math.sqrt(lo * hi)
+        for _ in range(200):
+            f = g(x)
+            if abs(f) <= self._v_round:
+                return x  # the chain voltage is met to its rounding error
+            if f < 0:
+                lo = x
+            else:
+                hi = x
+            a_lo, a_hi = sorted((abs(lo), abs(hi)))
+            # no NaN here (a comparison with NaN raises the FPU's invalid flag, which the
+            # vectorised caller reports): a rejected Newton step is None
+            slope = sum(self._law_slope(k, x) for k in self._active_idx) if x != 0 else 0.0
+            xn = None
+            if 0 < slope < math.inf:
+                ds = -f / (slope * x)
+                if abs(ds) < 50:
+                    xn = x * math.exp(ds)
+            if xn is None or not lo < xn < hi:
+                xn = sign * (math.sqrt(a_lo * a_hi) if a_lo > 0 else 0.5 * a_hi)
+            if abs(xn - x) <= 1e-13 * abs(xn) or a_hi - a_lo <= 1e-15 * a_hi:
+                return xn
+            x = xn
+        return x
+
     def _total_voltage(self, i: float) -> float:
-        return float(sum(float(law.voltage(i)) for law in self.active))
+        return sum(self._law_voltage(k, i) for k in self._active_idx)
 
     def _solve_numeric(self, vx: float) -> float:
         """Series solve for chains of several nonlinear laws: the current at chain voltage ``vx``."""
+        vx = float(vx)
         lo, hi = self.band
         if lo <= vx <= hi:
             return 0.0
 
         def g(x):
             return self._total_voltage(x) - vx
+
+        self._v_round = 4e-16 * abs(vx)
 
         floor = max(law.i_floor for law in self.active)
         if vx < lo and math.isfinite(floor):
@@ -181,12 +288,29 @@ class Chain:
                 return edge  # the chain is saturated: within 1e-12 of its reverse current limit
             return brentq(g, edge, 0.0, xtol=1e-15 * abs(floor), rtol=1e-13)
         sign = 1.0 if vx > hi else -1.0
+        # each law alone at the whole voltage carries more than the chain, and one of the n
+        # laws holds at least vx/n: a bracket from 2n law evaluations
+        n = len(self._active_idx)
+        upper = min(abs(self._law_current(k, vx)) for k in self._active_idx)
+        lower = min(abs(self._law_current(k, vx / n)) for k in self._active_idx)
+        if math.isfinite(upper) and math.isfinite(lower) and upper > 0 and g(sign * upper) * sign >= 0 \
+                and g(sign * lower) * sign <= 0:
+            lo, hi_ = sorted((sign * lower, sign * upper))
+            # a deterministic start (not the last solution): event functions evaluate this
+            # twice at the same voltage and must get the same current
+            return self._newton(g, lo, hi_)
         a, b = 0.0, sign * 1e-6
-        for _ in range(200):
-            if g(b) * sign >= 0:
-                return brentq(g, min(a, b), max(a, b), xtol=1e-15 * abs(b), rtol=1e-13)
+        while abs(b) < 1e300:
+            gb = g(b)
+            if gb * sign >= 0:
+                return self._newton(g, min(a, b), max(a, b))
+            if math.isnan(gb):
+                break
             a, b = b, b * 4.0
-        raise ArithmeticError(f"no chain current reaches {vx:g} V")
+        # the chain's voltage stays below vx up to 1e300 A (a varistor's steep law reaches
+        # such currents only far beyond any physical voltage, as a trial state may ask): the
+        # chain takes any current there, like a vertical law
+        return sign * math.inf
 
     def element_voltages(self, current, voltage, v_cap=0.0) -> list[np.ndarray]:
         """Voltage [V] across each element (capacitors included) at chain current [A].

@@ -19,12 +19,16 @@ import numpy as np
 from kickback.case import Case
 from kickback.chain import Chain, regularized
 from kickback.errors import CaseError
+from kickback.floatnode import FLOAT, FLOAT_CONDUCTANCE, FLOAT_RESIDUAL, FloatingNode  # noqa: F401
 from kickback.models.switch import switch_law
 from kickback.nodebalance import solve_monotone as _solve_monotone
 
 N_ENERGY_FIXED = 5  # E_R, E_supply, E_channel, E_avalanche, E_body
 #: relative size of the resistance given to zero-resistance laws when the node has capacitance
 REGULARIZATION = 1e-7
+#: conductance [S, relative to i0/v_scale] across the switch when the node has no capacitance, so
+#: that the node voltage is defined when nothing else conducts
+LEAKAGE = 1e-12
 
 
 @dataclass(frozen=True)
@@ -47,7 +51,7 @@ class OnState:
     chain_voltages: tuple[float, ...]
 
 
-class Circuit:
+class Circuit(FloatingNode):
     """The turn-off circuit of one case, ready for an engine."""
 
     def __init__(self, case: Case):
@@ -90,7 +94,7 @@ class Circuit:
                             "on-state current)", source=case.source, key="coil")
         self.v_scale = max(self.Vs, *(abs(x) for x in self._finite_thresholds()), 1.0)
         self.r_min = REGULARIZATION * self.v_scale / self.i0 if self.capacitive else 0.0
-        self.pin_points = self._pin_points() if self.capacitive else []
+        self.pin_points = self._pin_points()
         self.pin: tuple[float, int, int] | None = None
         if self.r_min > 0:
             self.switch = switch_law(s.type, on_resistance=s.on_resistance,
@@ -101,7 +105,7 @@ class Circuit:
             object.__setattr__(self.switch, "on_state", regularized(self.switch.on_state, self.r_min))
             object.__setattr__(self.switch, "off_state", regularized(self.switch.off_state, self.r_min))
             self.chains = [Chain(cl, self.r_min) for cl in case.clamps]
-        self.g_leak = 0.0 if self.capacitive else 1e-12 * self.i0 / self.v_scale
+        self.g_leak = 0.0 if self.capacitive else LEAKAGE * self.i0 / self.v_scale
         self.active_chains = [k for k, ch in enumerate(self.chains) if not ch.capacitor_only]
         self.cap_chains = [k for k in self.active_chains if self.chains[k].capacitance is not None]
         # element energy slots: one per non-capacitor element of every active chain
@@ -185,6 +189,21 @@ class Circuit:
         def resid(v):
             return sum(branches(v)) - coil(v)
 
+        # a coil with no resistance (and no back-EMF drop that depends on its current) holds the
+        # node at the supply less the back-EMF: the coil is then the vertical law, and the switch
+        # and clamps set its current (a MOSFET's R_on limits it)
+        pinned_coil = given is None and self.R == 0 and (m is None or not m.mechanical)
+        if pinned_coil:
+            v = self.Vs - (m.back_emf_constant * m.speed if m is not None else 0.0)
+            cur = branches(v)
+            i_coil = sum(cur)
+            if not math.isfinite(i_coil):
+                raise CaseError("with zero coil resistance the on-state current is unbounded: the switch's "
+                                "on-state law takes any current at the supply voltage (expected "
+                                "coil.resistance > 0, coil.initial_current, or a MOSFET with "
+                                "switch.on_resistance > 0)", source=self.case.source, key="coil.resistance")
+            chain_v = tuple(v - self.Vs * ch.reference for ch in self.chains)
+            return OnState(i_coil, v, cur[0], tuple(cur[1:]), chain_v)
         thresholds = [on.v_fwd] + ([on.v_rev] if math.isfinite(on.v_rev) else [])
         for ch in self.chains:
             thresholds += [t + self.Vs * ch.reference for t in ch.thresholds()] if ch.capacitance is None else []
@@ -192,8 +211,21 @@ class Circuit:
         cur = branches(v)
         i_coil = coil(v)
         # a vertical on-state law takes what the others leave
-        i_sw = i_coil - sum(cur[1:]) if on.r_fwd == 0 and abs(v - on.v_fwd) < 1e-12 * max(1, abs(v)) \
-            else cur[0]
+        vertical_switch = on.r_fwd == 0 and abs(v - on.v_fwd) < 1e-12 * max(1, abs(v))
+        i_sw = i_coil - sum(cur[1:]) if vertical_switch else cur[0]
+        bad = [k for k, x in enumerate(cur) if not math.isfinite(x) and not (k == 0 and vertical_switch)]
+        if bad or not math.isfinite(i_sw):
+            # the clamps in the conflict: those with no finite current, and those held at their
+            # own vertical voltage against the switch
+            bad += [k + 1 for k, ch in enumerate(self.chains) if ch.capacitance is None and k + 1 not in bad
+                    and any(abs(v - x - self.Vs * ch.reference) < 1e-9 * max(1.0, abs(v)) for x in ch.thresholds())]
+            names = [self.chains[k - 1].name for k in bad if k > 0]
+            what = f"clamp {', '.join(names)}" if names else "the switch"
+            raise CaseError(f"no DC on-state: {what} would carry an unbounded current while the switch is on "
+                            "(two ideal laws hold the switch node at different voltages; expected a series "
+                            "resistance in the clamp, or a clamp that blocks the supply voltage)",
+                            source=self.case.source, key=(self.chains[bad[-1] - 1].clamp.path or "clamp")
+                            if names else "switch")
         chain_v = tuple(v - self.Vs * ch.reference for ch in self.chains)
         return OnState(i_coil, v, i_sw, tuple(cur[1:]), chain_v)
 
@@ -291,6 +323,10 @@ class Circuit:
         """Switch-node voltage [V]: the state, or solved from the node current balance."""
         if self.capacitive:
             return float(y[1])
+        if self.pin is FLOAT:
+            return self.forced_voltage(t, y)
+        if self.pin is not None:
+            return self.pin[0]
         i = float(self.coil_current(y[0]))
 
         def resid(v):
@@ -322,6 +358,14 @@ class Circuit:
                 n = self.pin[1]
                 vals[n] = 0.0
                 vals[n] = float(self.coil_current(y[0])) - sum(vals)
+            return vals[0], vals[1], vals[2:]
+        if self.pin is not None:
+            # floating: the current-limited channel takes what the others leave; held at a
+            # vertical law: that law does
+            n = self.pin[1]
+            vals = [x if math.isfinite(x) else 0.0 for x in self.currents_at(t, v, y)]
+            vals[n] = 0.0 if n else vals[n]
+            vals[n] += float(self.coil_current(y[0])) - sum(vals)
             return vals[0], vals[1], vals[2:]
         vertical = self._vertical_at(t, v)
         if vertical:
@@ -416,9 +460,14 @@ class Circuit:
         d[e + 3] = v * ioff if ioff > 0 else 0.0
         d[e + 4] = v * ioff if ioff < 0 else 0.0
         pinned = self.pin[1] if self.pin is not None else -1
-        for m, (k, j) in enumerate(self.energy_slots):
+        m = e + N_ENERGY_FIXED
+        for k in self.active_chains:
             n = 2 + self._pos[k]
-            d[e + N_ENERGY_FIXED + m] = self.chains[k].power_at(j, vals[n], exact=n == pinned)
+            ch = self.chains[k]
+            pw = ch.powers_at(vals[n], v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0,
+                              exact=n == pinned)
+            d[m:m + len(pw)] = pw
+            m += len(pw)
         return d
 
     def jacobian(self, t: float, y: np.ndarray) -> np.ndarray:
@@ -430,6 +479,8 @@ class Circuit:
         v = float(y[1]) if self.capacitive else self.node_voltage(t, y)
         # conductance of each branch at v
         g = self._conductances(t, v, y)
+        if self.floating:
+            return self._floating_jacobian(t, v, y, g, jm)
         if self.pin is not None:
             g[self.pin[1]] = math.inf
         elif not self.capacitive:

@@ -14,13 +14,14 @@ E. Hairer and G. Wanner, Solving Ordinary Differential Equations II, 2nd ed., Sp
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.integrate import Radau, solve_ivp
 from scipy.linalg import lapack
 
-from kickback.circuit import Circuit
+from kickback.circuit import FLOAT, FLOAT_CONDUCTANCE, FLOAT_RESIDUAL, Circuit
 from kickback.engine.radau_check import CheckedNewton
 from kickback.errors import SolverError
 
@@ -31,6 +32,8 @@ RING_END_FRACTION = 1e-3
 MAX_RHS_CALLS = 400_000
 #: default relative tolerance: figures within ~1e-6 of a tight solve on the demo cases (kickback.bench)
 DEFAULT_RTOL = 1e-5
+#: a node with capacitance is pinned at a vertical law this far (relative) before its voltage
+PIN_AHEAD = 1e-7
 #: the edge phase takes at least this many steps over the fall time
 EDGE_STEPS = 20
 
@@ -184,29 +187,98 @@ class PhaseRunner:
             jm[n_dyn:, j] = (self.rhs(t, yp)[n_dyn:] - f0[n_dyn:]) / h
         return jm
 
+    def pin_current(self, pin) -> float:
+        """[A] current the vertical law ``pin`` would take with the node held at its voltage,
+        signed positive in the law's conducting direction."""
+        c = self.c
+        vals = c.currents_at(self.t, pin[0], self.y)
+        vals[pin[1]] = 0.0
+        return pin[2] * (float(c.coil_current(self.y[0])) - sum(vals))
+
+    def unpin(self, pin) -> None:
+        """Release the node from the vertical law ``pin``: the node is set just off the law's
+        voltage (by 2·PIN_AHEAD relative, on its non-conducting side, below the entry event's
+        level), so that the entry event cannot fire again at once on a node that merely sits at
+        the threshold."""
+        c = self.c
+        c.pin = None
+        self.y[1] = pin[0] - pin[2] * 2 * PIN_AHEAD * max(1.0, abs(pin[0]))
+
+    def _float_events(self):
+        """Events of a node with no capacitance: it starts to float (its conductance falls
+        below the limit), or it lands (the balance at the forced voltage is off)."""
+        c = self.c
+        g_lim = FLOAT_CONDUCTANCE * c.i0 / c.v_scale
+        if c.pin is not None and c.pin is not FLOAT:
+            return self._release_events()
+        if c.pin is None:
+            if self.no_float:
+                return []
+
+            def g(t, y):
+                G = c.node_conductance(t, c.node_voltage(t, y), y)
+                return 1.0 if not math.isfinite(G) else (G - g_lim) / (G + g_lim)
+            g.direction = -1
+            g.terminal = True
+            g.pin = FLOAT
+            return [g]
+        eps = FLOAT_RESIDUAL * c.i0
+        out = []
+        for sign in (1, -1):
+            def g(t, y, sign=sign):
+                return sign * c.float_residual(t, y) - eps
+            g.direction = 1
+            g.terminal = True
+            g.pin = None
+            out.append(g)
+        return out
+
+    def landing(self):
+        """Where a floating node lands: on a vertical law whose voltage its forced voltage has
+        reached (held there, the law taking what the others leave), else free."""
+        c = self.c
+        v = c.forced_voltage(self.t, self.y)
+        near = [p for p in c.pin_points if abs(v - p[0]) <= 1e-6 * c.v_scale]
+        for p in sorted(near, key=lambda p: abs(v - p[0])):
+            if self.pin_current(p) > -FLOAT_RESIDUAL * c.i0:
+                return p
+        return None
+
     def _pin_events(self):
         c = self.c
+        if not c.capacitive:
+            return self._float_events()
         evs = []
         if c.pin is None:
             for p in c.pin_points:
-                def g(t, y, p=p):
-                    return y[1] - p[0]
+                # fires PIN_AHEAD (relative) before the law's voltage: a step whose trial states
+                # cross it meets a conductance 1/r_min that its Jacobian does not know, and on a
+                # small node capacitance (r_min·C of attoseconds) its Newton iteration diverges
+                ahead = p[0] - p[2] * PIN_AHEAD * max(1.0, abs(p[0]))
+
+                def g(t, y, ahead=ahead):
+                    return y[1] - ahead
                 g.direction = p[2]
                 g.terminal = True
                 g.pin = p
                 evs.append(g)
         else:
-            side = c.pin[2]
-
-            def g(t, y):
-                vals = c.currents_at(t, float(y[1]), y)
-                vals[c.pin[1]] = 0.0
-                return side * (float(c.coil_current(y[0])) - sum(vals))
-            g.direction = -1
-            g.terminal = True
-            g.pin = None
-            evs.append(g)
+            evs = self._release_events()
         return evs
+
+    def _release_events(self):
+        """The event that ends a pin: the vertical law's current returns to zero."""
+        c = self.c
+        pin = c.pin
+
+        def g(t, y):
+            vals = c.currents_at(t, pin[0], y)
+            vals[pin[1]] = 0.0
+            return pin[2] * (float(c.coil_current(y[0])) - sum(vals))
+        g.direction = -1
+        g.terminal = True
+        g.pin = None
+        return [g]
 
     def _solve(self, name, t_end, events, kw):
         c = self.c
@@ -238,7 +310,12 @@ class PhaseRunner:
         """
         c = self.c
         switches = 0
+        landed = False
+        self.no_float = False
         while True:
+            if not c.capacitive and c.pin is None and not landed and c.can_float(self.t, self.y):
+                c.pin = FLOAT
+            landed = False
             sol, evs, pe = self._solve(name, t_end, events, kw)
             fired_pin = None
             for ev, times in zip(evs, sol.t_events, strict=True):
@@ -254,12 +331,37 @@ class PhaseRunner:
                                      c.t_turnoff))
             self.t = float(sol.t[-1])
             self.y = sol.y[:, -1].copy()
-            if sol.status == 1 and fired_pin is not None:
+            if sol.status == 1 and fired_pin is not None and not c.capacitive:
+                # the node starts to float (when it may), lands, or leaves a vertical law
+                self.no_float = False
+                if c.pin is FLOAT:
+                    c.pin = self.landing()
+                    landed = True
+                elif c.pin is None:
+                    c.pin = FLOAT if c.can_float(self.t, self.y) else None
+                    # the node may not float here (too small a current): the conductance event,
+                    # at its root, would fire again at once; it is left out until the next mode
+                    self.no_float = c.pin is None
+                else:
+                    c.pin = None
+                switches += 1
+                if switches > 10_000:
+                    raise SolverError(f"the node voltage chatters near t = {self.t:.3g} s")
+                kw.pop("first_step", None)
+                if self.t < t_end:
+                    continue
+            elif sol.status == 1 and fired_pin is not None:
                 if c.pin is None:
                     self.peaks.append(self.t)
-                old = c.pin
-                c.pin = fired_pin.pin
-                self.y[1] = (c.pin or old)[0]
+                    if self.pin_current(fired_pin.pin) > 0:
+                        c.pin = fired_pin.pin
+                        self.y[1] = c.pin[0]
+                    else:
+                        # the law would have to take a current against its direction (the
+                        # node only touched its voltage): it stays off, the node moves away
+                        self.unpin(fired_pin.pin)
+                else:
+                    self.unpin(c.pin)
                 switches += 1
                 if switches > 10_000:
                     raise SolverError(f"the node voltage chatters at a clamp threshold near t = {self.t:.3g} s")
@@ -355,13 +457,26 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         bound_hit = ev_times["zero"] is None
     rings = c.capacitive or bool(dyn_caps)
     if not bound_hit and rings and dyn_energy(runner.y) > rest_level and runner.t < t_bound:
-        if c.pin is not None:
+        if c.pin is not None and c.capacitive:
             # the coil current is at zero, and so is the current of the law the node is pinned
             # at: the pin is released here rather than integrated into the law's kink at zero
-            c.pin = None
-        runner.run("ring", t_bound, [ev10, ev1, ev_rest], record)
-        bound_hit = not (dyn_energy(runner.y) <= rest_level * 1.0001)
-        if not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 and runner.t < t_bound:
+            runner.unpin(c.pin)
+        c.pin = None  # a floating node is tested again at the phase's start
+        from kickback.engine.linring import try_linear_ring
+
+        while True:
+            done, bound_hit, retry = try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps,
+                                                     RING_END_FRACTION)
+            if done:
+                break
+            # step by step: to the end, or (the ring still reaches a law's kink) for a while
+            t_stop = t_bound if retry is None else min(t_bound, runner.t + retry)
+            sol = runner.run("ring", t_stop, [ev10, ev1, ev_rest], record)
+            bound_hit = not (dyn_energy(runner.y) <= rest_level * 1.0001)
+            if sol.status == 1 or runner.t >= t_bound or not bound_hit:
+                break
+        if not done and not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 \
+                and runner.t < t_bound:
             # end on a zero of the coil current, so that it too is below 0.1 % of the start
             runner.run("ring", t_bound, [ev_cross], record)
             bound_hit = abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0

@@ -61,6 +61,10 @@ class CheckedNewton:
 
         _radau.solve_collocation_system = checked
         try:
-            return super()._step_impl()
+            # a diverging Newton iterate may overshoot into a steep law (a varistor's power law)
+            # and overflow; scipy reads the infinite correction norm as divergence and halves the
+            # step, as it should, so the overflow is not an error here
+            with np.errstate(over="ignore", invalid="ignore"):
+                return super()._step_impl()
         finally:
             _radau.solve_collocation_system = _ORIGINAL

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from kickback.models.base import ElementLaw, LinearPieces, PiecewiseLinearLaw
@@ -109,3 +111,7 @@ class Varistor(ElementLaw):
         v = np.asarray(v, dtype=float)
         with np.errstate(over="ignore"):
             return np.sign(v) * self.i1 * np.abs(v / self.v1) ** self.alpha
+
+    def voltage_at(self, i: float) -> float:
+        """Scalar :meth:`voltage` [V] at current ``i`` [A]."""
+        return math.copysign(self.v1 * abs(i / self.i1) ** (1.0 / self.alpha), i) if i else 0.0
