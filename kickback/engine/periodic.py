@@ -29,7 +29,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.circuit import Circuit
-from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, PhaseRunner, Waveforms
+from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, Phase, PhaseRunner, Waveforms
+from kickback.engine.linphase import run_affine_phase
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
@@ -106,8 +107,6 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
             runner.atol = runner.atol.copy()
             runner.atol[c.ie:] = 1e300
         if fast:
-            from kickback.engine.linphase import run_affine_phase
-
             run_affine_phase(runner, "on", t_on, scales(c), energies)
         else:
             runner.run("on", t_on, [])
@@ -118,18 +117,49 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
         # the state at the turn-off instant, for a final turn-off from the periodic state
         runner.x_turnoff, runner.i_turnoff = runner.y[: c.ie].copy(), float(c.i_on)
         c.conducting = False
+        # the turn-off is integrated in its own clock (τ = t − D·T): time steps far below the
+        # spacing of doubles near D·T (a node swinging through a stiff clamp knee in 1e-19 s)
+        # stay representable; its phases are shifted back to the cycle's clock afterwards
+        n_on, n_peaks = len(runner.phases), len(runner.peaks)
+        runner.t, c.t_turnoff = 0.0, 0.0
+        t_off = period - t_on
         tf = c.switch.fall_time
         if tf > 0:
-            t_edge = min(t_on + tf, period)
-            runner.run("edge", t_edge, [], first_step=tf / 1000, max_step=tf / EDGE_STEPS)
-        if runner.t < period:
-            runner.run("off", period, [], first_step=max(tf, period * 1e-9) / 1000)
+            runner.run("edge", min(tf, t_off), [], first_step=tf / 1000, max_step=tf / EDGE_STEPS)
+        if runner.t < t_off:
+            first = max(tf, period * 1e-9) / 1000
+            if fast:
+                # once the clamps have stopped conducting the rest of the off phase is affine
+                # (an LC ring, a decay): closed form from there, verified along the way
+                run_affine_phase(runner, "off", t_off, scales(c), energies, rest=True, first_step=first)
+            else:
+                runner.run("off", t_off, [], first_step=first)
+        runner.phases[n_on:] = [shifted(ph, t_on) for ph in runner.phases[n_on:]]
+        runner.peaks[n_peaks:] = [t + t_on for t in runner.peaks[n_peaks:]]
+        runner.t = period
         e_off = runner.y[c.ie:] - e_on
         if fast and not energies:
             e_on = e_off = None
         return runner.y[: c.ie].copy(), e_on, e_off, (runner if keep else None)
     finally:
         c.conducting, c.t_turnoff, c.pin = False, 0.0, None
+
+
+class ShiftedSolution:
+    """A dense solution integrated in a phase's own clock, called in the cycle's clock."""
+
+    def __init__(self, sol, offset: float):
+        self.sol, self.offset = sol, offset
+
+    def __call__(self, t):
+        return self.sol(np.asarray(t, dtype=float) - self.offset)
+
+
+def shifted(ph: Phase, offset: float) -> Phase:
+    """Phase ``ph`` (integrated with the turn-off at τ = 0) in the cycle's clock, the turn-off at
+    ``offset`` [s]."""
+    return Phase(ph.name, ph.t0 + offset, ph.t1 + offset, ShiftedSolution(ph.sol, offset),
+                 np.asarray(ph.t_steps, dtype=float) + offset, ph.pin, ph.conducting, offset)
 
 
 def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | None = None,
@@ -146,21 +176,35 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     rtol = min(DEFAULT_RTOL if rtol is None else rtol, CYCLE_RTOL)
     scale = scales(c)
     n = c.ie
-    if x_guess is None:
-        from kickback.engine.averaged import averaged_guess
-
-        x_guess = averaged_guess(c, duty, frequency)
-    x = np.array(x_guess, dtype=float)
     solves = 0
+    if x_guess is None:
+        x_guess, solves = _first_guess(c, duty, frequency, rtol, scale)
+    x = np.array(x_guess, dtype=float)
     resid = step = math.inf
     jm = None  # Jacobian of the cycle map Φ
-    f_prev = x_prev = None
-    full = False  # the first cycle (at the guess) is solved without energies, every later one in full
+    f_prev = x_prev = dx_prev = None
+    resid_prev = math.inf
+    lam = 1.0  # fraction of the Newton step taken
+    full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     for _ in range(MAX_NEWTON):
         x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
         solves += 1
         f = x1 - x
         resid = float(np.max(np.abs(f) / scale))
+        if x_prev is not None and resid > STEADY_TOL and not resid < (1.0 - 1e-4 * lam) * resid_prev:
+            # the step did not reduce the residual: the map has a kink between (the coil current
+            # reaching zero in the off phase or not, a clamp conducting or not) and its slope on
+            # the far side is not the one the step was taken with. Back off along the step; after
+            # three cuts take the plain iterate Φ(x_prev) and a fresh Jacobian there.
+            if lam > 1.0 / 64:
+                lam /= 4.0
+                x = x_prev + lam * dx_prev
+            else:
+                x = x_prev + f_prev
+                x_prev = f_prev = dx_prev = None
+                resid_prev, lam, jm = math.inf, 1.0, None
+            full = False
+            continue
         if jm is None and resid > STEADY_TOL:
             jm = np.empty((n, n))
             for j in range(n):
@@ -183,11 +227,12 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         if resid <= STEADY_TOL and step <= STEADY_TOL:
             if full:
                 break
-            full = True  # met at the guess: solve this cycle again in full, to report it
+            full = True  # met: solve this cycle again in full, to report it
             continue
-        x_prev, f_prev = x, f
+        x_prev, f_prev, dx_prev, resid_prev, lam = x, f, dx_next, resid, 1.0
         x = x + dx_next
-        full = True
+        # the next cycle is solved in full when it is expected to verify the fixed point
+        full = resid <= FINAL_FROM
     else:
         raise SolverError(f"the periodic steady state did not converge at duty {duty:g} "
                           f"(relative residual {resid:.1e}, Newton step {step:.1e} after {MAX_NEWTON} "
@@ -203,6 +248,37 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
+
+
+def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray):
+    """(First guess of the cycle-start state, cycle solves spent on it).
+
+    The averaged model where it has a solution. Where it has none — the coil current reaches
+    zero every cycle (discontinuous conduction), or nothing conducts with the switch off — the
+    better of two starts by the residual of one cycle: the on-state scaled by the duty, and the
+    circuit at rest (no coil current, capacitors at their final voltages), which is where a
+    discontinuous cycle starts.
+    """
+    from kickback.engine.averaged import averaged_guess
+    from kickback.engine.linphase import rest_probe
+
+    x, ok = averaged_guess(c, duty, frequency, report=True)
+    if ok:
+        return x, 0
+    y = np.zeros(c.n_states)
+    y[: c.ie] = x
+    rest = rest_probe(c, 0.0, y)[: c.ie]
+    best, solves = None, 0
+    for cand in (x, rest):
+        try:
+            x1 = one_cycle(c, cand, duty, frequency, rtol, energies=False)[0]
+        except SolverError:
+            continue
+        solves += 1
+        r = float(np.max(np.abs(x1 - cand) / scale))
+        if best is None or r < best[0]:
+            best = (r, cand)
+    return (x if best is None else best[1]), solves
 
 
 def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
