@@ -123,8 +123,12 @@ def _refined_modes(A, b, M, z0):
     W = W[:, [int(np.argmin(np.abs(lw - x))) for x in lam]]
     Al = A.astype(np.longdouble)
     for k in range(n):
-        v = np.linalg.solve(A - lam[k] * np.eye(n), V[:, k])
-        v = v / np.linalg.norm(v)
+        with np.errstate(all="ignore"):  # (A − λ·I) is singular to rounding: v may be huge
+            v = np.linalg.solve(A - lam[k] * np.eye(n), V[:, k])
+            v = v / np.max(np.abs(v))
+        if not np.all(np.isfinite(v)):
+            v = V[:, k]
+        v = v / np.max(np.abs(v))
         w = W[:, k]
         num = _ext_dot(w, Al, v)
         den = complex(w @ v)

@@ -43,7 +43,7 @@ MAX_PANELS = 400
 #: phase ringing for thousands of LC periods
 MAX_PANELS_VECTOR = 40_000
 #: the sampling grid of a closed-form phase has at least this many steps
-SAMPLE_SPLITS = 32
+SAMPLE_SPLITS = 64
 #: rounding allowance of a rate, relative to the sum of the magnitudes of its terms
 ROUNDING = 64 * np.finfo(float).eps
 _XI, _WI = legendre.leggauss(GL_NODES)
@@ -265,15 +265,15 @@ def linear_event(model: AffineModel):
 
 
 def rest_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
-    """State ``y`` moved to where the switched-off circuit comes to rest: no coil current,
-    node and snubber capacitors at their final voltages (the motor's speed kept). Every law
+    """State ``y`` moved to where the switched-off circuit comes to rest: no coil current, the
+    node at its final voltage (snubber capacitors and the motor's speed kept). Every law
     sits on its blocking piece there, so the circuit's linearisation there is the affine model
     of an off-phase tail once the clamps have stopped conducting."""
     yq = np.array(y, dtype=float)
     yq[0] = c.coil_state(0.0)
-    v_fin, vcaps = c.final_capacitor_voltages()
-    for k, vk in vcaps.items():
-        yq[c.icap[k]] = vk
+    # snubber capacitors keep their voltages: behind a diode a capacitor holds its charge, and
+    # the diode then blocks (at the final voltage of a plain RC the probe would sit on its knee)
+    v_fin, _ = c.final_capacitor_voltages()
     if not c.capacitive:
         return yq
     # with no coil current the coil holds the node at the supply (less a motor's back-EMF): the
@@ -287,7 +287,10 @@ def rest_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
 
 #: closed-form attempts per phase: a path that leaves the affine region again (a clamp that
 #: conducts on a later swing) is integrated on and tried again where it has come back
-MAX_ATTEMPTS = 8
+MAX_ATTEMPTS = 10
+#: the first stretch stepped before an off-phase tail is tried again, relative to the phase (each
+#: further stretch four times as long)
+FIRST_STRIDE = 1e-4
 
 
 def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energies: bool = True,
@@ -313,12 +316,21 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
     except (SolverError, ArithmeticError, ValueError):
         runner.run(name, t_end, [], **kw)
         return
-    stride = 0.0
+    stride = FIRST_STRIDE * (t_end - t0)
+    leave = 0.0
     for _ in range(MAX_ATTEMPTS):
-        for _ in range(MAX_ATTEMPTS):
-            if model.defect(runner.t, runner.y)[0] <= 1.0:
+        if rest and c.cap_chains and runner.t > t0:
+            # linearised again where the path is now: a capacitor behind a diode holds the
+            # charge the clamp left, and the diode blocks only at that voltage
+            try:
+                model = AffineModel(c, runner.t, rest_probe(c, runner.t, runner.y), scale, t_end - t0)
+            except (SolverError, ArithmeticError, ValueError):
                 break
-            runner.run(name, t_end, [linear_event(model)], **kw)
+        if not model.defect(runner.t, runner.y)[0] <= 1.0:
+            # (with snubber capacitors the model is taken again after each stretch, see above)
+            t_stop = min(t_end, runner.t + stride) if rest and c.cap_chains else t_end
+            stride *= 4.0
+            runner.run(name, t_stop, [linear_event(model)], **kw)
             kw.pop("first_step", None)
             if runner.t < t_end and c.pin is None and not model.defect(runner.t, runner.y)[0] <= 1.0:
                 # the event was located on a kink of a law (a clamp's current reaching zero at
@@ -328,8 +340,8 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
                 if runner.t < t_end:
                     runner.run(name, t_end, [])
                 return
-        else:
-            break
+            if not model.defect(runner.t, runner.y)[0] <= 1.0:
+                continue
         t_try = runner.t
         model.left_at = None
         sol = solve_affine(model, t_try, runner.y, t_end, energies)
@@ -341,13 +353,13 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
         if model.left_at is not None and model.left_at > t_try:
             # holds here but the path leaves the model at left_at (a ring swinging out of a
             # clamp's blocking band): step on past it, each time four times as far, and try again
-            stride = max(2.0 * (model.left_at - t_try), 4.0 * stride)
-            runner.run(name, min(t_end, t_try + stride), [], **kw)
+            leave = max(2.0 * (model.left_at - t_try), 4.0 * leave)
+            runner.run(name, min(t_end, t_try + leave), [], **kw)
             kw.pop("first_step", None)
             if runner.t >= t_end or c.pin is not None:
                 if runner.t < t_end:
                     runner.run(name, t_end, [])
                 return
-        elif model.defect(runner.t, runner.y)[0] <= 1.0:
+        else:
             break
     runner.run(name, t_end, [], **kw)

@@ -257,7 +257,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             xp[j] += 1e-6 * scale[j]
             jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x) / (1e-6 * scale[j])
             solves += 1
-    rho, brute = brute_force_estimate(c, x, jm)
+    rho, brute = brute_force_estimate(c, x, jm_fd if jm_fd is not None else jm)
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
