@@ -43,9 +43,17 @@ def _rates(c: Circuit, x: np.ndarray, conducting: bool) -> tuple[np.ndarray, np.
         c.conducting, c.t_turnoff, c.pin = False, 0.0, None
 
 
-def averaged_guess(c: Circuit, duty: float, frequency: float) -> np.ndarray:
+def averaged_guess(c: Circuit, duty: float, frequency: float, report: bool = False):
     """Cycle-start state (turn-on) from the averaged model; the on-state scaled by the duty
-    when the averaged equations cannot be solved (e.g. nothing conducts with the switch off)."""
+    when the averaged equations cannot be solved (e.g. nothing conducts with the switch off, or
+    the coil current reaches zero every cycle: discontinuous conduction has no solution with a
+    current that flows all cycle). ``report``: return (state, whether the averaged model was
+    solved)."""
+    x, ok = _averaged(c, duty, frequency)
+    return (x, ok) if report else x
+
+
+def _averaged(c: Circuit, duty: float, frequency: float) -> tuple[np.ndarray, bool]:
     y0 = c.initial_state()
     fallback = y0[: c.ie].copy()
     fallback[0] = c.coil_state(duty * c.i0)
@@ -69,11 +77,17 @@ def averaged_guess(c: Circuit, duty: float, frequency: float) -> np.ndarray:
             # accepted when the mean drift over a cycle is small against each state's scale
             drift = np.abs(info["fvec"]) / frequency / scales(c)[slow]
             if not np.all(np.isfinite(xs)) or not (ier == 1 or np.max(drift) < 1e-6):
-                return fallback
+                return fallback, False
             x = full(xs)
+            i_mean = float(c.coil_current(x[0])) / c.i0
+            if not -0.5 <= i_mean <= 2.0:
+                # a spurious root (the node settled on a breakdown or body-diode law at a large
+                # reverse current): the mean of a PWM current lies between zero and about the
+                # on-state current
+                return fallback, False
             x = x - 0.5 * t_on * _rates(c, x, True)[0]  # back to the cycle's start
             if c.capacitive:
                 x[1] = _rates(c, x, False)[1][1]  # the node as the off-state leaves it
         except (SolverError, ArithmeticError, ValueError):
-            return fallback
-    return x if np.all(np.isfinite(x)) else fallback
+            return fallback, False
+    return (x, True) if np.all(np.isfinite(x)) else (fallback, False)

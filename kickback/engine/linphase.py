@@ -29,6 +29,8 @@ import numpy as np
 from numpy.polynomial import legendre
 
 from kickback.circuit import Circuit
+from kickback.engine.linmodes import decompose as _decompose
+from kickback.engine.linmodes import expm_extended  # noqa: F401  (former home)
 from kickback.nodebalance import solve_monotone
 
 #: allowed departure of the true right-hand side from the affine model, integrated over the
@@ -37,16 +39,18 @@ LIN_TOL = 1e-12
 #: Gauss–Legendre nodes per panel
 GL_NODES = 10
 MAX_PANELS = 400
+#: panels allowed when the rates along the path are evaluated all at once (:mod:`linrates`): a
+#: phase ringing for thousands of LC periods
+MAX_PANELS_VECTOR = 40_000
 #: the sampling grid of a closed-form phase has at least this many steps
-SAMPLE_SPLITS = 32
-#: allowed disagreement of the dense (eigenvector) solution with :func:`expm_extended` at the end of the
-#: phase, relative to each state's scale (eigenvalues of a stiff matrix are only accurate to
-#: ~eps·‖A‖; the extended-precision exponential gives the end state that the cycle map uses)
-DENSE_TOL = 1e-10
+SAMPLE_SPLITS = 64
 #: rounding allowance of a rate, relative to the sum of the magnitudes of its terms
 ROUNDING = 64 * np.finfo(float).eps
 _XI, _WI = legendre.leggauss(GL_NODES)
 _XI01, _WI01 = 0.5 * (_XI + 1.0), 0.5 * _WI
+#: node values → Legendre coefficients of the interpolant's integral from −1 (one column per node)
+_INTEG = np.array([legendre.legint(legendre.legfit(_XI, np.eye(GL_NODES)[m], GL_NODES - 1), lbnd=-1.0)
+                   for m in range(GL_NODES)]).T
 
 
 def settled_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
@@ -73,6 +77,8 @@ class AffineModel:
         self.A = c.jacobian(t, y_probe)[:ie, :ie]
         self.b = c.rhs(t, y_probe)[:ie] - self.A @ y_probe[:ie]
         self._abs_a = np.abs(self.A)
+        #: [s] where the last closed-form path checked left the model (None: not known)
+        self.left_at = None
 
     def defect(self, t: float, y: np.ndarray) -> tuple[float, np.ndarray]:
         """(Departure of the true dynamic rates from the model, relative to what :data:`LIN_TOL`
@@ -88,6 +94,16 @@ class AffineModel:
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = np.where(d == 0.0, 0.0, d / allow)  # nothing allowed: any departure is infinite
         return float(np.max(ratio)), f
+
+    def defects(self, Y: np.ndarray, F: np.ndarray) -> np.ndarray:
+        """:meth:`defect` at many states ``Y`` (n_states × N) with their rates ``F``."""
+        X = Y[: self.ie]
+        d = np.abs(F[: self.ie] - self.A @ X - self.b[:, None])
+        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * (self._abs_a @ np.abs(X)
+                                                                          + np.abs(self.b)[:, None])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(d == 0.0, 0.0, d / allow)
+        return np.max(ratio, axis=0)
 
 
 class LinearSolution:
@@ -128,57 +144,15 @@ class LinearSolution:
         h = self.edges[k + 1] - self.edges[k]
         frac = np.clip((ts - self.edges[k]) / h, 0.0, 1.0)
         out = self.cum[k].copy()
-        for n in np.unique(k):
-            m = k == n
-            coef = legendre.legfit(_XI, self.rates[n], GL_NODES - 1)  # exact interpolation
-            integ = legendre.legint(coef, lbnd=-1.0)
-            out[m] += 0.5 * h[m, None] * legendre.legval(2.0 * frac[m] - 1.0, integ).T
+        # the interpolating polynomial through the panel's Gauss nodes, integrated from the panel
+        # start: a fixed linear map of the node values (weights per sample)
+        w = legendre.legvander(2.0 * frac - 1.0, GL_NODES) @ _INTEG
+        out += 0.5 * h[:, None] * np.einsum("nm,nms->ns", w, self.rates[k])
         return out
 
 
-def expm_extended(M: np.ndarray, t: float) -> np.ndarray:
-    """``exp(M·t)`` by scaling and squaring of a Taylor series in extended precision
-    (``numpy.longdouble``): stiff matrices lose ~eps·‖M‖·t/|λ_slow| to the squarings, and the
-    extra digits keep that below double rounding for the matrices met here.
-
-    References
-    ----------
-    C. Moler and C. Van Loan, SIAM Review 45(1), 2003, method 3 (scaling and squaring).
-    """
-    a = np.asarray(M, dtype=np.longdouble) * np.longdouble(t)
-    norm = float(np.max(np.sum(np.abs(a), axis=0)))
-    s = max(0, int(math.ceil(math.log2(norm))) + 1) if norm > 0 else 0
-    a = a / np.longdouble(2.0) ** s
-    eye = np.eye(a.shape[0], dtype=np.longdouble)
-    term, out = eye.copy(), eye.copy()
-    for k in range(1, 24):  # ‖a‖ ≤ 1/2: the remainder is below 2⁻²⁴/24!
-        term = term @ a / np.longdouble(k)
-        out = out + term
-    for _ in range(s):
-        out = out @ out
-    return out
-
-
-def _decompose(A: np.ndarray, b: np.ndarray, x0: np.ndarray, span: float, scale: np.ndarray):
-    """Eigen-decomposition of the augmented matrix (for the dense solution) and the end state by
-    :func:`expm_extended` (the accurate one on stiff matrices); None when the two disagree beyond
-    :data:`DENSE_TOL` or the decomposition is ill-conditioned."""
-    m = A.shape[0] + 1
-    M = np.zeros((m, m))
-    M[:-1, :-1], M[:-1, -1] = A, b
-    z0 = np.append(x0, 1.0)
-    lam, vec = np.linalg.eig(M)
-    if not np.all(np.isfinite(lam)) or np.linalg.cond(vec) > 1e8 or np.max(lam.real) * span > 50.0:
-        return None
-    coef = np.linalg.solve(vec, z0.astype(complex))
-    z_end = np.real(vec @ (coef * np.exp(lam * span)))
-    ref = np.asarray(expm_extended(M, span) @ z0.astype(np.longdouble), dtype=float)
-    if not np.all(np.isfinite(ref)) or not np.all(np.abs(z_end[:-1] - ref[:-1]) <= DENSE_TOL * scale):
-        return None
-    return lam, vec, coef, ref[:-1]
-
-
-def _panels(lam, vec, coef, scale, span, first=2.0, growth=0.5, live_level=1e-17) -> np.ndarray | None:
+def _panels(lam, vec, coef, scale, span, first=2.0, growth=0.5, live_level=1e-17,
+            max_panels=MAX_PANELS) -> np.ndarray | None:
     """Panel edges (relative to the phase start) so that every mode still present is resolved:
     no longer than ``first`` time constants of a mode, growing by ``growth`` × the time since the
     start once the mode has decayed (a mode is present while above ``live_level`` of the scales).
@@ -186,18 +160,43 @@ def _panels(lam, vec, coef, scale, span, first=2.0, growth=0.5, live_level=1e-17
     sc = np.append(scale, 1.0)
     amp = np.abs(coef) * np.max(np.abs(vec) / sc[:, None], axis=0)
     mag = np.abs(lam)
-    edges = [0.0]
+    decay = np.abs(lam.real)
+    with np.errstate(divide="ignore"):
+        # a mode is present until amp·exp(Re λ·t) falls to live_level
+        dead = np.where(lam.real < 0, np.log(np.maximum(amp, 1e-300) / live_level) / np.maximum(decay, 1e-300),
+                        np.inf)
+        # and its panels are first/|λ| long until growth·|Re λ|·t exceeds first
+        flat_end = np.where(decay > 0, first / (growth * np.maximum(decay, 1e-300)), np.inf)
+    chunks = [np.zeros(1)]
+    count = 1
     t = 0.0
     while t < span:
         h = span - t
         live = (mag > 0) & (amp * np.exp(lam.real * t) > live_level)
+        k_min = -1
         for k in np.flatnonzero(live):
-            h = min(h, max(first, growth * abs(lam[k].real) * t) / mag[k])
+            hk = max(first, growth * decay[k] * t) / mag[k]
+            if hk < h:
+                h, k_min = hk, k
+        if k_min >= 0 and t < flat_end[k_min]:
+            # mode k_min sets a constant panel length while it is present and not yet decayed:
+            # the other modes' lengths only grow, so the whole stretch is uniform
+            stop = min(flat_end[k_min], dead[k_min], span)
+            n = max(1, int((stop - t) / h))
+            if count + n > max_panels:
+                return None
+            ts = t + h * np.arange(1, n + 1)
+            ts[ts >= span * (1 - 1e-12)] = span
+            chunks.append(ts)
+            count += n
+            t = float(ts[-1])
+            continue
         t = span if span - t - h < 1e-12 * span else t + h
-        edges.append(t)
-        if len(edges) > MAX_PANELS:
+        chunks.append(np.array([t]))
+        count += 1
+        if count > max_panels:
             return None
-    return np.asarray(edges)
+    return np.unique(np.concatenate(chunks))
 
 
 def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, energies: bool):
@@ -210,7 +209,10 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     if dec is None:
         return None
     lam, vec, coef, x_end = dec
-    rel = _panels(lam, vec, coef, scale, span)
+    from kickback.engine.linrates import rates as vector_rates
+
+    vectorised = c.capacitive and c.pin is None and not c.flux
+    rel = _panels(lam, vec, coef, scale, span, max_panels=MAX_PANELS_VECTOR if vectorised else MAX_PANELS)
     if rel is None:
         return None
     edges = t0 + rel
@@ -224,14 +226,27 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     check_t = np.concatenate([edges[:-1, None] + np.diff(edges)[:, None] * _XI01[None, :]]).ravel() \
         if energies else edges
     ys = sol.dynamic(check_t)
-    y = np.array(y0, dtype=float)
-    rates = np.empty((check_t.size, c.n_states - ie))
-    for n, tn in enumerate(check_t):
-        y[:ie] = ys[:, n]
-        d, f = model.defect(float(tn), y)
-        if not d <= 1.0:
+    Y = np.empty((c.n_states, check_t.size))
+    Y[:ie], Y[ie:] = ys, np.asarray(y0, dtype=float)[ie:, None]
+    F = vector_rates(c, check_t, Y) if vectorised else None
+    if F is not None:
+        bad = np.flatnonzero(~(model.defects(Y, F) <= 1.0))
+        if bad.size:
+            model.left_at = float(check_t[bad[0]])
             return None
-        rates[n] = f[ie:]
+        rates = F[ie:].T
+    else:
+        if len(edges) > MAX_PANELS + 1:
+            return None
+        y = np.array(y0, dtype=float)
+        rates = np.empty((check_t.size, c.n_states - ie))
+        for n, tn in enumerate(check_t):
+            y[:ie] = ys[:, n]
+            d, f = model.defect(float(tn), y)
+            if not d <= 1.0:
+                model.left_at = float(tn)
+                return None
+            rates[n] = f[ie:]
     if not energies:
         return sol
     return LinearSolution(t0, sol.y0, ie, lam, vec, coef, edges, x_end, check_t.reshape(-1, GL_NODES),
@@ -249,32 +264,102 @@ def linear_event(model: AffineModel):
     return g
 
 
-def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energies: bool = True) -> None:
+def rest_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
+    """State ``y`` moved to where the switched-off circuit comes to rest: no coil current, the
+    node at its final voltage (snubber capacitors and the motor's speed kept). Every law
+    sits on its blocking piece there, so the circuit's linearisation there is the affine model
+    of an off-phase tail once the clamps have stopped conducting."""
+    yq = np.array(y, dtype=float)
+    yq[0] = c.coil_state(0.0)
+    # snubber capacitors keep their voltages: behind a diode a capacitor holds its charge, and
+    # the diode then blocks (at the final voltage of a plain RC the probe would sit on its knee)
+    v_fin, _ = c.final_capacitor_voltages()
+    if not c.capacitive:
+        return yq
+    # with no coil current the coil holds the node at the supply (less a motor's back-EMF): the
+    # level an LC ring decays to, inside every clamp's blocking band (a node balance alone would
+    # leave it anywhere in the band, a clamp's knee included)
+    # (a hair above it: a law's slope is one-sided exactly at zero current — a resistor's
+    # conductance there reads as its blocking band's zero)
+    yq[1] = v_fin + 1e-7 * c.v_scale
+    return yq
+
+
+#: closed-form attempts per phase: a path that leaves the affine region again (a clamp that
+#: conducts on a later swing) is integrated on and tried again where it has come back
+MAX_ATTEMPTS = 10
+#: the first stretch stepped before an off-phase tail is tried again, relative to the phase (each
+#: further stretch four times as long)
+FIRST_STRIDE = 1e-4
+
+
+def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energies: bool = True,
+                     rest: bool = False, **kw) -> None:
     """Advance ``runner`` to ``t_end``: step by step while the clamps' laws are still curved, in
-    closed form from where the affine model holds (verified), step by step again if it does not."""
+    closed form from where the affine model holds (verified), step by step again if it does not.
+
+    ``rest``: the affine model is the circuit's linearisation at rest (:func:`rest_probe`; an
+    off phase, whose clamps conduct first), else at the node settled at the phase start (an on
+    phase). ``kw`` goes to the step-by-step runs (``first_step``).
+    """
     from kickback.engine.detailed import Phase
     from kickback.errors import SolverError
 
     c = runner.c
     t0 = runner.t
     if c.flux or c.pin is not None or not t_end > t0:
-        runner.run(name, t_end, [])
+        runner.run(name, t_end, [], **kw)
         return
     try:
-        model = AffineModel(c, t0, settled_probe(c, t0, runner.y), scale, t_end - t0)
+        probe = rest_probe(c, t0, runner.y) if rest else settled_probe(c, t0, runner.y)
+        model = AffineModel(c, t0, probe, scale, t_end - t0)
     except (SolverError, ArithmeticError, ValueError):
-        runner.run(name, t_end, [])
+        runner.run(name, t_end, [], **kw)
         return
-    if not model.defect(t0, runner.y)[0] <= 1.0:
-        runner.run(name, t_end, [linear_event(model)])
-        if runner.t >= t_end or c.pin is not None:
-            if runner.t < t_end:
-                runner.run(name, t_end, [])
+    stride = FIRST_STRIDE * (t_end - t0)
+    leave = 0.0
+    for _ in range(MAX_ATTEMPTS):
+        if rest and c.cap_chains and runner.t > t0:
+            # linearised again where the path is now: a capacitor behind a diode holds the
+            # charge the clamp left, and the diode blocks only at that voltage
+            try:
+                model = AffineModel(c, runner.t, rest_probe(c, runner.t, runner.y), scale, t_end - t0)
+            except (SolverError, ArithmeticError, ValueError):
+                break
+        if not model.defect(runner.t, runner.y)[0] <= 1.0:
+            # (with snubber capacitors the model is taken again after each stretch, see above)
+            t_stop = min(t_end, runner.t + stride) if rest and c.cap_chains else t_end
+            stride *= 4.0
+            runner.run(name, t_stop, [linear_event(model)], **kw)
+            kw.pop("first_step", None)
+            if runner.t < t_end and c.pin is None and not model.defect(runner.t, runner.y)[0] <= 1.0:
+                # the event was located on a kink of a law (a clamp's current reaching zero at
+                # its knee), on the near side of it: step just past
+                runner.run(name, min(t_end, runner.t + 1e-6 * (t_end - t0)), [])
+            if runner.t >= t_end or c.pin is not None:
+                if runner.t < t_end:
+                    runner.run(name, t_end, [])
+                return
+            if not model.defect(runner.t, runner.y)[0] <= 1.0:
+                continue
+        t_try = runner.t
+        model.left_at = None
+        sol = solve_affine(model, t_try, runner.y, t_end, energies)
+        if sol is not None:
+            runner.phases.append(Phase(name, runner.t, t_end, sol, sol.steps, None, c.conducting, c.t_turnoff))
+            runner.y = sol(t_end)
+            runner.t = t_end
             return
-    sol = solve_affine(model, runner.t, runner.y, t_end, energies)
-    if sol is None:
-        runner.run(name, t_end, [])
-        return
-    runner.phases.append(Phase(name, runner.t, t_end, sol, sol.steps, None, c.conducting, c.t_turnoff))
-    runner.y = sol(t_end)
-    runner.t = t_end
+        if model.left_at is not None and model.left_at > t_try:
+            # holds here but the path leaves the model at left_at (a ring swinging out of a
+            # clamp's blocking band): step on past it, each time four times as far, and try again
+            leave = max(2.0 * (model.left_at - t_try), 4.0 * leave)
+            runner.run(name, min(t_end, t_try + leave), [], **kw)
+            kw.pop("first_step", None)
+            if runner.t >= t_end or c.pin is not None:
+                if runner.t < t_end:
+                    runner.run(name, t_end, [])
+                return
+        else:
+            break
+    runner.run(name, t_end, [], **kw)

@@ -29,15 +29,20 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.circuit import Circuit
-from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, PhaseRunner, Waveforms
+from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, Phase, PhaseRunner, Waveforms
+from kickback.engine.linphase import run_affine_phase
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
-MAX_NEWTON = 25
+MAX_NEWTON = 40
 CYCLE_RTOL = 1e-8
 #: residual below which the next cycle is solved in full (energies, kept for the figures): it is
 #: then expected to be the verifying one
 FINAL_FROM = 1e-6
+#: a state whose finite-difference Jacobian column (scaled) stays below this is one the cycle map
+#: forgets (a node discharged through the switch at turn-on): the noise of a 1e-6 difference of
+#: two cycle solves at rtol 1e-8 is ~1e-3
+FORGOTTEN = 1e-2
 
 
 @dataclass(frozen=True)
@@ -106,8 +111,6 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
             runner.atol = runner.atol.copy()
             runner.atol[c.ie:] = 1e300
         if fast:
-            from kickback.engine.linphase import run_affine_phase
-
             run_affine_phase(runner, "on", t_on, scales(c), energies)
         else:
             runner.run("on", t_on, [])
@@ -118,18 +121,49 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
         # the state at the turn-off instant, for a final turn-off from the periodic state
         runner.x_turnoff, runner.i_turnoff = runner.y[: c.ie].copy(), float(c.i_on)
         c.conducting = False
+        # the turn-off is integrated in its own clock (τ = t − D·T): time steps far below the
+        # spacing of doubles near D·T (a node swinging through a stiff clamp knee in 1e-19 s)
+        # stay representable; its phases are shifted back to the cycle's clock afterwards
+        n_on, n_peaks = len(runner.phases), len(runner.peaks)
+        runner.t, c.t_turnoff = 0.0, 0.0
+        t_off = period - t_on
         tf = c.switch.fall_time
         if tf > 0:
-            t_edge = min(t_on + tf, period)
-            runner.run("edge", t_edge, [], first_step=tf / 1000, max_step=tf / EDGE_STEPS)
-        if runner.t < period:
-            runner.run("off", period, [], first_step=max(tf, period * 1e-9) / 1000)
+            runner.run("edge", min(tf, t_off), [], first_step=tf / 1000, max_step=tf / EDGE_STEPS)
+        if runner.t < t_off:
+            first = max(tf, period * 1e-9) / 1000
+            if fast:
+                # once the clamps have stopped conducting the rest of the off phase is affine
+                # (an LC ring, a decay): closed form from there, verified along the way
+                run_affine_phase(runner, "off", t_off, scales(c), energies, rest=True, first_step=first)
+            else:
+                runner.run("off", t_off, [], first_step=first)
+        runner.phases[n_on:] = [shifted(ph, t_on) for ph in runner.phases[n_on:]]
+        runner.peaks[n_peaks:] = [t + t_on for t in runner.peaks[n_peaks:]]
+        runner.t = period
         e_off = runner.y[c.ie:] - e_on
         if fast and not energies:
             e_on = e_off = None
         return runner.y[: c.ie].copy(), e_on, e_off, (runner if keep else None)
     finally:
         c.conducting, c.t_turnoff, c.pin = False, 0.0, None
+
+
+class ShiftedSolution:
+    """A dense solution integrated in a phase's own clock, called in the cycle's clock."""
+
+    def __init__(self, sol, offset: float):
+        self.sol, self.offset = sol, offset
+
+    def __call__(self, t):
+        return self.sol(np.asarray(t, dtype=float) - self.offset)
+
+
+def shifted(ph: Phase, offset: float) -> Phase:
+    """Phase ``ph`` (integrated with the turn-off at τ = 0) in the cycle's clock, the turn-off at
+    ``offset`` [s]."""
+    return Phase(ph.name, ph.t0 + offset, ph.t1 + offset, ShiftedSolution(ph.sol, offset),
+                 np.asarray(ph.t_steps, dtype=float) + offset, ph.pin, ph.conducting, offset)
 
 
 def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | None = None,
@@ -146,21 +180,39 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     rtol = min(DEFAULT_RTOL if rtol is None else rtol, CYCLE_RTOL)
     scale = scales(c)
     n = c.ie
-    if x_guess is None:
-        from kickback.engine.averaged import averaged_guess
-
-        x_guess = averaged_guess(c, duty, frequency)
-    x = np.array(x_guess, dtype=float)
     solves = 0
+    if x_guess is None:
+        x_guess, solves = _first_guess(c, duty, frequency, rtol, scale)
+    x = np.array(x_guess, dtype=float)
     resid = step = math.inf
     jm = None  # Jacobian of the cycle map Φ
-    f_prev = x_prev = None
-    full = False  # the first cycle (at the guess) is solved without energies, every later one in full
+    jm_fd = None  # the last one by finite differences (Broyden's updates leave nil columns nil only roughly)
+    f_prev = x_prev = dx_prev = None
+    resid_prev = math.inf
+    lam = 1.0  # fraction of the Newton step taken
+    full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
+    history = []  # (x, Φ(x) − x) of every cycle the iteration solved
     for _ in range(MAX_NEWTON):
         x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
         solves += 1
         f = x1 - x
+        history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
+        merit = _merit(f, scale, jm_fd)
+        if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev:
+            # the step did not reduce the residual: the map has a kink between (the coil current
+            # reaching zero in the off phase or not, a clamp conducting or not) and its slope on
+            # the far side is not the one the step was taken with. Back off along the step; after
+            # three cuts take the plain iterate Φ(x_prev) and a fresh Jacobian there.
+            if lam > 1.0 / 64:
+                lam /= 4.0
+                x = x_prev + lam * dx_prev
+            else:
+                x = x_prev + f_prev
+                x_prev = f_prev = dx_prev = None
+                resid_prev, lam, jm = math.inf, 1.0, None
+            full = False
+            continue
         if jm is None and resid > STEADY_TOL:
             jm = np.empty((n, n))
             for j in range(n):
@@ -169,6 +221,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                 xp[j] += h
                 jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x1) / h
                 solves += 1
+            jm_fd = jm.copy()
         elif jm is not None and x_prev is not None:
             # Broyden's rank-one update of F(x) = Φ(x) − x along the last step (scaled states)
             dx = (x - x_prev) / scale
@@ -183,15 +236,21 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         if resid <= STEADY_TOL and step <= STEADY_TOL:
             if full:
                 break
-            full = True  # met at the guess: solve this cycle again in full, to report it
+            full = True  # met: solve this cycle again in full, to report it
             continue
-        x_prev, f_prev = x, f
+        x_prev, f_prev, dx_prev, resid_prev, lam = x, f, dx_next, _merit(f, scale, jm_fd), 1.0
         x = x + dx_next
+        # every cycle after an accepted step is solved in full: on an affine map the first
+        # Newton step lands on the fixed point, and that cycle is the one reported
         full = True
     else:
-        raise SolverError(f"the periodic steady state did not converge at duty {duty:g} "
-                          f"(relative residual {resid:.1e}, Newton step {step:.1e} after {MAX_NEWTON} "
-                          f"Newton steps)")
+        got = _bracketed_root(c, duty, frequency, rtol, scale, jm_fd, history)
+        if got is None:
+            raise SolverError(f"the periodic steady state did not converge at duty {duty:g} "
+                              f"(relative residual {resid:.1e}, Newton step {step:.1e} after {MAX_NEWTON} "
+                              f"Newton steps)")
+        x, e_on, e_off, runner, resid, more = got
+        solves += more
     if jm is None:  # converged at the first guess: estimate the map's Jacobian for the contraction
         jm = np.empty((n, n))
         for j in range(n):
@@ -199,10 +258,112 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             xp[j] += 1e-6 * scale[j]
             jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x) / (1e-6 * scale[j])
             solves += 1
-    rho, brute = brute_force_estimate(c, x, jm)
+    rho, brute = brute_force_estimate(c, x, jm_fd if jm_fd is not None else jm)
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
+
+
+def _merit(f: np.ndarray, scale: np.ndarray, jm: np.ndarray | None) -> float:
+    """Residual the step control asks to decrease: over the states the cycle map depends on.
+
+    A state the map forgets (a capacitive node discharged through the switch within
+    picoseconds of turn-on: its Jacobian column is nil) follows the others exactly, but may swing
+    steeply with them (the phase of an LC ring at the end of the period); counting it would make
+    the step control reject good steps."""
+    r = np.abs(f) / scale
+    if jm is not None:
+        col = np.max(np.abs(jm) * scale[None, :] / scale[:, None], axis=0)
+        kept = col > FORGOTTEN
+        if np.any(kept):
+            r = r[kept]
+    return float(np.max(r))
+
+
+def _bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history):
+    """The fixed point by bracketing, where the cycle map depends on one state only (the coil
+    current; the node is forgotten at turn-on) and Newton's method did not settle: in
+    discontinuous conduction an LC ring left over at turn-on makes the map oscillate in the
+    current (slope near 1 in places), and Newton steps jump between its swings. Two cycles of
+    the iteration whose residuals have opposite signs bracket a fixed point; Brent's method
+    finds it. Returns (x, E_on, E_off, runner, residual, cycle solves) or None.
+
+    References
+    ----------
+    R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4.
+    """
+    from scipy.optimize import brentq
+
+    if jm is None or not history:
+        return None
+    n = c.ie
+    col = np.max(np.abs(jm) * scale[None, :] / scale[:, None], axis=0)
+    kept = np.flatnonzero(col > FORGOTTEN)
+    if kept.size != 1:
+        return None
+    k = int(kept[0])
+    pos = [float(x[k]) for x, f in history if f[k] > 0]
+    neg = [float(x[k]) for x, f in history if f[k] < 0]
+    if not pos or not neg:
+        return None
+    a, b = min(((p, q) for p in pos for q in neg), key=lambda pq: abs(pq[0] - pq[1]))
+    base = np.array(history[-1][0], dtype=float)
+    solves = 0
+
+    def g(s):
+        nonlocal solves
+        xx = base.copy()
+        xx[k] = s
+        solves += 1
+        return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
+
+    try:
+        root = brentq(g, min(a, b), max(a, b), xtol=1e-3 * STEADY_TOL * scale[k], rtol=8e-16, maxiter=200)
+    except (ValueError, RuntimeError, SolverError):
+        return None
+    x = base.copy()
+    x[k] = root
+    for _ in range(2):  # the forgotten states follow the kept one
+        x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
+        solves += 1
+        x[np.arange(n) != k] = x1[np.arange(n) != k]
+    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
+    solves += 1
+    resid = float(np.max(np.abs(x1 - x) / scale))
+    if not resid <= STEADY_TOL:
+        return None
+    return x, e_on, e_off, runner, resid, solves
+
+
+def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray):
+    """(First guess of the cycle-start state, cycle solves spent on it).
+
+    The averaged model where it has a solution. Where it has none — the coil current reaches
+    zero every cycle (discontinuous conduction), or nothing conducts with the switch off — the
+    better of two starts by the residual of one cycle: the on-state scaled by the duty, and the
+    circuit at rest (no coil current, capacitors at their final voltages), which is where a
+    discontinuous cycle starts.
+    """
+    from kickback.engine.averaged import averaged_guess
+    from kickback.engine.linphase import rest_probe
+
+    x, ok = averaged_guess(c, duty, frequency, report=True)
+    if ok:
+        return x, 0
+    y = np.zeros(c.n_states)
+    y[: c.ie] = x
+    rest = rest_probe(c, 0.0, y)[: c.ie]
+    best, solves = None, 0
+    for cand in (x, rest):
+        try:
+            x1 = one_cycle(c, cand, duty, frequency, rtol, energies=False)[0]
+        except SolverError:
+            continue
+        solves += 1
+        r = float(np.max(np.abs(x1 - cand) / scale))
+        if best is None or r < best[0]:
+            best = (r, cand)
+    return (x if best is None else best[1]), solves
 
 
 def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
