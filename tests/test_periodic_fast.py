@@ -17,7 +17,7 @@ from kickback.engine import linphase
 from kickback.engine.averaged import averaged_guess
 from kickback.engine.linphase import LinearSolution, expm_extended
 from kickback.engine.periodic import STEADY_TOL, one_cycle, scales, steady_state
-from kickback.engine.periodic_reference import reference_steady_state
+from periodic_reference import reference_steady_state  # tests/: the reference shooting lives with the tests
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 F = 20e3

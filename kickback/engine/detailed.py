@@ -30,7 +30,7 @@ ZERO_FRACTION = 1e-9
 #: energy still oscillating (coil plus capacitors, relative to the start) below which a run ends
 RING_END_FRACTION = 1e-3
 MAX_RHS_CALLS = 400_000
-#: default relative tolerance: figures within ~1e-6 of a tight solve on the demo cases (kickback.bench)
+#: default relative tolerance: figures within ~1e-6 of a tight solve on the demo cases (benchmarks/bench.py)
 DEFAULT_RTOL = 1e-5
 #: a node with capacitance is pinned at a vertical law this far (relative) before its voltage
 PIN_AHEAD = 1e-7

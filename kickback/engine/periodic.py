@@ -6,7 +6,7 @@ switch turns off (the channel current falls over the fall time) and stays off to
 dynamic states at the start of the cycle — coil current (or flux), node and snubber-capacitor
 voltages, motor speed — are the unknowns of the fixed point ``x = Φ(x)``.
 
-Speed (``python -m kickback.bench_pwm``): the on-phase, once the clamps have stopped conducting,
+Speed (``python benchmarks/bench_pwm.py``): the on-phase, once the clamps have stopped conducting,
 is affine and solved in closed form (:mod:`kickback.engine.linphase`, verified along the way);
 Newton starts from the averaged model (:mod:`kickback.engine.averaged`), takes one
 finite-difference Jacobian and then Broyden's update; the cycle that meets the tolerance is the
@@ -385,10 +385,3 @@ def steady_waveforms(c: Circuit, runner: PhaseRunner, rtol: float, engine: str) 
                    runner.calls, 6)
     w.engine = engine
     return w
-
-
-def _guess(c: Circuit, duty: float) -> np.ndarray:
-    """The first guess of the reference shooting (kept for callers of the former name)."""
-    from kickback.engine.periodic_reference import naive_guess
-
-    return naive_guess(c, duty)

@@ -137,7 +137,7 @@ class Evaluation:
 
 
 #: a family with fewer candidates than this runs on the detailed engine: a batch costs about as
-#: much as a few detailed runs however few variants it holds (measured by kickback.bench_studies)
+#: much as a few detailed runs however few variants it holds (measured by benchmarks/bench_studies.py)
 MIN_BATCH = 3
 
 

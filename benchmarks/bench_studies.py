@@ -1,7 +1,7 @@
 """Benchmark of the studies on the batch engine against the detailed engine, on the same work and
 in the same run (the ratios are what counts; the machine is shared, so absolute times are noisy).
 
-``python -m kickback.bench_studies`` or ``--quick``:
+``python benchmarks/bench_studies.py`` or ``--quick``:
 
 * ``choose`` on three demo cases (cases/irrigation_valve.toml, cases/relay_board.toml,
   cases/unclamped_mosfet.toml; about 240 candidates in all), end to end with the batch engine
@@ -181,7 +181,7 @@ def bench_tolerance(quick: bool, workers: int) -> None:
 
 
 def main(argv=None) -> None:
-    p = argparse.ArgumentParser(prog="python -m kickback.bench_studies", description=__doc__.splitlines()[0])
+    p = argparse.ArgumentParser(prog="python benchmarks/bench_studies.py", description=__doc__.splitlines()[0])
     p.add_argument("--quick", action="store_true", help="fewer samples; the detailed choose on one case only")
     p.add_argument("--workers", type=int, default=min(os.cpu_count() or 1, 8),
                    help="worker processes (both engines, as the CLI's default)")

@@ -2,7 +2,7 @@
 Jacobian (``nx + 1`` cycle solves per step), every cycle integrated step by step.
 
 :func:`kickback.engine.periodic.steady_state` is checked against it (tests, and
-``python -m kickback.bench_pwm``, which times both in one run).
+``python benchmarks/bench_pwm.py``, which times both in one run).
 
 References
 ----------

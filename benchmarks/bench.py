@@ -1,6 +1,6 @@
 """Benchmark of the detailed engine: speed and accuracy, beside a hand-written solve_ivp.
 
-Run:  python -m kickback.bench [--quick]
+Run:  python benchmarks/bench.py [--quick]
 
 For each demo case it prints the median engine time, the error of the figures against a tight
 reference solve (rtol 1e-10), and the same circuit integrated as a user would by hand: one

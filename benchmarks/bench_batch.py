@@ -1,7 +1,7 @@
 """Benchmark of the batch engine: throughput, speed-up over the detailed engine and over bare numpy,
 memory of a chunked run — every ratio measured in this one run.
 
-``python -m kickback.bench_batch`` (10⁵ variants per family), ``--quick`` (10⁴), ``--full`` (also a
+``python benchmarks/bench_batch.py`` (10⁵ variants per family), ``--quick`` (10⁴), ``--full`` (also a
 10⁶-variant run with its peak resident memory). Families (invented demo values, variants drawn
 from a seeded generator over inductance, resistance, clamp voltage):
 
@@ -89,7 +89,7 @@ def _time(fn, repeat=1):
 
 
 def main(argv=None) -> None:
-    ap = argparse.ArgumentParser(prog="python -m kickback.bench_batch", description=__doc__.splitlines()[0])
+    ap = argparse.ArgumentParser(prog="python benchmarks/bench_batch.py", description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="10⁴ variants per family, 6 detailed runs")
     ap.add_argument("--full", action="store_true", help="also a 10⁶-variant run with its peak resident memory")
     ap.add_argument("--memory-child", type=int, default=0, help=argparse.SUPPRESS)
@@ -133,7 +133,7 @@ def main(argv=None) -> None:
     if args.full:
         print("\nmemory: the constant-clamp family in a fresh process each, chunks of 10⁴ on the workers")
         for big in (100_000, 1_000_000):
-            out = subprocess.run([sys.executable, "-m", "kickback.bench_batch", "--memory-child", str(big)],
+            out = subprocess.run([sys.executable, __file__, "--memory-child", str(big)],
                                  capture_output=True, text=True, check=True).stdout.strip()
             print(f"  {big:>9d} variants: {out}")
 

@@ -1,14 +1,14 @@
 """Benchmark of the periodic steady state (``[drive]``): the fast shooting against the reference
 shooting, both timed in this one run.
 
-``python -m kickback.bench_pwm`` (the demo cases with a [drive] section, every duty),
+``python benchmarks/bench_pwm.py`` (the demo cases with a [drive] section, every duty),
 ``--repeat N`` (best of N timings per method, default 2), ``--brute`` (also plain brute-force
 cycling of the valve case at its first duty until the cycle-start state changes by less than
 1e-12 relative — a few hundred cycles, ~10 s).
 
 Per duty: wall time of :func:`kickback.engine.periodic.steady_state` (closed-form affine
 on-phase, averaged-model guess, one finite-difference Jacobian then Broyden) and of
-:func:`kickback.engine.periodic_reference.reference_steady_state` (Newton with a fresh
+:func:`periodic_reference.reference_steady_state` (tests/periodic_reference.py) (Newton with a fresh
 finite-difference Jacobian every step, every phase by Radau), their ratio, the cycle solves,
 the fixed-point residual each reached, how far apart their fixed points and figures are, and the
 brute-force cycles the contraction implies. Timings are noisy on a shared machine; the ratio is
@@ -18,6 +18,7 @@ what to read.
 from __future__ import annotations
 
 import argparse
+import sys
 import time
 from pathlib import Path
 
@@ -60,7 +61,7 @@ def _brute(c, duty, frequency, scale, n_max=5000):
 
 
 def main(argv=None) -> None:
-    ap = argparse.ArgumentParser(prog="python -m kickback.bench_pwm", description=__doc__.splitlines()[0])
+    ap = argparse.ArgumentParser(prog="python benchmarks/bench_pwm.py", description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=2, help="timings per method and duty (best is shown)")
     ap.add_argument("--brute", action="store_true", help="also brute-force cycling of the valve case")
     args = ap.parse_args(argv)
@@ -68,7 +69,9 @@ def main(argv=None) -> None:
     from kickback import load_case
     from kickback.circuit import Circuit
     from kickback.engine.periodic import scales, steady_state
-    from kickback.engine.periodic_reference import reference_steady_state
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))  # the reference shooting
+    from periodic_reference import reference_steady_state
+
     from kickback.pwmfigures import pwm_figures
 
     print("periodic steady state per duty: fast shooting vs the reference shooting, same run")
