@@ -20,7 +20,12 @@ from __future__ import annotations
 import numpy as np
 from scipy.integrate._ivp import radau as _radau
 
+from kickback.errors import SolverError
+
 _ORIGINAL = _radau.solve_collocation_system
+#: the private names of scipy's Radau module the check reads (pyproject bounds scipy to the
+#: releases this was tested with; :func:`patch_applies` checks them on every run)
+_NEEDED = ("solve_collocation_system", "C", "TI", "TI_REAL", "TI_COMPLEX", "MU_REAL", "MU_COMPLEX")
 #: residual of the collocation equations (in units of the error scale) accepted as converged
 RESIDUAL_LIMIT = 1.0
 
@@ -41,11 +46,35 @@ def checked_collocation(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve
     return bool(res <= RESIDUAL_LIMIT), n_iter, Z, rate
 
 
+def patch_applies() -> str | None:
+    """Why the residual check cannot be installed in this scipy (None when it can).
+
+    The check replaces the module-level ``solve_collocation_system`` that scipy's
+    ``Radau._step_impl`` calls, and reads the method's constants; a scipy release that renames
+    them would silently switch the check off, so the engine refuses to run instead.
+    """
+    import scipy
+
+    missing = [name for name in _NEEDED if not hasattr(_radau, name)]
+    if missing:
+        return (f"scipy {scipy.__version__}'s Radau lacks {', '.join(missing)}: kickback's residual check "
+                "cannot be installed (install a scipy release kickback supports, see pyproject.toml)")
+    if "solve_collocation_system" not in _radau.Radau._step_impl.__code__.co_names:
+        return (f"scipy {scipy.__version__}'s Radau step no longer calls solve_collocation_system: "
+                "kickback's residual check cannot be installed")
+    return None
+
+
+_WHY_NOT = patch_applies()
+
+
 class CheckedNewton:
     """Mixin for a Radau subclass: Newton iterations with a Jacobian kept from an earlier step
     end with the residual check (a Jacobian evaluated at the step's own start is trusted)."""
 
     def __init__(self, *args, **kwargs):
+        if _WHY_NOT is not None:
+            raise SolverError(_WHY_NOT)
         super().__init__(*args, **kwargs)
         jac = self.jac
         self._jac_at = self.t
