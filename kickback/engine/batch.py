@@ -108,9 +108,18 @@ def _step(bc, st, idx):
         Xs = np.where(moved[:, None], Xs2, Xs)
         ok = np.where(moved, ok2, ok)
         forms = md.assemble(mode, t0)
+    mode_kept = mode
     mode, forced = _apply_transition(md, st, idx, mode)
     if np.any(forced):
         forms = md.assemble(mode, t0)
+        back = forced & ~_forced_holds(md, forms, mode, Xs, st.force_b[idx])
+        if np.any(back):
+            # the signalled change would leave its piece at once (an event fired on rounding,
+            # e.g. a node at a vertical law's voltage while the current that would hold it
+            # there is falling): the classification, which saw the motion, stands
+            mode = Mode(np.where(back[:, None], mode_kept.states, mode.states),
+                        np.where(back, mode_kept.pin, mode.pin))
+            forms = md.assemble(mode, t0)
     st.force_b[idx] = -1
     if not np.all(ok):
         bc.fail(np.isin(np.arange(bc.n), idx[~ok]), "no conducting path takes the coil current (the node "
@@ -262,6 +271,33 @@ def _apply_transition(md, st, idx, mode):
         pin[r] = np.where(vert, br, np.where(pin[r] == br, -1, pin[r]))
         changed[r] = True
     return Mode(states, pin), changed
+
+
+def _forced_holds(md, forms, mode, X, fb):
+    """Whether a forced state change is consistent with the motion at its start (G,): the forced
+    branch ``fb`` (−1: none), if it carries current on its new piece (or holds the node pinned),
+    does not start at an end of that piece moving out of it. Rounding level: 256 ε of the size
+    of the current's terms (and of its rate's)."""
+    G = X.shape[0]
+    ok = np.ones(G, bool)
+    xi = np.concatenate([X, np.ones((G, 1)), np.zeros((G, 1))], axis=1)
+    for b in np.unique(fb[fb >= 0]):
+        r = fb == b
+        d = forms.info[b]
+        carries = (d["seg"] | d["vert"]) & r
+        if not np.any(carries):
+            continue
+        c = forms.cI[b]
+        dc = forms.d(c)
+        cur = np.einsum("gj,gj->g", c, xi)
+        rate = np.einsum("gj,gj->g", dc, xi)
+        tol = 256 * np.finfo(float).eps * np.einsum("gj,gj->g", np.abs(c), np.abs(xi))
+        rtol = 256 * np.finfo(float).eps * np.einsum("gj,gj->g", np.abs(dc), np.abs(xi))
+        lo = np.where(np.isfinite(d["Ilo"]), d["Ilo"], -np.inf)
+        hi = np.where(np.isfinite(d["Ihi"]), d["Ihi"], np.inf)
+        leaves = ((cur <= lo + tol) & (rate < -rtol)) | ((cur >= hi - tol) & (rate > rtol))
+        ok &= ~(carries & leaves)
+    return ok
 
 
 def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):

@@ -134,7 +134,8 @@ def start_values(ev: Events, t0):
     may be leaving its range at second order, which the event then catches at once), and as
     above zero (it just fired and moves away) if it moves up. Such an event is shifted by its
     rounding-level start value (``ev.E`` is changed in place), so that near τ = 0 it has the sign
-    it was given and a refinement cannot land on a spurious root at the start."""
+    it was given and a refinement cannot land on a spurious root at the start: its value there
+    is set to the rounding level ``ztol`` on its side."""
     G = ev.E.shape[0]
     g0, gp0 = ev.values(np.zeros((G, 1)))
     g0, gp0 = g0[:, 0], gp0[:, 0]
@@ -145,8 +146,12 @@ def start_values(ev: Events, t0):
     armed = np.where(near, (gp0 < 0) | flat, g0 < 0)
     nX = ev.E.shape[3] - 2
     ev.ztol, ev.tspace = tol, tspace
-    ev.E[:, :, 0, nX] -= np.where(near, g0, 0.0)
-    g0 = np.where(near, np.where(armed, -tol - 1e-300, tol + 1e-300), g0)
+    # (shifted to the edge of the rounding band on its side, not to zero: a tangency that turns
+    # back at second order — a node at a vertical law's voltage with a rounding-level rate
+    # while its net current falls — then stays on its side instead of grazing zero at once)
+    signed = np.where(armed, -tol - 1e-300, tol + 1e-300)
+    ev.E[:, :, 0, nX] -= np.where(near, g0 - signed, 0.0)
+    g0 = np.where(near, signed, g0)
     return g0, gp0, armed
 
 

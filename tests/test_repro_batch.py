@@ -1,0 +1,116 @@
+"""Regression tests of batch-engine defects (issue 14), each against a reference solved here.
+
+The references are the node equations of the case written out in this file and solved with
+scipy's Radau at rtol 1e-12 (while no law is vertical) and in closed form once the node is held
+at a vertical law's voltage (first-order RL with constant forcing: textbook, e.g. Hayt, Kemmerly
+and Durbin, *Engineering Circuit Analysis*, 8th ed., ch. 8). Never kickback's own output.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+
+from kickback.case import Case, Checks, Clamp, Coil, Element, Supply, Switch
+from kickback.simulation import simulate
+
+# --------------------------------------------------------------------------- avalanche + clamp
+# MOSFET with avalanche at V_BR (zero avalanche resistance), a constant-drop diode + Zener across
+# the coil: the clamp alone would hold the node above V_BR, so the avalanche and the clamp share
+# the coil current at V_BR until the coil current falls to the clamp's current there; then the
+# avalanche stops and the node falls below V_BR (the case of /work/shared/repro/batch_neg_av_pwl).
+VBR, RON, C_SW, TF = 68.0, 45e-3, 220e-12, 150e-9
+L, R = 0.120, 36.0
+VD, VZ, RZ = 0.85, 20.0, 1.5
+
+
+def _shared_case(vs, tf=TF):
+    sw = Switch("mosfet", on_resistance=RON, fall_time=tf, capacitance=C_SW, breakdown_voltage=VBR,
+                rated_voltage=70.0, rated_avalanche_energy=2e-3)
+    clamp = Clamp("D1+Z1", "coil", (Element("diode", name="D1", model="constant-drop", forward_voltage=VD),
+                                    Element("zener", name="Z1", voltage=VZ, dynamic_resistance=RZ)))
+    return Case("avalanche shared with a clamp (invented)", Supply(vs), Coil(L, R), sw, (clamp,),
+                Checks(derating=1.0))
+
+
+def _avalanche_reference(vs, tf=TF):
+    """Avalanche energy [J]: Radau (rtol 1e-12) on i, v until v reaches V_BR, then closed form.
+
+    Node equations (DESIGN §3): L di/dt = Vs − v − R·i; C dv/dt = i − i_ch − i_clamp with the
+    channel min(v/R_on, i0·(1 − t/t_f)) during the fall, the clamp (v − Vs − V_D − V_Z)/R_Z when
+    positive. Held at V_BR: i(t) = i∞ + (i1 − i∞)·e^(−(t − t1)/τ), i∞ = (Vs − V_BR)/R, τ = L/R;
+    the clamp takes I_c = (V_BR − Vs − V_D − V_Z)/R_Z, the channel its falling limit until t_f, the
+    avalanche the rest, until i = I_c at t* = t1 + τ·ln((i1 − i∞)/(I_c − i∞)).
+    """
+    i0 = vs / (R + RON)
+    v0 = i0 * RON
+
+    def ilim(t):
+        return i0 * max(0.0, 1.0 - t / tf) if tf > 0 else 0.0
+
+    def rhs(t, y):
+        i, v = y
+        ich = min(v / RON, ilim(t)) if t < tf else 0.0
+        icl = max(0.0, (v - vs - VD - VZ) / RZ)
+        return [(vs - v - R * i) / L, (i - ich - icl) / C_SW]
+
+    def at_vbr(t, y):
+        return y[1] - VBR
+
+    at_vbr.terminal, at_vbr.direction = True, 1
+    sol = solve_ivp(rhs, (0.0, 1e-5), [i0, v0], method="Radau", rtol=1e-12, atol=[1e-15, 1e-12],
+                    events=at_vbr, first_step=1e-13, max_step=tf / 50 if tf > 0 else 1e-9)
+    assert sol.status == 1, "reference: the node never reached V_BR"
+    t1, i1 = float(sol.t_events[0][0]), float(sol.y_events[0][0][0])
+    tau = L / R
+    i_inf = (vs - VBR) / R
+    ic = (VBR - vs - VD - VZ) / RZ
+    t_star = tau * math.log((i1 - i_inf) / (ic - i_inf))
+    coil_charge = i_inf * t_star + (i1 - i_inf) * tau * (1.0 - math.exp(-t_star / tau))  # ∫ i dt
+    ch_charge = 0.0
+    if t1 < tf:  # the channel's falling limit still carries part of the current while held
+        ch_charge = i0 * ((tf - t1) - (tf ** 2 - t1 ** 2) / (2 * tf))
+    return VBR * (coil_charge - ic * t_star - ch_charge)
+
+
+@pytest.mark.parametrize("vs", [45.7, 45.55050844559912, 46.5, 47.0])
+def test_avalanche_shared_with_a_clamp_is_positive_and_exact(vs):
+    """Issue 14 (batch_neg_av_pwl, the irrigation-valve case at 45.55 V): the batch engine booked
+    −113 mJ of avalanche energy when the avalanche current ended while the node was held at V_BR
+    (a rounding-level dv/dt re-pinned the node and the avalanche current ran negative). Now
+    within 1e-6 of the reference above, and the avalanche check is there."""
+    want = _avalanche_reference(vs)
+    r = simulate(_shared_case(vs), engine="batch")
+    got = r.figures.avalanche_energy_J
+    assert got == pytest.approx(want, rel=1e-6), f"Vs {vs} V: avalanche {got:.9g} J, reference {want:.9g} J"
+    rows = [c for c in r.checks if c.quantity == "avalanche energy"]
+    assert len(rows) == 1 and rows[0].passed is (want <= 2e-3), f"avalanche check rows {rows}"
+    assert abs(r.figures.energy_balance_error) < 1e-9
+
+
+def test_avalanche_row_present_without_avalanche_in_both_engines():
+    """A breakdown voltage calls for the avalanche check (issue 14, 'present by rule'): with the
+    clamp below V_BR nothing avalanches, and both engines still list the row, passing, with the
+    same check rows."""
+    case = _shared_case(30.0)  # clamp at 30 + 20.85 + 1.5·0.83 ≈ 52 V < 68 V
+    rows = {}
+    for eng in ("detailed", "batch"):
+        r = simulate(case, engine=eng)
+        rows[eng] = [(c.part, c.quantity) for c in r.checks]
+        av = [c for c in r.checks if c.quantity == "avalanche energy"]
+        assert len(av) == 1 and av[0].passed and av[0].value == pytest.approx(0.0, abs=1e-12), f"{eng}: {av}"
+    assert rows["detailed"] == rows["batch"]
+
+
+def test_many_avalanche_row_applies_by_the_ratings():
+    """In a batch over supplies on both sides of the avalanche onset the avalanche row applies to
+    every variant (it used to apply only where the booked energy was positive)."""
+    from kickback.studies.many import simulate_many
+
+    many = simulate_many(_shared_case(40.0), {"supply.voltage": np.array([30.0, 45.55050844559912, 50.0])})
+    col = many.checks["switch: avalanche energy"]
+    assert np.all(col.applies), col.applies
+    assert np.all(many.figures["switch.avalanche_energy_J"] >= 0.0), many.figures["switch.avalanche_energy_J"]
