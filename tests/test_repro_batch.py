@@ -114,3 +114,45 @@ def test_many_avalanche_row_applies_by_the_ratings():
     col = many.checks["switch: avalanche energy"]
     assert np.all(col.applies), col.applies
     assert np.all(many.figures["switch.avalanche_energy_J"] >= 0.0), many.figures["switch.avalanche_energy_J"]
+
+
+# --------------------------------------------------------------------------- diode + varistor
+def test_shockley_diode_in_series_with_a_varistor_solves():
+    """Issue 14 (dv2, dvar, diode_varistor_fail, big_16): a chain with two fitted laws (a Shockley
+    diode and a varistor) crashed the batch engine with a bare StopIteration. It now solves; its
+    figures are within the fits' error (2 %, as the fitted demo cases in tests/test_batch.py) of
+    the exact solution: with an instant switch and no node capacitance the whole coil current
+    flows in the chain, L di/dt = −R·i − n·V_T·ln(1 + i/I_s) − V_1·(i/I_1)^(1/α)
+    (Shockley law: Sze and Ng, *Physics of Semiconductor Devices*, 3rd ed., eq. 2.92 with
+    ideality n; varistor power law: Levinson and Philipp, Am. Ceram. Soc. Bull. 65(4), 1986),
+    solved here by Radau at rtol 1e-11 with the energies as extra states."""
+    vs, lc, rc = 24.0, 0.1, 30.0
+    n_id, i_s, v1, alpha, i1 = 1.9, 2e-9, 39.0, 25.0, 1e-3
+    vt = 1.380649e-23 * 298.15 / 1.602176634e-19  # k·T/q at 25 °C (CODATA 2018 constants)
+    clamp = Clamp("D+MOV", "coil", (Element("diode", name="D1", ideality=n_id, saturation_current=i_s),
+                                    Element("varistor", name="MOV", voltage=v1, exponent=alpha)))
+    case = Case("diode + varistor (invented)", Supply(vs), Coil(lc, rc), Switch("ideal"), (clamp,), Checks())
+    r = simulate(case, engine="batch")
+    f = r.figures
+    i0 = vs / rc
+
+    def rhs(t, y):
+        i = max(y[0], 0.0)
+        vd = n_id * vt * math.log1p(i / i_s)
+        vv = v1 * (i / i1) ** (1.0 / alpha)
+        return [(-rc * i - vd - vv) / lc, vd * i, vv * i]
+
+    def at_10(t, y):
+        return y[0] - 0.1 * i0
+
+    at_10.terminal = False
+    sol = solve_ivp(rhs, (0.0, 0.05), [i0, 0.0, 0.0], method="Radau", rtol=1e-11, atol=[1e-14, 1e-16, 1e-16],
+                    events=at_10, dense_output=True)
+    t10 = float(sol.t_events[0][0])
+    e_var = float(sol.y[2, -1])
+    peak = vs + n_id * vt * math.log1p(i0 / i_s) + v1 * (i0 / i1) ** (1.0 / alpha)
+    assert f.to_10_percent_s == pytest.approx(t10, rel=2e-2), f"to 10 %: {f.to_10_percent_s} s, exact {t10} s"
+    e_got = f.clamps[0].elements[1].energy_J
+    assert e_got == pytest.approx(e_var, rel=2e-2), f"varistor energy {e_got} J, exact {e_var} J"
+    assert f.peak_voltage_V == pytest.approx(peak, rel=2e-2), f"peak {f.peak_voltage_V} V, exact {peak} V"
+    assert abs(f.energy_balance_error) < 1e-9
