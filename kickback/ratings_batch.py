@@ -2,7 +2,8 @@
 
 The rows are those of :func:`kickback.ratings.rating_checks` (same part, quantity, limit and
 pass rule; tests/test_batch.py compares them row by row); a row a variant does not have (no
-rating given; no breakdown voltage and no avalanche rating) is marked ``applies = False`` there and does not count against it.
+rating given; no breakdown voltage and no avalanche rating) is marked ``applies = False`` there
+and does not count against it.
 Junction-temperature rows need a thermal network, which the batch engine does not model (such
 variants are reported as not simulated).
 """
