@@ -126,6 +126,15 @@ def _step(bc, st, idx):
                 "voltage would be unbounded)")
     if np.any(forms.nopath):
         bc.fail(np.isin(np.arange(bc.n), idx[forms.nopath]), "no conducting path takes the coil current")
+    # a node snapped to a vertical law's voltage moves by rounding only; a larger move would be a
+    # jump of the state (energy from nowhere): the variant is stopped with the reason, never
+    # continued silently
+    jump = np.abs(Xs - X) > 1e-9 * (np.abs(X) + st.X0scale[idx])
+    if np.any(jump):
+        bad = np.any(jump, axis=1)
+        bc.fail(np.isin(np.arange(bc.n), idx[bad]), "the node voltage would jump when a law took hold of it "
+                "(an inconsistent conduction state); the batch engine stopped this variant")
+        ok = ok & ~bad
     X = Xs
     st.X[idx] = Xs
     keep = ok & ~forms.nopath

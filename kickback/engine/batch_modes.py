@@ -108,13 +108,17 @@ class Modes:
         for b in range(self.B):
             vb = verts[b]
             cand = (vb >= 0) & (pin < 0)
-            if b == 0:
-                cand &= in_fall
-            if not np.any(cand):
-                continue
             k = np.maximum(vb, 0)
             law = self.laws[b]
             rows = np.arange(G)
+            if b == 0:
+                # the channel's vertical piece holds the node only at its own voltage: above it the
+                # falling current limit governs (state LIM), however little current the coil
+                # carries — an ideal switch does not snap a ringing node down to 0 V
+                Vk = law.V[rows, k]
+                cand &= in_fall & (np.abs(v - Vk) <= 1e-12 * np.maximum(1.0, np.abs(Vk)))
+            if not np.any(cand):
+                continue
             others = sum(cur[j] for j in range(self.B) if j != b)
             ip_b = ip - others
             lo, hi = law.Ilo[rows, k], law.Ihi[rows, k]
