@@ -85,6 +85,7 @@ def run(bc) -> State:
         if live.size == 0:
             break
         _step(bc, st, live)
+    st.rec.rest_states(np.nonzero(bc.ok)[0], st.X[bc.ok])
     return st
 
 
@@ -223,9 +224,9 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     _energies(bc, st, gi, fs, M2, dv)
     if st.trace is not None:
         st.trace.append((tg[0], tau[0], seg, fs, mg))
-    st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)))
+    st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)), np.where(tau > 0, mg.pin, -1))
     _figure_roots(bc, st, gi, fs, seg, tg, tau, rc, re, rt, g0f, kinds, chains)
-    st.rec.boundary(gi, fs, Xe, tau, tg, np.ones(G, bool), Xd)
+    st.rec.boundary(gi, fs, Xe, tau, tg, np.ones(G, bool), Xd, end=True)
     _events(bc, st, gi, tags, fired, tg + tau, Xe)
     st.t[gi] = tg + tau
     st.X[gi] = Xe
@@ -328,7 +329,8 @@ def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):
     cross = (kr == bev.F_UP_POS) | (kr == bev.F_DN_POS) | (kr == bev.F_UP_NEG) | (kr == bev.F_DN_NEG)
     m = (kr == bev.F_EXT) | (kr == bev.F_VMAX) | cross
     if np.any(m):
-        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, np.where(cross, chains[re], -1)[m])
+        node_ext = ((kr == bev.F_VMAX) | ((kr == bev.F_EXT) & (chains[re] < 0)))[m]
+        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, node_ext)
     for c in range(st.rec.nch):
         add = np.zeros(G)
         for up, dn in ((bev.F_UP_POS, bev.F_DN_POS), (bev.F_UP_NEG, bev.F_DN_NEG)):
