@@ -224,7 +224,8 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     _energies(bc, st, gi, fs, M2, dv)
     if st.trace is not None:
         st.trace.append((tg[0], tau[0], seg, fs, mg))
-    st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)), np.where(tau > 0, mg.pin, -1))
+    st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)),
+                    np.where(tau > 0, mg.pin, -1))
     _figure_roots(bc, st, gi, fs, seg, tg, tau, rc, re, rt, g0f, kinds, chains)
     st.rec.boundary(gi, fs, Xe, tau, tg, np.ones(G, bool), Xd, end=True)
     _events(bc, st, gi, tags, fired, tg + tau, Xe)

@@ -395,7 +395,8 @@ def _scan(ev, H, exps, oscs, g0, gp0):
             break
         if should_compact(live):
             k = np.nonzero(live)[0]
-            rows, ev, found, start, ga, gpa, H, live = rows[k], ev.take(k), found[k], start[k], ga[k], gpa[k], H[k], live[k]
+            rows, ev, found, start = rows[k], ev.take(k), found[k], start[k]
+            ga, gpa, H, live = ga[k], gpa[k], H[k], live[k]
             exps, oscs = modes_take(exps, oscs, k)
         pts = grid_round(start, live, exps, oscs, H)
         g, gp = ev.values(pts)
