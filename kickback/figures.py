@@ -230,6 +230,8 @@ def compute_figures(w: Waveforms) -> Figures:
             # knee it is on a conducting piece, however little current it carries there
             vx = vchain - (w.y[c.icap[k]] if k in c.icap else 0.0)
             lo, hi = ch.band
+            if lo == hi:  # no zero-current band (a resistor's law): the current alone decides
+                lo, hi = -math.inf, math.inf
             if math.isfinite(lo):
                 blocking = blocking & (vx > lo + 1e-9 * (abs(lo) + 1.0))
             if math.isfinite(hi):

@@ -199,7 +199,9 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     E = np.concatenate([E, Ering], axis=1)
     iq = np.array([E.shape[1] - 1])
     H = np.maximum(bc.t_bound[gi] - tg, 0.0)
-    tau, fired = first_event(Events(seg, E, Qr[:, None], np.zeros_like(Qr)[:, None], iq), H, exps, oscs, tg)
+    stops = Events(seg, E, Qr[:, None], np.zeros_like(Qr)[:, None], iq)
+    stops.fresh = _fresh(st, gi, mg, meta, E.shape[1])
+    tau, fired = first_event(stops, H, exps, oscs, tg)
     _remember_transition(st, gi, fired, meta, mg)
     # figure events: every root inside the segment
     fev = bev.fig_events(sub, fs, mg, tg, st)
@@ -239,6 +241,19 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     if np.any(bad):
         bc.fail(np.isin(np.arange(bc.n), gi[bad]), "the node voltage chatters at a threshold (too many "
                 "segments); the batch engine stopped this variant")
+
+
+def _fresh(st, gi, mode, meta, ne):
+    """(G, ne) bool: the mode events of branches whose state did not change at this segment's
+    start (the node pin neither): they did not fire there, so one at zero within rounding and
+    moving out of its range fires now (a current that leaves its piece at once), instead of being
+    taken for an event that just fired."""
+    out = np.zeros((gi.size, ne), bool)
+    prev = st.prev_states[gi]
+    same = (prev[:, 0] >= 0) & (st.prev_pin[gi] == mode.pin)
+    for e, (b, _d) in enumerate(meta):
+        out[:, e] = same & (prev[:, b] == mode.states[:, b])
+    return out
 
 
 def _remember_transition(st, gi, fired, meta, mode):
@@ -331,7 +346,7 @@ def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):
     m = (kr == bev.F_EXT) | (kr == bev.F_VMAX) | cross
     if np.any(m):
         node_ext = ((kr == bev.F_VMAX) | ((kr == bev.F_EXT) & (chains[re] < 0)))[m]
-        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, node_ext)
+        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, node_ext, kr[m] == bev.F_VMAX)
     for c in range(st.rec.nch):
         add = np.zeros(G)
         for up, dn in ((bev.F_UP_POS, bev.F_DN_POS), (bev.F_UP_NEG, bev.F_DN_NEG)):

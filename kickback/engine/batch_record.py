@@ -44,9 +44,10 @@ class Record:
                    [len(bc.case.clamps[k].elements) for k, _c, _r in bc.lone]
         self.vabs = [np.zeros((n, ne)) for ne in self.nel]
         self.held = [np.zeros((n, ne)) for ne in self.nel]
-        #: held voltages at a segment end where the node stopped rising (−1: none), confirmed as a
-        #: local maximum by the next segment's start (see :meth:`boundary`)
-        self.pend = [np.full((n, ne), -1.0) for ne in self.nel[:len(bc.chains)]]
+        #: element voltages and the node's rate (NaN: the chain conducts) at a segment's end, for
+        #: a local extremum at the boundary confirmed by the next segment's start (:meth:`boundary`)
+        self.pend = [np.zeros((n, ne)) for ne in self.nel[:len(bc.chains)]]
+        self.pend_dv = [np.full(n, np.nan) for _ in bc.chains]
         self.ppk = [np.zeros((n, ne)) for ne in self.nel]
 
     # --------------------------------------------------------------- values
@@ -106,13 +107,24 @@ class Record:
         k = bc.chain_index[c] if c < len(bc.chains) else bc.lone[c - len(bc.chains)][0]
         return bc.case.clamps[k]
 
-    def _hold(self, c, gi, vel, blocking):
+    def _hold(self, c, gi, vel, blocking, vmax=None, vmin=None):
         """Raise the stand-off of chain c's elements to their blocked voltages where ``blocking``
-        (``gi`` may repeat a variant)."""
+        (``gi`` may repeat a variant); with ``vmax``/``vmin`` (points that are maxima/minima of
+        the node voltage) only where the element's blocked voltage is at a maximum there: a diode
+        at a node minimum, a Zener or unidirectional TVS at a maximum, the others on the side of
+        their voltage's sign."""
         cl = self._clamp_of(c)
         for j, vj in enumerate(vel):
             el = cl.elements[j]
-            held = np.where(blocking, blocked_voltage(el.type, el.bidirectional, vj), 0.0)
+            at = blocking
+            if vmax is not None:
+                if el.type == "diode":
+                    at = at & vmin
+                elif el.type == "zener" or (el.type == "tvs" and not el.bidirectional):
+                    at = at & vmax
+                else:
+                    at = at & ((vmax & (vj >= 0)) | (vmin & (vj <= 0)))
+            held = np.where(at, blocked_voltage(el.type, el.bidirectional, vj), 0.0)
             np.maximum.at(self.held[c], (gi, np.full(gi.shape, j)), held)
 
     def rest_states(self, gi, X_end):
@@ -172,10 +184,10 @@ class Record:
         the node at a vertical law's voltage over this segment (−1: none); ``end``: the segment's
         end (else its start).
 
-        A segment boundary where the node voltage stops rising and starts falling (a kink of an
-        algebraic node, e.g. the end of the fall) is a local maximum in time: a chain that blocks
-        on both sides holds its voltage there (:mod:`kickback.standoff`). The end of a segment
-        leaves the candidate; the start of the next one confirms it."""
+        A segment boundary where the node voltage turns (a kink of an algebraic node, e.g. the end
+        of the fall) is a local extremum in time: a chain that blocks on both sides holds its
+        voltage there (:mod:`kickback.standoff`). The end of a segment leaves the candidate; the
+        start of the next one confirms it."""
         bc = self.bc
         G = gi.size
         xi = np.concatenate([X, np.ones((G, 1)), tau[:, None]], axis=1)
@@ -189,37 +201,39 @@ class Record:
             u = v - bc.ref[m] * bc.Vs[gi]
             vel = self._element_voltages(m, gi, cur, u, vc, forms.info[2 + m]["st"])
             self._update(m, gi, cur, vel, keep)
-            blocks = forms.info[2 + m]["block"]
-            cl = self._clamp_of(m)
-            here = np.stack([blocked_voltage(el.type, el.bidirectional, vj) for el, vj in zip(cl.elements, vel,
-                                                                                              strict=True)], axis=1)
+            th = CONDUCTION_FRACTION * bc.i0[gi]
+            blocks = self._blocks_at(m, gi, cur, th, forms.info[2 + m]["block"])
             if end:
-                self.pend[m][gi] = np.where((blocks & (dv >= 0))[:, None], here, -1.0)
+                self.pend[m][gi] = np.stack(vel, axis=1)
+                self.pend_dv[m][gi] = np.where(blocks, dv, np.nan)
             else:
-                pend = self.pend[m][gi]
-                ok = (pend[:, 0] >= 0) & blocks & (dv <= 0)
-                self.held[m][gi] = np.where(ok[:, None], np.maximum(self.held[m][gi], np.maximum(pend, here)),
-                                            self.held[m][gi])
-                self.pend[m][gi] = -1.0
+                left = self.pend_dv[m][gi]
+                both = np.isfinite(left) & blocks
+                vmax, vmin = both & (left >= 0) & (dv <= 0), both & (left <= 0) & (dv >= 0)
+                if np.any(vmax | vmin):
+                    pend = self.pend[m][gi]
+                    self._hold(m, gi, [pend[:, j] for j in range(pend.shape[1])], vmax | vmin, vmax, vmin)
+                    self._hold(m, gi, vel, vmax | vmin, vmax, vmin)
+                self.pend_dv[m][gi] = np.nan
             if plateau is not None and np.any((plateau >= 0) & (plateau != 2 + m)):
                 # the node held flat by another branch's vertical law: a blocking chain holds that
                 # voltage over an interval (a plateau is a local maximum in time); the chain that
                 # holds the node itself is at its knee there, not blocking
                 th = CONDUCTION_FRACTION * bc.i0[gi]
                 flat = (plateau >= 0) & (plateau != 2 + m)
-                self._hold(m, gi, vel, flat & chain_blocks(cur, th, has_diode(self._clamp_of(m).elements)))
+                self._hold(m, gi, vel, flat & self._blocks_at(m, gi, cur, th, forms.info[2 + m]["block"]))
         if bc.lone:
             for q, (_k, cs, ref) in enumerate(bc.lone):
                 c = len(bc.chains) + q
                 u = v - ref * bc.Vs[gi]
                 self._update(c, gi, cs[gi] * dv, [u] * self.nel[c], keep)
 
-    def points(self, gi, forms, seg, rc, rt, t0, vmax, node_extremum=None):
+    def points(self, gi, forms, seg, rc, rt, t0, vmax, node_extremum=None, node_max=None):
         """Record interior points: roots ``rt`` [s] of figure events of the group's variants ``rc``
         (indices into ``gi``; several per variant); ``vmax`` marks the roots of dv/dt at a maximum,
         whose time is the peak time even where rounding cannot tell the value from a nearby one;
         ``node_extremum`` marks the extrema of the node voltage (where a blocking chain's held
-        voltages count for the stand-off)."""
+        voltages count for the stand-off), ``node_max`` those that are maxima."""
         bc = self.bc
         sub = seg.take(rc)
         X = sub.state(rt)
@@ -244,7 +258,9 @@ class Record:
             vc = X[:, bc.icap[m]] if m in bc.icap else np.zeros(P)
             u = v - bc.ref[m] * bc.Vs[bi]
             vel = self._element_voltages(m, bi, cur, u, vc, forms.info[2 + m]["st"][rc])
-            self._update_at(m, bi, cur, vel, node_extremum)
+            ext = None if node_extremum is None else node_extremum & (
+                forms.info[2 + m]["block"][rc] | (bc.chains[m].law.block is None))
+            self._update_at(m, bi, cur, vel, ext, node_max)
         if bc.lone:
             dxi = np.concatenate([dX, np.zeros((P, 1)), np.ones((P, 1))], axis=1)
             dv = np.einsum("pj,pj->p", forms.cv[rc], dxi)
@@ -253,7 +269,7 @@ class Record:
                 u = v - ref * bc.Vs[bi]
                 self._update_at(c, bi, cs[bi] * dv, [u] * self.nel[c])
 
-    def _update_at(self, c, bi, cur, vel, node_extremum=None):
+    def _update_at(self, c, bi, cur, vel, node_extremum=None, node_max=None):
         """Like :meth:`_update` for points that may repeat a variant (unbuffered reductions);
         ``node_extremum`` marks the points that are extrema of the node voltage: where the chain
         blocks there, its elements' held voltages are at a local maximum inside a blocking
@@ -269,5 +285,14 @@ class Record:
             np.maximum.at(self.ppk[c], (bi, cj), vj * cur)
         if node_extremum is not None and c < len(bc.chains):
             th = CONDUCTION_FRACTION * bc.i0[bi]
-            blocking = node_extremum & chain_blocks(cur, th, has_diode(self._clamp_of(c).elements))
-            self._hold(c, bi, vel, blocking)
+            blocking = node_extremum & self._blocks_at(c, bi, cur, th)
+            self._hold(c, bi, vel, blocking, node_max, node_extremum & ~node_max)
+
+    def _blocks_at(self, c, bi, cur, th, block_state=None):
+        """Whether chain c does not conduct at these points: its current within the threshold
+        (:func:`kickback.standoff.chain_blocks`) and its law off its conducting pieces — a law with
+        a zero-current band in its block state, one without (a resistor's) at any state."""
+        out = chain_blocks(cur, th, has_diode(self._clamp_of(c).elements))
+        if block_state is not None and self.bc.chains[c].law.block is not None:
+            out = out & block_state
+        return out

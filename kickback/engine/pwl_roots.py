@@ -70,6 +70,10 @@ class Events:
         self.qmap = np.full(E.shape[1], -1)
         if Qa is not None:
             self.qmap[self.iq] = np.arange(self.iq.size)
+        #: (G, ne) bool or None: events that cannot have fired at the segment's start (a mode event
+        #: of a branch whose state did not change there): at zero within rounding and moving up,
+        #: such an event fires now rather than counting as just fired
+        self.fresh = None
         #: whether the quadratic and the bilinear parts are there at all (most events have one)
         self.has_qa = Qa is not None and bool(np.any(Qa))
         self.has_qb = Qa is not None and bool(np.any(Qb))
@@ -81,6 +85,7 @@ class Events:
         out = Events(self.seg.take(rows), self.E[rows], q(self.Qa), q(self.Qb), self.iq)
         out.ztol = self.ztol[rows]
         out.tspace = self.tspace[rows]
+        out.fresh = None if self.fresh is None else self.fresh[rows]
         return out
 
     def values(self, tau, xs=None):
@@ -135,7 +140,8 @@ def start_values(ev: Events, t0):
     above zero (it just fired and moves away) if it moves up. Such an event is shifted by its
     rounding-level start value (``ev.E`` is changed in place), so that near τ = 0 it has the sign
     it was given and a refinement cannot land on a spurious root at the start: its value there
-    is set to the rounding level ``ztol`` on its side."""
+    is set to the rounding level ``ztol`` on its side. An event marked ``ev.fresh`` (it cannot have
+    fired at this start) is armed even when moving up: it fires at once."""
     G = ev.E.shape[0]
     g0, gp0 = ev.values(np.zeros((G, 1)))
     g0, gp0 = g0[:, 0], gp0[:, 0]
@@ -143,7 +149,10 @@ def start_values(ev: Events, t0):
     tol = START_TOL * ev.scale() + tspace[:, None] * np.abs(gp0)
     flat = np.abs(gp0) <= START_TOL * ev.scale(derivative=True)
     near = np.abs(g0) <= tol
-    armed = np.where(near, (gp0 < 0) | flat, g0 < 0)
+    moving_in = (gp0 < 0) | flat
+    if ev.fresh is not None:
+        moving_in = moving_in | ev.fresh
+    armed = np.where(near, moving_in, g0 < 0)
     nX = ev.E.shape[3] - 2
     ev.ztol, ev.tspace = tol, tspace
     # (shifted to the edge of the rounding band on its side, not to zero: a tangency that turns
