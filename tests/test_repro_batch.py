@@ -201,3 +201,50 @@ def test_unclamped_lc_ring_during_the_fall(vs, lc, rc, cs, tf):
     assert f.peak_voltage_V == pytest.approx(want_v, rel=1e-6), f"peak {f.peak_voltage_V} V, reference {want_v} V"
     assert f.peak_time_s == pytest.approx(want_t, rel=1e-5), f"peak time {f.peak_time_s} s, reference {want_t} s"
     assert abs(f.energy_balance_error) < 1e-9, f"ledger {f.energy_balance_error}"
+
+
+# --------------------------------------------------------------------------- avalanche, current reversal
+def _avalanche_then_reversal_reference(vs, lc, rc, ron, tf, cs, vbr, rav):
+    """Avalanche energy [J] of a MOSFET without clamp: Radau (rtol 1e-11) of L di/dt = Vs − v − R·i,
+    C dv/dt = i − i_ch − i_av with i_ch = i0·(1 − t/t_f) in the fall (the node above R_on·i_ch) and
+    i_av = (v − V_BR)/r_av above V_BR, the energy ∫ v·i_av dt as a third state; phases split at t_f and
+    at v = V_BR, until the node falls back below V_BR (the coil current has reversed)."""
+    i0 = vs / (rc + ron)
+
+    def rhs(t, y, aval):
+        i, v, _e = y
+        ich = i0 * (1.0 - t / tf) if t < tf else 0.0
+        iav = (v - vbr) / rav if aval else 0.0
+        return [(vs - v - rc * i) / lc, (i - ich - iav) / cs, v * iav]
+
+    def cross(t, y, aval):
+        return y[1] - vbr
+
+    cross.terminal = True
+    t, y, aval = 0.0, [i0, i0 * ron, 0.0], False
+    for _ in range(8):
+        t_end = tf if t < tf else 1e-3
+        sol = solve_ivp(rhs, (t, t_end), y, method="Radau", rtol=1e-11, atol=[1e-15, 1e-12, 1e-20],
+                        events=cross, args=(aval,), first_step=1e-16, max_step=(t_end - t) / 20)
+        t, y = float(sol.t[-1]), list(sol.y[:, -1])
+        if sol.status == 1:  # V_BR crossed: avalanche on or off
+            if aval:
+                return y[2]
+            aval = True
+    raise AssertionError("reference: the avalanche did not end")
+
+
+def test_avalanche_stops_when_the_coil_current_reverses():
+    """Issue 14 (found by the wide-range run, case 180): a MOSFET with no clamp avalanches (r_av > 0);
+    when the coil current reaches zero the batch engine kept the avalanche piece with its current
+    rounding-level positive and running negative for 0.6 ms: −2.7e-4 J of avalanche energy. Now
+    within 1e-6 of the reference above (and never negative)."""
+    vs, lc, rc, ron, tf, cs = 4.418481439786147, 0.002260997634458122, 231.7722226666883, 0.021576849210025766, \
+        8.133920105922928e-08, 3.0685960472519804e-11
+    vbr, rav = 12.934521660787858, 0.0017188400517089307
+    case = Case("avalanche until the current reverses (invented)", Supply(vs), Coil(lc, rc),
+                Switch("mosfet", on_resistance=ron, fall_time=tf, capacitance=cs, breakdown_voltage=vbr,
+                       avalanche_resistance=rav), (), Checks())
+    want = _avalanche_then_reversal_reference(vs, lc, rc, ron, tf, cs, vbr, rav)
+    got = simulate(case, engine="batch").figures.avalanche_energy_J
+    assert got == pytest.approx(want, rel=1e-6), f"avalanche {got} J, reference {want} J"
