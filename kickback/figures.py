@@ -9,6 +9,7 @@ import numpy as np
 
 from kickback.engine.detailed import ZERO_FRACTION, Waveforms
 from kickback.models.factory import chain_leakage
+from kickback.standoff import blocked_voltage, chain_blocks, has_diode, interior_maxima, rest_node_voltage
 
 #: a chain counts as conducting above this fraction of the initial coil current
 CONDUCTION_FRACTION = 1e-6
@@ -159,6 +160,36 @@ def junction_peak(t, p, r, tau, ambient: float) -> float | None:
     return float(ambient + foster_peak(t, np.clip(p, 0.0, None), r, tau))
 
 
+def _rest_element_voltages(w: Waveforms, k: int) -> list:
+    """Element voltages [V] of chain ``k`` in the states before and after the transient where it
+    does not conduct (:mod:`kickback.standoff`): the on-state (capacitors at their on-state
+    voltages) and the rest state (capacitors keep their end charge, the node at Vs − R·i_end;
+    a chain with a capacitor carries no DC current there). A list of 0–2 lists of voltages."""
+    c = w.circuit
+    ch = c.chains[k]
+    th = CONDUCTION_FRACTION * c.i0
+    diode = has_diode(ch.clamp.elements)
+    n_el = len(ch.clamp.elements)
+    y0 = c.initial_state()
+    v_rest = float(rest_node_voltage(c.Vs, c.R, float(w.i_coil[-1]), th))
+    out = []
+    for v_node, y, at_rest in ((c.on.node_voltage, y0, False), (v_rest, w.y_end, True)):
+        u = float(v_node - c.Vs * ch.reference)
+        if not ch.active:  # a lone capacitor chain: each element at the chain voltage
+            out.append([u] * n_el)
+            continue
+        vcap = float(y[c.icap[k]]) if k in c.icap else 0.0
+        if at_rest:
+            i = float(ch.current(u, vcap))
+            blocks = ch.capacitance is not None or bool(chain_blocks(i, th, diode))
+        else:
+            i = float(c.on.chain_currents[k]) if k < len(c.on.chain_currents) else 0.0
+            blocks = bool(chain_blocks(i, th, diode))
+        if blocks:
+            out.append([float(x) for x in ch.element_voltages(np.asarray(i), np.asarray(u), vcap)])
+    return out
+
+
 def chain_signals(w: Waveforms, k: int):
     """Current [A], chain voltage [V] and element voltages [V] of clamp chain ``k`` over time.
 
@@ -213,22 +244,33 @@ def compute_figures(w: Waveforms) -> Figures:
     findings = []
     slot = {kj: m for m, kj in enumerate(c.energy_slots)}
     for k, ch in enumerate(c.chains):
-        ic, _, ev = chain_signals(w, k)
+        ic, vchain, ev = chain_signals(w, k)
+        rest_states = _rest_element_voltages(w, k)
+        blocking = chain_blocks(ic, CONDUCTION_FRACTION * i0, has_diode(ch.clamp.elements))
+        if ch.pieces is not None:
+            # a piecewise-linear chain blocks only strictly inside its zero-current band: at its
+            # knee it is on a conducting piece, however little current it carries there
+            vx = vchain - (w.y[c.icap[k]] if k in c.icap else 0.0)
+            lo, hi = ch.band
+            if lo == hi:  # no zero-current band (a resistor's law): the current alone decides
+                lo, hi = -math.inf, math.inf
+            if math.isfinite(lo):
+                blocking = blocking & (vx > lo + 1e-9 * (abs(lo) + 1.0))
+            if math.isfinite(hi):
+                blocking = blocking & (vx < hi - 1e-9 * (abs(hi) + 1.0))
+        transient = bool(ch.active)  # a lone capacitor never blocks over an interval
         els = []
         for j, el in enumerate(ch.clamp.elements):
             law = ch.laws[j]
             vj = ev[j]
             p = vj * ic
             energy = e_el[slot[(k, j)]] if (k, j) in slot else 0.0
-            blocking = np.abs(ic) <= CONDUCTION_FRACTION * i0
-            if el.type == "diode":
-                held = np.where(blocking, -vj, 0.0)
-                on_blocks = abs(c.on.chain_currents[k]) <= CONDUCTION_FRACTION * i0
-                on_hold = max(0.0, -(c.on.chain_voltages[k])) if on_blocks else 0.0
-            else:
-                held = np.where(blocking, np.abs(vj), 0.0)
-                on_hold = 0.0
-            standoff = max(float(np.max(held, initial=0.0)), on_hold)
+            # stand-off as kickback.standoff defines it: on-state, rest state, interior maxima
+            standoff = max([0.0] + [float(blocked_voltage(el.type, el.bidirectional, ve[j]))
+                                    for ve in rest_states])
+            if transient:
+                held = np.where(blocking, blocked_voltage(el.type, el.bidirectional, vj), 0.0)
+                standoff = max(standoff, float(np.max(held[interior_maxima(held, blocking)], initial=0.0)))
             pk_p = float(np.max(p, initial=0.0))
             width = energy / pk_p if pk_p > 0 and energy > 0 else None
             tj = junction_peak(w.t, p, el.thermal_resistance, el.thermal_tau, case.checks.ambient_temperature)

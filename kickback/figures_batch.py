@@ -12,7 +12,7 @@ import os
 
 import numpy as np
 
-from kickback.figures import CONDUCTION_FRACTION, ON_STATE_FRACTION, ClampFigures, ElementFigures, Figures
+from kickback.figures import ON_STATE_FRACTION, ClampFigures, ElementFigures, Figures
 
 
 def columns(bc, st) -> dict:
@@ -43,29 +43,23 @@ def columns(bc, st) -> dict:
     out["switch.avalanche_energy_J"] = E["av"].copy()
     out["switch.body_diode_energy_J"] = E["bd"].copy()
     out["supply.energy_J"] = E["sup"].copy()
-    th = CONDUCTION_FRACTION * bc.i0
     for k, cl in enumerate(bc.case.clamps):
         if k in bc.chain_index:
             m = bc.chain_index.index(k)
             c = m
             on_i = bc.on_chain_currents[m]
-            on_v = bc.on_chain_voltages[m]
         else:
             q = [x[0] for x in bc.lone].index(k)
             c = len(bc.chains) + q
             m = None
             on_i = np.zeros(n)
-            on_v = bc.v_on - bc.lone[q][2] * bc.Vs
         ipk = np.maximum(np.abs(rec.Imax[:, c]), np.abs(rec.Imin[:, c]))
         energy = np.zeros(n)
         for j, el in enumerate(cl.elements):
             ej = st.E_el[m][j] if (m is not None and el.type != "capacitor") else np.zeros(n)
             energy = energy + ej
             pre = f"clamps[{k}].elements[{j}]."
-            held = rec.held[c][:, j]
-            if el.type == "diode":
-                on_hold = np.where(np.abs(on_i) <= th, np.maximum(0.0, -on_v), 0.0)
-                held = np.maximum(held, on_hold)
+            held = rec.held[c][:, j].copy()  # kickback.standoff's definition (batch_record)
             ppk = rec.ppk[c][:, j]
             out[pre + "energy_J"] = ej.copy()
             out[pre + "peak_voltage_V"] = rec.vabs[c][:, j].copy()

@@ -2,7 +2,8 @@
 
 The rows are those of :func:`kickback.ratings.rating_checks` (same part, quantity, limit and
 pass rule; tests/test_batch.py compares them row by row); a row a variant does not have (no
-rating given, no avalanche) is marked ``applies = False`` there and does not count against it.
+rating given; no breakdown voltage and no avalanche rating) is marked ``applies = False`` there
+and does not count against it.
 Junction-temperature rows need a thermal network, which the batch engine does not model (such
 variants are reported as not simulated).
 """
@@ -14,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.figures import ON_STATE_FRACTION
+from kickback.ratings import AVALANCHE_NEGLIGIBLE, avalanche_check_applies
 
 
 @dataclass(frozen=True)
@@ -76,11 +78,14 @@ def check_columns(case, cols: dict, get, n: int) -> dict:
     if case.switch.rated_voltage is not None or np.any(np.isfinite(rv)):
         put(_col("switch", "peak voltage", "V", peak, rv, dv, np.isfinite(rv)))
     e_av = cols["switch.avalanche_energy_J"]
-    aval = e_av > 1e-9 * cols["coil.stored_energy_J"]
     ra = get("switch.rated_avalanche_energy")
-    c = _col("switch", "avalanche energy", "J", e_av, ra, de, aval)
-    put(CheckColumn(c.part, c.quantity, c.unit, c.value, c.limit, c.margin,
-                    np.where(aval, c.passed & np.isfinite(ra), True), aval))
+    # the row exists by the ratings (kickback.ratings.avalanche_check_applies), not by the value
+    has_av = avalanche_check_applies(get("switch.breakdown_voltage"), ra)
+    if np.any(has_av):
+        avalanches = ~(e_av <= AVALANCHE_NEGLIGIBLE * cols["coil.stored_energy_J"])
+        c = _col("switch", "avalanche energy", "J", e_av, ra, de, has_av)
+        put(CheckColumn(c.part, c.quantity, c.unit, c.value, c.limit, c.margin,
+                        np.where(has_av, np.where(np.isfinite(ra), c.passed, ~avalanches), True), has_av))
     for k, cl in enumerate(case.clamps):
         for j, el in enumerate(cl.elements):
             pre = f"clamps[{k}].elements[{j}]."

@@ -12,9 +12,9 @@ bracketing root finder, scipy.optimize.brentq).
 
 from __future__ import annotations
 
+import mpmath
 import numpy as np
 import pytest
-import mpmath
 from scipy.integrate import quad_vec
 from scipy.optimize import brentq
 

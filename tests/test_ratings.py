@@ -104,9 +104,22 @@ def test_switch_avalanche_with_rating(energy_derating, limit):
     _assert_row(row, 18e-3, limit, 18e-3 <= limit)
 
 
-def test_no_avalanche_no_avalanche_row():
-    """No avalanche energy: no avalanche check, rated or not (nothing to check)."""
-    case = _case(switch=Switch("mosfet", on_resistance=0.05, breakdown_voltage=60.0))
+@pytest.mark.parametrize("rated", [None, 30e-3], ids=["unrated", "rated"])
+@pytest.mark.parametrize("energy", [0.0, -5e-3], ids=["none", "negative"])
+def test_avalanche_row_exists_by_the_ratings(rated, energy):
+    """A switch that can break down has its avalanche check whatever energy the run booked (issue
+    14: a check the ratings call for exists by rule, not by the sign of its value): a zero energy
+    passes; a negative one is not hidden (the row shows it; the audit rejects it)."""
+    case = _case(switch=Switch("mosfet", on_resistance=0.05, breakdown_voltage=60.0, rated_avalanche_energy=rated))
+    row = _row(rating_checks(case, _figures(avalanche_energy_J=energy)), "switch", "avalanche energy")
+    assert row.value == energy, f"avalanche energy value {row.value}, want {energy}"
+    assert row.passed is True, "no avalanche passes its check"
+    assert (row.limit is None) == (rated is None), f"limit {row.limit} for rating {rated}"
+
+
+def test_no_breakdown_no_avalanche_row():
+    """A switch with neither a breakdown voltage nor an avalanche rating cannot avalanche: no row."""
+    case = _case(switch=Switch("mosfet", on_resistance=0.05))
     assert not [c for c in rating_checks(case, _figures()) if c.quantity == "avalanche energy"]
 
 

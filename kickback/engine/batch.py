@@ -85,6 +85,7 @@ def run(bc) -> State:
         if live.size == 0:
             break
         _step(bc, st, live)
+    st.rec.rest_states(np.nonzero(bc.ok)[0], st.X[bc.ok])
     return st
 
 
@@ -108,15 +109,33 @@ def _step(bc, st, idx):
         Xs = np.where(moved[:, None], Xs2, Xs)
         ok = np.where(moved, ok2, ok)
         forms = md.assemble(mode, t0)
+    mode_kept = mode
     mode, forced = _apply_transition(md, st, idx, mode)
     if np.any(forced):
         forms = md.assemble(mode, t0)
+        back = forced & ~_forced_holds(md, forms, mode, Xs, st.force_b[idx])
+        if np.any(back):
+            # the signalled change would leave its piece at once (an event fired on rounding,
+            # e.g. a node at a vertical law's voltage while the current that would hold it
+            # there is falling): the classification, which saw the motion, stands
+            mode = Mode(np.where(back[:, None], mode_kept.states, mode.states),
+                        np.where(back, mode_kept.pin, mode.pin))
+            forms = md.assemble(mode, t0)
     st.force_b[idx] = -1
     if not np.all(ok):
         bc.fail(np.isin(np.arange(bc.n), idx[~ok]), "no conducting path takes the coil current (the node "
                 "voltage would be unbounded)")
     if np.any(forms.nopath):
         bc.fail(np.isin(np.arange(bc.n), idx[forms.nopath]), "no conducting path takes the coil current")
+    # a node snapped to a vertical law's voltage moves by rounding only; a larger move would be a
+    # jump of the state (energy from nowhere): the variant is stopped with the reason, never
+    # continued silently
+    jump = np.abs(Xs - X) > 1e-9 * (np.abs(X) + st.X0scale[idx])
+    if np.any(jump):
+        bad = np.any(jump, axis=1)
+        bc.fail(np.isin(np.arange(bc.n), idx[bad]), "the node voltage would jump when a law took hold of it "
+                "(an inconsistent conduction state); the batch engine stopped this variant")
+        ok = ok & ~bad
     X = Xs
     st.X[idx] = Xs
     keep = ok & ~forms.nopath
@@ -180,7 +199,9 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     E = np.concatenate([E, Ering], axis=1)
     iq = np.array([E.shape[1] - 1])
     H = np.maximum(bc.t_bound[gi] - tg, 0.0)
-    tau, fired = first_event(Events(seg, E, Qr[:, None], np.zeros_like(Qr)[:, None], iq), H, exps, oscs, tg)
+    stops = Events(seg, E, Qr[:, None], np.zeros_like(Qr)[:, None], iq)
+    stops.fresh = _fresh(st, gi, mg, meta, E.shape[1])
+    tau, fired = first_event(stops, H, exps, oscs, tg)
     _remember_transition(st, gi, fired, meta, mg)
     # figure events: every root inside the segment
     fev = bev.fig_events(sub, fs, mg, tg, st)
@@ -205,9 +226,10 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     _energies(bc, st, gi, fs, M2, dv)
     if st.trace is not None:
         st.trace.append((tg[0], tau[0], seg, fs, mg))
-    st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)))
+    st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)),
+                    np.where(tau > 0, mg.pin, -1))
     _figure_roots(bc, st, gi, fs, seg, tg, tau, rc, re, rt, g0f, kinds, chains)
-    st.rec.boundary(gi, fs, Xe, tau, tg, np.ones(G, bool), Xd)
+    st.rec.boundary(gi, fs, Xe, tau, tg, np.ones(G, bool), Xd, end=True)
     _events(bc, st, gi, tags, fired, tg + tau, Xe)
     st.t[gi] = tg + tau
     st.X[gi] = Xe
@@ -219,6 +241,19 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     if np.any(bad):
         bc.fail(np.isin(np.arange(bc.n), gi[bad]), "the node voltage chatters at a threshold (too many "
                 "segments); the batch engine stopped this variant")
+
+
+def _fresh(st, gi, mode, meta, ne):
+    """(G, ne) bool: the mode events of branches whose state did not change at this segment's
+    start (the node pin neither): they did not fire there, so one at zero within rounding and
+    moving out of its range fires now (a current that leaves its piece at once), instead of being
+    taken for an event that just fired."""
+    out = np.zeros((gi.size, ne), bool)
+    prev = st.prev_states[gi]
+    same = (prev[:, 0] >= 0) & (st.prev_pin[gi] == mode.pin)
+    for e, (b, _d) in enumerate(meta):
+        out[:, e] = same & (prev[:, b] == mode.states[:, b])
+    return out
 
 
 def _remember_transition(st, gi, fired, meta, mode):
@@ -264,6 +299,33 @@ def _apply_transition(md, st, idx, mode):
     return Mode(states, pin), changed
 
 
+def _forced_holds(md, forms, mode, X, fb):
+    """Whether a forced state change is consistent with the motion at its start (G,): the forced
+    branch ``fb`` (−1: none), if it carries current on its new piece (or holds the node pinned),
+    does not start at an end of that piece moving out of it. Rounding level: 256 ε of the size
+    of the current's terms (and of its rate's)."""
+    G = X.shape[0]
+    ok = np.ones(G, bool)
+    xi = np.concatenate([X, np.ones((G, 1)), np.zeros((G, 1))], axis=1)
+    for b in np.unique(fb[fb >= 0]):
+        r = fb == b
+        d = forms.info[b]
+        carries = (d["seg"] | d["vert"]) & r
+        if not np.any(carries):
+            continue
+        c = forms.cI[b]
+        dc = forms.d(c)
+        cur = np.einsum("gj,gj->g", c, xi)
+        rate = np.einsum("gj,gj->g", dc, xi)
+        tol = 256 * np.finfo(float).eps * np.einsum("gj,gj->g", np.abs(c), np.abs(xi))
+        rtol = 256 * np.finfo(float).eps * np.einsum("gj,gj->g", np.abs(dc), np.abs(xi))
+        lo = np.where(np.isfinite(d["Ilo"]), d["Ilo"], -np.inf)
+        hi = np.where(np.isfinite(d["Ihi"]), d["Ihi"], np.inf)
+        leaves = ((cur <= lo + tol) & (rate < -rtol)) | ((cur >= hi - tol) & (rate > rtol))
+        ok &= ~(carries & leaves)
+    return ok
+
+
 def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):
     """Levels, release, extremes and conduction from the figure events' roots inside a segment."""
     G = gi.size
@@ -283,7 +345,8 @@ def _figure_roots(bc, st, gi, fs, seg, t0, tau, rc, re, rt, g0f, kinds, chains):
     cross = (kr == bev.F_UP_POS) | (kr == bev.F_DN_POS) | (kr == bev.F_UP_NEG) | (kr == bev.F_DN_NEG)
     m = (kr == bev.F_EXT) | (kr == bev.F_VMAX) | cross
     if np.any(m):
-        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, np.where(cross, chains[re], -1)[m])
+        node_ext = ((kr == bev.F_VMAX) | ((kr == bev.F_EXT) & (chains[re] < 0)))[m]
+        st.rec.points(gi, fs, seg, rc[m], rt[m], t0, kr[m] == bev.F_VMAX, node_ext, kr[m] == bev.F_VMAX)
     for c in range(st.rec.nch):
         add = np.zeros(G)
         for up, dn in ((bev.F_UP_POS, bev.F_DN_POS), (bev.F_UP_NEG, bev.F_DN_NEG)):

@@ -254,7 +254,7 @@ def chain_law(pieces: list, n: int) -> tuple[Law, list, list]:
     """
     multi = [p for p in pieces if len(p.fwd) > 1 or len(p.rev) > 1]
     if len(multi) > 1:
-        raise ValueError("more than one fitted nonlinear element in one chain")
+        return _merged_chain_law(pieces, n)
     lead = multi[0] if multi else (pieces[0] if pieces else None)
     linear = all(p.linear for p in pieces)
     reverse = all(p.rev for p in pieces)
@@ -299,6 +299,67 @@ def chain_law(pieces: list, n: int) -> tuple[Law, list, list]:
             seg = segs[kk] if len(segs) > 1 else segs[0]
             Ve[:, s], re[:, s] = seg[0], seg[1]
             k_seg += 1 if side_rev else 0
+        lo = p.rev[-1][0] if p.rev else np.full(n, -np.inf)
+        hi = p.fwd[0][0]
+        els.append(ElementLaw(p.type, Ve, re, np.broadcast_to(lo, (n,)).astype(float),
+                              np.broadcast_to(hi, (n,)).astype(float), p.description))
+    return law, els, notes
+
+
+def _side_intervals(pieces, side, n):
+    """The current intervals of a series chain on one side (``"fwd"``: i ≥ 0, ``"rev"``: i ≤ 0):
+    the union of every element's segment ends, sorted per variant; on each interval, every
+    element's (V, r). Returns [(lo, hi, [(V, r) per piece])] in increasing current."""
+    segs_of = [p.fwd if side == "fwd" else p.rev for p in pieces]
+    cuts = [seg[3] for segs in segs_of for seg in segs[:-1]]  # interior ends (upper end of each but the last)
+    edge = np.zeros(n)
+    far = np.full(n, np.inf if side == "fwd" else -np.inf)
+    C = np.sort(np.stack(cuts, axis=1), axis=1) if cuts else np.zeros((n, 0))
+    bounds = [edge] + [C[:, k] for k in range(C.shape[1])] + [far] if side == "fwd" else \
+        [far] + [C[:, k] for k in range(C.shape[1])] + [edge]
+    out = []
+    for a, b in zip(bounds[:-1], bounds[1:], strict=True):
+        with np.errstate(invalid="ignore"):
+            mid = np.where(np.isfinite(a) & np.isfinite(b), 0.5 * (a + b),
+                           np.where(np.isfinite(a), a + np.abs(a) + 1.0, b - np.abs(b) - 1.0))
+        per = []
+        for segs in segs_of:
+            V = np.full(n, np.nan)
+            r = np.full(n, np.nan)
+            for seg in segs:
+                lo = np.broadcast_to(seg[2], (n,))
+                hi = np.broadcast_to(seg[3], (n,))
+                inside = np.isnan(V) & (lo <= mid) & (mid <= hi)
+                V = np.where(inside, seg[0], V)
+                r = np.where(inside, seg[1], r)
+            per.append((V, r))
+        out.append((a, b, per))
+    return out
+
+
+def _merged_chain_law(pieces, n):
+    """Series chain with several fitted elements: the chain's segments are bounded by the union of
+    the elements' segment ends in current (each element is linear on each such interval, so the
+    chain, the sum of the element voltages at one current, is linear there too)."""
+    notes = [p.fit_note for p in pieces if p.fitted]
+    fwd_iv = _side_intervals(pieces, "fwd", n)
+    reverse = all(p.rev for p in pieces)
+    rev_iv = _side_intervals(pieces, "rev", n) if reverse else []
+
+    def chain(iv):
+        return [(sum(V for V, _r in per), sum(r for _V, r in per), a, b) for a, b, per in iv]
+
+    law = make_law(chain(rev_iv), True, chain(fwd_iv), n)
+    S = law.n_states
+    els = []
+    for q, p in enumerate(pieces):
+        Ve = np.zeros((n, S))
+        re = np.zeros((n, S))
+        for s in range(S):
+            if law.kinds[s] == "block":
+                continue
+            iv = rev_iv[s] if s < law.block else fwd_iv[s - law.block - 1]
+            Ve[:, s], re[:, s] = iv[2][q]
         lo = p.rev[-1][0] if p.rev else np.full(n, -np.inf)
         hi = p.fwd[0][0]
         els.append(ElementLaw(p.type, Ve, re, np.broadcast_to(lo, (n,)).astype(float),

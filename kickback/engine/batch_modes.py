@@ -28,7 +28,8 @@ def take(law: Law, idx) -> Law:
 
 def locate(law: Law, u):
     """State index holding branch voltage ``u`` (ties: the lower state) and the index of a
-    vertical segment within ``1e-12`` of ``u`` or overshot at the top (−1: none)."""
+    vertical segment within ``1e-12`` of ``u``, or overshot at the top, or at the bottom (a node
+    moving past a lowest vertical piece, such as a forward-biased TVS; −1: none)."""
     S = law.n_states
     st = np.minimum(np.sum(law.uhi < u[:, None], axis=1), S - 1)
     vert = np.full(u.shape, -1)
@@ -37,7 +38,7 @@ def locate(law: Law, u):
             continue
         V = law.V[:, k]
         tol = 1e-12 * np.maximum(1.0, np.abs(np.where(np.isfinite(V), V, 0.0)))
-        near = (law.r[:, k] == 0) & (u >= V - tol) & ((u <= V + tol) | (k == S - 1))
+        near = (law.r[:, k] == 0) & ((u >= V - tol) | (k == 0)) & ((u <= V + tol) | (k == S - 1))
         vert = np.where((vert < 0) & near, k, vert)
     return st, vert
 
@@ -108,13 +109,17 @@ class Modes:
         for b in range(self.B):
             vb = verts[b]
             cand = (vb >= 0) & (pin < 0)
-            if b == 0:
-                cand &= in_fall
-            if not np.any(cand):
-                continue
             k = np.maximum(vb, 0)
             law = self.laws[b]
             rows = np.arange(G)
+            if b == 0:
+                # the channel's vertical piece holds the node only at its own voltage: above it the
+                # falling current limit governs (state LIM), however little current the coil
+                # carries — an ideal switch does not snap a ringing node down to 0 V
+                Vk = law.V[rows, k]
+                cand &= in_fall & (np.abs(v - Vk) <= 1e-12 * np.maximum(1.0, np.abs(Vk)))
+            if not np.any(cand):
+                continue
             others = sum(cur[j] for j in range(self.B) if j != b)
             ip_b = ip - others
             lo, hi = law.Ilo[rows, k], law.Ihi[rows, k]
@@ -124,11 +129,17 @@ class Modes:
             else:
                 hold = cand & (ip_b >= lo) & (ip_b <= hi)
             below = cand & (ip_b < lo)
-            states[:, b] = np.where(hold, k, np.where(below, np.maximum(k - 1, 0), states[:, b]))
+            # (a vertical piece the node sits on but whose current would exceed its top — a
+            # forward-biased TVS at −0.7 V as the node turns upwards — is left upwards: never kept
+            # unpinned, which would hold no current while the node moves off its voltage)
+            above = cand & (ip_b > hi) & (b != 0)
+            states[:, b] = np.where(hold, k, np.where(below, np.maximum(k - 1, 0),
+                                                      np.where(above, np.minimum(k + 1, law.n_states - 1),
+                                                               states[:, b])))
             pin = np.where(hold, b, pin)
             vp = law.V[rows, k] + offs[b]
-            Xs[:, 1] = np.where(hold | (below & (v > vp)), law.V[rows, k] + self.bc.offsets(X, self.idx)[b],
-                                Xs[:, 1])
+            Xs[:, 1] = np.where(hold | (below & (v > vp)) | (above & (v < vp)),
+                                law.V[rows, k] + self.bc.offsets(X, self.idx)[b], Xs[:, 1])
         return Mode(states, pin), Xs, ok
 
     def _current(self, b, st, u, lim):

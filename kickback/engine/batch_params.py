@@ -187,7 +187,9 @@ class BatchCircuit:
             full = []
             it = iter(els)
             for el in cl.elements:
-                full.append(None if el.type == "capacitor" else next(it))
+                # (a chain whose law could not be formed keeps a placeholder per element: its
+                # variants are failed above with the reason, the others of the batch go on)
+                full.append(None if el.type == "capacitor" else next(it, els[0]))
             ch = ChainLaw(law, full, caps, notes)
             sat = [j for j, el in enumerate(cl.elements) if el.type == "diode" and el.model != "constant-drop"]
             if len(sat) == 1:

@@ -34,9 +34,9 @@ def all_roots(ev: Events, T, exps, oscs, t0, peaks=None):
 
     Events flagged in ``peaks`` are extrema wanted only for the largest value of what they
     extremise (``g = −s'``: a root is a maximum of ``s``): on a scanned segment a bracket whose
-    maximum of ``s`` stays below a value ``s`` reaches at a grid point is dropped before it is
-    refined — the segment's largest maximum is then inside another bracket (or at an end, which
-    the record takes anyway). See :func:`_peak_bound`.
+    maximum of ``s`` stays below what another bracket's maximum is known to reach (its larger
+    end value) is dropped before it is refined — the largest interior maximum is kept, whatever
+    the segment's ends reach (a blocking chain's stand-off is read there). See :func:`_peak_bound`.
 
     Parameters
     ----------
@@ -96,7 +96,10 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
     bound = []  # per crossing bracket: an upper bound of s inside it (peak events; −inf: keep)
     if pk is not None:
         sa = pk.values(_xis(ev.seg, np.zeros((G, 1)), 1))[:, 0]
-        s_best = sa.copy()
+        # the best value an interior maximum is known to reach (a bracket's larger end value):
+        # not the segment's start, so that the largest interior maximum is always kept (a blocking
+        # chain's stand-off is read there even where the segment starts higher)
+        s_best = np.full_like(sa, -np.inf)
     for _ in range(1_000_000):
         live = start < H * (1 - 1e-15)
         if not np.any(live):
@@ -112,7 +115,6 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
         g, gp = ev.values(pts, xs)
         if pk is not None:
             sv = pk.values(xs)
-            s_best[rows] = np.fmax(s_best[rows], np.max(np.where(live[:, None, None], sv, -np.inf), axis=1))
         tl = np.concatenate([start[:, None], pts[:, :-1]], axis=1)
         gl = np.concatenate([ga[:, None, :], g[:, :-1]], axis=1)
         gpl = np.concatenate([gpa[:, None, :], gp[:, :-1]], axis=1)
@@ -130,6 +132,7 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
             svl = np.concatenate([sa[:, None, :], sv[:, :-1]], axis=1)
             bound.append(_peak_bound(svl[gi, ki, ei], sv[gi, ki, ei], -gl[gi, ki, ei], -g[gi, ki, ei],
                                      (pts - tl)[gi, ki]))
+            np.fmax.at(s_best, (rows[gi], ei), np.maximum(svl[gi, ki, ei], sv[gi, ki, ei]))
         else:
             bound.append(np.full(gi.size, np.inf))
         cand_peak = (gl < 0) & (g < 0) & (gpl > 0) & (gp < 0) & lv
