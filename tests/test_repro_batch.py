@@ -248,3 +248,28 @@ def test_avalanche_stops_when_the_coil_current_reverses():
     want = _avalanche_then_reversal_reference(vs, lc, rc, ron, tf, cs, vbr, rav)
     got = simulate(case, engine="batch").figures.avalanche_energy_J
     assert got == pytest.approx(want, rel=1e-6), f"avalanche {got} J, reference {want} J"
+
+
+def test_a_coil_that_follows_the_falling_switch_current_is_refused_and_solved_on_the_detailed_engine():
+    """Issue 14 (repro slow_670): no node capacitance, L/R = 29 ns ≪ t_f = 281 ns, a 28.5 V TVS to
+    ground. The coil current follows the channel's linear fall: the node sits at
+    v = V_s − R·i + L·i0/t_f (Kirchhoff's voltage law over the coil with di/dt = −i0/t_f), rising to
+    V_s + L·i0/t_f = 12.04 V at the end of the fall, below the TVS, which never conducts. The batch
+    engine put the node on the TVS at t = 0+ (peak 28.5 V); it now refuses the variant with the
+    reason, and a study runs it on the detailed engine, which gives the closed form."""
+    from kickback.errors import SolverError
+    from kickback.studies.points import evaluate
+
+    vs, lc, rc, ron, tf = 10.9086772391211, 1.7090483568856785e-05, 587.019786842098, 0.4411100820626028, \
+        2.814774458237342e-07
+    tvs = Element("tvs", voltage=28.465718849039703, dynamic_resistance=0.47965435487278496)
+    case = Case("coil following the switch's fall (invented)", Supply(vs), Coil(lc, rc),
+                Switch("mosfet", on_resistance=ron, fall_time=tf), (Clamp("T1", "switch", (tvs,)),), Checks())
+    i0 = vs / (rc + ron)
+    peak = vs + lc * i0 / tf  # the node at the end of the fall, i = 0
+    assert peak < 28.4
+    with pytest.raises(SolverError, match="follow the switch's falling current"):
+        simulate(case, engine="batch")
+    assert simulate(case).figures.peak_voltage_V == pytest.approx(peak, rel=1e-6)
+    pts = evaluate(case, {"coil.inductance": np.array([lc, 1.1 * lc])}, engine="batch")
+    assert np.allclose(pts.figures["peak_voltage_V"], [peak, vs + 1.1 * lc * i0 / tf], rtol=1e-6)
