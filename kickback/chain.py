@@ -208,13 +208,6 @@ class Chain:
             return p.current_at(v)
         if hasattr(law, "current_at"):
             return law.current_at(v)
-        alpha = getattr(law, "alpha", None)
-        if alpha is not None:  # varistor: sign(v)·I_1·|v/V_1|^α
-            x = abs(v / law.v1)
-            try:
-                return math.copysign(law.i1 * x ** alpha, v) if v else 0.0
-            except OverflowError:
-                return math.copysign(math.inf, v)
         return float(law.current(v))
 
     def _law_slope(self, k: int, i: float) -> float:
@@ -225,10 +218,8 @@ class Chain:
             return p.r_fwd if i > 0 else p.r_rev
         if isinstance(law, ShockleyDiode):
             return law.a / max(law.i_s + i, 1e-300) + law.r_s
-        v = self._law_voltage(k, i)
-        alpha = getattr(law, "alpha", None)
-        if alpha is not None:
-            return v / (alpha * i)
+        if hasattr(law, "resistance_at"):  # varistor
+            return law.resistance_at(i)
         h = 1e-6 * abs(i)
         return (self._law_voltage(k, i + h) - self._law_voltage(k, i - h)) / (2 * h)
 
