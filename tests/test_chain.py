@@ -431,3 +431,44 @@ def test_two_nonlinear_elements_reverse_consistent(elements, v):
     assert floor <= i <= 0.0, f"reverse current {i:.6g} A outside [{floor:.3g}, 0] A"
     parts = ch.element_voltages(np.array(i), np.array(v))
     _close(sum(float(x) for x in parts), v, 1e-9, "element voltages add up to the chain voltage")
+
+
+# ============================================================================ Shockley + varistor (numeric)
+def _diode_varistor_current_mp(v):
+    """Shockley diode (n, I_s, R_s above) + varistor in series at chain voltage v: KVL,
+    nV_T·ln(1 + i/I_s) + R_s·i + sign(i)·V1·|i/I1|^(1/α) = v, solved by bisection in ln|i| with
+    mpmath at 40 digits (no rounding error near the diode's saturation current)."""
+    import mpmath as mp
+
+    mp.mp.dps = 40
+    a, i_s = mp.mpf(N_D) * mp.mpf(VT), mp.mpf(IS_D)
+    sign = 1 if v > 0 else -1
+
+    def volts(s):
+        i = sign * mp.e ** s
+        return a * mp.log1p(i / i_s) + RS_D * i + sign * V1 * (abs(i) / I1) ** (mp.mpf(1) / ALPHA)
+
+    lo = mp.log(mp.mpf("1e-300"))
+    hi = mp.log(i_s * (1 - mp.mpf("1e-30"))) if v < 0 else mp.log(mp.mpf(1e3))
+    for _ in range(400):
+        mid = (lo + hi) / 2
+        if (volts(mid) - v) * sign < 0:
+            lo = mid
+        else:
+            hi = mid
+    return float(sign * mp.e ** ((lo + hi) / 2))
+
+
+@pytest.mark.parametrize("v", [-0.3, -1.0, -2.0, -5.0, -10.0, -40.0, -400.0, 2.0, 20.0, 39.0, 45.0, 80.0],
+                         ids=lambda v: f"{v:g}V")
+def test_shockley_varistor_chain_vs_mpmath(v):
+    """The numeric chain solve (Newton in ln|i| forward and far from saturation in reverse,
+    Newton in ln(1 + i/I_s) near it) against a 40-digit bisection (mpmath)."""
+    ch = _chain(SHOCKLEY, VARISTOR)
+    want = _diode_varistor_current_mp(v)
+    _close(ch.current_at(v), want, 1e-11, f"scalar current at {v} V", atol=1e-15 * IS_D)
+    _close(ch.current(v), want, 1e-11, f"array current at {v} V", atol=1e-15 * IS_D)
+    if want != 0.0 and IS_D + want > 1e-3 * IS_D:  # (not where the diode is saturated)
+        # the analytic conductance 1/Σ dv_k/di against the derivative of the same KVL
+        d_want = 1.0 / (N_D * VT / (IS_D + want) + RS_D + V1 / ALPHA * abs(want / I1) ** (1 / ALPHA) / abs(want))
+        _close(ch.conductance_at(v), d_want, 1e-8, f"conductance at {v} V")
