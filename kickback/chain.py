@@ -13,6 +13,9 @@ from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, element_law
 from kickback.models.base import PiecewiseLinearLaw
 
 
+_NO_REST = LinearPieces(0.0, 0.0, 0.0, 0.0)
+
+
 def regularized(pieces: LinearPieces, r_min: float) -> LinearPieces:
     """``pieces`` with every zero conduction resistance raised to ``r_min`` [Ω]."""
     if r_min <= 0:
@@ -126,6 +129,9 @@ class Chain:
             return 0.0
         if self._smooth is None:
             return self._solve_numeric(float(vx))
+        law, rest = self._smooth
+        if rest == _NO_REST and hasattr(law, "current_at"):  # a lone varistor: its scalar law
+            return law.current_at(float(vx))
         return float(self.current(vx))
 
     def conductance_at(self, voltage: float, v_cap: float = 0.0) -> float:
@@ -366,7 +372,10 @@ class Chain:
         upper = min(abs(self._law_current(k, vx)) for k in self._active_idx)
         lower = min(abs(self._law_current(k, vx / n)) for k in self._active_idx)
         if math.isfinite(upper) and math.isfinite(lower) and upper > 0:
-            g_up, g_low = g(sign * upper), g(sign * lower)
+            g_up = g(sign * upper)
+            if 0.0 <= g_up * sign <= self._v_round:
+                return sign * upper  # the limiting law alone meets the voltage to rounding
+            g_low = g(sign * lower)
             if g_up * sign >= 0 and g_low * sign <= 0:
                 lo, hi_ = sorted((sign * lower, sign * upper))
                 g_a, g_b = (g_low, g_up) if sign > 0 else (g_up, g_low)
