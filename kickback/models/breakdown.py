@@ -153,5 +153,8 @@ class Varistor(ElementLaw):
         """Incremental resistance dv/di [Ω] at current ``i`` ≠ 0 [A]."""
         y = abs(i / self.i1)
         if y <= self.CURRENT_CAP:
-            return abs(self.voltage_at(i)) / (self.alpha * abs(i))
+            # (V_1/(α·I_1))·y^(1/α − 1), in logarithms: near zero current (subnormal i in a chain
+            # solve) the resistance exceeds the largest float, which is inf without an overflow
+            ln_r = math.log(self.v1 / (self.alpha * self.i1)) + (1.0 / self.alpha - 1.0) * math.log(y)
+            return math.exp(ln_r) if ln_r < 709.0 else math.inf
         return self.v1 * self.x_cap / (self.alpha * self.CURRENT_CAP * self.i1)
