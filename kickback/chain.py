@@ -6,11 +6,13 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.optimize import brentq
 
 from kickback.case import Clamp
+from kickback.chainsolve import SeriesSolve
 from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, element_law
 from kickback.models.base import PiecewiseLinearLaw
+
+_NO_REST = LinearPieces(0.0, 0.0, 0.0, 0.0)
 
 
 def regularized(pieces: LinearPieces, r_min: float) -> LinearPieces:
@@ -22,7 +24,7 @@ def regularized(pieces: LinearPieces, r_min: float) -> LinearPieces:
 
 
 @dataclass
-class Chain:
+class Chain(SeriesSolve):
     """One clamp as used by the circuit.
 
     Parameters
@@ -126,6 +128,9 @@ class Chain:
             return 0.0
         if self._smooth is None:
             return self._solve_numeric(float(vx))
+        law, rest = self._smooth
+        if rest == _NO_REST and hasattr(law, "current_at"):  # a lone varistor: its scalar law
+            return law.current_at(float(vx))
         return float(self.current(vx))
 
     def conductance_at(self, voltage: float, v_cap: float = 0.0) -> float:
@@ -143,6 +148,14 @@ class Chain:
                 return 0.0
             i = self.current_at(voltage, v_cap)
             return 1.0 / (d.a / max(d.i_s + i, 1e-300) + d.r_s)
+        if self._smooth is None and self.active:
+            # several nonlinear laws in series: the exact derivative at the solved current,
+            # 1 / Σ dv_k/di (one chain solve instead of two for a difference quotient)
+            i = self.current_at(voltage, v_cap)
+            if i == 0.0 or not math.isfinite(i):
+                return 0.0 if i == 0.0 else math.inf
+            r = sum(self._law_slope(k, i) for k in self._active_idx)
+            return 1.0 / r if r > 0 else math.inf
         h = 1e-6 * max(abs(vx), 1.0)
         return (self.current_at(vx + h) - self.current_at(vx - h)) / (2 * h)
 
@@ -189,128 +202,6 @@ class Chain:
         volts = {k: self._law_voltage(k, current) for k in ks if k != big}
         volts[big] = (voltage - v_cap) - sum(volts.values())
         return [volts[k] * current for k in ks]
-
-    def _law_voltage(self, k: int, current: float) -> float:
-        law = self.laws[k]
-        p = law.pieces()
-        if p is not None:
-            return p.voltage_at(current)
-        if hasattr(law, "voltage_at"):
-            return law.voltage_at(current)
-        return float(law.voltage(current))
-
-    def _law_current(self, k: int, v: float) -> float:
-        """Scalar current [A] of element ``k`` alone at voltage ``v`` [V] (math only: numpy's
-        error flags would reach the vectorised caller)."""
-        law = self.laws[k]
-        p = law.pieces()
-        if p is not None:
-            return p.current_at(v)
-        if hasattr(law, "current_at"):
-            return law.current_at(v)
-        alpha = getattr(law, "alpha", None)
-        if alpha is not None:  # varistor: sign(v)·I_1·|v/V_1|^α
-            x = abs(v / law.v1)
-            try:
-                return math.copysign(law.i1 * x ** alpha, v) if v else 0.0
-            except OverflowError:
-                return math.copysign(math.inf, v)
-        return float(law.current(v))
-
-    def _law_slope(self, k: int, i: float) -> float:
-        """Incremental resistance dv/di [Ω] of element ``k`` at current ``i`` [A] (i ≠ 0)."""
-        law = self.laws[k]
-        p = law.pieces()
-        if p is not None:
-            return p.r_fwd if i > 0 else p.r_rev
-        if isinstance(law, ShockleyDiode):
-            return law.a / max(law.i_s + i, 1e-300) + law.r_s
-        v = self._law_voltage(k, i)
-        alpha = getattr(law, "alpha", None)
-        if alpha is not None:
-            return v / (alpha * i)
-        h = 1e-6 * abs(i)
-        return (self._law_voltage(k, i + h) - self._law_voltage(k, i - h)) / (2 * h)
-
-    def _newton(self, g, lo: float, hi: float) -> float:
-        """Root of the increasing ``g`` (chain voltage less the target) in [lo, hi], a bracket
-        on one side of zero: Newton's method in s = ln|i| (a diode's and a varistor's voltage
-        are nearly linear in it) on the summed incremental resistance, kept inside the shrinking
-        bracket (a step that leaves it bisects in s), to 1e-13 relative."""
-        sign = 1.0 if hi > 0 else -1.0
-        x = 0.5 * (lo + hi) if lo * hi <= 0 else sign * math.sqrt(lo * hi)
-        for _ in range(200):
-            f = g(x)
-            if abs(f) <= self._v_round:
-                return x  # the chain voltage is met to its rounding error
-            if f < 0:
-                lo = x
-            else:
-                hi = x
-            a_lo, a_hi = sorted((abs(lo), abs(hi)))
-            # no NaN here (a comparison with NaN raises the FPU's invalid flag, which the
-            # vectorised caller reports): a rejected Newton step is None
-            slope = sum(self._law_slope(k, x) for k in self._active_idx) if x != 0 else 0.0
-            xn = None
-            if 0 < slope < math.inf:
-                ds = -f / (slope * x)
-                if abs(ds) < 50:
-                    xn = x * math.exp(ds)
-            if xn is None or not lo < xn < hi:
-                xn = sign * (math.sqrt(a_lo * a_hi) if a_lo > 0 else 0.5 * a_hi)
-            if abs(xn - x) <= 1e-13 * abs(xn) or a_hi - a_lo <= 1e-15 * a_hi:
-                return xn
-            x = xn
-        return x
-
-    def _total_voltage(self, i: float) -> float:
-        return sum(self._law_voltage(k, i) for k in self._active_idx)
-
-    def _solve_numeric(self, vx: float) -> float:
-        """Series solve for chains of several nonlinear laws: the current at chain voltage ``vx``."""
-        vx = float(vx)
-        lo, hi = self.band
-        if lo <= vx <= hi:
-            return 0.0
-
-        def g(x):
-            return self._total_voltage(x) - vx
-
-        self._v_round = 4e-16 * abs(vx)
-
-        floor = max(law.i_floor for law in self.active)
-        if vx < lo and math.isfinite(floor):
-            if floor == 0.0:
-                return 0.0
-            # reverse, towards a diode's saturation current: the root lies in (floor, 0)
-            edge = floor * (1.0 - 1e-12)
-            if g(edge) >= 0.0:
-                return edge  # the chain is saturated: within 1e-12 of its reverse current limit
-            return brentq(g, edge, 0.0, xtol=1e-15 * abs(floor), rtol=1e-13)
-        sign = 1.0 if vx > hi else -1.0
-        # each law alone at the whole voltage carries more than the chain, and one of the n
-        # laws holds at least vx/n: a bracket from 2n law evaluations
-        n = len(self._active_idx)
-        upper = min(abs(self._law_current(k, vx)) for k in self._active_idx)
-        lower = min(abs(self._law_current(k, vx / n)) for k in self._active_idx)
-        if math.isfinite(upper) and math.isfinite(lower) and upper > 0 and g(sign * upper) * sign >= 0 \
-                and g(sign * lower) * sign <= 0:
-            lo, hi_ = sorted((sign * lower, sign * upper))
-            # a deterministic start (not the last solution): event functions evaluate this
-            # twice at the same voltage and must get the same current
-            return self._newton(g, lo, hi_)
-        a, b = 0.0, sign * 1e-6
-        while abs(b) < 1e300:
-            gb = g(b)
-            if gb * sign >= 0:
-                return self._newton(g, min(a, b), max(a, b))
-            if math.isnan(gb):
-                break
-            a, b = b, b * 4.0
-        # the chain's voltage stays below vx up to 1e300 A (a varistor's steep law reaches
-        # such currents only far beyond any physical voltage, as a trial state may ask): the
-        # chain takes any current there, like a vertical law
-        return sign * math.inf
 
     def element_voltages(self, current, voltage, v_cap=0.0) -> list[np.ndarray]:
         """Voltage [V] across each element (capacitors included) at chain current [A].

@@ -23,11 +23,26 @@ from scipy.integrate._ivp import radau as _radau
 from kickback.errors import SolverError
 
 _ORIGINAL = _radau.solve_collocation_system
+_NORM = _radau.norm
 #: the private names of scipy's Radau module the check reads (pyproject bounds scipy to the
 #: releases this was tested with; :func:`patch_applies` checks them on every run)
-_NEEDED = ("solve_collocation_system", "C", "TI", "TI_REAL", "TI_COMPLEX", "MU_REAL", "MU_COMPLEX")
+_NEEDED = ("solve_collocation_system", "C", "TI", "TI_REAL", "TI_COMPLEX", "MU_REAL", "MU_COMPLEX", "norm")
 #: residual of the collocation equations (in units of the error scale) accepted as converged
 RESIDUAL_LIMIT = 1.0
+
+
+def safe_norm(x):
+    """scipy's RMS norm of ``x`` without overflow: a vector of entries beyond ~1e154 (the
+    correction of a diverging Newton iterate, whose trial state met a steep law) is scaled by
+    its largest entry before the squares are summed, so the norm is the exact large number
+    (and the iteration is read as diverging) instead of a floating-point overflow."""
+    x = np.asarray(x)
+    if x.size == 0:
+        return 0.0
+    m = np.max(np.abs(x))
+    if not (np.isfinite(m) and m > 1e150):  # inf or NaN: no finite square overflows there
+        return _NORM(x)
+    return m * _NORM(x / m)
 
 
 def checked_collocation(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve_lu, fresh=False):
@@ -42,7 +57,7 @@ def checked_collocation(fun, t, y, h, Z0, scale, tol, LU_real, LU_complex, solve
     W = _radau.TI.dot(Z)
     r_real = (h / _radau.MU_REAL) * F.T.dot(_radau.TI_REAL) - W[0]
     r_cplx = (h / _radau.MU_COMPLEX) * F.T.dot(_radau.TI_COMPLEX) - (W[1] + 1j * W[2])
-    res = max(np.linalg.norm(r_real / scale), np.linalg.norm(np.abs(r_cplx) / scale)) / np.sqrt(y.size)
+    res = max(safe_norm(r_real / scale), safe_norm(np.abs(r_cplx) / scale))
     return bool(res <= RESIDUAL_LIMIT), n_iter, Z, rate
 
 
@@ -89,11 +104,9 @@ class CheckedNewton:
             return checked_collocation(*args, fresh=self._jac_at == args[1])
 
         _radau.solve_collocation_system = checked
+        _radau.norm = safe_norm
         try:
-            # a diverging Newton iterate may overshoot into a steep law (a varistor's power law)
-            # and overflow; scipy reads the infinite correction norm as divergence and halves the
-            # step, as it should, so the overflow is not an error here
-            with np.errstate(over="ignore", invalid="ignore"):
-                return super()._step_impl()
+            return super()._step_impl()
         finally:
             _radau.solve_collocation_system = _ORIGINAL
+            _radau.norm = _NORM

@@ -89,11 +89,19 @@ class Varistor(ElementLaw):
 
     .. math:: i = I_1 \\,\\mathrm{sign}(v)\\,|v/V_1|^{\\alpha}
 
+    Beyond ``CURRENT_CAP`` × I_1 (10²⁰ × I_1: far beyond any current a real circuit reaches,
+    but where a diverging Newton iterate of an implicit step may land) the law is continued
+    along its tangent, so that a trial state never overflows: with α ≈ 40 the power law
+    reaches 10³⁰⁸ A at only 20 × V_1, and the solver's correction norm overflowed with it.
+
     References
     ----------
     L. M. Levinson and H. R. Philipp, "Zinc oxide varistors — a review",
     American Ceramic Society Bulletin 65(4), 1986 (the power-law characteristic).
     """
+
+    #: current [× I_1] beyond which the power law is continued linearly (its tangent there)
+    CURRENT_CAP = 1e20
 
     def __init__(self, voltage: float, exponent: float, at_current: float = 1e-3):
         self.v1 = voltage
@@ -101,17 +109,52 @@ class Varistor(ElementLaw):
         self.i1 = at_current
         self.band = (0.0, 0.0)
         self.i_floor = -np.inf
+        #: |v/V_1| where the current reaches CURRENT_CAP × I_1
+        self.x_cap = self.CURRENT_CAP ** (1.0 / exponent)
         self.description = f"varistor ({voltage:.4g} V at {at_current:.3g} A, α = {exponent:.3g})"
 
     def voltage(self, i):
         i = np.asarray(i, dtype=float)
-        return np.sign(i) * self.v1 * np.abs(i / self.i1) ** (1.0 / self.alpha)
+        y = np.abs(i / self.i1)
+        with np.errstate(over="ignore", divide="ignore"):
+            x = np.where(y <= self.CURRENT_CAP, y ** (1.0 / self.alpha),
+                         self.x_cap * (1.0 + (y / self.CURRENT_CAP - 1.0) / self.alpha))
+        return np.sign(i) * self.v1 * x
 
     def current(self, v):
         v = np.asarray(v, dtype=float)
+        x = np.abs(v / self.v1)
         with np.errstate(over="ignore"):
-            return np.sign(v) * self.i1 * np.abs(v / self.v1) ** self.alpha
+            y = np.where(x <= self.x_cap, np.minimum(x, self.x_cap) ** self.alpha,
+                         self.CURRENT_CAP * (1.0 + self.alpha * (x / self.x_cap - 1.0)))
+        return np.sign(v) * self.i1 * y
+
+    def current_at(self, v: float) -> float:
+        """Scalar :meth:`current` [A] at voltage ``v`` [V]."""
+        x = abs(v / self.v1)
+        if x <= self.x_cap:
+            y = x ** self.alpha
+        else:
+            y = self.CURRENT_CAP * (1.0 + self.alpha * (x / self.x_cap - 1.0))
+        return math.copysign(self.i1 * y, v) if v else 0.0
 
     def voltage_at(self, i: float) -> float:
         """Scalar :meth:`voltage` [V] at current ``i`` [A]."""
-        return math.copysign(self.v1 * abs(i / self.i1) ** (1.0 / self.alpha), i) if i else 0.0
+        if not i:
+            return 0.0
+        y = abs(i / self.i1)
+        if y <= self.CURRENT_CAP:
+            x = y ** (1.0 / self.alpha)
+        else:
+            x = self.x_cap * (1.0 + (y / self.CURRENT_CAP - 1.0) / self.alpha)
+        return math.copysign(self.v1 * x, i)
+
+    def resistance_at(self, i: float) -> float:
+        """Incremental resistance dv/di [Ω] at current ``i`` ≠ 0 [A]."""
+        y = abs(i / self.i1)
+        if y <= self.CURRENT_CAP:
+            # (V_1/(α·I_1))·y^(1/α − 1), in logarithms: near zero current (subnormal i in a chain
+            # solve) the resistance exceeds the largest float, which is inf without an overflow
+            ln_r = math.log(self.v1 / (self.alpha * self.i1)) + (1.0 / self.alpha - 1.0) * math.log(y)
+            return math.exp(ln_r) if ln_r < 709.0 else math.inf
+        return self.v1 * self.x_cap / (self.alpha * self.CURRENT_CAP * self.i1)
