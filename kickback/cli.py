@@ -639,5 +639,14 @@ def new(kind: str) -> None:
     click.echo(files("kickback").joinpath("templates", f"{kind}.toml").read_text(encoding="utf-8"), nl=False)
 
 
+def _register() -> None:
+    from kickback.cli_check import check
+
+    main.add_command(check)
+
+
+_register()
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()
