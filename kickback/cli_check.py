@@ -54,8 +54,9 @@ def check(paths, n_tol, seed, workers, scheduler, as_json, junit) -> None:
     if not found.cases:
         note(f"{' '.join(paths)}: no case files found (expected *.toml files with a [coil] table)")
         sys.exit(2)
-    for p, why in found.skipped:
-        note(f"note: {p}: skipped, {why}")
+    if as_json:  # the table lists them itself
+        for p, why in found.skipped:
+            note(f"note: {p}: skipped, {why}")
     executor = open_executor(scheduler)
     results = with_progress("cases", len(found.cases), lambda progress: check_cases(
         list(found.cases), tolerance=n_tol or 0, seed=seed, workers=workers_or_default(workers),

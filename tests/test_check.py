@@ -69,7 +69,7 @@ def test_folder_table_and_exit_status(tmp_path):
     assert res.exit_code == 1, res.output  # one check fails
     out = res.stdout
     assert "ok.toml" in out and "tight.toml" in out and "pyproject.toml" not in out.split("Skipped")[0]
-    assert "not a case (no [coil] table)" in res.stderr
+    assert "not a case (no [coil] table)" in out.split("Skipped:")[1]
     assert "44.7 V" in out  # the closed-form peak in the table
     failing = out.split("Failing checks:")[1]
     assert "tight.toml" in failing and "ok.toml" not in failing
@@ -157,3 +157,23 @@ def test_progress_on_stderr(tmp_path):
     res = _run([str(d)])
     assert res.exit_code == 0
     assert "cases: 10 of 10" in res.stderr and "cases:" not in res.stdout
+
+
+def test_demo_board_folder(tmp_path):
+    """examples/board (demo data): every channel checked, board.toml skipped, a JUnit report."""
+    board = Path(__file__).resolve().parent.parent / "examples" / "board"
+    report = tmp_path / "report.xml"
+    res = _run([str(board), "--junit", str(report), "--json"])
+    assert res.exit_code == 0, res.output
+    rows = {Path(r["case"]).name: r for r in map(json.loads, res.stdout.splitlines())}
+    assert sorted(rows) == ["ch1_irrigation_valve.toml", "ch2_vent_relay.toml", "ch3_roof_vent_motor.toml",
+                            "ch4_shade_brake.toml"]
+    assert "board.toml: skipped" in res.stderr
+    # ch4: a TVS from drain to ground holds the drain at V_BR + I0·R_d, I0 = V/(R_coil + R_on)
+    # (Ohm's law for the on-state current; the TVS as a breakdown voltage with a dynamic resistance)
+    i0 = 24.0 / (16.0 + 0.030)
+    assert rows["ch4_shade_brake.toml"]["peak_voltage_V"] == pytest.approx(56.0 + i0 * 0.6, rel=1e-3)
+    root = ET.parse(report).getroot()
+    assert root.tag == "testsuites" and len(root.findall("testsuite")) == 4
+    assert root.get("failures") == "0" and root.get("errors") == "0"
+    assert int(root.get("tests")) == sum(len(r["checks"]) for r in rows.values())
