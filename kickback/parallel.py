@@ -84,6 +84,15 @@ def inside_worker() -> bool:
     return _INSIDE.get()
 
 
+def _pool_allowed() -> bool:
+    """No local pool in a task, nor in a process started by multiprocessing: such a process joins
+    its children as soon as its target returns, before ``atexit`` could shut a pool down, and
+    would wait forever. (An executor passed in is still used there.)"""
+    import multiprocessing
+
+    return not _INSIDE.get() and multiprocessing.parent_process() is None
+
+
 @contextlib.contextmanager
 def using(executor: Executor | None) -> Iterator[Executor | None]:
     """Run the maps of the ``with`` body on ``executor`` (None: leave the choice as it is)."""
@@ -133,7 +142,7 @@ def map_ordered(func: Callable, items: Sequence, *, workers: int = 1, progress=N
     """
     items = list(items)
     executor = None if inside_worker() else current()
-    if executor is None and workers > 1 and len(items) > 1 and not inside_worker():
+    if executor is None and workers > 1 and len(items) > 1 and _pool_allowed():
         executor = local_pool(workers)
     if executor is None or len(items) < 2:
         out = []
@@ -163,7 +172,7 @@ def submit(func: Callable, arg, *, workers: int = 1):
     if inside_worker():
         return None
     executor = current()
-    if executor is None and workers > 1:
+    if executor is None and workers > 1 and _pool_allowed():
         executor = local_pool(workers)
     if executor is None:
         return None

@@ -177,3 +177,19 @@ def test_demo_board_folder(tmp_path):
     assert root.tag == "testsuites" and len(root.findall("testsuite")) == 4
     assert root.get("failures") == "0" and root.get("errors") == "0"
     assert int(root.get("tests")) == sum(len(r["checks"]) for r in rows.values())
+
+
+def test_a_result_failing_its_audit_gets_no_verdict(tmp_path, monkeypatch):
+    # the audit itself is tested in tests/test_audit.py; here a failing audit is forced in this
+    # process (--workers 1) to see that check names the case, gives no verdict and exits 2
+    import kickback.audit as audit
+
+    monkeypatch.setattr(audit, "audit_result", lambda result: audit.Audit(("energy ledger residual (forced)",)))
+    d = _board(tmp_path)
+    report = tmp_path / "r.xml"
+    res = _run([str(d / "ok.toml"), "--workers", "1", "--junit", str(report)])
+    assert res.exit_code == 2
+    assert "NO VERDICT" in res.stdout and "PASS" not in res.stdout
+    assert "ok.toml" in res.stderr and "failed its audit" in res.stderr
+    error = ET.parse(report).getroot().find(".//error")
+    assert error is not None and error.get("type") == "audit"

@@ -140,3 +140,21 @@ def test_a_bad_executor_is_refused():
 
     with pytest.raises(KickbackError, match="concurrent.futures.Executor"):
         run_tolerance(load_case(TOL), 4, 1, executor=object())
+
+
+def _child_with_a_pool():
+    parallel.map_ordered(_pid, range(8), workers=2, group=1)
+
+
+def test_a_process_with_a_pool_exits():
+    # a process started by multiprocessing joins its children as soon as its target returns,
+    # before atexit runs: the pool must be shut down by then, or that join waits forever
+    import multiprocessing as mp
+
+    proc = mp.get_context("fork").Process(target=_child_with_a_pool)
+    proc.start()
+    proc.join(120)
+    alive = proc.is_alive()
+    if alive:
+        proc.kill()
+    assert not alive and proc.exitcode == 0

@@ -15,9 +15,9 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from kickback import parallel
 from kickback.case import Case, Option
 from kickback.studies.designs import allowed_voltage, family_candidates, impractical
-from kickback import parallel
 from kickback.studies.pool import map_points
 from kickback.studies.sweep import point_figures, result_figures
 
