@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from kickback import __version__
+from kickback.cli_parallel import open_executor, scheduler_option
 from kickback.cliguard import FiniteFloatRange, Guarded, located, note, set_source
 from kickback.progress import with_progress as _with_progress
 
@@ -203,7 +204,9 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
 @click.option("--json", "as_json", is_flag=True, help="Print the sweep as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write sweep.csv, sweep.json and the plot into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
-def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out_dir, no_plot: bool) -> None:
+@scheduler_option
+def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out_dir, no_plot: bool,
+          scheduler) -> None:
     """Run CASE over a range of one or two of its values and tabulate the figures.
 
     The batch engine runs every point at once unless the case has a feature it does not cover
@@ -236,8 +239,9 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
         if n > MAX_POINTS:
             _die(f"{c.source}: --vary: {n} points in all (expected at most {MAX_POINTS:,} points over every axis)")
         workers = workers or min(os.cpu_count() or 1, 8)
+        executor = open_executor(scheduler)
         sw = _with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress,
-                                                                  engine=engine))
+                                                                  engine=engine, executor=executor))
     except CaseError as err:
         _die(f"{c.source}: {err.key}: {err.message}" if err.key else f"{c.source}: {err.message}")
     except SolverError as err:
@@ -263,7 +267,8 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
 @click.option("--json", "as_json", is_flag=True, help="Print the choice as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write choose.json and the trade-off plot into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the plot.")
-def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: bool) -> None:
+@scheduler_option
+def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: bool, scheduler) -> None:
     """Search clamp families over standard values (E24 voltages, E12 R and C) against the case's
     constraints and rank the feasible choices.
 
@@ -283,7 +288,7 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
     _check_room_for_a_clamp(c)
     workers = workers or min(os.cpu_count() or 1, 8)
     try:
-        ch = run_choose(c, workers=workers, engine=engine)
+        ch = run_choose(c, workers=workers, engine=engine, executor=open_executor(scheduler))
     except CaseError as err:
         _die(located(err, c.source))
     except SolverError as err:
@@ -426,8 +431,9 @@ def _report_date() -> str:
 @click.option("--json", "as_json", is_flag=True, help="Print the study as JSON only.")
 @click.option("--out", "out_dir", metavar="DIR", help="Write tolerance.json, samples.csv and histograms into DIR.")
 @click.option("--no-plot", is_flag=True, help="With --out: skip the histograms.")
+@scheduler_option
 def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck: int, as_json: bool, out_dir,
-              no_plot: bool) -> None:
+              no_plot: bool, scheduler) -> None:
     """Monte Carlo over the case's [tolerance] bands: percentiles, yield, worst cases, sensitivity.
 
     The samples run on the batch engine in chunks (unless the case has a feature it does not
@@ -447,10 +453,11 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
         _die(f"{c.source}: tolerance: the case has no [tolerance] section (expected at least one toleranced "
              'value, e.g. [tolerance."coil.inductance"] band = "10 %")')
     workers = workers or min(os.cpu_count() or 1, 8)
+    executor = open_executor(scheduler)
     try:
         tr = _with_progress("samples", samples,
                             lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
-                                                           engine=engine, recheck=recheck))
+                                                           engine=engine, recheck=recheck, executor=executor))
     except CaseError as err:
         _die(located(err, c.source))
     except SolverError as err:
@@ -637,6 +644,15 @@ def new(kind: str) -> None:
     from importlib.resources import files
 
     click.echo(files("kickback").joinpath("templates", f"{kind}.toml").read_text(encoding="utf-8"), nl=False)
+
+
+def _register() -> None:
+    from kickback.cli_check import check
+
+    main.add_command(check)
+
+
+_register()
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -194,8 +194,9 @@ def run_columns(case, variations, *, chunk: int = CHUNK, progress=None, workers:
     chunk : int — variants per batch (memory is bounded by this × the workers, not by n)
     progress : callable or None — called with (done, n) after each batch
     workers : int or None — processes to share the chunks (None: one per CPU when there are at
-        least :data:`PARALLEL_MIN` variants; 1: in this process). The chunks are then at most
-        n / workers long so that every worker has one.
+        least :data:`PARALLEL_MIN` variants; 1: in this process). From :data:`PARALLEL_MIN`
+        variants the chunks are at most n / :data:`PARALLEL_SPLIT` long, whatever the workers, so
+        that the same variants give the same numbers to the last bit (:mod:`kickback.parallel`).
 
     Returns
     -------
@@ -213,8 +214,8 @@ def run_columns(case, variations, *, chunk: int = CHUNK, progress=None, workers:
     if workers is None:
         workers = (os.cpu_count() or 1) if n >= PARALLEL_MIN else 1
     workers = max(1, int(workers))
-    if workers > 1:
-        chunk = max(1, min(chunk, -(-n // workers)))
+    if n >= PARALLEL_MIN:  # cut by n alone, never by the workers: the same chunks, the same last bits
+        chunk = max(1, min(chunk, -(-n // PARALLEL_SPLIT)))
     jobs = []
     for flag in (False, True):
         rows_all = np.nonzero((cap > 0) == flag)[0]
@@ -240,19 +241,21 @@ def run_columns(case, variations, *, chunk: int = CHUNK, progress=None, workers:
 
 #: variants from which run_columns shares the work among the CPUs by default
 PARALLEL_MIN = 5_000
+#: chunks a large run is cut into at least (fixed, so that results do not depend on the workers)
+PARALLEL_SPLIT = 8
 
 
 def _map_chunks(case, var, jobs, workers):
-    """Each chunk's (columns, ok, why, fit notes), in order; in ``workers`` processes if > 1."""
-    args = [(case, {k: v[rows] for k, v in var.items()}, rows.size) for rows in jobs]
-    if workers > 1 and len(jobs) > 1:
-        from concurrent.futures import ProcessPoolExecutor
+    """Each chunk's (columns, ok, why, fit notes), in order, through :mod:`kickback.parallel`
+    (the current executor, else ``workers`` processes of the persistent pool if > 1)."""
+    from kickback.parallel import map_ordered
 
-        with ProcessPoolExecutor(max_workers=min(workers, len(jobs))) as pool:
-            yield from pool.map(_run_chunk, *zip(*args, strict=True))
-        return
-    for a in args:
-        yield _run_chunk(*a)
+    args = [(case, {k: v[rows] for k, v in var.items()}, rows.size) for rows in jobs]
+    yield from map_ordered(_run_chunk_args, args, workers=workers, group=1)
+
+
+def _run_chunk_args(args):
+    return _run_chunk(*args)
 
 
 def _run_chunk(case, var, n):

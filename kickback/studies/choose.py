@@ -15,6 +15,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from kickback import parallel
 from kickback.case import Case, Option
 from kickback.studies.designs import allowed_voltage, family_candidates, impractical
 from kickback.studies.pool import map_points
@@ -168,14 +169,11 @@ def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto
     v_allow = allowed_voltage(case)
     fams = [(fam, lst) for fam, lst in family_candidates(case).items() if lst]
     jobs = [([replace(case, clamps=opt.clamps, options=()) for _, _, opt in lst], engine) for _, lst in fams]
-    if workers > 1 and len(jobs) > 1:
-        from concurrent.futures import ProcessPoolExecutor
-
-        # the largest families first, so that the processes finish together
+    if (workers > 1 or parallel.current() is not None) and len(jobs) > 1:
+        # one task per family, the largest first, so that the workers finish together
         order = sorted(range(len(jobs)), key=lambda j: -len(jobs[j][0]))
-        with ProcessPoolExecutor(max_workers=min(workers, len(jobs))) as pool:
-            found = dict(zip(order, pool.map(_family_job, [jobs[j] for j in order]), strict=True))
-        results = [found[j] for j in range(len(jobs))]
+        found = parallel.map_ordered(_family_job, [jobs[j] for j in order], workers=workers, group=1)
+        results = [found[order.index(j)] for j in range(len(jobs))]
     else:
         results = [_family_points(cs, eng, workers) for cs, eng in jobs]
     out, near, engines, fits, notes = [], [], set(), [], []
@@ -224,7 +222,8 @@ class Choice:
                 "top": [r.to_dict() for r in self.top]}
 
 
-def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engine: str = "auto") -> Choice:
+def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engine: str = "auto",
+           executor=None) -> Choice:
     """Feasible clamp choices ranked: fastest release (or decay to zero) first — releases within
     :data:`RELEASE_TIE` count as equal and the larger switch-voltage margin wins — then the fewest
     parts; the others with the checks they fail. A choice must keep ``checks.min_margin`` of
@@ -235,7 +234,8 @@ def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engin
     """
     from kickback.simulation import simulate
 
-    ev = evaluate(case, workers=workers, progress=progress, engine=engine)
+    with parallel.using(executor):
+        ev = evaluate(case, workers=workers, progress=progress, engine=engine)
     ranked = rank(c for c in ev.candidates if c.ok)
     rejected = [c for c in ev.candidates if not c.ok]
     top, demoted = [], []

@@ -133,7 +133,7 @@ def result_figures(r) -> dict:
 
 
 def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=None,
-              engine: str = "auto") -> SweepResult:
+              engine: str = "auto", executor=None) -> SweepResult:
     """Simulate every grid point of ``axes`` (one or two).
 
     Parameters
@@ -144,6 +144,8 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
     progress : callable(n_done) or None — called as points finish
     engine : str — "auto" (the batch engine unless the case has a feature it does not cover,
         then the detailed engine), "batch" or "detailed"
+    executor : concurrent.futures.Executor, Dask Client or None — runs the points (None: the
+        persistent local pool, :mod:`kickback.parallel`); the numbers do not depend on it
 
     Returns
     -------
@@ -177,7 +179,10 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
         if path in variations:
             raise CaseError(f"{ax.path} is swept twice (expected two different keys)", key="--vary")
         variations[path] = points[:, j]
-    pts = evaluate(case, variations, engine=engine, workers=workers, progress=progress)
+    from kickback.parallel import using
+
+    with using(executor):
+        pts = evaluate(case, variations, engine=engine, workers=workers, progress=progress)
     figs = {c: [None if np.isnan(x) else float(x) for x in pts.figures[c]] for c, _ in COLUMNS}
     note = pts.note
     if pts.retried:

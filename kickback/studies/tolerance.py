@@ -8,6 +8,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from kickback import parallel
 from kickback.case import Case
 from kickback.errors import CaseError
 from kickback.keypath import get_value, set_value
@@ -47,6 +48,22 @@ def sample(case: Case, n: int, rng: np.random.Generator) -> np.ndarray:
                 bad = x <= floor
         cols.append(x)
     return np.column_stack(cols) if cols else np.zeros((n, 0))
+
+
+def draw(case: Case, n: int, seed: int) -> np.ndarray:
+    """``n`` draws of every toleranced value (:func:`sample`), shape (n, k) [SI], block by block:
+    block j of :data:`DRAW_BLOCK` draws uses child j of ``SeedSequence(seed).spawn`` (see
+    :func:`kickback.parallel.chunk_seeds`), so the numbers depend on ``seed`` and ``n`` only."""
+    seeds = parallel.chunk_seeds(seed, n, DRAW_BLOCK)
+    parts = [sample(case, g.stop - g.start, np.random.default_rng(s))
+             for g, s in zip(parallel.groups(n, DRAW_BLOCK), seeds, strict=False)]
+    return np.vstack(parts) if parts else np.zeros((0, len(case.tolerances)))
+
+
+def _recheck_rng(seed: int, n: int) -> np.random.Generator:
+    """The generator that picks the recheck samples: the child after the draw blocks' children."""
+    k = len(parallel.chunk_seeds(seed, n, DRAW_BLOCK))
+    return np.random.default_rng(np.random.SeedSequence(seed).spawn(k + 1)[k])
 
 
 def apply(case: Case, values) -> Case:
@@ -179,6 +196,11 @@ def _opt(x):
 
 #: samples per batch of the Monte Carlo (memory is bounded by it, not by the number of samples)
 CHUNK = 10_000
+#: draws per random block (one SeedSequence child each); fixed, so the samples never depend on
+#: the workers, the executor or ``chunk``
+DRAW_BLOCK = 10_000
+#: samples per task when the detailed engine runs them (each sample is solved on its own)
+DETAILED_TASK = 8
 #: batch-engine samples run again by the detailed engine, drawn at random (seeded)
 RECHECK = 16
 #: rounds of the worst-case search per figure when the batch engine runs (one batch per round)
@@ -187,7 +209,7 @@ SEARCH_ROUNDS = 16
 
 def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=None,
                   search_budget: int | None = None, engine: str = "auto", chunk: int = CHUNK,
-                  recheck: int = RECHECK) -> ToleranceResult:
+                  recheck: int = RECHECK, executor=None) -> ToleranceResult:
     """Monte Carlo with ``n`` samples (seeded), corners, worst-case search and sensitivity.
 
     Parameters
@@ -204,6 +226,9 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     chunk : int — samples per batch; memory is bounded by it, not by n
     recheck : int — with the batch engine, this many samples drawn at random are run again by
         the detailed engine and the largest difference per figure is reported (0: none)
+    executor : concurrent.futures.Executor, Dask Client or None — runs the chunks (None: the
+        persistent local pool of ``workers`` processes, see :mod:`kickback.parallel`); the same
+        seed gives the same numbers on any executor and any number of workers
 
     Raises
     ------
@@ -218,11 +243,11 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     used, note = pick_engine(case, engine)
     names = tuple(t.path for t in case.tolerances)
     flist = figure_list(case)
-    rng = np.random.default_rng(seed)
-    matrix = sample(case, n, rng)
+    matrix = draw(case, n, seed)
     check_varied(case, matrix)
-    idx = np.sort(rng.choice(n, size=min(recheck, n), replace=False)) if used == "batch" and recheck > 0 else None
-    with _Recheck(case, matrix, idx, workers) as later:
+    idx = np.sort(_recheck_rng(seed, n).choice(n, size=min(recheck, n), replace=False)) \
+        if used == "batch" and recheck > 0 else None
+    with parallel.using(executor), _Recheck(case, matrix, idx, workers) as later:
         figs, passed, errors, worst, fits, retried, audited = _monte_carlo(case, matrix, flist, used, workers,
                                                                            progress, chunk)
         study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
@@ -234,7 +259,7 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
         from kickback.studies.points import audit_note
 
         note = (note + "; " if note else "") + audit_note(*audited)
-    k = int(passed.sum())
+    k = int(passed.sum())  # the per-chunk pass counts, summed
     pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
            for f, a in figs.items()}
     worst_per_check = {name: {"margin": _opt(m), "value": _opt(v), "limit": _opt(lim),
@@ -250,16 +275,13 @@ class _Recheck:
 
     def __init__(self, case, matrix, idx, workers):
         self.case, self.rows, self.workers = case, None if idx is None else matrix[idx], workers
-        self.pool, self.futures = None, []
+        self.futures = []
 
     def __enter__(self):
-        if self.rows is not None and self.workers > 1 and len(self.rows) > 1:
-            from concurrent.futures import ProcessPoolExecutor
-
-            k = max(1, self.workers - 1)
-            self.pool = ProcessPoolExecutor(max_workers=k)
-            self.futures = [self.pool.submit(_detailed_points, self.case, part)
-                            for part in np.array_split(self.rows, k) if len(part)]
+        if self.rows is not None and len(self.rows) > 1:
+            parts = [(self.case, self.rows[g]) for g in parallel.groups(len(self.rows), DETAILED_TASK // 2)]
+            futures = [parallel.submit(_detailed_job, part, workers=self.workers) for part in parts]
+            self.futures = futures if all(f is not None for f in futures) else []
         return self
 
     def points(self):
@@ -270,13 +292,17 @@ class _Recheck:
         return _detailed_points(self.case, self.rows)
 
     def __exit__(self, *exc):
-        if self.pool is not None:
-            self.pool.shutdown(wait=True, cancel_futures=True)
+        for fut in self.futures:
+            fut.cancel()
         return False
 
 
 def _detailed_points(case, rows):
     return evaluate(case, rows, engine="detailed")
+
+
+def _detailed_job(args):
+    return _detailed_points(*args)
 
 
 def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
@@ -314,9 +340,20 @@ def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
 
 
 def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
-    """Every sample, chunk by chunk: the followed figures, verdicts, errors and, per check, the
-    sample with the smallest margin (no margin counts as the smallest)."""
+    """Every sample, chunk by chunk on the executor (:mod:`kickback.parallel`): the followed
+    figures, verdicts, errors and, per check, the sample with the smallest margin (no margin
+    counts as the smallest), merged from each chunk's own counts and minima."""
     n = len(matrix)
+    size = max(1, chunk) if used == "batch" else DETAILED_TASK
+    cuts = parallel.groups(n, size)
+    ends = [g.stop for g in cuts]
+
+    def step(done):
+        if progress is not None:
+            progress(ends[done - 1])
+
+    parts = parallel.map_ordered(_chunk_job, [(case, matrix[g], used, size, tuple(f for f, _, _ in flist))
+                                              for g in cuts], workers=workers, progress=step, group=1)
     figs = {f: np.full(n, np.nan) for f, _, _ in flist}
     passed = np.zeros(n, bool)
     errors = np.full(n, None, dtype=object)
@@ -324,30 +361,35 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
     fits: list = []
     retried = 0
     audited = [0, 0, ""]  # samples that failed their audit, solved again, on which engine
-    for start in range(0, n, max(1, chunk)):
-        rows = slice(start, min(n, start + chunk))
-
-        def step(done, start=start):
-            if progress is not None:
-                progress(start + done)
-
-        pts = evaluate(case, matrix[rows], engine=used, workers=workers, progress=step, chunk=chunk)
-        for f, _, _ in flist:
-            if f in pts.figures:
-                figs[f][rows] = pts.figures[f]
-        passed[rows] = pts.passed
-        errors[rows] = pts.errors
-        fits += [x for x in pts.fits if x not in fits]
-        retried += pts.retried
-        audited = [audited[0] + pts.audit_failed, audited[1] + pts.audit_solved, pts.audit_engine or audited[2]]
-        for name, c in pts.checks.items():
-            key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
-            j = int(np.argmin(key))
-            if not c.applies[j]:
-                continue
-            if name not in worst or key[j] < worst[name][0]:
-                worst[name] = (key[j], start + j, c.value[j], c.limit[j], c.margin[j])
+    for g, part in zip(cuts, parts, strict=True):
+        for f, a in part["figures"].items():
+            figs[f][g] = a
+        passed[g] = part["passed"]
+        errors[g] = part["errors"]
+        fits += [x for x in part["fits"] if x not in fits]
+        retried += part["retried"]
+        audited = [audited[0] + part["audit"][0], audited[1] + part["audit"][1], part["audit"][2] or audited[2]]
+        for name, (key, j, v, lim, m) in part["worst"].items():
+            if name not in worst or key < worst[name][0]:
+                worst[name] = (key, g.start + j, v, lim, m)
     return figs, passed, errors, worst, tuple(fits), retried, tuple(audited)
+
+
+def _chunk_job(args) -> dict:
+    """One chunk of samples, run where the executor puts it: its figures, verdicts and errors,
+    its pass count, and per check its sample with the smallest margin (index within the chunk)."""
+    case, rows, used, chunk, names = args
+    pts = evaluate(case, rows, engine=used, workers=1, chunk=chunk)
+    worst = {}
+    for name, c in pts.checks.items():
+        key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
+        j = int(np.argmin(key))
+        if c.applies[j]:
+            worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j])
+    return {"figures": {f: pts.figures[f] for f in names if f in pts.figures}, "passed": pts.passed,
+            "n_passed": int(np.sum(pts.passed)), "errors": list(pts.errors), "worst": worst,
+            "fits": list(pts.fits), "retried": pts.retried,
+            "audit": (pts.audit_failed, pts.audit_solved, pts.audit_engine)}
 
 
 def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, budget) -> dict:

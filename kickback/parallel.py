@@ -1,0 +1,234 @@
+"""The one parallel seam: every study maps its work through one ``concurrent.futures.Executor``.
+
+Which executor runs a map, in this order:
+
+1. the executor made current by :func:`using` (a study's ``executor=`` argument, e.g. the
+   ``get_executor()`` of a Dask ``distributed.Client``, or any ``concurrent.futures.Executor``);
+2. otherwise, when more than one worker is asked for, one persistent local process pool
+   (:func:`local_pool`): created at the first parallel map of the process, reused by every later
+   one of the same size, shut down at exit (and its processes stopped by
+   :mod:`kickback.cliguard` on Ctrl-C, as any child process of a command);
+3. otherwise this process, in order.
+
+Work that already runs on a worker (a task of any executor) maps in its own process: a study
+never nests pools, so the split of the work is decided once, by the caller.
+
+Random draws: :func:`chunk_seeds` gives one ``numpy.random.SeedSequence`` child per fixed-size
+block of draws, so the same seed gives the same numbers whatever the worker count or executor.
+
+References
+----------
+Python documentation, ``concurrent.futures`` (the Executor interface); Dask distributed
+documentation, "Client.get_executor" (a concurrent.futures-compatible executor).
+"""
+
+from __future__ import annotations
+
+import atexit
+import contextlib
+import contextvars
+import os
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import Executor
+
+import numpy as np
+
+__all__ = ["chunk_seeds", "cluster_executor", "current", "groups", "local_pool", "map_ordered", "shutdown",
+           "submit", "using"]
+
+_EXECUTOR: contextvars.ContextVar = contextvars.ContextVar("kickback_executor", default=None)
+_INSIDE: contextvars.ContextVar = contextvars.ContextVar("kickback_inside_worker", default=False)
+_POOL: dict = {"pool": None, "size": 0, "pid": None}
+
+#: groups per worker a map is cut into (load balance against per-task overhead)
+GROUPS_PER_WORKER = 4
+
+
+def default_workers() -> int:
+    """The worker processes used when none is asked for: the machine's cores, at most 8."""
+    return min(os.cpu_count() or 1, 8)
+
+
+def local_pool(workers: int) -> Executor:
+    """The persistent process pool of ``workers`` processes (made once, reused; remade only when
+    another size is asked for or a worker died)."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    pool = _POOL["pool"]
+    broken = pool is not None and getattr(pool, "_broken", False)
+    if pool is None or broken or _POOL["size"] != workers or _POOL["pid"] != os.getpid():
+        if pool is not None and _POOL["pid"] == os.getpid():
+            pool.shutdown(wait=not broken, cancel_futures=True)
+        _POOL.update(pool=ProcessPoolExecutor(max_workers=workers), size=workers, pid=os.getpid())
+    return _POOL["pool"]
+
+
+def shutdown() -> None:
+    """Shut the persistent pool down (at exit; harmless when there is none)."""
+    pool = _POOL["pool"]
+    if pool is not None and _POOL["pid"] == os.getpid():
+        pool.shutdown(wait=True, cancel_futures=True)
+    _POOL.update(pool=None, size=0, pid=None)
+
+
+atexit.register(shutdown)
+
+
+def current() -> Executor | None:
+    """The executor made current by :func:`using`, or None."""
+    return _EXECUTOR.get()
+
+
+def inside_worker() -> bool:
+    """True in a task run by a parallel map (it then maps in its own process)."""
+    return _INSIDE.get()
+
+
+def _pool_allowed() -> bool:
+    """No local pool in a task, nor in a process started by multiprocessing: such a process joins
+    its children as soon as its target returns, before ``atexit`` could shut a pool down, and
+    would wait forever. (An executor passed in is still used there.)"""
+    import multiprocessing
+
+    return not _INSIDE.get() and multiprocessing.parent_process() is None
+
+
+@contextlib.contextmanager
+def using(executor: Executor | None) -> Iterator[Executor | None]:
+    """Run the maps of the ``with`` body on ``executor`` (None: leave the choice as it is)."""
+    if executor is None:
+        yield current()
+        return
+    if not isinstance(executor, Executor) and hasattr(executor, "get_executor"):
+        executor = executor.get_executor()  # a Dask distributed.Client
+    if not hasattr(executor, "submit"):
+        from kickback.errors import KickbackError
+
+        raise KickbackError(f"executor: {type(executor).__name__} has no submit() (expected a "
+                            "concurrent.futures.Executor, e.g. a Dask client's get_executor())")
+    token = _EXECUTOR.set(executor)
+    try:
+        yield executor
+    finally:
+        _EXECUTOR.reset(token)
+
+
+def groups(n: int, size: int) -> list[slice]:
+    """``range(n)`` cut into consecutive slices of ``size`` (the last one shorter)."""
+    size = max(1, int(size))
+    return [slice(s, min(n, s + size)) for s in range(0, n, size)]
+
+
+def _run_group(func: Callable, items: Sequence) -> list:
+    """A task: ``[func(x) for x in items]`` marked as running on a worker (no nested pools)."""
+    token = _INSIDE.set(True)
+    try:
+        return [func(x) for x in items]
+    finally:
+        _INSIDE.reset(token)
+
+
+def map_ordered(func: Callable, items: Sequence, *, workers: int = 1, progress=None,
+                group: int | None = None) -> list:
+    """``[func(x) for x in items]`` on the chosen executor (see the module docstring), in order.
+
+    Parameters
+    ----------
+    func : picklable callable of one argument (a module-level function)
+    items : sequence of picklable arguments
+    workers : int — local processes when no executor is current (1: this process)
+    progress : callable(n_done) or None — called as results arrive, in order
+    group : int or None — items per task (None: about :data:`GROUPS_PER_WORKER` tasks per worker)
+    """
+    items = list(items)
+    executor = None if inside_worker() else current()
+    if executor is None and workers > 1 and len(items) > 1 and _pool_allowed():
+        executor = local_pool(workers)
+    if executor is None or len(items) < 2:
+        out = []
+        for k, x in enumerate(items):
+            out.append(func(x))
+            if progress:
+                progress(k + 1)
+        return out
+    size = group or max(1, -(-len(items) // (GROUPS_PER_WORKER * max(workers, _width(executor)))))
+    futures = [executor.submit(_run_group, func, items[s]) for s in groups(len(items), size)]
+    out = []
+    try:
+        for fut in futures:
+            out += fut.result()
+            if progress:
+                progress(len(out))
+    except BaseException:
+        for fut in futures:
+            fut.cancel()
+        raise
+    return out
+
+
+def submit(func: Callable, arg, *, workers: int = 1):
+    """A future of ``func(arg)`` on the chosen executor, started now; None when the work would run
+    in this process (call ``func(arg)`` then, when its result is wanted)."""
+    if inside_worker():
+        return None
+    executor = current()
+    if executor is None and workers > 1 and _pool_allowed():
+        executor = local_pool(workers)
+    if executor is None:
+        return None
+    return _First(executor.submit(_run_group, func, [arg]))
+
+
+class _First:
+    """The one result of a one-item group future."""
+
+    def __init__(self, fut):
+        self.fut = fut
+
+    def result(self, timeout=None):
+        return self.fut.result(timeout)[0]
+
+    def cancel(self) -> bool:
+        return self.fut.cancel()
+
+
+def _width(executor) -> int:
+    """Workers behind ``executor`` as far as it says (1 when it does not)."""
+    n = getattr(executor, "_max_workers", None)
+    if n:
+        return int(n)
+    client = getattr(executor, "_client", None)
+    if client is not None:
+        with contextlib.suppress(Exception):
+            return max(1, sum(client.nthreads().values()))
+    return 1
+
+
+def chunk_seeds(seed: int, n: int, block: int) -> list[np.random.SeedSequence]:
+    """One ``SeedSequence`` child per block of ``block`` draws out of ``n`` (children of
+    ``SeedSequence(seed).spawn``: the k-th child is the same whatever ``n`` is)."""
+    return np.random.SeedSequence(seed).spawn(max(1, -(-n // max(1, block))))
+
+
+def cluster_executor(address: str) -> Executor:
+    """A ``concurrent.futures`` executor on the Dask distributed scheduler at ``address``.
+
+    Raises
+    ------
+    ClusterError — Dask distributed is not installed (the ``cluster`` extra), or the scheduler
+        cannot be reached.
+    """
+    from kickback.errors import KickbackError
+
+    try:
+        from distributed import Client
+    except ImportError:
+        raise KickbackError(f"--scheduler {address}: Dask distributed is not installed (expected "
+                            "pip install 'kickback[cluster]')") from None
+    try:
+        client = Client(address, timeout="10s")
+    except (OSError, TimeoutError) as err:
+        raise KickbackError(f"--scheduler {address}: no Dask scheduler answered ({err}; expected "
+                            "an address such as tcp://HOST:8786 of a running 'dask scheduler')") from None
+    atexit.register(client.close)
+    return client.get_executor()

@@ -1,0 +1,195 @@
+"""``kickback check PATH…``: finding cases, the verdicts and exit statuses, JSON lines, the JUnit
+XML report and the per-case tolerance yield.
+
+Figures are held to a closed form: with an ideal switch and a clamp across the coil of a
+constant-drop diode (V_F) in series with a Zener (V_Z), the switch node sits at
+V_supply + V_Z + V_F while the clamp conducts (the flyback clamp of any power-electronics
+textbook, e.g. Mohan, Undeland, Robbins, "Power Electronics", ch. on snubbers/clamps)."""
+
+from __future__ import annotations
+
+import json
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from kickback.cli import main
+
+V_SUPPLY, V_Z, V_F = 24.0, 20.0, 0.7
+PEAK = V_SUPPLY + V_Z + V_F  # closed form, 44.7 V
+
+CASE = '''title = "check test {name} (demo data)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "100 mH"
+resistance = "30 Ω"
+[switch]
+type = "ideal"
+[[clamp]]
+across = "coil"
+[[clamp.element]]
+type = "diode"
+model = "constant-drop"
+forward_voltage = "0.7 V"
+[[clamp.element]]
+type = "zener"
+voltage = "20 V"
+[checks]
+max_peak_voltage = "{limit} V"
+'''
+TOL = '''[tolerance."coil.inductance"]
+band = "10 %"
+[tolerance."clamp[0].element[1].voltage"]
+band = "±1 V"
+'''
+
+
+def _board(tmp_path: Path, *, bad: bool = False) -> Path:
+    d = tmp_path / "board"
+    (d / "sub").mkdir(parents=True)
+    (d / "ok.toml").write_text(CASE.format(name="ok", limit=47) + TOL, encoding="utf-8")
+    (d / "sub" / "tight.toml").write_text(CASE.format(name="tight", limit=44), encoding="utf-8")
+    (d / "pyproject.toml").write_text('[project]\nname = "not-a-case"\n', encoding="utf-8")
+    if bad:
+        (d / "broken.toml").write_text(CASE.format(name="broken", limit=47).replace('"30 Ω"', '"30 V"'),
+                                       encoding="utf-8")
+    return d
+
+
+def _run(args):
+    return CliRunner().invoke(main, ["check", *args])
+
+
+def test_folder_table_and_exit_status(tmp_path):
+    d = _board(tmp_path)
+    res = _run([str(d), "--workers", "2"])
+    assert res.exit_code == 1, res.output  # one check fails
+    out = res.stdout
+    assert "ok.toml" in out and "tight.toml" in out and "pyproject.toml" not in out.split("Skipped")[0]
+    assert "not a case (no [coil] table)" in out.split("Skipped:")[1]
+    assert "44.7 V" in out  # the closed-form peak in the table
+    failing = out.split("Failing checks:")[1]
+    assert "tight.toml" in failing and "ok.toml" not in failing
+    # margin (limit − value)/limit = (44 − 44.7)/44 = −1.6 %
+    assert f"{100 * (44 - PEAK) / 44:+.1f} %" in failing
+    # the passing case alone: exit 0
+    assert _run([str(d / "ok.toml")]).exit_code == 0
+
+
+def test_invalid_case_is_named_and_exits_2(tmp_path):
+    d = _board(tmp_path, bad=True)
+    res = _run([str(d)])
+    assert res.exit_code == 2
+    assert "broken.toml" in res.stderr and "coil.resistance" in res.stderr
+    assert "INVALID" in res.stdout
+
+
+def test_missing_path_exits_2(tmp_path):
+    res = _run([str(tmp_path / "nowhere")])
+    assert res.exit_code == 2 and "no such file" in res.stderr and "Traceback" not in res.output
+
+
+def test_json_lines(tmp_path):
+    d = _board(tmp_path)
+    res = _run([str(d / "ok.toml"), str(d / "sub" / "*.toml"), "--json"])
+    rows = [json.loads(line) for line in res.stdout.splitlines()]
+    assert [Path(r["case"]).name for r in rows] == ["ok.toml", "tight.toml"]
+    assert [r["pass"] for r in rows] == [True, False]
+    for r in rows:
+        assert r["peak_voltage_V"] == pytest.approx(PEAK, rel=1e-6)
+    low = rows[1]["smallest_margin"]
+    assert low["margin"] == pytest.approx((44 - PEAK) / 44, rel=1e-6) and "peak" in low["check"]
+
+
+def test_junit_report(tmp_path):
+    d = _board(tmp_path, bad=True)
+    report = tmp_path / "out" / "report.xml"
+    res = _run([str(d), "--junit", str(report)])
+    assert res.exit_code == 2
+    root = ET.parse(report).getroot()
+    # JUnit XML element and attribute names (from memory of the common format)
+    assert root.tag == "testsuites"
+    suites = root.findall("testsuite")
+    assert {Path(s.get("name")).name for s in suites} == {"ok.toml", "tight.toml", "broken.toml"}
+    total = {"tests": 0, "failures": 0, "errors": 0}
+    for s in suites:
+        cases = s.findall("testcase")
+        assert int(s.get("tests")) == len(cases)
+        assert int(s.get("failures")) == sum(len(c.findall("failure")) for c in cases)
+        assert int(s.get("errors")) == sum(len(c.findall("error")) for c in cases)
+        float(s.get("time"))
+        for c in cases:
+            assert c.get("classname") == s.get("name") and c.get("name") and float(c.get("time")) >= 0
+        for k in total:
+            total[k] += int(s.get(k))
+    assert {k: int(root.get(k)) for k in total} == total
+    assert total["failures"] == 1 and total["errors"] == 1
+    failure = root.find(".//failure")
+    assert "value 44.7 V" in failure.get("message") and "limit 44 V" in failure.get("message")
+    assert "margin -1.59 %" in failure.get("message")
+    error = root.find(".//error")
+    assert error.get("type") == "invalid" and "coil.resistance" in error.get("message")
+
+
+def test_tolerance_yield_per_case(tmp_path):
+    d = _board(tmp_path)
+    res = _run([str(d), "--tolerance", "200", "--json"])
+    rows = {Path(r["case"]).name: r for r in map(json.loads, res.stdout.splitlines())}
+    tol = rows["ok.toml"]["tolerance"]
+    assert tol["samples"] == 200
+    # peak = 24 + V_Z + 0.7 with V_Z uniform in 19..21 V: every sample is below 47 V
+    assert tol["yield"] == 1.0
+    # Clopper–Pearson with k = n = 200: lower end (α/2)^(1/n) (Clopper and Pearson 1934)
+    assert tol["yield_ci95"][0] == pytest.approx(0.025 ** (1 / 200), rel=1e-9) and tol["yield_ci95"][1] == 1.0
+    assert "no [tolerance] section" in rows["tight.toml"]["tolerance"]["none"]
+    table = _run([str(d), "--tolerance", "50"]).stdout
+    assert "no [tolerance]" in table and "100.0 %" in table
+
+
+def test_progress_on_stderr(tmp_path):
+    d = tmp_path / "many"
+    d.mkdir()
+    for k in range(10):
+        (d / f"c{k}.toml").write_text(CASE.format(name=k, limit=47), encoding="utf-8")
+    res = _run([str(d)])
+    assert res.exit_code == 0
+    assert "cases: 10 of 10" in res.stderr and "cases:" not in res.stdout
+
+
+def test_demo_board_folder(tmp_path):
+    """examples/board (demo data): every channel checked, board.toml skipped, a JUnit report."""
+    board = Path(__file__).resolve().parent.parent / "examples" / "board"
+    report = tmp_path / "report.xml"
+    res = _run([str(board), "--junit", str(report), "--json"])
+    assert res.exit_code == 0, res.output
+    rows = {Path(r["case"]).name: r for r in map(json.loads, res.stdout.splitlines())}
+    assert sorted(rows) == ["ch1_irrigation_valve.toml", "ch2_vent_relay.toml", "ch3_roof_vent_motor.toml",
+                            "ch4_shade_brake.toml"]
+    assert "board.toml: skipped" in res.stderr
+    # ch4: a TVS from drain to ground holds the drain at V_BR + I0·R_d, I0 = V/(R_coil + R_on)
+    # (Ohm's law for the on-state current; the TVS as a breakdown voltage with a dynamic resistance)
+    i0 = 24.0 / (16.0 + 0.030)
+    assert rows["ch4_shade_brake.toml"]["peak_voltage_V"] == pytest.approx(56.0 + i0 * 0.6, rel=1e-3)
+    root = ET.parse(report).getroot()
+    assert root.tag == "testsuites" and len(root.findall("testsuite")) == 4
+    assert root.get("failures") == "0" and root.get("errors") == "0"
+    assert int(root.get("tests")) == sum(len(r["checks"]) for r in rows.values())
+
+
+def test_a_result_failing_its_audit_gets_no_verdict(tmp_path, monkeypatch):
+    # the audit itself is tested in tests/test_audit.py; here a failing audit is forced in this
+    # process (--workers 1) to see that check names the case, gives no verdict and exits 2
+    import kickback.audit as audit
+
+    monkeypatch.setattr(audit, "audit_result", lambda result: audit.Audit(("energy ledger residual (forced)",)))
+    d = _board(tmp_path)
+    report = tmp_path / "r.xml"
+    res = _run([str(d / "ok.toml"), "--workers", "1", "--junit", str(report)])
+    assert res.exit_code == 2
+    assert "NO VERDICT" in res.stdout and "PASS" not in res.stdout
+    assert "ok.toml" in res.stderr and "failed its audit" in res.stderr
+    error = ET.parse(report).getroot().find(".//error")
+    assert error is not None and error.get("type") == "audit"

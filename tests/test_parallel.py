@@ -1,0 +1,160 @@
+"""The one executor (kickback.parallel): the same seed gives the same numbers on any executor and
+any number of workers; the local pool is made once and reused; per-chunk seeds follow numpy's
+SeedSequence.spawn."""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import Executor, Future, ThreadPoolExecutor
+
+import numpy as np
+import pytest
+
+from kickback import load_case, parallel
+from kickback.studies.tolerance import DRAW_BLOCK, draw, run_tolerance
+
+TOL = '''title = "parallel test (demo data)"
+[supply]
+voltage = "24 V"
+[coil]
+inductance = "100 mH"
+resistance = "30 Ω"
+[switch]
+type = "ideal"
+[[clamp]]
+across = "coil"
+[[clamp.element]]
+type = "diode"
+model = "constant-drop"
+forward_voltage = "0.7 V"
+[[clamp.element]]
+type = "zener"
+voltage = "20 V"
+[checks]
+max_peak_voltage = "45 V"
+[tolerance."coil.inductance"]
+band = "10 %"
+distribution = "uniform"
+[tolerance."supply.voltage"]
+band = "5 %"
+distribution = "normal"
+[tolerance."clamp[0].element[1].voltage"]
+band = "±1 V"
+[tolerance.coil_temperature]
+min = "-20 °C"
+max = "85 °C"
+'''
+
+
+class InProcess(Executor):
+    """A concurrent.futures executor that runs each task at once in this thread (the Executor
+    interface of the Python documentation, nothing more)."""
+
+    def __init__(self):
+        self.tasks = 0
+
+    def submit(self, fn, /, *args, **kwargs):
+        fut = Future()
+        self.tasks += 1
+        try:
+            fut.set_result(fn(*args, **kwargs))
+        except BaseException as err:  # handed to the caller through the future
+            fut.set_exception(err)
+        return fut
+
+
+def _numbers(tr) -> dict:
+    return {"samples": tr.samples, "passed": tr.passed, "yield_ci": np.array(tr.yield_ci),
+            **{f"fig:{k}": v for k, v in tr.figures.items()},
+            "worst": np.array([(w["margin"], w["value"]) for w in tr.worst_per_check.values()], float)}
+
+
+def _same(a: dict, b: dict) -> None:
+    assert a.keys() == b.keys()
+    for k in a:
+        assert np.array_equal(a[k], b[k], equal_nan=True), k  # bit for bit, not approximately
+
+
+@pytest.mark.parametrize("engine,n", [("batch", 2500), ("detailed", 24)])
+def test_same_seed_same_numbers_on_every_executor(engine, n):
+    case = load_case(TOL)
+    runs = [run_tolerance(case, n, 7, workers=1, engine=engine, search_budget=4, chunk=1000, recheck=0),
+            run_tolerance(case, n, 7, workers=2, engine=engine, search_budget=4, chunk=1000, recheck=0)]
+    ex = InProcess()
+    runs.append(run_tolerance(case, n, 7, workers=1, engine=engine, search_budget=4, chunk=1000, recheck=0,
+                              executor=ex))
+    assert ex.tasks >= 3  # the chunks did go through the executor passed in
+    with ThreadPoolExecutor(3) as threads:
+        runs.append(run_tolerance(case, n, 7, engine=engine, search_budget=4, chunk=1000, recheck=0,
+                                  executor=threads))
+    first = _numbers(runs[0])
+    for other in runs[1:]:
+        _same(first, _numbers(other))
+    # a different seed gives different draws (the check above could fail)
+    assert not np.array_equal(draw(case, n, 8), runs[0].samples)
+
+
+def test_draws_are_spawned_per_block():
+    # numpy's SeedSequence.spawn: block j uses child j, so the first block of a longer study is
+    # the first block of a shorter one (numpy documentation, "Parallel random number generation")
+    case = load_case(TOL)
+    long, short = draw(case, DRAW_BLOCK + 5, 3), draw(case, DRAW_BLOCK, 3)
+    assert np.array_equal(long[:DRAW_BLOCK], short)
+    child = np.random.SeedSequence(3).spawn(2)[1]
+    second = np.random.default_rng(child).uniform(size=1)
+    # the first toleranced value is uniform over its band: the second block's first draw is the
+    # generator of child 1 mapped onto the band (Generator.uniform: low + (high - low) * u)
+    tol = case.tolerances[0]
+    assert long[DRAW_BLOCK, 0] == pytest.approx(tol.low + (tol.high - tol.low) * second[0], rel=1e-15)
+
+
+def _pid(_x):
+    return os.getpid()
+
+
+def test_the_local_pool_is_made_once_and_reused():
+    parallel.shutdown()
+    a = parallel.map_ordered(_pid, range(16), workers=2)
+    pool = parallel.local_pool(2)
+    b = parallel.map_ordered(_pid, range(16), workers=2)
+    assert parallel.local_pool(2) is pool
+    assert len(set(a) | set(b)) <= 2 and os.getpid() not in set(a) | set(b)
+    # another size replaces it (one pool per process, sized by --workers)
+    assert parallel.local_pool(1) is not pool
+    parallel.shutdown()
+
+
+def test_a_task_maps_in_its_own_process():
+    # inside a task no pool is nested: the work runs in the worker's process
+    out = parallel.map_ordered(_inner, [0, 1], workers=2)
+    assert all(len(set(pids)) == 1 and pids[0] != os.getpid() for pids in out)
+    parallel.shutdown()
+
+
+def _inner(_x):
+    return parallel.map_ordered(_pid, range(4), workers=2)
+
+
+def test_a_bad_executor_is_refused():
+    from kickback.errors import KickbackError
+
+    with pytest.raises(KickbackError, match="concurrent.futures.Executor"):
+        run_tolerance(load_case(TOL), 4, 1, executor=object())
+
+
+def _child_with_a_pool():
+    parallel.map_ordered(_pid, range(8), workers=2, group=1)
+
+
+def test_a_process_with_a_pool_exits():
+    # a process started by multiprocessing joins its children as soon as its target returns,
+    # before atexit runs: the pool must be shut down by then, or that join waits forever
+    import multiprocessing as mp
+
+    proc = mp.get_context("fork").Process(target=_child_with_a_pool)
+    proc.start()
+    proc.join(120)
+    alive = proc.is_alive()
+    if alive:
+        proc.kill()
+    assert not alive and proc.exitcode == 0
