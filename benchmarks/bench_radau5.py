@@ -13,51 +13,21 @@ integrator. Times are the best of N runs after one warm-up (compile excluded; ca
 from __future__ import annotations
 
 import argparse
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 from scipy.integrate import solve_ivp
 
 from kickback.engine.radau5 import njit_events, njit_jac, njit_rhs, solve
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from radau5_problems import rober, rober_jac, vdp, vdp_jac  # noqa: E402  (the test problems, written once)
+
 VT = 0.025693  # [V] thermal voltage at 25 °C
 
 
-@njit_rhs
-def rober(t, y, p):
-    out = np.empty(3)
-    out[0] = -0.04 * y[0] + 1e4 * y[1] * y[2]
-    out[2] = 3e7 * y[1] ** 2
-    out[1] = -out[0] - out[2]
-    return out
-
-
-@njit_jac
-def rober_jac(t, y, p):
-    J = np.zeros((3, 3))
-    J[0, 0], J[0, 1], J[0, 2] = -0.04, 1e4 * y[2], 1e4 * y[1]
-    J[2, 1] = 6e7 * y[1]
-    J[1, 0], J[1, 1], J[1, 2] = 0.04, -1e4 * y[2] - 6e7 * y[1], -1e4 * y[1]
-    return J
-
-
-@njit_rhs
-def vdp(t, y, p):
-    out = np.empty(2)
-    out[0] = y[1]
-    out[1] = ((1.0 - y[0] ** 2) * y[1] - y[0]) / p[0]
-    return out
-
-
-@njit_jac
-def vdp_jac(t, y, p):
-    J = np.empty((2, 2))
-    J[0, 0], J[0, 1] = 0.0, 1.0
-    J[1, 0], J[1, 1] = (-2.0 * y[0] * y[1] - 1.0) / p[0], (1.0 - y[0] ** 2) / p[0]
-    return J
-
-
-# coil turn-off into a diode clamp; params: L, R, n·VT, Is, Rs, i0
 @njit_rhs
 def coil(t, y, p):
     L, R, nvt, i_s, rs = p[0], p[1], p[2], p[3], p[4]
