@@ -5,7 +5,7 @@ key must exist for the case's structure (``switch.saturation_voltage`` applies t
 ``drive.duty`` needs a ``[drive]`` with one duty), the value its key's range, and the case with
 the value in place every rule across keys (a supply below the switch's breakdown voltage, a
 derating in (0, 1], …). The rules are not written again here: the case is turned back into a
-case document and run through the loader (:func:`kickback.caseio._build`).
+case document and run through the loader (:func:`kickback.casebuild.build_case`).
 
 Every rule of the case file bounds one value by others monotonically (a comparison, a product
 below a bound, a diode's ideality that moves one way with each of its parameters), so over a
@@ -20,49 +20,27 @@ import itertools
 import math
 
 from kickback.case import Case
+from kickback.casebuild import Context, build_case
+from kickback.casekeys import NUMERIC, did_you_mean, key_specs, leaf_units, numeric_keys
 from kickback.errors import CaseError
+from kickback.keypath import split_path
+from kickback.units import format_quantity
 
-#: field kinds of the loader's tables that hold one number
-_NUMERIC = ("q", "n", "f")
+#: the key tables' own functions, kept here for callers
+__all__ = ["MAX_CORNER_KEYS", "case_doc", "check_ranges", "check_values", "leaf_units", "numeric_keys", "resolve",
+           "variable_paths"]
 #: at most this many varied keys are checked at every corner of their box (2^k loader runs);
 #: beyond it each key's ends are checked with the others at their nominal values
 MAX_CORNER_KEYS = 10
 
 
-def _specs():
-    from kickback.caseio import key_specs
-
-    return key_specs()
-
-
-def numeric_keys() -> dict[str, str]:
-    """Every numeric key of the case file → its unit ('' for a plain number).
-
-    Table keys read ``table.key`` (``switch.gate_voltage``); element keys ``element:TYPE.key``
-    (``element:zener.voltage``).
-    """
-    tables, elements, _ = _specs()
-    out = {f"{t}.{k}": f.unit for t, spec in tables.items() for k, f in spec.items() if f.kind in _NUMERIC}
-    out |= {f"element:{t}.{k}": f.unit for t, spec in elements.items() for k, f in spec.items()
-            if f.kind in _NUMERIC}
-    return out
-
-
-def leaf_units() -> dict[str, str]:
-    """Numeric key name → unit, over every table and element type (a name has one unit)."""
-    out: dict[str, str] = {}
-    for key, unit in numeric_keys().items():
-        out[key.rsplit(".", 1)[1]] = unit
-    return out
-
-
 def variable_paths(case: Case) -> list[str]:
     """Every key path of ``case`` a study may vary (those :func:`resolve` accepts)."""
-    tables, elements, only = _specs()
+    tables, elements, only = key_specs()
     out = []
     for t, spec in tables.items():
         for k, f in spec.items():
-            if f.kind in _NUMERIC:
+            if f.kind in NUMERIC:
                 try:
                     _resolve(case, f"{t}.{k}")
                 except CaseError:
@@ -70,7 +48,7 @@ def variable_paths(case: Case) -> list[str]:
                 out.append(f"{t}.{k}")
     for i, cl in enumerate(case.clamps):
         for j, el in enumerate(cl.elements):
-            out += [f"clamp[{i}].element[{j}].{k}" for k, f in elements[el.type].items() if f.kind in _NUMERIC]
+            out += [f"clamp[{i}].element[{j}].{k}" for k, f in elements[el.type].items() if f.kind in NUMERIC]
     return out
 
 
@@ -86,8 +64,6 @@ def resolve(case: Case, path: str) -> str:
     try:
         return _resolve(case, path)
     except CaseError as err:
-        from kickback.caseio import did_you_mean
-
         hint = did_you_mean(path.replace(" ", ""), variable_paths(case))
         if not hint:
             raise
@@ -96,9 +72,7 @@ def resolve(case: Case, path: str) -> str:
 
 
 def _resolve(case: Case, path: str) -> str:
-    from kickback.keypath import split_path
-
-    tables, elements, only = _specs()
+    tables, elements, only = key_specs()
     parts = split_path(path)
     name, index = parts[0]
     if name == "clamp":
@@ -115,7 +89,7 @@ def _resolve(case: Case, path: str) -> str:
         field = elements[kind].get(leaf)
         if field is None:
             raise CaseError(f"does not apply to a {kind} element (expected one of: "
-                            f"{', '.join(k for k, f in elements[kind].items() if f.kind in _NUMERIC)})", key=path)
+                            f"{', '.join(k for k, f in elements[kind].items() if f.kind in NUMERIC)})", key=path)
     else:
         if name == "title" and len(parts) == 1:
             raise CaseError("'title' is not a numeric value (expected a key holding one number)", key=path)
@@ -126,9 +100,9 @@ def _resolve(case: Case, path: str) -> str:
         field = tables[name].get(leaf)
         if field is None:
             raise CaseError(f"unknown key in [{name}] (expected one of: "
-                            f"{', '.join(k for k, f in tables[name].items() if f.kind in _NUMERIC)})", key=path)
+                            f"{', '.join(k for k, f in tables[name].items() if f.kind in NUMERIC)})", key=path)
         _applies(case, name, leaf, only, path)
-    if field.kind not in _NUMERIC:
+    if field.kind not in NUMERIC:
         raise CaseError(f"{leaf!r} is not a numeric value (expected a key holding one number)", key=path)
     return field.unit
 
@@ -190,7 +164,7 @@ def _table_doc(obj, spec: dict, keep: tuple = ()) -> dict:
 def case_doc(case: Case) -> dict:
     """``case`` as a case document (what :func:`tomllib.loads` gives for its case file), without
     [[option]] and [tolerance]."""
-    tables, elements, _ = _specs()
+    tables, elements, _ = key_specs()
     keep = {"ideal": (), "mosfet": ("on_resistance",), "bjt": ("saturation_voltage",)}[case.switch.type]
     doc = {"title": case.title, "supply": _table_doc(case.supply, tables["supply"]),
            "coil": _table_doc(case.coil, tables["coil"], ("inductance", "resistance")),
@@ -215,8 +189,6 @@ def case_doc(case: Case) -> dict:
 
 
 def _put(doc: dict, path: str, value: float, unit: str) -> None:
-    from kickback.keypath import split_path
-
     parts = split_path(path)
     node = doc
     for name, index in parts[:-1]:
@@ -232,14 +204,12 @@ def check_values(case: Case, values: dict, what: str = "--vary") -> None:
     ------
     CaseError — ``key=what``; the message names the values and the rule they break, on one line.
     """
-    from kickback.caseio import _build, _Context
-
     units = {path: resolve(case, path) for path in values}
     doc = case_doc(case)
     for path, x in values.items():
         _put(doc, path, x, units[path])
     try:
-        _build(_Context(case.source, ""), doc, case.source, "")
+        build_case(Context(case.source, ""), doc, case.source, "")
     except CaseError as err:
         shown = ", ".join(f"{p} = {_shown(x, units[p])}" for p, x in values.items())
         rule = f"{err.key}: {err.message}" if err.key else err.message
@@ -247,8 +217,6 @@ def check_values(case: Case, values: dict, what: str = "--vary") -> None:
 
 
 def _shown(x: float, unit: str) -> str:
-    from kickback.units import format_quantity
-
     return format_quantity(x, unit) if unit else f"{x:g}"
 
 

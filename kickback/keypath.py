@@ -10,6 +10,7 @@ import dataclasses
 import re
 
 from kickback.case import Case, Drive
+from kickback.casekeys import did_you_mean, leaf_units
 from kickback.errors import CaseError
 
 _PART = re.compile(r"([a-z_]+)(?:\[(\d+)\])?$")
@@ -17,15 +18,9 @@ _TABLES = {"supply": "supply", "coil": "coil", "switch": "switch", "checks": "ch
            "motor": "motor"}
 
 
-def _units() -> dict[str, str]:
-    from kickback.casevary import leaf_units
-
-    return leaf_units()
-
-
 #: unit of each numeric key name ('' for a plain number), from the case loader's key tables
-#: (:func:`kickback.casevary.leaf_units`), for parsing FROM:TO strings and labelling axes
-UNITS = _units()
+#: (:func:`kickback.casekeys.leaf_units`), for parsing FROM:TO strings and labelling axes
+UNITS = leaf_units()
 
 
 def split_path(path: str) -> list[tuple[str, int | None]]:
@@ -48,8 +43,6 @@ def unit_of(path: str) -> str:
     """The unit symbol of the value a key path names ('' for a plain number)."""
     leaf = _split(path)[-1][0]
     if leaf not in UNITS:
-        from kickback.caseio import did_you_mean
-
         hint = did_you_mean(leaf, UNITS)
         expected = "a numeric key of the case file" if hint else f"one of: {', '.join(sorted(UNITS))}"
         raise CaseError(f"{leaf!r} is not a numeric case value{hint} (expected {expected})", key=path)
