@@ -18,8 +18,8 @@ from kickback.case import Case, Clamp, Coil, Element, Supply, Switch
 from kickback.errors import SolverError
 from kickback.keypath import set_value
 from kickback.studies.many import as_variations, batch_unsupported
+from kickback.studies.onepoint import point_figures
 from kickback.studies.points import evaluate, evaluate_cases, pick_engine
-from kickback.studies.sweep import point_figures
 
 
 def _dz(vz=24.0, name="Z1", kind="zener", r_dyn=1.5):

@@ -18,8 +18,8 @@ import numpy as np
 from kickback import parallel
 from kickback.case import Case, Option
 from kickback.studies.designs import allowed_voltage, family_candidates, impractical
+from kickback.studies.onepoint import point_figures, result_figures
 from kickback.studies.pool import map_points
-from kickback.studies.sweep import point_figures, result_figures
 
 #: a batch-screened candidate this close to a limit (relative margin) is confirmed by the detailed
 #: engine, where a fit of a nonlinear law is used: the bound on the fit's effect on every figure
@@ -36,7 +36,7 @@ class Candidate:
     value: float  # the sizing value [SI]; 0 for a family with a single member
     unit: str
     option: Option
-    figures: dict  # as kickback.studies.sweep.point_figures
+    figures: dict  # as kickback.studies.onepoint.point_figures
     v_allow: float
     engine: str = "detailed"  # the engine whose figures these are
 

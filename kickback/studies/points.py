@@ -32,6 +32,7 @@ import numpy as np
 
 from kickback.case import Case
 from kickback.errors import SolverError
+from kickback.studies.onepoint import point_figures
 
 ENGINES = ("auto", "batch", "detailed")
 #: variants the batch engine failed that are run again by the detailed engine, per call
@@ -108,7 +109,7 @@ class Points:
         return [name for name, c in self.checks.items() if c.applies[k] and not c.passed[k]]
 
     def point(self, k: int) -> dict:
-        """Variant k as :func:`kickback.studies.sweep.point_figures` gives one point (None for NaN)."""
+        """Variant k as :func:`kickback.studies.onepoint.point_figures` gives one point (None for NaN)."""
         if self.errors[k] is not None:
             return {"error": self.errors[k]}
         out = {name: _opt(a[k]) for name, a in self.figures.items()}
@@ -317,7 +318,6 @@ def _detailed(case: Case, var: dict, n: int, *, workers: int = 1, progress=None)
     """Every variant by the detailed engine (worker processes when workers > 1)."""
     from kickback.keypath import set_value
     from kickback.studies.pool import map_points
-    from kickback.studies.sweep import point_figures
 
     cases = []
     for k in range(n):
@@ -330,7 +330,7 @@ def _detailed(case: Case, var: dict, n: int, *, workers: int = 1, progress=None)
 
 
 def from_rows(case: Case, rows: list[dict]) -> Points:
-    """Rows of :func:`kickback.studies.sweep.point_figures` (detailed engine) as :class:`Points`."""
+    """Rows of :func:`kickback.studies.onepoint.point_figures` (detailed engine) as :class:`Points`."""
     n = len(rows)
     names = list(FIGURES) + [f"clamp[{k}].energy_J" for k in range(len(case.clamps))]
     figs = {name: np.array([np.nan if r.get(name) is None else r[name] for r in rows], float) for name in names}

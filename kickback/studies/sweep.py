@@ -10,8 +10,9 @@ import numpy as np
 
 from kickback.case import Case
 from kickback.casevary import check_ranges, resolve
-from kickback.errors import CaseError, KickbackError
+from kickback.errors import CaseError
 from kickback.keypath import unit_of
+from kickback.studies.points import evaluate
 
 #: figures reported per point: column name, unit
 COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
@@ -108,30 +109,6 @@ class SweepResult:
                          for a in self.axes], "points": self.rows()}
 
 
-def point_figures(case: Case) -> dict:
-    """Simulate one point (detailed engine) and keep only the sweep's columns (picklable)."""
-    from kickback.simulation import simulate
-
-    try:
-        r = simulate(case)
-    except KickbackError as err:
-        return {"error": getattr(err, "message", None) or str(err)}
-    return result_figures(r)
-
-
-def result_figures(r) -> dict:
-    """A detailed-engine :class:`~kickback.result.Result` as :func:`point_figures` keeps it."""
-    f = r.figures
-    return {"peak_voltage_V": f.peak_voltage_V, "clamp_energy_J": sum(c.energy_J for c in f.clamps),
-            "avalanche_energy_J": f.avalanche_energy_J, "to_10_percent_s": f.to_10_percent_s,
-            "to_1_percent_s": f.to_1_percent_s, "to_zero_s": f.to_zero_s, "release_s": f.release_s,
-            "pass": r.passed, "failing_checks": [f"{c.part} {c.quantity}" for c in r.checks if not c.passed],
-            "error": None, "audit": list(r.audit.findings),
-            "checks": [(f"{c.part} {c.quantity}", c.value, c.limit, c.margin, c.passed) for c in r.checks],
-            "stored_energy_J": f.stored_energy_J, "energy_balance_error": f.energy_balance_error} | {
-                f"clamp[{k}].energy_J": c.energy_J for k, c in enumerate(f.clamps)}
-
-
 def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=None,
               engine: str = "auto", executor=None) -> SweepResult:
     """Simulate every grid point of ``axes`` (one or two).
@@ -156,8 +133,6 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
     CaseError — not one or two axes, or a key path the case does not have
     SolverError — ``engine="batch"`` for a case the batch engine does not cover
     """
-    from kickback.studies.points import evaluate
-
     if not 1 <= len(axes) <= 2:
         raise CaseError(f"{len(axes)} swept values (expected one or two --vary)", key="--vary")
     ranges = {}
