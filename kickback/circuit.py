@@ -12,16 +12,17 @@ The energies are integrals carried as states so that the ledger is as accurate a
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from kickback.case import Case
 from kickback.chain import Chain, regularized
+from kickback.coilstate import CoilStates
 from kickback.errors import CaseError
 from kickback.floatnode import FLOAT, FLOAT_CONDUCTANCE, FLOAT_RESIDUAL, FloatingNode  # noqa: F401
 from kickback.models.switch import switch_law
 from kickback.nodebalance import solve_monotone as _solve_monotone
+from kickback.onstate import OnState, solve_on_state
 
 N_ENERGY_FIXED = 5  # E_R, E_supply, E_channel, E_avalanche, E_body
 #: relative size of the resistance given to zero-resistance laws when the node has capacitance
@@ -31,27 +32,7 @@ REGULARIZATION = 1e-7
 LEAKAGE = 1e-12
 
 
-@dataclass(frozen=True)
-class OnState:
-    """DC on-state before turn-off.
-
-    Parameters
-    ----------
-    coil_current : float — [A]
-    node_voltage : float — [V] switch-node voltage
-    switch_current : float — [A] channel current
-    chain_currents : tuple of float — [A] each clamp chain's current (from sw to its far end)
-    chain_voltages : tuple of float — [V] each chain's voltage (sw minus its far end)
-    """
-
-    coil_current: float
-    node_voltage: float
-    switch_current: float
-    chain_currents: tuple[float, ...]
-    chain_voltages: tuple[float, ...]
-
-
-class Circuit(FloatingNode):
+class Circuit(CoilStates, FloatingNode):
     """The turn-off circuit of one case, ready for an engine."""
 
     def __init__(self, case: Case):
@@ -87,7 +68,7 @@ class Circuit(FloatingNode):
             raise CaseError("no conducting path takes the coil current at turn-off: the switch-node voltage "
                             "would be unbounded (expected a clamp, switch.breakdown_voltage or "
                             "switch.capacitance)", source=case.source, key="switch")
-        self.on = self._on_state()
+        self.on: OnState = solve_on_state(case, self.switch.on_state, self.chains)
         self.i0 = self.on.coil_current
         if self.i0 <= 0:
             raise CaseError("the coil carries no current before turn-off (expected a positive "
@@ -159,132 +140,6 @@ class Circuit(FloatingNode):
                 ref = self.Vs * ch.reference
                 out += [ref + x for x in (ch.pieces.v_fwd,) if math.isfinite(x)]
         return out
-
-    def _on_state(self) -> OnState:
-        """Solve the DC on-state: coil, switch on-state law and every resistive chain."""
-        given = self.case.coil.initial_current
-        on = self.switch.on_state
-
-        def branches(v):
-            out = [float(on.current(v))]
-            out += [0.0 if ch.capacitance is not None else float(ch.current(v - self.Vs * ch.reference))
-                    for ch in self.chains]
-            return out
-
-        m = self.case.motor
-
-        def coil(v):
-            if given is not None:
-                return given
-            if m is None:
-                return (self.Vs - v) / self.R
-            if not m.mechanical:
-                return (self.Vs - v - m.back_emf_constant * m.speed) / self.R
-            k, b, tl = m.back_emf_constant, m.viscous_friction, m.load_torque
-            if b == 0:
-                return tl / k  # no friction: the speed settles where the torque meets the load
-            # k·i = B·ω + T_L and V − v = R·i + k·ω (DC machine in steady state)
-            return (self.Vs - v + k * tl / b) / (self.R + k * k / b)
-
-        def resid(v):
-            return sum(branches(v)) - coil(v)
-
-        # a coil with no resistance (and no back-EMF drop that depends on its current) holds the
-        # node at the supply less the back-EMF: the coil is then the vertical law, and the switch
-        # and clamps set its current (a MOSFET's R_on limits it)
-        pinned_coil = given is None and self.R == 0 and (m is None or not m.mechanical)
-        if pinned_coil:
-            v = self.Vs - (m.back_emf_constant * m.speed if m is not None else 0.0)
-            cur = branches(v)
-            i_coil = sum(cur)
-            if not math.isfinite(i_coil):
-                raise CaseError("with zero coil resistance the on-state current is unbounded: the switch's "
-                                "on-state law takes any current at the supply voltage (expected "
-                                "coil.resistance > 0, coil.initial_current, or a MOSFET with "
-                                "switch.on_resistance > 0)", source=self.case.source, key="coil.resistance")
-            chain_v = tuple(v - self.Vs * ch.reference for ch in self.chains)
-            return OnState(i_coil, v, cur[0], tuple(cur[1:]), chain_v)
-        thresholds = [on.v_fwd] + ([on.v_rev] if math.isfinite(on.v_rev) else [])
-        for ch in self.chains:
-            thresholds += [t + self.Vs * ch.reference for t in ch.thresholds()] if ch.capacitance is None else []
-        v = _solve_monotone(resid, thresholds, self.Vs)
-        cur = branches(v)
-        i_coil = coil(v)
-        # a vertical on-state law takes what the others leave
-        vertical_switch = on.r_fwd == 0 and abs(v - on.v_fwd) < 1e-12 * max(1, abs(v))
-        i_sw = i_coil - sum(cur[1:]) if vertical_switch else cur[0]
-        bad = [k for k, x in enumerate(cur) if not math.isfinite(x) and not (k == 0 and vertical_switch)]
-        if bad or not math.isfinite(i_sw):
-            # the clamps in the conflict: those with no finite current, and those held at their
-            # own vertical voltage against the switch
-            bad += [k + 1 for k, ch in enumerate(self.chains) if ch.capacitance is None and k + 1 not in bad
-                    and any(abs(v - x - self.Vs * ch.reference) < 1e-9 * max(1.0, abs(v)) for x in ch.thresholds())]
-            names = [self.chains[k - 1].name for k in bad if k > 0]
-            what = f"clamp {', '.join(names)}" if names else "the switch"
-            raise CaseError(f"no DC on-state: {what} would carry an unbounded current while the switch is on "
-                            "(two ideal laws hold the switch node at different voltages; expected a series "
-                            "resistance in the clamp, or a clamp that blocks the supply voltage)",
-                            source=self.case.source, key=(self.chains[bad[-1] - 1].clamp.path or "clamp")
-                            if names else "switch")
-        chain_v = tuple(v - self.Vs * ch.reference for ch in self.chains)
-        return OnState(i_coil, v, i_sw, tuple(cur[1:]), chain_v)
-
-    # ------------------------------------------------------------------- coil
-    def coil_current(self, x0):
-        """Coil current [A] from the first state (the current itself, or the flux linkage)."""
-        if not self.flux:
-            return x0
-        from kickback.models.coil import current_from_flux, incremental_inductance
-
-        # the law ends at |λ| = L0·I_sat; trial states of an implicit step may go past it, so
-        # continue it linearly there (no physical state comes near)
-        lam_max = 0.999 * self.L * self.i_sat
-        x = np.asarray(x0, dtype=float)
-        xc = np.clip(x, -lam_max, lam_max)
-        ic = current_from_flux(xc, self.L, self.i_sat)
-        out = np.where(x == xc, ic, ic + (x - xc) / incremental_inductance(ic, self.L, self.i_sat))
-        return float(out) if np.ndim(out) == 0 else out
-
-    def coil_state(self, i):
-        """The first state for a coil current [A]."""
-        if not self.flux:
-            return i
-        from kickback.models.coil import flux_linkage
-
-        return float(flux_linkage(i, self.L, self.i_sat))
-
-    def coil_energy(self, i):
-        """Energy stored in the coil [J] at current ``i`` [A]: ½·L·i², or ∫ i dλ when saturating."""
-        if not self.flux:
-            return 0.5 * self.L * i * i
-        from kickback.models.coil import stored_energy
-
-        return float(stored_energy(i, self.L, self.i_sat))
-
-    def _state_gain(self, i: float) -> tuple[float, float]:
-        """(di/dx0, dx0/dt per volt across the coil): (1, 1/L) linear; (1/L_inc, 1) in flux."""
-        if not self.flux:
-            return 1.0, 1.0 / self.L
-        from kickback.models.coil import incremental_inductance
-
-        return 1.0 / float(incremental_inductance(i, self.L, self.i_sat)), 1.0
-
-    def speed_of(self, y) -> float:
-        """Motor speed [rad/s] in state ``y`` (the fixed speed, or the state)."""
-        if self.motor is None:
-            return 0.0
-        return float(y[self.iw]) if self.mech else self.motor.speed
-
-    def on_speed(self) -> float:
-        """Motor speed [rad/s] in the on-state."""
-        m = self.motor
-        if m is None:
-            return 0.0
-        if not m.mechanical:
-            return m.speed
-        if m.viscous_friction == 0:
-            return (self.Vs - self.on.node_voltage - self.R * self.i0) / m.back_emf_constant
-        return (m.back_emf_constant * self.i0 - m.load_torque) / m.viscous_friction
 
     def initial_state(self) -> np.ndarray:
         y = np.zeros(self.n_states)
@@ -434,7 +289,7 @@ class Circuit(FloatingNode):
             vals = [ich, ioff, *ichains]
         d = np.zeros_like(y)
         emf = self.k_emf * self.speed_of(y) if self.motor else 0.0
-        d[0] = (self.Vs - v - self.R * i - emf) * (self._state_gain(i)[1] if self.flux else 1.0 / self.L)
+        d[0] = (self.Vs - v - self.R * i - emf) * (self.state_gain(i)[1] if self.flux else 1.0 / self.L)
         if self.motor:
             m = self.motor
             d[-1] = emf * i
@@ -488,7 +343,7 @@ class Circuit(FloatingNode):
                 g[b] = math.inf
         G = sum(g)
         # chain rule through the first state: di/dx0 = g0; dx0/dt = k0 × (coil voltage)
-        g0, k0 = self._state_gain(float(self.coil_current(y[0])))
+        g0, k0 = self.state_gain(float(self.coil_current(y[0])))
         if self.mech:
             m = self.motor
             jm[0, self.iw] = -k0 * m.back_emf_constant

@@ -53,7 +53,7 @@ class FloatingNode:
         conductance h'(v) → 0, where solving the balance for v loses every digit (one rounding
         unit of i moves v by 1/h'); see DEVELOPERS.md ("How the engine works")."""
         i = float(self.coil_current(y[0]))
-        g0, k0 = self._state_gain(i)
+        g0, k0 = self.state_gain(i)
         emf = self.k_emf * self.speed_of(y) if self.motor else 0.0
         return self.Vs - self.R * i - emf - self.forced_slope(t) / (g0 * k0)
 
@@ -92,7 +92,7 @@ class FloatingNode:
     def _floating_jacobian(self, t, v, y, g, jm):
         """Jacobian of a floating node: the coil current follows its forced rate, the node
         voltage V_s − R·i − … moves with the coil current by −R (per unit of the first state)."""
-        g0, k0 = self._state_gain(float(self.coil_current(y[0])))
+        g0, k0 = self.state_gain(float(self.coil_current(y[0])))
         dv_dx0 = -self.R * g0
         if self.mech:
             m = self.motor
