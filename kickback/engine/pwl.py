@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.engine.pwl_functions import cosh_sinhc, modal_integrals, phi12, psi01
+from kickback.errors import KickbackError
 
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(16)
 #: |β·T| up to which the scalar segment's integrals use 16-point Gauss–Legendre quadrature
@@ -48,8 +49,11 @@ _TRIPLE_GAP = 1e-7
 _CANCEL = 300.0
 
 
-class SegmentError(ArithmeticError):
-    """A segment the closed forms do not cover (singular or triply degenerate state matrix)."""
+class SegmentError(KickbackError, ArithmeticError):
+    """A segment the closed forms do not cover (singular or triply degenerate state matrix).
+
+    The batch engine turns it into the variant's failure status and message.
+    """
 
 
 @dataclass
