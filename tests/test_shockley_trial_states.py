@@ -99,7 +99,7 @@ def test_regularised_shockley_chain_is_finite_and_exact():
         return a * math.log1p(i / i_s) + r_min * i
 
     for v in (0.9, 1.2, 60.0, 1e12):
-        want = brentq(lambda i: volt(i) - v, 0.0, v / r_min, xtol=1e-300, rtol=1e-14)
+        want = brentq(lambda i, v=v: volt(i) - v, 0.0, v / r_min, xtol=1e-300, rtol=1e-14)
         got = ch.current_at(v)
         assert math.isfinite(got) and got == pytest.approx(want, rel=1e-9)
     # an unregularised chain (node without capacitance) keeps the exact law
