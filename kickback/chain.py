@@ -30,7 +30,8 @@ class Chain(SeriesSolve):
     Parameters
     ----------
     clamp : Clamp — the case's clamp
-    r_min : float — [Ω] resistance given to zero-resistance pieces (0: exact, vertical)
+    r_min : float — [Ω] resistance given to zero-resistance pieces and, as series resistance, to a
+        Shockley diode that has none (0: exact, vertical)
     """
 
     clamp: Clamp
@@ -50,6 +51,14 @@ class Chain(SeriesSolve):
             elif self.r_min > 0 and law.pieces() is not None:
                 p = regularized(law.pieces(), self.r_min)
                 law = PiecewiseLinearLaw(p, law.description)
+            elif self.r_min > 0 and isinstance(law, ShockleyDiode) and law.r_s == 0:
+                # a Shockley diode with no series resistance is vertical in the limit: its current
+                # overflows to inf beyond ~700·n·V_T, where a trial state of an implicit step may
+                # land (and inf − inf then made the supply current NaN); r_min in series keeps it
+                # finite at every finite voltage, as for the other zero-resistance laws
+                desc = law.description
+                law = ShockleyDiode(law.n, law.i_s, self.r_min, law.a / law.n)
+                law.description = desc
             self.laws.append(law)
         self.reference = 1.0 if self.clamp.across == "coil" else 0.0  # × supply voltage
         active = [law for law in self.laws if law is not None]

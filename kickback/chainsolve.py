@@ -13,7 +13,14 @@ from __future__ import annotations
 
 import math
 
-from kickback.models import ShockleyDiode
+from kickback.models import ShockleyDiode, Varistor
+
+
+def _geometric_mean(a: float, b: float) -> float:
+    """√(a·b) of two positive numbers without forming the product: a chain current of ~1e-256 A
+    (a varistor far below its knee) squared underflows to 0, and the bisection then returned to
+    zero current and back, 200 times (a bracket that never shrank)."""
+    return math.sqrt(a) * math.sqrt(b)
 
 
 class SeriesSolve:
@@ -53,6 +60,18 @@ class SeriesSolve:
         h = 1e-6 * abs(i)
         return (self._law_voltage(k, i + h) - self._law_voltage(k, i - h)) / (2 * h)
 
+    def _law_log_slope(self, k: int, i: float) -> float:
+        """dv/ds of element ``k`` in s = ln|i|, i.e. i·dv/di [V], at current ``i`` ≠ 0 [A].
+
+        Formed without the incremental resistance where that is not a float: a varistor far
+        below its knee (i ~ 1e-256 A) has dv/di beyond 1e308 Ω while i·dv/di = v/α stays small
+        (v = V_1·|i/I_1|^(1/α), Levinson & Philipp 1986); the product inf × i rejected every
+        Newton step there, and the solve crept up on the root by bisection."""
+        law = self.laws[k]
+        if isinstance(law, Varistor) and abs(i / law.i1) <= law.CURRENT_CAP:
+            return law.voltage_at(i) / law.alpha
+        return i * self._law_slope(k, i)
+
     def _newton(self, g, lo: float, hi: float, g_lo: float | None = None, g_hi: float | None = None,
                 start: float | None = None) -> float:
         """Root of the increasing ``g`` (chain voltage less the target) in [lo, hi], a bracket
@@ -62,33 +81,52 @@ class SeriesSolve:
         ends of a bracket of one sign, the first iterate is the chord's root in s (regula falsi),
         else the bracket's geometric mean."""
         sign = 1.0 if hi > 0 else -1.0
-        x = 0.5 * (lo + hi) if lo * hi <= 0 else sign * math.sqrt(lo * hi)
-        if lo * hi > 0 and g_lo is not None and g_hi is not None and g_lo < 0 < g_hi:
+        same_side = (lo > 0 and hi > 0) or (lo < 0 and hi < 0)
+        x = sign * _geometric_mean(abs(lo), abs(hi)) if same_side else 0.5 * (lo + hi)
+        if same_side and g_lo is not None and g_hi is not None and g_lo < 0 < g_hi:
             s_lo, s_hi = math.log(abs(lo)), math.log(abs(hi))
             s = s_lo + (s_hi - s_lo) * (-g_lo) / (g_hi - g_lo)
             if min(s_lo, s_hi) < s < max(s_lo, s_hi):
                 x = sign * math.exp(s)
         if start is not None and lo <= start <= hi:
             x = start
+        other_last = False
         for _ in range(200):
             f = g(x)
             if abs(f) <= self._v_round:
                 return x  # the chain voltage is met to its rounding error
             if f < 0:
-                lo = x
+                lo, g_lo = x, f
             else:
-                hi = x
+                hi, g_hi = x, f
             a_lo, a_hi = sorted((abs(lo), abs(hi)))
             # no NaN here (a comparison with NaN raises the FPU's invalid flag, which the
             # vectorised caller reports): a rejected Newton step is None
-            slope = sum(self._law_slope(k, x) for k in self._active_idx) if x != 0 else 0.0
+            # dv/ds in s = ln|i| (same sign as x for an increasing chain voltage)
+            dv_ds = sum(self._law_log_slope(k, x) for k in self._active_idx) if x != 0 else 0.0
             xn = None
-            if 0 < slope < math.inf:
-                ds = -f / (slope * x)
+            if 0 < dv_ds * sign < math.inf:
+                ds = -f / dv_ds
                 if abs(ds) < 50:
                     xn = x * math.exp(ds)
             if xn is None or not lo < xn < hi:
-                xn = sign * (math.sqrt(a_lo * a_hi) if a_lo > 0 else 0.5 * a_hi)
+                # a Newton step from the bracket's other end: from the convex side Newton's step
+                # overshoots the bracket every time, and bisection alone then creeps up on a root
+                # that lies near the far end (a varistor far below its knee: 27 steps for one
+                # chain current); every other fallback bisects (in s), so that it cannot stall
+                xn = None
+                other, g_other = (hi, g_hi) if f < 0 else (lo, g_lo)
+                if not other_last and g_other is not None and other != 0 and math.isfinite(g_other):
+                    d_other = sum(self._law_log_slope(k, other) for k in self._active_idx)
+                    if 0 < d_other * sign < math.inf and abs(g_other / d_other) < 50:
+                        xn = other * math.exp(-g_other / d_other)
+                        if not lo < xn < hi:
+                            xn = None
+                other_last = xn is not None
+                if xn is None:
+                    xn = sign * (_geometric_mean(a_lo, a_hi) if a_lo > 0 else 0.5 * a_hi)
+            else:
+                other_last = False
             if abs(xn - x) <= 1e-13 * abs(xn) or a_hi - a_lo <= 1e-15 * a_hi:
                 return xn
             if abs(xn - x) <= 1e-8 * abs(xn) and lo < xn < hi:

@@ -120,8 +120,12 @@ def _duration_above(t: np.ndarray, x: np.ndarray, level: float) -> float:
     dt = np.diff(t)
 
     def share_above(lim):  # fraction of each step with x > lim
-        with np.errstate(divide="ignore", invalid="ignore"):
-            s = (lim - x0) / d
+        # s = (lim − x0)/d, formed only where |lim − x0| ≤ |d| (s within [−1, 1]): elsewhere the
+        # crossing lies outside the step, and a subnormal d (a current decayed to ~1e-310 A)
+        # would overflow the quotient; ±2 stands for "beyond the step" on the quotient's side
+        num = lim - x0
+        inside = (np.abs(num) <= np.abs(d)) & (d != 0)
+        s = np.where(inside, num / np.where(inside, d, 1.0), 2.0 * np.sign(num) * np.sign(d))
         return np.where(d > 0, np.clip(1.0 - s, 0.0, 1.0),
                         np.where(d < 0, np.clip(s, 0.0, 1.0), (x0 > lim).astype(float)))
 

@@ -19,6 +19,7 @@ import numpy as np
 from kickback.case import Case
 from kickback.circuit import Circuit, OnState
 from kickback.engine.periodic import SteadyState
+from kickback.errors import CaseError
 
 
 class PeriodicStart(Circuit):
@@ -29,6 +30,15 @@ class PeriodicStart(Circuit):
     def __init__(self, case: Case, ss: SteadyState):
         x = np.array(ss.x_turnoff, dtype=float)
         i = float(ss.waveforms.circuit.coil_current(x[0]))
+        if not i > 0:
+            # an on-time too short to bring the coil current positive again after the off
+            # phase's ring: there is no current for the final turn-off to interrupt, and its
+            # figures (decay to a fraction of the initial current) have no meaning
+            raise CaseError(
+                f"at duty {ss.duty:g} the coil current at the turn-off instant of the periodic steady "
+                f"state is {i:.3g} A (the on-time does not bring it positive): there is no current for "
+                "a final turn-off from that state (expected a longer on-time, or final_turn_off = false "
+                "for a turn-off from the DC on-state)", source=case.source, key="drive.final_turn_off")
         super().__init__(replace(case, coil=replace(case.coil, initial_current=i)))
         self._x = x
         self.duty = ss.duty
@@ -60,8 +70,8 @@ class PeriodicStart(Circuit):
 def turnoff_duty(steady) -> SteadyState:
     """Of the steady states ``steady``, the one whose coil current at the turn-off instant is the
     highest."""
-    def current(ss):
-        return abs(float(ss.waveforms.circuit.coil_current(ss.x_turnoff[0])))
+    def current(ss):  # signed: a negative current is no worst case for the turn-off
+        return float(ss.waveforms.circuit.coil_current(ss.x_turnoff[0]))
 
     return max(steady, key=current)
 

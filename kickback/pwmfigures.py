@@ -3,6 +3,7 @@ and junction temperatures."""
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -181,6 +182,31 @@ def _junction(t, p, r, tau, ambient):
     return float(ambient + mean), float(ambient + foster_peak(t, p, r, tau, start))
 
 
+def channel_step(on, v_start: float, i: float) -> tuple[float, float]:
+    """The node step a closing channel carries at turn-on: from ``v_from`` to ``v_end`` [V].
+
+    ``on`` is the channel's on-state law (:class:`~kickback.models.base.LinearPieces`),
+    ``v_start`` [V] the node at the turn-on instant, ``i`` [A] the coil current then (held through
+    the short step). The node settles where the channel carries the coil current, on its forward
+    piece (``i > 0``) or its reverse piece (``i < 0``). A channel with no reverse piece (a BJT)
+    carries no negative current: it stops conducting at the edge of its zero-current band
+    ``[v_rev, v_fwd]`` (V_sat), and below that edge the coil moves the node, not the channel.
+    Likewise a start inside the band is carried by the coil up to the band's edge: only the part
+    of the step outside the band passes through the channel.
+    """
+    lo, hi = on.v_rev, on.v_fwd
+    if i > 0:
+        v_end = hi + on.r_fwd * i
+    elif i < 0 and math.isfinite(lo):
+        v_end = lo + on.r_rev * i
+    else:  # no channel current at this coil current: the node stays anywhere in the band
+        v_end = min(max(v_start, lo), hi)
+    v_from = v_start
+    if lo < v_start < hi:  # within the band the channel carries nothing
+        v_from = min(max(v_end, lo), hi)
+    return v_from, v_end
+
+
 def turn_on_discharge(ss: SteadyState) -> float:
     """Energy the channel takes at each turn-on from the node capacitance, per cycle [J].
 
@@ -190,8 +216,14 @@ def turn_on_discharge(ss: SteadyState) -> float:
     (C_oss and capacitors across the switch) discharges through the channel, and the capacitance
     to the supply (winding, capacitors across the coil) charges by the same step through it. A
     capacitor stepped by ΔV through a resistance dissipates ½·C·ΔV² in it whatever the resistance.
+    Where the channel cannot carry the coil current of that instant (a BJT with the coil current
+    negative or zero) it discharges the node only down to its saturation voltage, and only the
+    part of the step outside the channel's zero-current band counts (:func:`channel_step`).
 
     .. math:: E = \\tfrac12 (C_{gnd} + C_{+}) (V - V_{on})^2
+
+    An RC snubber's capacitor is not node capacitance: its discharge at turn-on is booked to the
+    snubber's resistor (the clamp element energies) and the channel's on-phase energy.
 
     References
     ----------
@@ -202,7 +234,8 @@ def turn_on_discharge(ss: SteadyState) -> float:
     if c.iv is None:
         return 0.0
     w = ss.waveforms
-    dv = float(ss.x[c.iv]) - float(c.switch.on_state.voltage(float(w.i_coil[0])))
+    v_from, v_end = channel_step(c.switch.on_state, float(ss.x[c.iv]), float(w.i_coil[0]))
+    dv = v_from - v_end
     return 0.5 * c.C_node * dv * dv
 
 

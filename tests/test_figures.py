@@ -111,6 +111,18 @@ def test_duration_above_single_pulse():
     _close(_duration_above(t, x, 0.5), 2.0, 1e-14, "trapezoid above 0.5")
 
 
+def test_duration_above_with_subnormal_steps():
+    """A current that decays to subnormal values (1e-310 A and below) after a pulse: the steps
+    between them must not overflow the crossing quotient (warnings are errors here), and the time
+    above 0.5 is that of the trapezoid, 2 (derived as above), the tail adding nothing."""
+    t = np.array([0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 6.0])
+    x = np.array([0.0, 1.0, 1.0, 0.0, 1e-310, 3e-310, -2e-310])
+    _close(_duration_above(t, x, 0.5), 2.0, 1e-14, "trapezoid above 0.5, subnormal tail")
+    # level 2e-310: the pulse's three steps (3, to 1e-300), half of 1e-310 → 3e-310 and the part
+    # 1/5 of 3e-310 → −2e-310 above 2e-310 (derived): 3.7
+    _close(_duration_above(t, x, 2e-310), 3.7, 1e-12, "level 2e-310: the tail counts")
+
+
 # ============================================================================ simulated release time
 VS, L, R = 24.0, 0.08, 30.0  # [V], [H], [Ω] — invented coil
 VD, VZ = 0.7, 24.0  # [V] constant-drop diode and ideal Zener

@@ -251,3 +251,38 @@ def test_order_of_the_duties_does_not_change_the_final_turnoff():
     for p in b.pwm:
         assert p.switch_rms_A == pytest.approx(pa[p.duty].switch_rms_A, rel=1e-9)
         assert p.switch_junction_peak_K == pytest.approx(pa[p.duty].switch_junction_peak_K, rel=1e-9)
+
+
+@pytest.mark.parametrize("t_off", [12e-6, 10e-6], ids=["current-negative", "current-positive"])
+def test_final_turnoff_with_no_current_to_interrupt_is_refused(t_off):
+    """An ideal switch with output capacitance and no clamp, 0.1 µs on: the off phase rings the
+    node with the coil (series RLC towards (0, V_s): L·i' = V_s − v − R·i, C·v' = i, its map by
+    scipy.linalg.expm), and the on phase (node at 0) is the RL exponential toward V_s/R. The
+    periodic coil current at turn-on solves the scalar fixed point of the two affine maps (derived
+    here). With t_off = 12 µs the on-time leaves the current negative at the turn-off instant:
+    there is nothing for a final turn-off to interrupt, so the case is refused with the reason at
+    drive.final_turn_off (it was refused as "the coil carries no current" at coil). With 10 µs the
+    current is positive and the final turn-off starts from it."""
+    from kickback.errors import CaseError
+
+    vs, lh, r, c, t_on = 24.0, 1e-3, 240.0, 10e-9, 0.1e-6
+    a = np.array([[-r / lh, -1.0 / lh], [1.0 / c, 0.0]])
+    rest = np.array([0.0, vs])
+    p = expm(a * t_off)
+    e_on = math.exp(-r * t_on / lh)
+    # i_start = P00·i_turnoff + (−P·rest)_0 with i_turnoff = V_s/R·(1 − e_on) + e_on·i_start
+    q = -(p @ rest)[0]
+    i_start = (p[0, 0] * vs / r * (1 - e_on) + q) / (1 - p[0, 0] * e_on)
+    i_turnoff = vs / r + (i_start - vs / r) * e_on
+    period = t_on + t_off
+    case = Case("short on-time (demo data)", Supply(vs), Coil(lh, r), Switch("ideal", capacitance=c), (),
+                drive=Drive(1 / period, (t_on / period,), True))
+    if t_off == 12e-6:
+        assert i_turnoff < -1e-3  # the regime meant
+        with pytest.raises(CaseError) as err:
+            simulate(case)
+        assert err.value.key == "drive.final_turn_off" and "coil current at the turn-off instant" in str(err.value)
+    else:
+        assert i_turnoff > 1e-3
+        res = simulate(case, rtol=1e-8)
+        assert res.figures.initial_current_A == pytest.approx(i_turnoff, rel=1e-5)

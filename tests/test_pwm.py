@@ -198,3 +198,31 @@ def test_turn_on_discharge_is_its_own_term(duty):
     # (7e-4 found)
     assert pf.conduction_loss_W == pytest.approx(ron * i2 * F, rel=2e-3)
     assert i_max > i_min > 0  # continuous conduction: the node stays at V_s + V_f while off
+
+
+@pytest.mark.parametrize("t_off", [12e-6, 20e-6], ids=["coil-current-negative", "coil-current-positive"])
+def test_turn_on_discharge_bjt_ringing_node(t_off):
+    """A BJT with output capacitance and no clamp: at turn-off the node rings with the coil (series
+    RLC from i = (V_s − V_sat)/R, v = V_sat), and at turn-on the coil current may be negative,
+    which a BJT's channel cannot carry: the channel then discharges the node only down to V_sat,
+    ½·C·(V − V_sat)² (Mohan et al., Power Electronics, ch. 24: the capacitive turn-on loss). The
+    state at turn-on comes from the matrix exponential of the linear off phase
+    (scipy.linalg.expm), the on phase being long enough (24 L/R) to settle completely. It was
+    −∞ V on-state voltage and an infinite discharge energy before."""
+    from scipy.linalg import expm
+
+    vs, lh, r, c, vsat, t_on = 24.0, 1e-3, 240.0, 10e-9, 0.3, 100e-6
+    a = np.array([[-r / lh, -1.0 / lh], [1.0 / c, 0.0]])  # L·i' = V_s − v − R·i, C·v' = i
+    rest = np.array([0.0, vs])
+    i_t, v_t = rest + expm(a * t_off) @ (np.array([(vs - vsat) / r, vsat]) - rest)
+    assert v_t > vsat and (i_t < -1e-3 if t_off < 15e-6 else i_t > 1e-3)  # the regime meant
+    case = Case("BJT ringing node (demo data)", Supply(vs), Coil(lh, r),
+                Switch("bjt", saturation_voltage=vsat, capacitance=c), ())
+    period = t_on + t_off
+    pf = pwm_figures(steady_state(Circuit(case), t_on / period, 1 / period, rtol=1e-8))
+    # V_on = V_sat either way: a positive current adds only the regularising resistance's drop
+    # (~1e-5 Ω × 1e-2 A here), far below the tolerance
+    want = 0.5 * c * (v_t - vsat) ** 2
+    assert pf.turn_on_discharge_energy_J == pytest.approx(want, rel=1e-6)
+    assert pf.turn_on_discharge_loss_W == pytest.approx(want / period, rel=1e-6)
+    assert math.isfinite(pf.conduction_loss_W) and pf.conduction_loss_W > 0

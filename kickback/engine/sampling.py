@@ -79,7 +79,13 @@ def derived_with_pin(c: Circuit, pin, t: np.ndarray, y: np.ndarray, phase=None):
         if pin is not None:
             rest = c.coil_current(y[0]) - out[1] - out[2] - sum(out[3])
             branches = [out[1], out[2], *out[3]]
-            branches[pin[1]] = branches[pin[1]] + rest
+            # the pinned law carries current only on its conducting side (pin[2] · i ≥ 0: the
+            # release event ends the pin where that current reaches zero); at the pin's first
+            # and last instants the balance leaves a rounding residue of the other sign, which a
+            # blocking law (a diode's reverse piece) would read as an element voltage of −inf
+            # (a floating node, side 0, has no such side)
+            pinned = branches[pin[1]] + rest
+            branches[pin[1]] = pin[2] * np.maximum(pin[2] * pinned, 0.0) if pin[2] else pinned
             out = (out[0], branches[0], branches[1], branches[2:])
         return out
     finally:
