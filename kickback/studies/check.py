@@ -189,7 +189,8 @@ def _tolerance(case, n: int, seed: int) -> dict:
         tr = run_tolerance(case, n, seed, workers=1, recheck=0)
     except KickbackError as err:
         return {"none": f"the tolerance study could not run: {err}"}
-    return {"samples": n, "seed": seed, "yield": tr.yield_, "yield_ci95": list(tr.yield_ci), "engine": tr.engine,
+    return {"samples": n, "seed": seed, "yield": tr.yield_, "yield_ci95": list(tr.yield_ci), "engine": tr.asked,
+            "engines": tr.engines,
             "failed_samples": int(len(tr.passed) - tr.passed.sum())}
 
 

@@ -64,7 +64,8 @@ class Points:
 
     Attributes
     ----------
-    engine : str — "batch" or "detailed" (the engine that ran)
+    engine : str — "batch" or "detailed": the engine picked for the case (:func:`pick_engine`);
+        single variants may have run on the other one, see ``ran``
     figures : dict — name → float array (NaN: the time does not occur, or not simulated);
         the names of :data:`FIGURES` and ``clamp[k].energy_J`` for every clamp
     checks : dict — "part quantity" → :class:`CheckCol`, in the order of
@@ -79,6 +80,8 @@ class Points:
     audit_failed : int — variants whose result failed the audit of the first engine
     audit_solved : int — of those, solved again on ``audit_engine`` with a passing audit
     audit_engine : str — the engine that solved them again ("" when none did)
+    ran : object array or None — per variant, the engine whose result it holds ("batch" or
+        "detailed"; None: every variant on ``engine``)
     """
 
     engine: str
@@ -93,10 +96,24 @@ class Points:
     audit_failed: int = 0
     audit_solved: int = 0
     audit_engine: str = ""
+    ran: np.ndarray | None = None
 
     @property
     def n(self) -> int:
         return int(self.passed.size)
+
+    def ran_on(self) -> np.ndarray:
+        """Per variant, the engine whose result it holds ("batch" or "detailed")."""
+        if self.ran is None:
+            out = np.empty(self.n, dtype=object)
+            out[:] = self.engine
+            return out
+        return self.ran
+
+    def engine_counts(self) -> dict:
+        """Variants per engine whose result they hold, e.g. ``{"batch": 19, "detailed": 2}``
+        (engines that ran none left out)."""
+        return engine_counts(self.ran_on())
 
     @property
     def audit_note(self) -> str:
@@ -121,6 +138,13 @@ class Points:
 def _opt(x):
     x = float(x)
     return None if np.isnan(x) else x
+
+
+def engine_counts(ran) -> dict:
+    """How many of ``ran`` (engine names, one per variant) ran on each engine: batch first, then
+    detailed; an engine that ran none is left out."""
+    ran = list(ran)
+    return {e: ran.count(e) for e in ("batch", "detailed") if e in ran}
 
 
 def pick_engine(case: Case, engine: str = "auto") -> tuple[str, str]:
@@ -378,11 +402,13 @@ def _replace_rows(pts: Points, rows: np.ndarray, again: Points, count: bool = Tr
     passed[rows] = again.passed
     errors = pts.errors.copy()
     errors[rows] = again.errors
+    ran = pts.ran_on().copy()
+    ran[rows] = again.ran_on()
     found = _findings(pts)
     found[rows] = list(_findings(again))
     fits = tuple(dict.fromkeys(pts.fits + again.fits))
     return replace(pts, figures=figs, checks=checks, passed=passed, errors=errors, fits=fits, findings=found,
-                   retried=pts.retried + (int(rows.size) if count else 0))
+                   retried=pts.retried + (int(rows.size) if count else 0), ran=ran)
 
 
 def _findings(pts: Points) -> np.ndarray:
@@ -422,10 +448,13 @@ def concat(parts: list[Points]) -> Points:
     failed = sum(p.audit_failed for p in parts)
     solved = sum(p.audit_solved for p in parts)
     other = "/".join(dict.fromkeys(p.audit_engine for p in parts if p.audit_engine))
-    return Points(parts[0].engine if len(engines) == 1 else "mixed", figs, checks,
+    # the engine picked: the batch engine where it ran any part (the detailed one ran the others
+    # because the batch engine does not cover them); ``ran`` says which ran each variant
+    picked = "batch" if "batch" in engines else "detailed"
+    return Points(picked, figs, checks,
                   np.concatenate([p.passed for p in parts]), np.concatenate([p.errors for p in parts]),
                   fits, notes, sum(p.retried for p in parts), np.concatenate([_findings(p) for p in parts]),
-                  failed, solved, other)
+                  failed, solved, other, np.concatenate([p.ran_on() for p in parts]))
 
 
 def evaluate_cases(cases: list[Case], *, engine: str = "auto", workers: int = 1, progress=None) -> Points:

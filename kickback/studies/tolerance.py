@@ -162,10 +162,12 @@ class ToleranceResult:
     sensitivity: dict  # figure → [(name, swing)] sorted by |swing|
     seed: int
     figure_list: tuple = FIGURES
-    engine: str = "detailed"  # the engine that ran the samples
+    engine: str = "detailed"  # the engine picked to run the samples ("batch" or "detailed")
     fits: tuple = ()  # piecewise-linear fits of nonlinear laws the batch engine used
     engine_note: str = ""  # why the detailed engine ran where the batch engine would have
     recheck: dict | None = None  # batch samples run again by the detailed engine (see recheck())
+    asked: str = "auto"  # the --engine given: auto, batch or detailed
+    engines: dict | None = None  # samples per engine whose figures they hold (None: all on ``engine``)
 
     @property
     def yield_(self) -> float:
@@ -176,7 +178,8 @@ class ToleranceResult:
             return None if x is None or (isinstance(x, float) and np.isnan(x)) else x
 
         return {"title": self.case.title, "seed": self.seed, "samples": int(len(self.samples)),
-                "engine": self.engine, "fits": list(self.fits), "engine_note": self.engine_note or None,
+                "engine": self.asked, "engines": self.engines or {self.engine: int(len(self.samples))},
+                "fits": list(self.fits), "engine_note": self.engine_note or None,
                 "parameters": list(self.names),
                 "yield": self.yield_, "yield_ci95": list(self.yield_ci),
                 "percentiles": {f: {str(p): clean(v) for p, v in d.items()} for f, d in self.percentiles.items()},
@@ -248,8 +251,8 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     idx = np.sort(_recheck_rng(seed, n).choice(n, size=min(recheck, n), replace=False)) \
         if used == "batch" and recheck > 0 else None
     with parallel.using(executor), _Recheck(case, matrix, idx, workers) as later:
-        figs, passed, errors, worst, fits, retried, audited = _monte_carlo(case, matrix, flist, used, workers,
-                                                                           progress, chunk)
+        figs, passed, errors, worst, fits, retried, audited, counts = _monte_carlo(case, matrix, flist, used,
+                                                                                   workers, progress, chunk)
         study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
         check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
     if retried:
@@ -266,7 +269,8 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
                               "params": _params(names, matrix[j])} for name, (_key, j, v, lim, m) in worst.items()}
     corners, search, sens = study
     return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
-                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check)
+                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check, engine,
+                           counts)
 
 
 class _Recheck:
@@ -361,7 +365,10 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
     fits: list = []
     retried = 0
     audited = [0, 0, ""]  # samples that failed their audit, solved again, on which engine
+    counts = dict.fromkeys(("batch", "detailed"), 0)
     for g, part in zip(cuts, parts, strict=True):
+        for e, m in part["engines"].items():
+            counts[e] += m
         for f, a in part["figures"].items():
             figs[f][g] = a
         passed[g] = part["passed"]
@@ -372,7 +379,7 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         for name, (key, j, v, lim, m) in part["worst"].items():
             if name not in worst or key < worst[name][0]:
                 worst[name] = (key, g.start + j, v, lim, m)
-    return figs, passed, errors, worst, tuple(fits), retried, tuple(audited)
+    return figs, passed, errors, worst, tuple(fits), retried, tuple(audited), {e: m for e, m in counts.items() if m}
 
 
 def _chunk_job(args) -> dict:
@@ -388,7 +395,7 @@ def _chunk_job(args) -> dict:
             worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j])
     return {"figures": {f: pts.figures[f] for f in names if f in pts.figures}, "passed": pts.passed,
             "n_passed": int(np.sum(pts.passed)), "errors": list(pts.errors), "worst": worst,
-            "fits": list(pts.fits), "retried": pts.retried,
+            "fits": list(pts.fits), "retried": pts.retried, "engines": pts.engine_counts(),
             "audit": (pts.audit_failed, pts.audit_solved, pts.audit_engine)}
 
 
