@@ -56,6 +56,7 @@ class CheckCol:
     margin: np.ndarray
     passed: np.ndarray  # True where it does not apply
     applies: np.ndarray
+    unit: str = ""  # SI symbol of value and limit (K for a temperature)
 
 
 @dataclass(frozen=True)
@@ -275,7 +276,7 @@ def _settle(pts: Points, audit_bad: np.ndarray, redo: np.ndarray, first: str, ot
             cols = [a.copy() for a in (c.value, c.limit, c.margin, c.passed, c.applies)]
             for a, fill in zip(cols, (np.nan, np.nan, np.nan, True, False), strict=True):
                 a[unsolved] = fill
-            checks[name] = CheckCol(*cols)
+            checks[name] = CheckCol(*cols, unit=c.unit)
         passed, errors = pts.passed.copy(), pts.errors.copy()
         for k in unsolved:
             if k in before:
@@ -326,7 +327,7 @@ def from_many(case: Case, many) -> Points:
     for c in many.checks.values():
         checks[f"{c.part} {c.quantity}"] = CheckCol(np.asarray(c.value, float), np.asarray(c.limit, float),
                                                     np.asarray(c.margin, float), np.asarray(c.passed, bool),
-                                                    np.asarray(c.applies, bool))
+                                                    np.asarray(c.applies, bool), c.unit)
     errors = np.full(n, None, dtype=object)
     errors[~ok] = many.message[~ok]
     return Points("batch", _ordered(figs), checks, np.asarray(many.passed, bool), errors, tuple(many.fits))
@@ -373,7 +374,8 @@ def from_rows(case: Case, rows: list[dict]) -> Points:
                     limit[k] = np.nan if lim is None else lim
                     margin[k] = np.nan if m is None else m
                     passed[k], applies[k] = ok, True
-        checks[name] = CheckCol(value, limit, margin, passed, applies)
+        unit = next((r["check_units"][name] for r in rows if name in r.get("check_units", {})), "")
+        checks[name] = CheckCol(value, limit, margin, passed, applies, unit)
     errors = np.empty(n, dtype=object)
     errors[:] = [r.get("error") for r in rows]
     passed = np.array([bool(r.get("pass")) and r.get("error") is None for r in rows], bool)
@@ -397,7 +399,7 @@ def _replace_rows(pts: Points, rows: np.ndarray, again: Points, count: bool = Tr
         cols = [a.copy() for a in (old.value, old.limit, old.margin, old.passed, old.applies)]
         for a, b in zip(cols, (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):
             a[rows] = b
-        checks[name] = CheckCol(*cols)
+        checks[name] = CheckCol(*cols, unit=c.unit or old.unit)
     passed = pts.passed.copy()
     passed[rows] = again.passed
     errors = pts.errors.copy()
@@ -434,7 +436,7 @@ def concat(parts: list[Points]) -> Points:
         for name, c in p.checks.items():
             if name not in checks:
                 checks[name] = CheckCol(np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan),
-                                        np.ones(n, bool), np.zeros(n, bool))
+                                        np.ones(n, bool), np.zeros(n, bool), c.unit)
             tgt = checks[name]
             for a, b in zip((tgt.value, tgt.limit, tgt.margin, tgt.passed, tgt.applies),
                             (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):

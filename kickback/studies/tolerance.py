@@ -177,16 +177,38 @@ class ToleranceResult:
         def clean(x):
             return None if x is None or (isinstance(x, float) and np.isnan(x)) else x
 
+        units = {f: u for f, u, _ in self.figure_list}
+
         return {"title": self.case.title, "seed": self.seed, "samples": int(len(self.samples)),
                 "engine": self.asked, "engines": self.engines or {self.engine: int(len(self.samples))},
                 "fits": list(self.fits), "engine_note": self.engine_note or None,
-                "parameters": list(self.names),
+                "parameters": [parameter_dict(t) for t in self.case.tolerances],
                 "yield": self.yield_, "yield_ci95": list(self.yield_ci),
                 "percentiles": {f: {str(p): clean(v) for p, v in d.items()} for f, d in self.percentiles.items()},
                 "worst_per_check": self.worst_per_check, "corners": self.corners, "worst_case_search": self.search,
-                "sensitivity": {f: [{"parameter": n, "swing": s} for n, s in v] for f, v in self.sensitivity.items()},
+                "sensitivity": {f: [{"parameter": n, "swing": s, "unit": units.get(f, "")} for n, s in v]
+                                for f, v in self.sensitivity.items()},
                 "failed_samples": int(sum(e is not None for e in self.errors)),
                 "detailed_recheck": self.recheck}
+
+
+def parameter_unit(path: str) -> str:
+    """SI symbol of a toleranced value: the case key's unit; K for the coil temperature."""
+    from kickback.keypath import unit_of
+
+    return "K" if path == "coil_temperature" else unit_of(path)
+
+
+def parameter_dict(t) -> dict:
+    """One [tolerance] entry as the JSON gives it: key, unit, band ends [SI], distribution (and
+    the sigmas of a normal one, the reference temperature of the coil's)."""
+    out = {"key": t.path, "unit": parameter_unit(t.path), "low": t.low, "high": t.high,
+           "distribution": t.distribution}
+    if t.distribution == "normal":
+        out["sigmas"] = t.k_sigma
+    if t.reference is not None:
+        out["reference_K"] = t.reference
+    return out
 
 
 def _params(names, row) -> dict:
@@ -265,8 +287,9 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     k = int(passed.sum())  # the per-chunk pass counts, summed
     pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
            for f, a in figs.items()}
-    worst_per_check = {name: {"margin": _opt(m), "value": _opt(v), "limit": _opt(lim),
-                              "params": _params(names, matrix[j])} for name, (_key, j, v, lim, m) in worst.items()}
+    worst_per_check = {name: {"margin": _opt(m), "value": _opt(v), "limit": _opt(lim), "unit": unit,
+                              "params": _params(names, matrix[j])}
+                       for name, (_key, j, v, lim, m, unit) in worst.items()}
     corners, search, sens = study
     return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
                            worst_per_check, corners, search, sens, seed, flist, used, fits, note, check, engine,
@@ -376,9 +399,9 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         fits += [x for x in part["fits"] if x not in fits]
         retried += part["retried"]
         audited = [audited[0] + part["audit"][0], audited[1] + part["audit"][1], part["audit"][2] or audited[2]]
-        for name, (key, j, v, lim, m) in part["worst"].items():
+        for name, (key, j, v, lim, m, unit) in part["worst"].items():
             if name not in worst or key < worst[name][0]:
-                worst[name] = (key, g.start + j, v, lim, m)
+                worst[name] = (key, g.start + j, v, lim, m, unit)
     return figs, passed, errors, worst, tuple(fits), retried, tuple(audited), {e: m for e, m in counts.items() if m}
 
 
@@ -392,7 +415,7 @@ def _chunk_job(args) -> dict:
         key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
         j = int(np.argmin(key))
         if c.applies[j]:
-            worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j])
+            worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j], c.unit)
     return {"figures": {f: pts.figures[f] for f in names if f in pts.figures}, "passed": pts.passed,
             "n_passed": int(np.sum(pts.passed)), "errors": list(pts.errors), "worst": worst,
             "fits": list(pts.fits), "retried": pts.retried, "engines": pts.engine_counts(),
