@@ -87,11 +87,15 @@ def test_engine_words_follow_the_engine_option():
     and how many variants ran on the other one."""
     from kickback.outputs.sweeps import engine_lines, engine_words
 
-    both = SimpleNamespace(engine="batch", engines={"batch": 2, "detailed": 3}, ranked=(), rejected=(),
+    both = SimpleNamespace(engine="batch", engines={"batch": 3, "detailed": 2}, ranked=(), rejected=(),
                            fits=(), engine_note="", asked="auto")
-    assert engine_words(both) == "batch engine, 3 of 5 candidates on the detailed engine"
+    assert engine_words(both) == "batch engine, 2 of 5 candidates on the detailed engine"
     lines = engine_lines(both)
-    assert lines[0] == "--engine auto: batch engine, 3 of 5 candidates on the detailed engine"
+    assert lines[0] == "--engine auto: batch engine, 2 of 5 candidates on the detailed engine"
+    # the engine that ran most comes first, whichever was picked for the case (a thermal case's
+    # candidates, generic parts without a thermal network, run on the batch engine)
+    thermal = SimpleNamespace(engine="detailed", engines={"batch": 82, "detailed": 2}, ranked=())
+    assert engine_words(thermal) == "batch engine, 2 of 84 candidates on the detailed engine"
     assert any(x.startswith("batch engine:") for x in lines) and any(x.startswith("detailed engine:") for x in lines)
     assert engine_words(SimpleNamespace(engine="batch")) == "batch engine"
     sweep = SimpleNamespace(engine="detailed", engines={"detailed": 4})

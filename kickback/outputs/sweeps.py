@@ -53,9 +53,9 @@ def _counts(study) -> dict:
 def engine_words(study) -> str:
     """What ran, in the words of ``--engine`` (auto, batch, detailed): "batch engine", "detailed
     engine", or where both ran "batch engine, N of M candidates on the detailed engine" (the
-    engine picked for the case first)."""
+    engine that ran most of them first; at a tie the one picked for the case)."""
     counts = _counts(study)
-    first = study.engine if study.engine in counts else next(iter(counts))
+    first = max(counts, key=lambda e: (counts[e], e == study.engine))
     words = f"{first} engine"
     other = [e for e in counts if e != first]
     if other:
