@@ -12,7 +12,6 @@ e.g. Horowitz & Hill, The Art of Electronics, 3rd ed., §1.5).
 from __future__ import annotations
 
 import csv
-
 import json
 import math
 from dataclasses import replace

@@ -472,9 +472,9 @@ def test_rendered_report_is_not_blank_and_shows_the_verdict(request, tmp_path, w
 #: a script run in the rendered page: every card, table, figure and paragraph that reaches past its
 #: container's right edge, and a page that scrolls sideways (the browser's own layout boxes)
 _OVERFLOW_JS = """<script>(function(){const bad=[];const W=document.documentElement.clientWidth;
-if(document.documentElement.scrollWidth>W+1)bad.push('the page scrolls sideways: '+document.documentElement.scrollWidth+' > '+W);
+const S=document.documentElement.scrollWidth;if(S>W+1)bad.push('the page scrolls sideways: '+S+' > '+W);
 document.querySelectorAll('.card').forEach(c=>{if(c.scrollWidth>c.clientWidth+1)
-  bad.push('card '+c.querySelector('h4').textContent+': content '+c.scrollWidth+' px in '+c.clientWidth+' px');});
+  bad.push('card '+c.querySelector('h4').textContent+': '+c.scrollWidth+' px in '+c.clientWidth+' px');});
 document.querySelectorAll('table, figure, pre, p, ul').forEach(t=>{const p=t.parentElement.getBoundingClientRect(),
   r=t.getBoundingClientRect();if(r.right>p.right+1)bad.push(t.tagName+'.'+(t.className||'')+' ends at '+
   Math.round(r.right)+' px past its container at '+Math.round(p.right)+' px: '+t.textContent.slice(0,50));});

@@ -79,8 +79,9 @@ table.figures td:first-child { white-space: pre; }
 .card { border: 1px solid var(--rule); border-radius: 4px; padding: 4px 8px 2px; break-inside: avoid; min-width: 0; }
 .card h4 { margin: 2px 0 0; font-size: 13px; font-family: "DejaVu Sans Mono", monospace; }
 table.kv { width: 100%; margin: 2px 0 4px; font-size: 12.5px; }
-table.kv td { padding: 2px 6px 2px 0; overflow-wrap: anywhere; } table.kv td:first-child { font-family: "DejaVu Sans Mono", monospace;
-  font-size: 11.5px; } table.kv td:nth-child(2) { font-weight: 600; }
+table.kv td { padding: 2px 6px 2px 0; overflow-wrap: anywhere; }
+table.kv td:first-child { font-family: "DejaVu Sans Mono", monospace; font-size: 11.5px; }
+table.kv td:nth-child(2) { font-weight: 600; }
 table.kv td:nth-child(3) { color: #555; font-size: 11.5px; }
 table.kv tr.sub td { font-weight: 700; border-bottom: 1.5px solid #777; padding-top: 6px; font-family: inherit; }
 figure.ledger svg { max-width: 700px; }

@@ -148,15 +148,13 @@ def _family_points(cases: list, engine: str, workers: int):
     a family smaller than :data:`MIN_BATCH` on the detailed engine when the choice is automatic."""
     from kickback.studies.points import evaluate_cases
 
-    from dataclasses import replace as _replace
-
     if engine == "auto" and len(cases) < MIN_BATCH:
         pts = evaluate_cases(cases, engine="auto", workers=1)
         if pts.engine == "batch":
             pts = evaluate_cases(cases, engine="detailed", workers=1)
             why = (f"a family of fewer than {MIN_BATCH} candidates ran on the detailed engine (a batch costs "
                    "about as much as a few detailed runs)")
-            pts = _replace(pts, note="; ".join(x for x in (pts.note, why) if x))
+            pts = replace(pts, note="; ".join(x for x in (pts.note, why) if x))
         return pts
     return evaluate_cases(cases, engine=engine, workers=workers)
 
