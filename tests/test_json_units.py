@@ -33,7 +33,8 @@ SUFFIX = re.compile(r".+_(V|A|J|s|W|K|H|F|Hz|ohm|Nm|rad_s)$")
 #: ratios and counts, by key; "seconds" names its own unit
 PURE = {"margin", "min_margin", "yield", "yield_ci95", "energy_balance_error", "max_rel", "duty", "contraction",
         "residual", "seed", "samples", "failed_samples", "detailed_errors", "verdicts_differ", "indices", "sample",
-        "present_in_one_only", "parts", "brute_force_cycles", "cycle_solves", "batch", "detailed", "seconds"}
+        "present_in_one_only", "parts", "brute_force_cycles", "cycle_solves", "batch", "detailed", "seconds",
+        "confidence", "points", "dof"}
 
 
 def missing_units(doc) -> list[str]:
@@ -113,6 +114,19 @@ def test_tolerance_json_worst_samples_carry_units():
 
 def test_choose_json():
     assert missing_units(_json(["choose", str(VALVE), "--json"])) == []
+
+
+@pytest.mark.parametrize("args", [
+    ["examples/valve_rise_trace.csv", "--kind", "rise", "--supply", "24V", "--shunt", "0.5ohm", "--saturating",
+     "--trigger", "2ms"],
+    ["examples/valve_decay_trace.csv", "--kind", "decay", "--supply", "24V", "--clamp-resistance", "1.5ohm"]],
+    ids=["rise", "decay"])
+def test_fit_json(tmp_path, args):
+    """The README's two fits: fit.json's [coil] values carry their unit in the key."""
+    res = CliRunner().invoke(main, ["fit", str(ROOT / args[0]), *args[1:], "--out", str(tmp_path)])
+    assert res.exit_code == 0, res.output
+    doc = json.loads((tmp_path / "fit.json").read_text(encoding="utf-8"))
+    assert missing_units(doc) == [] and {"inductance_H", "resistance_ohm"} <= set(doc["coil"])
 
 
 def test_check_json_lines_with_tolerance():
