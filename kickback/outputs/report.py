@@ -94,6 +94,7 @@ figcaption { font-size: 12.5px; color: #333; margin-top: 4px; }
 figure.schematic svg { width: auto; max-width: 100%; max-height: 600px; margin: 0 auto; }
 figure.wave.single svg { max-width: 1000px; }
 table.compare td { white-space: nowrap; }
+table.worst td:nth-child(-n+3) { white-space: nowrap; }
 table.compare td:first-child, table.compare td:last-child { white-space: normal; }
 pre.case { background: #f6f6f6; border: 1px solid var(--rule); padding: 8px 10px; font-size: 12px;
            white-space: pre-wrap; overflow-wrap: anywhere; }
