@@ -11,6 +11,7 @@ e.g. Horowitz & Hill, The Art of Electronics, 3rd ed., §1.5).
 
 from __future__ import annotations
 
+import csv
 import json
 import math
 from dataclasses import replace
@@ -239,6 +240,25 @@ def test_batch_audit_failure_is_solved_on_the_detailed_engine(monkeypatch, case)
     ref = simulate(replace(case, supply=replace(case.supply, voltage=24.0)))
     assert pts.figures["avalanche_energy_J"][1] == ref.figures.avalanche_energy_J
     assert pts.passed[1] == ref.passed
+
+
+def test_a_sweep_says_which_engine_ran_each_point(monkeypatch, case):
+    """Issue 20: a point solved again on the detailed engine is counted and marked as such: the
+    JSON says the --engine given ("batch"), the points per engine and each point's engine; the
+    CSV's engine column and the table's words agree (never "mixed")."""
+    from kickback.outputs.sweeps import engine_words, sweep_csv, sweep_table
+    from kickback.studies.sweep import Axis, run_sweep
+
+    _corrupt_batch(monkeypatch, 1)
+    sw = run_sweep(case, (Axis("supply.voltage", np.array(VOLTS), "V"),), engine="batch")
+    d = sw.to_dict()
+    assert d["engine"] == "batch" and d["engines"] == {"batch": 2, "detailed": 1}
+    assert [p["engine"] for p in d["points"]] == ["batch", "detailed", "batch"]
+    assert "solved again on the detailed engine" in d["engine_note"]
+    rows = list(csv.reader(sweep_csv(sw).splitlines()[1:]))
+    assert [r[rows[0].index("engine")] for r in rows[1:]] == ["batch", "detailed", "batch"]
+    assert engine_words(sw) == "batch engine, 1 of 3 points on the detailed engine"
+    assert "mixed" not in sweep_table(sw) + sweep_csv(sw)
 
 
 def test_simulate_many_gives_no_verdict_to_an_audit_failed_variant(monkeypatch, case):

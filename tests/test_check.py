@@ -193,3 +193,53 @@ def test_a_result_failing_its_audit_gets_no_verdict(tmp_path, monkeypatch):
     assert "ok.toml" in res.stderr and "failed its audit" in res.stderr
     error = ET.parse(report).getroot().find(".//error")
     assert error is not None and error.get("type") == "audit"
+
+
+def _mosfet_case(d: Path, name: str, breakdown: float) -> Path:
+    """The closed-form case on a MOSFET with a breakdown voltage and no avalanche rating: the
+    switch's avalanche-energy row exists by rule and has no margin."""
+    text = CASE.format(name=name, limit=47).replace(
+        'type = "ideal"', f'type = "mosfet"\non_resistance = "0.1 Ω"\nbreakdown_voltage = "{breakdown:g} V"')
+    path = d / f"{name}.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_smallest_margin_skips_rows_without_a_margin(tmp_path):
+    """Issue 20: a passing row without a margin (avalanche energy 0 J, no rating) is not the
+    "smallest margin"; the check that has the smallest margin is. The clamp holds the switch at
+    V_supply + V_Z + V_F = 44.7 V (closed form, see the module docstring; the 0.1 Ω on-resistance
+    only sets the on-state current), below the 60 V breakdown, so the margin is (47 − 44.7)/47."""
+    path = _mosfet_case(tmp_path, "avalanche_row", 60.0)
+    res = _run([str(path), "--json"])
+    row = json.loads(res.stdout)
+    assert any(c["quantity"] == "avalanche energy" and c["margin"] is None for c in row["checks"])
+    low = row["smallest_margin"]
+    assert low["check"] == "case peak switch voltage"
+    assert low["margin"] == pytest.approx((47 - PEAK) / 47, rel=1e-6)
+    table = _run([str(path)]).stdout
+    line = next(x for x in table.splitlines() if "avalanche_row.toml" in x)
+    assert "+4.9 %" in line and "case peak switch voltage" in line and "—" not in line.split("PASS")[1][:20]
+
+
+def test_smallest_margin_names_a_failing_row_without_a_margin(tmp_path):
+    """A failing row without a margin (the switch avalanches at 40 V < 44.7 V and has no avalanche
+    rating) is what the summary names, as "fails" — not a passing margin elsewhere."""
+    path = _mosfet_case(tmp_path, "avalanches", 40.0)
+    res = _run([str(path), "--json"])
+    row = json.loads(res.stdout)
+    assert row["pass"] is False
+    assert row["smallest_margin"] == {"check": "switch avalanche energy", "margin": None}
+    line = next(x for x in _run([str(path)]).stdout.splitlines() if "avalanches.toml" in x)
+    assert "fails" in line and "switch avalanche energy" in line
+
+
+def test_smallest_margin_dash_only_when_no_check_has_one():
+    """"—" (None) only when no check has a margin."""
+    from kickback.studies.check import CaseCheck
+
+    row = {"part": "switch", "quantity": "avalanche energy", "value": 0.0, "limit": None, "margin": None,
+           "pass": True, "unit": "J", "note": ""}
+    assert CaseCheck("x.toml", "pass", checks=(row,)).smallest() is None
+    other = row | {"quantity": "peak voltage", "value": 30.0, "limit": 40.0, "margin": 0.25, "unit": "V"}
+    assert CaseCheck("x.toml", "pass", checks=(row, other)).smallest() is other

@@ -85,7 +85,7 @@ def test_every_recommended_choice_passes_with_the_detailed_engine(valve_choice):
     2 %); those within 2 % of a limit are judged on the detailed engine's figures, so every
     feasible choice passes every check when simulated again with the detailed engine."""
     case = valve_choice.case
-    assert valve_choice.engine in ("batch", "mixed") and valve_choice.fits
+    assert valve_choice.engine == "batch" and valve_choice.fits
     for cand in valve_choice.ranked:
         res = simulate(replace(case, clamps=cand.option.clamps, options=()))
         assert res.passed, (cand.option.name, cand.engine, [c for c in res.checks if not c.passed])
@@ -109,8 +109,12 @@ def test_choice_names_its_engine(valve_choice, tmp_path):
     assert "how the candidates were screened:" in text and "fit: D+Z: Shockley diode" in text
     assert "mixed" not in text  # the words of --engine (auto, batch, detailed), issue 20
     d = valve_choice.to_dict()
-    assert d["engine"] == valve_choice.engine and d["fits"]
-    assert all(c["engine"] in ("batch", "detailed") for c in d["ranked"])
+    # the --engine given, and how many candidates each engine judged (issue 20: never "mixed")
+    assert d["engine"] == "auto" and d["fits"]
+    cands = d["ranked"] + d["rejected"]
+    assert all(c["engine"] in ("batch", "detailed") for c in cands)
+    assert d["engines"] == {e: n for e in ("batch", "detailed") if (n := sum(c["engine"] == e for c in cands))}
+    assert d["engines"]["batch"] > 0
 
 
 def test_choose_with_the_detailed_engine_ranks_alike(valve_choice):

@@ -202,7 +202,7 @@ def test_cli_fit_prints_table_and_pasteable_coil_block(tmp_path, shunt, decimal_
     if "--out" in args:
         assert sorted(p.name for p in (tmp_path / "o").iterdir()) == ["fit.json", "fit.png", "fit.svg"]
         d = json.loads((tmp_path / "o" / "fit.json").read_text())
-        assert d["kind"] == "rise" and d["coil"]["inductance"] == pytest.approx(0.12, rel=0.01)
+        assert d["kind"] == "rise" and d["coil"]["inductance_H"] == pytest.approx(0.12, rel=0.01)
 
 
 def test_cli_fit_decay_and_saturating_blocks(tmp_path):

@@ -54,7 +54,7 @@ def test_sweep_csv_says_the_fit_once_and_every_unit():
                          points=np.array([[273.15 + 10 * k] for k in range(n)]),
                          figures={c: [1.0] * n for c, _ in COLUMNS}, errors=[None] * n, failing=[[]] * n,
                          passed=[True] * n, engine="batch", fits=("a long sentence about the diode fit",),
-                         engine_note=None)
+                         engine_note=None, engine_of=lambda k: "batch")
     text = sweep_csv(sw)
     assert text.count("a long sentence about the diode fit") == 1 and text.startswith("# batch engine")
     rows = list(csv.reader(text.splitlines()[1:]))
@@ -83,13 +83,23 @@ def test_unnamed_elements_are_named_by_type_and_place():
 
 
 def test_engine_words_follow_the_engine_option():
-    from kickback.outputs.sweeps import engine_words
+    """Issue 20: the words of --engine (auto, batch, detailed), never "mixed": the engine picked,
+    and how many variants ran on the other one."""
+    from kickback.outputs.sweeps import engine_lines, engine_words
 
-    cand = [SimpleNamespace(engine=e) for e in ("batch", "detailed", "batch", "detailed", "detailed")]
-    mixed = SimpleNamespace(engine="mixed", ranked=cand[:2], rejected=cand[2:])
-    assert engine_words(mixed) == "batch engine, 3 of 5 candidates on the detailed engine"
+    both = SimpleNamespace(engine="batch", engines={"batch": 3, "detailed": 2}, ranked=(), rejected=(),
+                           fits=(), engine_note="", asked="auto")
+    assert engine_words(both) == "batch engine, 2 of 5 candidates on the detailed engine"
+    lines = engine_lines(both)
+    assert lines[0] == "--engine auto: batch engine, 2 of 5 candidates on the detailed engine"
+    # the engine that ran most comes first, whichever was picked for the case (a thermal case's
+    # candidates, generic parts without a thermal network, run on the batch engine)
+    thermal = SimpleNamespace(engine="detailed", engines={"batch": 82, "detailed": 2}, ranked=())
+    assert engine_words(thermal) == "batch engine, 2 of 84 candidates on the detailed engine"
+    assert any(x.startswith("batch engine:") for x in lines) and any(x.startswith("detailed engine:") for x in lines)
     assert engine_words(SimpleNamespace(engine="batch")) == "batch engine"
-    assert "mixed" not in engine_words(SimpleNamespace(engine="mixed"))
+    sweep = SimpleNamespace(engine="detailed", engines={"detailed": 4})
+    assert engine_words(sweep) == "detailed engine"
 
 
 # ------------------------------------------------------------------------------------------ words

@@ -9,6 +9,7 @@ from pathlib import Path
 import mpmath
 import numpy as np
 import pytest
+from periodic_reference import reference_steady_state  # tests/: the reference shooting lives with the tests
 
 from kickback import load_case
 from kickback.case import Case, Clamp, Coil, Element, Motor, Supply, Switch
@@ -17,7 +18,6 @@ from kickback.engine import linphase
 from kickback.engine.averaged import averaged_guess
 from kickback.engine.linphase import LinearSolution, expm_extended
 from kickback.engine.periodic import STEADY_TOL, one_cycle, scales, steady_state
-from periodic_reference import reference_steady_state  # tests/: the reference shooting lives with the tests
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 F = 20e3

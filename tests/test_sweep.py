@@ -162,15 +162,19 @@ def test_cli_sweep_names_the_engine_and_its_fits(tmp_path):
     assert res.exit_code == 0, res.output
     assert "batch engine, 3 points" in res.stdout and "fit: D1+Z1: Shockley diode" in res.stdout
     d = json.loads((tmp_path / "sweep.json").read_text())
-    assert d["engine"] == "batch" and d["fits"] and d["engine_note"] is None
+    # the --engine given (issue 20: auto, batch or detailed, never "mixed") and what ran each point
+    assert d["engine"] == "auto" and d["engines"] == {"batch": 3} and d["fits"] and d["engine_note"] is None
+    assert [p["engine"] for p in d["points"]] == ["batch"] * 3
     text = (tmp_path / "sweep.csv").read_text()
-    assert text.count("Shockley") == 1 and text.startswith("# batch engine; fits: D1+Z1: Shockley diode")
+    assert text.count("Shockley") == 1 and text.startswith("# --engine auto: batch engine; fits: D1+Z1: Shockley diode")
     rows = list(csv.reader(text.splitlines()[1:]))
     head = rows[0]
     assert rows[1][head.index("engine")] == "batch" and "fits" not in head
     detailed = CliRunner().invoke(main, ["sweep", str(VALVE), "--vary", "clamp[0].element[1].voltage=10V:20V:3",
                                          "--engine", "detailed", "--workers", "1", "--json"])
-    assert detailed.exit_code == 0 and json.loads(detailed.stdout)["engine"] == "detailed"
+    assert detailed.exit_code == 0
+    assert {k: json.loads(detailed.stdout)[k] for k in ("engine", "engines")} == {"engine": "detailed",
+                                                                                  "engines": {"detailed": 3}}
 
 
 def test_cli_sweep_falls_back_to_the_detailed_engine_and_says_why():

@@ -272,6 +272,7 @@ def test_cli_tolerance_engine_options(tmp_path):
     res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "50", "--seed", "3", "--json",
                                     "--recheck", "4"])
     d = json.loads(res.stdout)
-    assert d["engine"] == "batch" and d["detailed_recheck"]["samples"] == 4
+    # the --engine given and the samples each engine ran (issue 20)
+    assert d["engine"] == "auto" and d["engines"] == {"batch": 50} and d["detailed_recheck"]["samples"] == 4
     res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "6", "--engine", "detailed", "--workers", "1"])
     assert "detailed engine" in res.stdout and "against the detailed engine" not in res.stdout

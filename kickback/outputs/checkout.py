@@ -23,7 +23,8 @@ def _low(cc) -> tuple[str, str]:
     low = cc.smallest()
     if low is None:
         return "—", ""
-    return _pct(low["margin"]), f"{low['part']} {low['quantity']}"
+    margin = "fails" if low["margin"] is None else _pct(low["margin"])
+    return margin, f"{low['part']} {low['quantity']}"
 
 
 def _tol(cc) -> str:

@@ -117,11 +117,14 @@ def tradeoff_figure(ch):
     ax.set_xlabel("peak switch-node voltage")
     ax.set_ylabel(("release time" if has_release else "decay to zero") + " (logarithmic)")
     ax.grid(True, lw=0.3)
-    leg = style.outside_legend(ax, title="filled: passes\nopen: fails\nsize: clamp energy", title_fontsize=8,
+    # an open marker inside the shading fails a check not drawn here, or is not offered (the table says why)
+    leg = style.outside_legend(ax, title="filled: passes\nopen: fails, or not offered\n(see the table)\n"
+                               "size: clamp energy", title_fontsize=8,
                                alignment="left")
     for h in leg.legend_handles:  # one marker size in the key: the size in the plot is the energy
         if hasattr(h, "set_markersize"):
             h.set_markersize(6)
-    style.title(fig, f"{case.title} — release against switch voltage ({engine_words(ch)})")
+    what = "release" if has_release else "decay to zero"
+    style.title(fig, f"{case.title} — {what} against switch voltage ({engine_words(ch)})")
     engine_footnote(fig, ch)
     return fig

@@ -45,7 +45,7 @@ def pwm_figure(result, n_cycles: int = 3):
             axes[3].plot(t, rep(tj) - 273.15, label=label, **line)
     labels = [("coil current", "A"), ("switch-node voltage", "V"), ("clamp current", "A")]
     if thermal:
-        labels.append(("switch junction", "°C"))
+        labels.append(("switch junction\ntemperature", "°C"))
     for ax, (name, unit) in zip(axes, labels, strict=True):
         ax.set_ylabel(name)
         ax.yaxis.set_major_formatter(EngFormatter(unit=unit))

@@ -124,9 +124,9 @@ def _card(title: str, blocks) -> str:
     for sub, rows in blocks:
         if sub:
             body.append(f'<tr class="sub"><td colspan="3">{escape(sub)}</td></tr>')
-        for key, value, note in rows:  # keys break only after an underscore, a value only after a comma
-            key_html = escape(key).replace("_", "_<wbr>")
-            value_html = ", ".join(escape(v).replace(" ", "&nbsp;") for v in value.split(", "))
+        for key, value, note in rows:  # keys break after an underscore, a dot or a bracket; values after , or ;
+            key_html = re.sub(r"([_.\]])", r"\1<wbr>", escape(key))
+            value_html = escape(value).replace(" ", "&nbsp;").replace(";&nbsp;", "; ").replace(",&nbsp;", ", ")
             body.append(f"<tr><td>{key_html}</td><td>{value_html}</td><td>{escape(note)}</td></tr>")
     return (f'<div class="card"><h4>{escape(title)}</h4><table class="kv"><tbody>{"".join(body)}'
             "</tbody></table></div>")

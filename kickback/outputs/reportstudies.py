@@ -54,7 +54,7 @@ def tolerance_section(study=None):
         worst.append([_label(study, f), q(c["max"], unit), q(srch["max"], unit) + note, _params(srch["params"])])
     if worst:
         body += "<h3>Worst cases</h3>" + parts.table(["figure", "worst corner", "search inside the bands", "at"],
-                                                       worst)
+                                                       worst, "worst")
     if study.recheck:
         from kickback.outputs.tolerances import recheck_rows, recheck_title
 
@@ -95,5 +95,6 @@ def tradeoff_section(choice=None):
     body += parts.table(["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"],
                         rows)
     body += _figure(tradeoff_figure(choice), "trade", "Release time against peak switch voltage per family; "
-                    "filled markers pass, open ones fail; marker size is the clamp energy.")
+                    "filled markers pass, open ones fail or are not offered (`kickback choose` says why); "
+                    "marker size is the clamp energy.")
     return _section("tradeoff", "Clamp trade-off", body)

@@ -35,27 +35,51 @@ def sweep_table(sw) -> str:
     return "\n".join(lines) + "\n"
 
 
+def _noun(study) -> str:
+    """What a study's variants are called: candidates (a choice), samples (a tolerance study) or
+    points (a sweep)."""
+    if hasattr(study, "ranked"):
+        return "candidates"
+    if hasattr(study, "yield_ci"):
+        return "samples"
+    return "points"
+
+
+def _counts(study) -> dict:
+    counts = getattr(study, "engines", None)
+    return counts if counts else {study.engine: 0}
+
+
 def engine_words(study) -> str:
     """What ran, in the words of ``--engine`` (auto, batch, detailed): "batch engine", "detailed
-    engine", or where both ran "batch engine, N of M candidates on the detailed engine"."""
-    if study.engine != "mixed":
-        return f"{study.engine} engine"
-    cands = list(getattr(study, "ranked", ())) + list(getattr(study, "rejected", ()))
-    if cands:
-        n = sum(c.engine == "detailed" for c in cands)
-        return f"batch engine, {n} of {len(cands)} candidates on the detailed engine"
-    return "batch engine, some variants on the detailed engine (the note says how many)"
+    engine", or where both ran "batch engine, N of M candidates on the detailed engine" (the
+    engine that ran most of them first; at a tie the one picked for the case)."""
+    counts = _counts(study)
+    first = max(counts, key=lambda e: (counts[e], e == study.engine))
+    words = f"{first} engine"
+    other = [e for e in counts if e != first]
+    if other:
+        total = sum(counts.values())
+        words += f", {counts[other[0]]} of {total} {_noun(study)} on the {other[0]} engine"
+    return words
+
+
+def asked_words(study) -> str:
+    """:func:`engine_words` after the ``--engine`` given: "--engine auto: batch engine, …"."""
+    asked = getattr(study, "asked", None)
+    return f"--engine {asked}: {engine_words(study)}" if asked else engine_words(study)
 
 
 def engine_lines(study) -> list[str]:
     """What the engine of a study (sweep, choice, tolerance) was: the batch engine's exactness and
     its fits, or why the detailed engine ran."""
-    out = []
-    if study.engine in ("batch", "mixed"):
-        out.append(f"{engine_words(study)}: exact piecewise-linear solution, vectorised over the variants"
+    counts = _counts(study)
+    out = [asked_words(study)]
+    if "batch" in counts:
+        out.append("batch engine: exact piecewise-linear solution, vectorised over the variants"
                    + ("; nonlinear laws as stated fits:" if study.fits else " (every law exact, no fit)"))
         out += [f"  fit: {f}" for f in study.fits]
-    else:
+    if "detailed" in counts:
         out.append("detailed engine: stiff integration of the exact laws (Radau)")
     if study.engine_note:
         out.append(f"note: {study.engine_note}")
@@ -64,7 +88,7 @@ def engine_lines(study) -> list[str]:
 
 def engine_text(study) -> str:
     """:func:`engine_lines` as one short line for CSV cells and plot notes."""
-    text = engine_words(study)
+    text = asked_words(study)
     if study.fits:
         text += "; fits: " + "; ".join(study.fits)
     if study.engine_note:
@@ -88,7 +112,7 @@ def sweep_csv(sw) -> str:
         vals = [csv_cell(sw.figures[c][k]) for c, _ in COLUMNS]
         note = sw.errors[k] or "; ".join(sw.failing[k])
         wr.writerow([csv_cell(x, off) for x, (_, off) in zip(p, axes, strict=True)] + vals
-                    + [sw.engine, str(bool(sw.passed[k])).lower(), note])
+                    + [sw.engine_of(k), str(bool(sw.passed[k])).lower(), note])
     return buf.getvalue()
 
 

@@ -8,7 +8,7 @@ import io
 import numpy as np
 
 from kickback.outputs.sweeps import engine_footnote, engine_lines, engine_words
-from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.outputs.table import CAUTIONS, _grid, _wrap, check_value
 from kickback.studies.tolerance import PERCENTILES
 from kickback.units import format_quantity as q
 
@@ -67,7 +67,10 @@ def tolerance_table(tr) -> str:
         lines += ["", "worst sample per check"]
         for name, w in tr.worst_per_check.items():
             m = "—" if w["margin"] is None else f"{100 * w['margin']:+.1f} %"
-            lines.append(f"  {name}: margin {m} at {_params(w['params'])}")
+            unit = w.get("unit", "")
+            lim = "no limit" if w["limit"] is None else f"limit {check_value(w['limit'], unit)}"
+            lines.append(f"  {name}: {check_value(w['value'], unit)} ({lim}, margin {m})")
+            lines.append(f"      at {_params(w['params'])}")
     if tr.corners:
         lines += ["", "worst case: band corners and a search inside the bands"]
         for f, unit, _ in tr.figure_list:

@@ -117,10 +117,14 @@ class CaseCheck:
                 "audit": "NO VERDICT"}[self.status]
 
     def smallest(self) -> dict | None:
-        """The check with the smallest margin (a check without a margin counts as the smallest)."""
-        if not self.checks:
-            return None
-        return min(self.checks, key=lambda c: float("-inf") if c["margin"] is None else c["margin"])
+        """The check with the smallest margin, among the checks that have one; a failing check
+        without a margin (a clamp conducting while the switch is on) comes first. A row without a
+        margin that passes (the switch's avalanche energy of 0 J with no rating) says nothing about
+        how close the design is to a limit and is skipped. None when no check has a margin."""
+        failing = [c for c in self.checks if c["margin"] is None and not c["pass"]]
+        if failing:
+            return failing[0]
+        return min((c for c in self.checks if c["margin"] is not None), key=lambda c: c["margin"], default=None)
 
     def failing(self) -> list[dict]:
         return [c for c in self.checks if not c["pass"]]
@@ -185,7 +189,8 @@ def _tolerance(case, n: int, seed: int) -> dict:
         tr = run_tolerance(case, n, seed, workers=1, recheck=0)
     except KickbackError as err:
         return {"none": f"the tolerance study could not run: {err}"}
-    return {"samples": n, "seed": seed, "yield": tr.yield_, "yield_ci95": list(tr.yield_ci), "engine": tr.engine,
+    return {"samples": n, "seed": seed, "yield": tr.yield_, "yield_ci95": list(tr.yield_ci), "engine": tr.asked,
+            "engines": tr.engines,
             "failed_samples": int(len(tr.passed) - tr.passed.sum())}
 
 

@@ -127,8 +127,9 @@ def _near_a_limit(pts, k: int, band: float) -> bool:
 
 @dataclass(frozen=True)
 class Evaluation:
-    """Every candidate, and what ran: engine ("batch", "detailed" or "mixed"), fits, note, and
-    the candidates near a limit confirmed by the detailed engine."""
+    """Every candidate, and what ran: the engine picked for the case ("batch" or "detailed"; each
+    candidate's ``engine`` says which gave its figures), fits, note, and the candidates near a
+    limit confirmed by the detailed engine."""
 
     candidates: list
     engine: str
@@ -151,6 +152,9 @@ def _family_points(cases: list, engine: str, workers: int):
         pts = evaluate_cases(cases, engine="auto", workers=1)
         if pts.engine == "batch":
             pts = evaluate_cases(cases, engine="detailed", workers=1)
+            why = (f"a family of fewer than {MIN_BATCH} candidates ran on the detailed engine (a batch costs "
+                   "about as much as a few detailed runs)")
+            pts = replace(pts, note="; ".join(x for x in (pts.note, why) if x))
         return pts
     return evaluate_cases(cases, engine=engine, workers=workers)
 
@@ -165,7 +169,7 @@ def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto
     over ``workers`` processes; see the module docstring)."""
     from kickback.studies.points import pick_engine
 
-    pick_engine(case, engine)  # raises for engine="batch" on a case the batch engine does not cover
+    picked, _ = pick_engine(case, engine)  # raises for engine="batch" on a case the batch engine does not cover
     v_allow = allowed_voltage(case)
     fams = [(fam, lst) for fam, lst in family_candidates(case).items() if lst]
     jobs = [([replace(case, clamps=opt.clamps, options=()) for _, _, opt in lst], engine) for _, lst in fams]
@@ -176,19 +180,18 @@ def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto
         results = [found[order.index(j)] for j in range(len(jobs))]
     else:
         results = [_family_points(cs, eng, workers) for cs, eng in jobs]
-    out, near, engines, fits, notes = [], [], set(), [], []
+    out, near, fits, notes = [], [], [], []
     done = 0
     for (fam, lst), pts in zip(fams, results, strict=True):
-        engines.add(pts.engine)
+        ran = pts.ran_on()
         fits += [f for f in pts.fits if f not in fits]
         if pts.note and pts.note not in notes:
             notes.append(pts.note)
         band = CONFIRM_FIT if pts.fits else CONFIRM_EXACT
         for k, (val, unit, opt) in enumerate(lst):
-            if pts.engine == "batch" and _near_a_limit(pts, k, band):
+            if ran[k] == "batch" and _near_a_limit(pts, k, band):
                 near.append(len(out))
-            out.append(Candidate(fam, val, unit, opt, pts.point(k), v_allow, pts.engine,
-                                 case.checks.min_margin))
+            out.append(Candidate(fam, val, unit, opt, pts.point(k), v_allow, ran[k], case.checks.min_margin))
         done += len(lst)
         if progress:
             progress(done)
@@ -197,8 +200,7 @@ def evaluate(case: Case, *, workers: int = 1, progress=None, engine: str = "auto
                           workers=workers)
         for j, f in zip(near, figs, strict=True):
             out[j] = replace(out[j], figures=f, engine="detailed")
-    eng = engines.pop() if len(engines) == 1 else "mixed"
-    return Evaluation(out, eng, tuple(fits), "; ".join(notes), tuple(out[j].option.name for j in near))
+    return Evaluation(out, picked, tuple(fits), "; ".join(notes), tuple(out[j].option.name for j in near))
 
 
 @dataclass(frozen=True)
@@ -207,15 +209,23 @@ class Choice:
     ranked: tuple[Candidate, ...]  # feasible, best first
     rejected: tuple[Candidate, ...]
     top: tuple  # detailed-engine Results of the first few ranked choices
-    engine: str = "detailed"  # the engine that screened the candidates
+    engine: str = "detailed"  # the engine picked to screen the candidates (each candidate's engine says which ran it)
     fits: tuple = ()  # piecewise-linear fits the batch engine used
     engine_note: str = ""  # why the detailed engine screened them where the batch engine would have
     confirmed: tuple = ()  # candidates near a limit judged on the detailed engine's figures
     demoted: tuple = ()  # screened as feasible, failing when confirmed by the detailed engine
+    asked: str = "auto"  # the --engine given: auto, batch or detailed
+
+    @property
+    def engines(self) -> dict:
+        """Candidates per engine whose figures judged them, e.g. ``{"batch": 40, "detailed": 6}``."""
+        from kickback.studies.pointtable import engine_counts
+
+        return engine_counts(c.engine for c in self.ranked + self.rejected)
 
     def to_dict(self) -> dict:
         return {"title": self.case.title, "v_allow_V": allowed_voltage(self.case),
-                "min_margin": self.case.checks.min_margin, "engine": self.engine,
+                "min_margin": self.case.checks.min_margin, "engine": self.asked, "engines": self.engines,
                 "fits": list(self.fits), "engine_note": self.engine_note or None,
                 "confirmed_by_detailed": list(self.confirmed), "demoted_by_detailed": list(self.demoted),
                 "ranked": [c.to_dict() for c in self.ranked], "rejected": [c.to_dict() for c in self.rejected],
@@ -251,4 +261,4 @@ def choose(case: Case, *, workers: int = 1, n_top: int = 3, progress=None, engin
         demoted.append(c.option.name)
         del ranked[k]
     return Choice(case, tuple(ranked), tuple(rejected), tuple(top), ev.engine, ev.fits, ev.note, ev.confirmed,
-                  tuple(demoted))
+                  tuple(demoted), engine)

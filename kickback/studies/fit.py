@@ -152,8 +152,13 @@ class CoilFit:
         return {"source": self.source, "kind": self.kind, "saturating": self.saturating,
                 "supply_V": self.supply_V, "model": self.model, "confidence": self.confidence,
                 "estimates": [e.to_dict() for e in self.estimates], "residual_rms_A": self.residual_rms,
-                "points": int(self.t.size), "dof": self.dof, "coil": self.coil_values(),
+                "points": int(self.t.size), "dof": self.dof,
+                "coil": {f"{k}_{_COIL_UNITS[k]}": v for k, v in self.coil_values().items()},
                 "notes": list(self.notes)}
+
+
+#: the unit suffix of each [coil] key in the JSON (SI; ASCII "ohm" for Ω, as a key name)
+_COIL_UNITS = {"inductance": "H", "resistance": "ohm", "saturation_current": "A"}
 
 
 # ---- models: current [A] at times t [s] for parameters p ---------------------------------------

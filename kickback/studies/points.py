@@ -26,102 +26,23 @@ which engine.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
 from kickback.case import Case
 from kickback.errors import SolverError
 from kickback.studies.onepoint import point_figures
+from kickback.studies.pointtable import FIGURES, CheckCol, Points, audit_note
 
 ENGINES = ("auto", "batch", "detailed")
 #: variants the batch engine failed that are run again by the detailed engine, per call
 RETRY_MAX = 50
-#: the figures of every variant: name → unit
-FIGURES = {"peak_voltage_V": "V", "clamp_energy_J": "J", "avalanche_energy_J": "J", "to_10_percent_s": "s",
-           "to_1_percent_s": "s", "to_zero_s": "s", "release_s": "s", "stored_energy_J": "J",
-           "energy_balance_error": ""}
 #: the batch engine's column of each figure (clamp energies are added separately)
 _BATCH = {"peak_voltage_V": "switch.peak_voltage_V", "avalanche_energy_J": "switch.avalanche_energy_J",
           "to_10_percent_s": "coil.decay_s.to_10_percent", "to_1_percent_s": "coil.decay_s.to_1_percent",
           "to_zero_s": "coil.decay_s.to_zero", "release_s": "coil.release_s",
           "stored_energy_J": "coil.stored_energy_J", "energy_balance_error": "energy_balance_error"}
-
-
-@dataclass(frozen=True)
-class CheckCol:
-    """One rating check over the variants (arrays of shape (n,)); NaN where it does not apply."""
-
-    value: np.ndarray
-    limit: np.ndarray
-    margin: np.ndarray
-    passed: np.ndarray  # True where it does not apply
-    applies: np.ndarray
-
-
-@dataclass(frozen=True)
-class Points:
-    """Figures, checks and verdicts of n variants of one case.
-
-    Attributes
-    ----------
-    engine : str — "batch" or "detailed" (the engine that ran)
-    figures : dict — name → float array (NaN: the time does not occur, or not simulated);
-        the names of :data:`FIGURES` and ``clamp[k].energy_J`` for every clamp
-    checks : dict — "part quantity" → :class:`CheckCol`, in the order of
-        :func:`kickback.ratings.rating_checks`
-    passed : bool array — simulated and every check passes
-    errors : object array — None, or why the variant could not be simulated
-    fits : tuple of str — piecewise-linear fits of nonlinear laws the batch engine used
-    note : str — why the detailed engine ran where the batch engine was asked for ("" otherwise)
-    retried : int — variants the batch engine could not simulate, run again by the detailed one
-    findings : object array or None — per variant, the audit findings of the engine that ran it
-        (an empty tuple: it passed)
-    audit_failed : int — variants whose result failed the audit of the first engine
-    audit_solved : int — of those, solved again on ``audit_engine`` with a passing audit
-    audit_engine : str — the engine that solved them again ("" when none did)
-    """
-
-    engine: str
-    figures: dict
-    checks: dict
-    passed: np.ndarray
-    errors: np.ndarray
-    fits: tuple = ()
-    note: str = ""
-    retried: int = 0
-    findings: np.ndarray | None = None
-    audit_failed: int = 0
-    audit_solved: int = 0
-    audit_engine: str = ""
-
-    @property
-    def n(self) -> int:
-        return int(self.passed.size)
-
-    @property
-    def audit_note(self) -> str:
-        """How many variants failed their audit, how many another engine solved ("" when none)."""
-        return audit_note(self.audit_failed, self.audit_solved, self.audit_engine)
-
-    def failing(self, k: int) -> list[str]:
-        """Names of the checks variant k fails."""
-        return [name for name, c in self.checks.items() if c.applies[k] and not c.passed[k]]
-
-    def point(self, k: int) -> dict:
-        """Variant k as :func:`kickback.studies.onepoint.point_figures` gives one point (None for NaN)."""
-        if self.errors[k] is not None:
-            return {"error": self.errors[k]}
-        out = {name: _opt(a[k]) for name, a in self.figures.items()}
-        out |= {"pass": bool(self.passed[k]), "failing_checks": self.failing(k), "error": None,
-                "checks": [(name, _opt(c.value[k]), _opt(c.limit[k]), _opt(c.margin[k]), bool(c.passed[k]))
-                           for name, c in self.checks.items() if c.applies[k]]}
-        return out
-
-
-def _opt(x):
-    x = float(x)
-    return None if np.isnan(x) else x
 
 
 def pick_engine(case: Case, engine: str = "auto") -> tuple[str, str]:
@@ -198,18 +119,6 @@ def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto"
     return _settle(pts, audit_bad, redo, "batch", "detailed", before)
 
 
-def audit_note(failed: int, solved: int, other: str) -> str:
-    """The sentence a study prints about variants that failed their audit ("" when none did)."""
-    if not failed:
-        return ""
-    text = f"{failed} variant(s) failed the audit of their result (kickback.audit)"
-    if solved:
-        text += f": {solved} solved again on the {other} engine"
-    if failed - solved:
-        text += f"{',' if solved else ':'} {failed - solved} unsolved (no verdict, counted as failed)"
-    return text
-
-
 def _take(var: dict, rows) -> dict:
     return {k: np.asarray(v)[rows] for k, v in var.items()}
 
@@ -252,7 +161,7 @@ def _settle(pts: Points, audit_bad: np.ndarray, redo: np.ndarray, first: str, ot
             cols = [a.copy() for a in (c.value, c.limit, c.margin, c.passed, c.applies)]
             for a, fill in zip(cols, (np.nan, np.nan, np.nan, True, False), strict=True):
                 a[unsolved] = fill
-            checks[name] = CheckCol(*cols)
+            checks[name] = CheckCol(*cols, unit=c.unit)
         passed, errors = pts.passed.copy(), pts.errors.copy()
         for k in unsolved:
             if k in before:
@@ -303,7 +212,7 @@ def from_many(case: Case, many) -> Points:
     for c in many.checks.values():
         checks[f"{c.part} {c.quantity}"] = CheckCol(np.asarray(c.value, float), np.asarray(c.limit, float),
                                                     np.asarray(c.margin, float), np.asarray(c.passed, bool),
-                                                    np.asarray(c.applies, bool))
+                                                    np.asarray(c.applies, bool), c.unit)
     errors = np.full(n, None, dtype=object)
     errors[~ok] = many.message[~ok]
     return Points("batch", _ordered(figs), checks, np.asarray(many.passed, bool), errors, tuple(many.fits))
@@ -349,7 +258,8 @@ def from_rows(case: Case, rows: list[dict]) -> Points:
                     limit[k] = np.nan if lim is None else lim
                     margin[k] = np.nan if m is None else m
                     passed[k], applies[k] = ok, True
-        checks[name] = CheckCol(value, limit, margin, passed, applies)
+        unit = next((r["check_units"][name] for r in rows if name in r.get("check_units", {})), "")
+        checks[name] = CheckCol(value, limit, margin, passed, applies, unit)
     errors = np.empty(n, dtype=object)
     errors[:] = [r.get("error") for r in rows]
     passed = np.array([bool(r.get("pass")) and r.get("error") is None for r in rows], bool)
@@ -373,16 +283,18 @@ def _replace_rows(pts: Points, rows: np.ndarray, again: Points, count: bool = Tr
         cols = [a.copy() for a in (old.value, old.limit, old.margin, old.passed, old.applies)]
         for a, b in zip(cols, (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):
             a[rows] = b
-        checks[name] = CheckCol(*cols)
+        checks[name] = CheckCol(*cols, unit=c.unit or old.unit)
     passed = pts.passed.copy()
     passed[rows] = again.passed
     errors = pts.errors.copy()
     errors[rows] = again.errors
+    ran = pts.ran_on().copy()
+    ran[rows] = again.ran_on()
     found = _findings(pts)
     found[rows] = list(_findings(again))
     fits = tuple(dict.fromkeys(pts.fits + again.fits))
     return replace(pts, figures=figs, checks=checks, passed=passed, errors=errors, fits=fits, findings=found,
-                   retried=pts.retried + (int(rows.size) if count else 0))
+                   retried=pts.retried + (int(rows.size) if count else 0), ran=ran)
 
 
 def _findings(pts: Points) -> np.ndarray:
@@ -408,7 +320,7 @@ def concat(parts: list[Points]) -> Points:
         for name, c in p.checks.items():
             if name not in checks:
                 checks[name] = CheckCol(np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan),
-                                        np.ones(n, bool), np.zeros(n, bool))
+                                        np.ones(n, bool), np.zeros(n, bool), c.unit)
             tgt = checks[name]
             for a, b in zip((tgt.value, tgt.limit, tgt.margin, tgt.passed, tgt.applies),
                             (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):
@@ -422,10 +334,13 @@ def concat(parts: list[Points]) -> Points:
     failed = sum(p.audit_failed for p in parts)
     solved = sum(p.audit_solved for p in parts)
     other = "/".join(dict.fromkeys(p.audit_engine for p in parts if p.audit_engine))
-    return Points(parts[0].engine if len(engines) == 1 else "mixed", figs, checks,
+    # the engine picked: the batch engine where it ran any part (the detailed one ran the others
+    # because the batch engine does not cover them); ``ran`` says which ran each variant
+    picked = "batch" if "batch" in engines else "detailed"
+    return Points(picked, figs, checks,
                   np.concatenate([p.passed for p in parts]), np.concatenate([p.errors for p in parts]),
                   fits, notes, sum(p.retried for p in parts), np.concatenate([_findings(p) for p in parts]),
-                  failed, solved, other)
+                  failed, solved, other, np.concatenate([p.ran_on() for p in parts]))
 
 
 def evaluate_cases(cases: list[Case], *, engine: str = "auto", workers: int = 1, progress=None) -> Points:

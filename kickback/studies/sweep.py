@@ -13,6 +13,7 @@ from kickback.casevary import check_ranges, resolve
 from kickback.errors import CaseError
 from kickback.keypath import unit_of
 from kickback.studies.points import evaluate
+from kickback.studies.pointtable import engine_counts
 
 #: figures reported per point: column name, unit
 COLUMNS = (("peak_voltage_V", "V"), ("clamp_energy_J", "J"), ("avalanche_energy_J", "J"),
@@ -74,10 +75,12 @@ def _number_or_text(text: str):
 class SweepResult:
     """Figures at every point of the sweep grid (first axis varies slowest).
 
-    ``engine`` is the engine that ran ("batch" or "detailed"); ``fits`` the piecewise-linear fits
-    of nonlinear laws the batch engine used (empty: exact models); ``engine_note`` why the
-    detailed engine ran where the batch engine would have ("" otherwise), and how many points the
-    batch engine could not simulate were run by the detailed one.
+    ``engine`` is the engine picked for the case ("batch" or "detailed"), ``asked`` the
+    ``--engine`` given ("auto", "batch" or "detailed") and ``ran`` per point the engine whose
+    figures it holds (a point the batch engine could not simulate, or whose result failed its
+    audit, is run on the detailed engine); ``fits`` the piecewise-linear fits of nonlinear laws
+    the batch engine used (empty: exact models); ``engine_note`` why the detailed engine ran where
+    the batch engine would have ("" otherwise), and how many points it ran.
     """
 
     case: Case
@@ -90,6 +93,17 @@ class SweepResult:
     engine: str
     fits: tuple = ()
     engine_note: str = ""
+    asked: str = "auto"
+    ran: tuple = ()
+
+    def engine_of(self, k: int) -> str:
+        """The engine whose figures point k holds."""
+        return self.ran[k] if self.ran else self.engine
+
+    @property
+    def engines(self) -> dict:
+        """Points per engine, e.g. ``{"batch": 20, "detailed": 1}``."""
+        return engine_counts(self.engine_of(k) for k in range(len(self.points)))
 
     def rows(self) -> list[dict]:
         out = []
@@ -98,12 +112,12 @@ class SweepResult:
             row |= {c: self.figures[c][k] for c, _ in COLUMNS}
             # a point that could not be simulated (or failed its audit twice) has no verdict
             row |= {"pass": None if self.errors[k] is not None else bool(self.passed[k]),
-                    "failing_checks": self.failing[k], "error": self.errors[k]}
+                    "failing_checks": self.failing[k], "error": self.errors[k], "engine": self.engine_of(k)}
             out.append(row)
         return out
 
     def to_dict(self) -> dict:
-        return {"title": self.case.title, "engine": self.engine, "fits": list(self.fits),
+        return {"title": self.case.title, "engine": self.asked, "engines": self.engines, "fits": list(self.fits),
                 "engine_note": self.engine_note or None,
                 "axes": [{"key": a.path, "unit": a.unit, "log": a.log, "values": a.values.tolist()}
                          for a in self.axes], "points": self.rows()}
@@ -164,4 +178,4 @@ def run_sweep(case: Case, axes: tuple[Axis, ...], *, workers: int = 1, progress=
         note = (note + "; " if note else "") + (f"{pts.retried} point(s) the batch engine could not simulate were "
                                                 "run by the detailed engine")
     return SweepResult(case, tuple(axes), points, figs, pts.passed.copy(), [pts.failing(k) for k in range(pts.n)],
-                       list(pts.errors), pts.engine, pts.fits, note)
+                       list(pts.errors), pts.engine, pts.fits, note, engine, tuple(pts.ran_on()))

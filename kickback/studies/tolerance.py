@@ -4,7 +4,6 @@ sensitivity and yield against every check."""
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass
 
 import numpy as np
 
@@ -13,12 +12,27 @@ from kickback.case import Case
 from kickback.errors import CaseError
 from kickback.keypath import get_value, set_value
 from kickback.models.passive import COPPER_ZERO_K, copper_resistance
+from kickback.studies.tolresult import (
+    FIGURES,
+    PERCENTILES,
+    ToleranceResult,
+    clopper_pearson,
+    json_float,
+    params_row,
+)
 
-#: figures followed by the study, with their unit and whether a larger value is worse
-FIGURES = (("peak_voltage_V", "V", True), ("clamp_energy_J", "J", True), ("avalanche_energy_J", "J", True),
-           ("to_zero_s", "s", True), ("release_s", "s", True))
-PERCENTILES = (0.0, 0.1, 1.0, 50.0, 99.0, 99.9, 100.0)
 MAX_CORNER_VALUES = 10  # 2^10 corners at most
+#: samples per batch of the Monte Carlo (memory is bounded by it, not by the number of samples)
+CHUNK = 10_000
+#: draws per random block (one SeedSequence child each); fixed, so the samples never depend on
+#: the workers, the executor or ``chunk``
+DRAW_BLOCK = 10_000
+#: samples per task when the detailed engine runs them (each sample is solved on its own)
+DETAILED_TASK = 8
+#: batch-engine samples run again by the detailed engine, drawn at random (seeded)
+RECHECK = 16
+#: rounds of the worst-case search per figure when the batch engine runs (one batch per round)
+SEARCH_ROUNDS = 16
 
 
 def figure_list(case: Case) -> tuple[tuple[str, str, bool], ...]:
@@ -130,83 +144,6 @@ def evaluate(case: Case, matrix: np.ndarray, *, engine: str = "detailed", worker
     return run(case, variations_of(case, matrix), engine=engine, workers=workers, progress=progress, chunk=chunk)
 
 
-def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Exact binomial confidence interval of a proportion k/n.
-
-    References
-    ----------
-    C. J. Clopper and E. S. Pearson, "The use of confidence or fiducial limits illustrated in
-    the case of the binomial", Biometrika 26(4), 1934.
-    """
-    from scipy.stats import beta
-
-    a = 1.0 - confidence
-    lo = 0.0 if k == 0 else float(beta.ppf(a / 2, k, n - k + 1))
-    hi = 1.0 if k == n else float(beta.ppf(1 - a / 2, k + 1, n - k))
-    return lo, hi
-
-
-@dataclass(frozen=True)
-class ToleranceResult:
-    case: Case
-    names: tuple[str, ...]
-    samples: np.ndarray  # (n, k) [SI]
-    figures: dict  # figure → array (NaN where a time does not occur)
-    passed: np.ndarray
-    errors: list
-    yield_ci: tuple[float, float]
-    percentiles: dict  # figure → {percentile: value}
-    worst_per_check: dict  # check → {"margin", "value", "limit", "params"}
-    corners: dict  # figure → {"max", "params"} over all band corners (None when too many)
-    search: dict  # figure → {"max", "params", "corner_max", "interior"}
-    sensitivity: dict  # figure → [(name, swing)] sorted by |swing|
-    seed: int
-    figure_list: tuple = FIGURES
-    engine: str = "detailed"  # the engine that ran the samples
-    fits: tuple = ()  # piecewise-linear fits of nonlinear laws the batch engine used
-    engine_note: str = ""  # why the detailed engine ran where the batch engine would have
-    recheck: dict | None = None  # batch samples run again by the detailed engine (see recheck())
-
-    @property
-    def yield_(self) -> float:
-        return float(self.passed.mean()) if self.passed.size else float("nan")
-
-    def to_dict(self) -> dict:
-        def clean(x):
-            return None if x is None or (isinstance(x, float) and np.isnan(x)) else x
-
-        return {"title": self.case.title, "seed": self.seed, "samples": int(len(self.samples)),
-                "engine": self.engine, "fits": list(self.fits), "engine_note": self.engine_note or None,
-                "parameters": list(self.names),
-                "yield": self.yield_, "yield_ci95": list(self.yield_ci),
-                "percentiles": {f: {str(p): clean(v) for p, v in d.items()} for f, d in self.percentiles.items()},
-                "worst_per_check": self.worst_per_check, "corners": self.corners, "worst_case_search": self.search,
-                "sensitivity": {f: [{"parameter": n, "swing": s} for n, s in v] for f, v in self.sensitivity.items()},
-                "failed_samples": int(sum(e is not None for e in self.errors)),
-                "detailed_recheck": self.recheck}
-
-
-def _params(names, row) -> dict:
-    return {n: float(x) for n, x in zip(names, row, strict=True)}
-
-
-def _opt(x):
-    return None if x is None or not np.isfinite(x) else float(x)
-
-
-#: samples per batch of the Monte Carlo (memory is bounded by it, not by the number of samples)
-CHUNK = 10_000
-#: draws per random block (one SeedSequence child each); fixed, so the samples never depend on
-#: the workers, the executor or ``chunk``
-DRAW_BLOCK = 10_000
-#: samples per task when the detailed engine runs them (each sample is solved on its own)
-DETAILED_TASK = 8
-#: batch-engine samples run again by the detailed engine, drawn at random (seeded)
-RECHECK = 16
-#: rounds of the worst-case search per figure when the batch engine runs (one batch per round)
-SEARCH_ROUNDS = 16
-
-
 def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=None,
                   search_budget: int | None = None, engine: str = "auto", chunk: int = CHUNK,
                   recheck: int = RECHECK, executor=None) -> ToleranceResult:
@@ -248,25 +185,27 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     idx = np.sort(_recheck_rng(seed, n).choice(n, size=min(recheck, n), replace=False)) \
         if used == "batch" and recheck > 0 else None
     with parallel.using(executor), _Recheck(case, matrix, idx, workers) as later:
-        figs, passed, errors, worst, fits, retried, audited = _monte_carlo(case, matrix, flist, used, workers,
-                                                                           progress, chunk)
+        figs, passed, errors, worst, fits, retried, audited, counts = _monte_carlo(case, matrix, flist, used,
+                                                                                   workers, progress, chunk)
         study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
         check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
     if retried:
         note = (note + "; " if note else "") + (f"{retried} sample(s) the batch engine could not simulate were run "
                                                 "by the detailed engine")
     if audited[0]:
-        from kickback.studies.points import audit_note
+        from kickback.studies.pointtable import audit_note
 
         note = (note + "; " if note else "") + audit_note(*audited)
     k = int(passed.sum())  # the per-chunk pass counts, summed
     pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
            for f, a in figs.items()}
-    worst_per_check = {name: {"margin": _opt(m), "value": _opt(v), "limit": _opt(lim),
-                              "params": _params(names, matrix[j])} for name, (_key, j, v, lim, m) in worst.items()}
+    worst_per_check = {name: {"margin": json_float(m), "value": json_float(v), "limit": json_float(lim), "unit": unit,
+                              "params": params_row(names, matrix[j])}
+                       for name, (_key, j, v, lim, m, unit) in worst.items()}
     corners, search, sens = study
     return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
-                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check)
+                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check, engine,
+                           counts)
 
 
 class _Recheck:
@@ -320,7 +259,7 @@ def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
         for f, a in figures_at(cm).items():
             if np.isfinite(a).any():
                 j = int(np.nanargmax(a))
-                corners[f] = {"max": float(a[j]), "min": float(np.nanmin(a)), "params": _params(names, cm[j])}
+                corners[f] = {"max": float(a[j]), "min": float(np.nanmin(a)), "params": params_row(names, cm[j])}
                 corner_best[f] = (float(a[j]), cm[j])
     search = _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist,
                      search_budget or (40 if used == "detailed" else 2 * len(names) * SEARCH_ROUNDS))
@@ -361,7 +300,10 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
     fits: list = []
     retried = 0
     audited = [0, 0, ""]  # samples that failed their audit, solved again, on which engine
+    counts = dict.fromkeys(("batch", "detailed"), 0)
     for g, part in zip(cuts, parts, strict=True):
+        for e, m in part["engines"].items():
+            counts[e] += m
         for f, a in part["figures"].items():
             figs[f][g] = a
         passed[g] = part["passed"]
@@ -369,10 +311,10 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         fits += [x for x in part["fits"] if x not in fits]
         retried += part["retried"]
         audited = [audited[0] + part["audit"][0], audited[1] + part["audit"][1], part["audit"][2] or audited[2]]
-        for name, (key, j, v, lim, m) in part["worst"].items():
+        for name, (key, j, v, lim, m, unit) in part["worst"].items():
             if name not in worst or key < worst[name][0]:
-                worst[name] = (key, g.start + j, v, lim, m)
-    return figs, passed, errors, worst, tuple(fits), retried, tuple(audited)
+                worst[name] = (key, g.start + j, v, lim, m, unit)
+    return figs, passed, errors, worst, tuple(fits), retried, tuple(audited), {e: m for e, m in counts.items() if m}
 
 
 def _chunk_job(args) -> dict:
@@ -385,10 +327,10 @@ def _chunk_job(args) -> dict:
         key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
         j = int(np.argmin(key))
         if c.applies[j]:
-            worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j])
+            worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j], c.unit)
     return {"figures": {f: pts.figures[f] for f in names if f in pts.figures}, "passed": pts.passed,
             "n_passed": int(np.sum(pts.passed)), "errors": list(pts.errors), "worst": worst,
-            "fits": list(pts.fits), "retried": pts.retried,
+            "fits": list(pts.fits), "retried": pts.retried, "engines": pts.engine_counts(),
             "audit": (pts.audit_failed, pts.audit_solved, pts.audit_engine)}
 
 
@@ -411,7 +353,7 @@ def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, bu
     search = {}
     for f, (best_val, best_x) in found.items():
         c_max = corner_best.get(f, (None,))[0]
-        search[f] = {"max": float(best_val), "params": _params(names, best_x), "corner_max": c_max,
+        search[f] = {"max": float(best_val), "params": params_row(names, best_x), "corner_max": c_max,
                      "interior": bool(c_max is not None and best_val > c_max * (1 + 1e-6) + 1e-300)}
     return search
 
