@@ -209,6 +209,8 @@ class BatchCircuit:
                 p = element_piece(el, g, i0, n)
                 if p.invalid is not None:
                     self.fail(p.invalid, f"{cl.name}: {el.name or el.type}: values give no device law")
+                if p.refuse is not None:
+                    self.fail(p.refuse[0], f"{cl.name}: {el.name or el.type}: {p.refuse[1]}")
                 pieces.append(p)
             try:
                 law, els, notes = chain_law(pieces, n)
