@@ -6,17 +6,20 @@ current against branch voltage made of *states* in ascending voltage: linear seg
 its voltage) and at most one zero-current *block* ``band_lo ≤ u ≤ band_hi``. Every value is an
 array over the cases of one batch; the structure (number and kind of states) is shared.
 
-Laws that are not piecewise linear enter as a **stated fit**: chords between the node currents
-``x = i0 × FIT_NODES`` (a grid chosen once, :func:`_fit_nodes`) through the law read a little
+Laws that are not piecewise linear enter as a **stated fit** (:mod:`kickback.engine.batch_fit`):
+chords between the node currents ``x = i0 × FIT_NODES`` (a grid chosen once) through the law read a little
 higher, ``(x, v(FIT_SCALE·x))``, so that the fitted law is continuous and its current at any
 voltage lies within ``max(FIT_REL × i, FIT_ABS × i0)`` of the exact law's current ``i``
 (``FIT_REL`` = 1 %, ``FIT_ABS`` = 1e-4) from the figures' conduction threshold (``FIT_FLOOR`` =
 1e-6·i0) up to ``FIT_TOP`` = 2·i0; the first chord leaves zero current at the law's voltage at
 that threshold, the last one goes on beyond the top node. The bound rests on the chord error of
-the logarithmic law ``v = a·ln i`` (:func:`chord_error`), the worst case of both laws fitted: a
+the logarithmic law ``v = a·ln i`` (``batch_fit.chord_error``), the worst case of both laws fitted: a
 Shockley diode ``a·ln(1 + i/I_s) + r_s·i`` is less curved against ``ln i``, and so is a varistor
 ``v₁·(i/i₁)^(1/α)`` for α ≥ 1 (the batch engine refuses a varistor with α < 1, with the
-reason). In a series chain of fitted elements the chain's current error at one voltage keeps the
+reason). A Shockley diode's fit blocks in reverse, where the exact law leaks −I_s: where
+I_s > FIT_ABS·i0 and a capacitor (in its chain, or at the node) can drive that leak, the batch
+engine refuses the variant (:class:`~kickback.engine.batch_params.BatchCircuit`). In a series
+chain of fitted elements the chain's current error at one voltage keeps the
 bound (each element's voltage error is at most its bound times ``i·dv/di``). What this does to
 the figures: an energy moves by about the current error times the voltage over the time it
 lasts; measured against the exact laws (tests/test_fit_bound.py, tests/test_wide_range.py), the
@@ -32,72 +35,13 @@ Bulletin 65(4), 1986 (power-law characteristic).
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from kickback.engine.batch_fit import FIT_MIN_EXPONENT, chords, describe
 from kickback.models.breakdown import DEFAULT_FORWARD_DROP
 from kickback.models.diode import BOLTZMANN, ELEMENTARY_CHARGE, T25
-
-#: the fit's stated current error: relative (to the exact current) and absolute (× i0)
-FIT_REL = 0.01
-FIT_ABS = 1e-4
-#: the fit's range: from the figures' conduction threshold to FIT_TOP × i0
-FIT_FLOOR = 1e-6
-FIT_TOP = 2.0
-#: smallest varistor exponent for which the chord error stays within the log law's
-FIT_MIN_EXPONENT = 1.0
-
-
-def chord_error(q: float) -> float:
-    """Largest relative current error of a chord of ``v = ln i`` over a current ratio ``q`` [-].
-
-    At a voltage a share ``x`` of the way along the chord, the chord's current is
-    ``i_a·(1 + (q − 1)·x)`` and the law's ``i_a·q^x``; the ratio is largest at
-    ``x = 1/ln q − 1/(q − 1)`` (where its derivative vanishes).
-    """
-    lq = math.log(q)
-    x = 1.0 / lq - 1.0 / (q - 1.0)
-    return (1.0 + (q - 1.0) * x) / math.exp(x * lq) - 1.0
-
-
-def _ratio_for(err: float) -> float:
-    """The largest chord ratio q whose :func:`chord_error` is at most ``err`` (bisection)."""
-    lo, hi = 1.0 + 1e-9, 1e6
-    for _ in range(200):
-        mid = math.sqrt(lo * hi)
-        lo, hi = (mid, hi) if chord_error(mid) <= err else (lo, mid)
-    return lo
-
-
-#: the fit's chords pass through (x·i0, v(FIT_SCALE·x·i0)): the law read at a current FIT_SCALE×
-#: higher, so that the chord error (fitted current ≥ exact) is shared evenly on both sides
-FIT_SCALE = 1.0 + FIT_REL
-
-
-def _fit_nodes() -> tuple:
-    """Node currents (× i0) of the fit, ascending.
-
-    A chord over the ratio q of the law read at FIT_SCALE·i gives a current between i/FIT_SCALE
-    and i·(1 + e)/FIT_SCALE, e = :func:`chord_error` (q); from the top down, each chord is as long
-    as keeps that within max(FIT_REL·i, FIT_ABS·i0) (the current at the chord's top is at most
-    FIT_SCALE times its upper node). The last node is at most FIT_ABS/FIT_SCALE: below it one
-    chord from zero current, whose error is below FIT_ABS·i0.
-    """
-    c = FIT_SCALE
-    x = FIT_TOP
-    nodes = [x]
-    bottom = FIT_ABS / c
-    while x > bottom:
-        e = max(c * (1.0 + FIT_REL) - 1.0, FIT_ABS / x + c - 1.0)
-        x = max(x / _ratio_for(e), bottom)
-        nodes.append(x)
-    return tuple(reversed(nodes))
-
-
-#: node currents of the fit (× i0); the fitted law leaves zero current at v(FIT_FLOOR·i0)
-FIT_NODES = _fit_nodes()
 
 
 @dataclass
@@ -190,6 +134,7 @@ class ElementPiece:
     fit_note: str = ""
     invalid: np.ndarray | None = None  # (N,) bool: values that make no law
     refuse: tuple | None = None  # ((N,) bool, reason): values outside the fit's stated error
+    leak: np.ndarray | None = None  # (N,) [A] reverse saturation current the fit leaves out (Shockley)
 
 
 @dataclass
@@ -212,25 +157,6 @@ def _pw(V, r, n):
 def _pw_rev(V, r, n):
     return [(np.asarray(V, float) * np.ones(n), np.asarray(r, float) * np.ones(n), np.full(n, -np.inf),
              np.zeros(n))]
-
-
-def _chords(vfun, i0, n):
-    """Forward segments of the stated fit of v(i): chords between consecutive nodes
-    ``x = i0 × FIT_NODES`` through (x, v(FIT_SCALE·x)), the first from (0, v(FIT_FLOOR·i0)) (see
-    the module docstring)."""
-    xs = [np.zeros(n)] + [x * i0 for x in FIT_NODES]
-    vs = [vfun(FIT_FLOOR * i0)] + [vfun(FIT_SCALE * x) for x in xs[1:]]
-    segs = []
-    for k in range(len(xs) - 1):
-        r = (vs[k + 1] - vs[k]) / (xs[k + 1] - xs[k])
-        hi = xs[k + 1] if k < len(xs) - 2 else np.full(n, np.inf)
-        segs.append((vs[k] - r * xs[k], r, xs[k], hi))
-    return segs
-
-
-def _points() -> str:
-    return (f"{len(FIT_NODES)} chords through i/i0 = {FIT_NODES[0]:.3g} … {FIT_NODES[-1]:g}; current within "
-            f"max({FIT_REL:.0%}, {FIT_ABS:g}·i0) of the exact law from {FIT_FLOOR:g}·i0 to {FIT_TOP:g}·i0")
 
 
 def element_piece(el, get, i0, n) -> ElementPiece:
@@ -265,10 +191,10 @@ def element_piece(el, get, i0, n) -> ElementPiece:
                 sh = (-1,) + (1,) * (np.ndim(i) - 1)
                 return a.reshape(sh) * np.log1p(i / i_s.reshape(sh)) + rs.reshape(sh) * i
 
-            segs = _chords(vfun, i0, n)
-        note = ("Shockley diode as a piecewise-linear fit (" + _points() + "; exact law in the detailed engine)")
+            segs = chords(vfun, i0, n)
+        note = ("Shockley diode as a piecewise-linear fit (" + describe() + "; exact law in the detailed engine)")
         return ElementPiece("diode", segs, [], description="Shockley diode (fitted)", fitted=True, fit_note=note,
-                            invalid=bad | (vj <= 0))
+                            invalid=bad | (vj <= 0), leak=np.where(bad, 0.0, i_s))
     if t in ("zener", "tvs"):
         v, rd = get("voltage"), get("dynamic_resistance")
         if el.test_current is not None:  # the datasheet's values (models.factory.breakdown_parameters)
@@ -299,9 +225,9 @@ def element_piece(el, get, i0, n) -> ElementPiece:
             return v1.reshape(sh) * (i / i1.reshape(sh)) ** (1.0 / alpha.reshape(sh))
 
         with np.errstate(invalid="ignore", divide="ignore"):
-            fwd = _chords(vfun, i0, n)
+            fwd = chords(vfun, i0, n)
         rev = [(-V, r, -hi, -lo) for V, r, lo, hi in reversed(fwd)]
-        note = ("varistor as a piecewise-linear fit, both polarities (" + _points()
+        note = ("varistor as a piecewise-linear fit, both polarities (" + describe()
                 + "; exact law in the detailed engine)")
         return ElementPiece("varistor", fwd, rev, description="varistor (fitted)", fitted=True, fit_note=note,
                             invalid=~((v1 > 0) & (alpha > 0)),

@@ -8,8 +8,9 @@ its segments' clipped contributions, each anchored at zero current,
 (``a_k`` the end of segment k nearest zero current; a vertical segment jumps from ``I_lo`` to
 ``I_hi`` at ``V_k``), which is exact, monotone and insensitive to the one-ulp gaps chords leave
 between segments. The node voltage solving ``Σ I_b(v − off_b) + g·v = target`` is found exactly:
-the residual is evaluated on both sides of every kink, the kink or the linear piece holding the
-root is picked, and a root on a vertical jump is the vertical law's own voltage.
+the residual is nondecreasing in v, so bisection over the sorted kinks finds the first one at
+which it is ≥ 0; the kink or the linear piece before it holds the root, and a root on a vertical
+jump is the vertical law's own voltage.
 """
 
 from __future__ import annotations
