@@ -15,8 +15,9 @@ error, and what it does to the figures, against references written here.
   the turn-off is a quadrature over v (L·di/dt = V_s − R·i − v gives dt = L·I'(v)·dv /
   (V_s − R·I(v) − v)); every energy and time is integrated here with scipy.integrate.quad at
   epsrel 1e-12, and where the avalanche is vertical (r_av = 0) the node's pinned phase is a closed
-  form. The batch engine's figures must agree within the fit's stated figure error: 2 % of the
-  figure or 5e-4 of the stored energy (energies), 1 % (times).
+  form. The batch engine's figures must agree within 2 % of the figure or 5e-4 of
+  the energy put in (energies; the stated figure error is 3 %, for two fitted paths sharing the
+  current) and 1 % (times).
 """
 
 from __future__ import annotations
@@ -271,6 +272,42 @@ def _w_of_exp(x):
     return w
 
 
+def _chain_law(parts):
+    """Series chain of laws given as v(i) and dv/di: its current at chain voltage u (brentq on the
+    sum of the element voltages) and the derivative 1/Σ dv/di."""
+    def v_of(i):
+        return sum(v(i) for v, _dv in parts)
+
+    def f(u):
+        if u <= v_of(0.0):
+            return 0.0
+        hi = 1.0
+        while v_of(hi) < u:
+            hi *= 4.0
+        return optimize.brentq(lambda i: v_of(i) - u, 0.0, hi, xtol=1e-300, rtol=1e-15, maxiter=500)
+
+    def d(u):
+        i = f(u)
+        return 0.0 if i <= 0 else 1.0 / sum(dv(i) for _v, dv in parts)
+
+    return f, d
+
+
+def _shockley_v(vf, at, n, rs):
+    a, i_s = n * VT25, _diode_is(vf, at, n, rs)
+    return (lambda i: a * math.log1p(i / i_s) + rs * i), (lambda i: a / (i + i_s) + rs)
+
+
+def _varistor_v(v1, alpha, i1=1e-3):
+    return (lambda i: v1 * (i / i1) ** (1.0 / alpha)), (lambda i: v1 / (alpha * i1) * (i / i1) ** (1.0 / alpha - 1.0))
+
+
+def _chain_clamp(name):
+    return (f'[[clamp]]\nname = "{name}"\nacross = "switch"\n[[clamp.element]]\ntype = "diode"\nmodel = "shockley"\n'
+            'forward_voltage = "0.9 V"\nat_current = "1 A"\nideality = 1.0\nseries_resistance = "0.05 Ω"\n'
+            '[[clamp.element]]\ntype = "varistor"\nvoltage = "95 V"\nexponent = 25\nat_current = "1 mA"\n')
+
+
 FIGURE_CASES = {
     # avalanche vertical at 100 V in parallel with a varistor (seed 97's kind): the varistor's share
     # at 100 V is 1 mA·(100/105)^30 ≈ 0.23 mA, set by the fit's current there
@@ -279,6 +316,11 @@ FIGURE_CASES = {
     # avalanche with 0.9 Ω in parallel with a steep low-exponent varistor (seed 167's kind)
     "avalanche-resistive+varistor": dict(clamps=[_varistor("V1", 86.0, 8.6)], laws=[_varistor_law(86.0, 8.6)],
                                          refs=[0.0], vbr=103.0, rav=0.9),
+    # a Shockley diode + varistor chain (two fitted laws merged in one chain) beside a vertical
+    # avalanche at 100 V: the chain's share there, ~3 mA, is set by the chain's fitted current
+    "avalanche-vertical+diode-varistor-chain": dict(
+        clamps=[_chain_clamp("DV")], laws=[_chain_law([_shockley_v(0.9, 1.0, 1.0, 0.05), _varistor_v(95.0, 25.0)])],
+        refs=[0.0], vbr=100.0, rav=0.0),
     # two varistors in parallel across the switch share the current (seed 186's kind)
     "varistor+varistor": dict(clamps=[_varistor("V1", 60.0, 12.0), _varistor("V2", 66.0, 35.0, i1=1e-2)],
                               laws=[_varistor_law(60.0, 12.0), _varistor_law(66.0, 35.0, 1e-2)], refs=[0.0, 0.0]),
@@ -300,7 +342,7 @@ def test_shared_clamp_energies_within_the_fits_stated_error(name):
     assert ref_total == pytest.approx(e_in, rel=1e-9), "the reference's own ledger"
     b = simulate(case, engine="batch").figures
     assert any("fit" in m for m in b.models)
-    floor = 5e-4 * e_in  # the stated figure error: 2 % of the figure or 5e-4 of the energy put in
+    floor = 5e-4 * e_in  # 2 % of the figure or 5e-4 of the energy put in (within the stated 3 %)
     got = {k: b.clamps[k].energy_J for k in range(len(c["clamps"]))}
     got["av"] = b.avalanche_energy_J
     got["R"] = b.resistance_energy_J
