@@ -475,7 +475,7 @@ def test_piecewise_linear_demo_cases_agree(name, cases_dir):
     _compare(_no_thermal(load_case(cases_dir / f"{name}.toml")))
 
 
-#: figures the 3-segment fit of a nonlinear law moves by more than 2 % (measured and reported
+#: figures the stated fit of a nonlinear law moves by more than 2 % (measured and reported
 #: here): the energy left in the node capacitance at the end (set by the law at 1e-9·i0, below
 #: the fit's range; ~1e-5 of the stored energy) and the time of a smooth maximum
 FIT_EXEMPT = ("left_in_capacitors_J", "peak_time_s", "energy_balance_error")

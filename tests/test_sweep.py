@@ -139,8 +139,8 @@ def test_batch_sweep_agrees_with_the_detailed_engine_on_piecewise_linear_laws():
 
 
 def test_batch_sweep_of_a_shockley_diode_within_the_fits_stated_effect():
-    """The valve's Shockley diode enters the batch engine as a 3-segment fit whose effect on every
-    figure is bounded by 2 % (tests/test_batch.py::test_fitted_nonlinear_demo_cases_within_two_percent):
+    """The valve's Shockley diode enters the batch engine as a stated piecewise-linear fit whose
+    effect on every figure is bounded by 2 % (tests/test_batch.py::test_fitted_nonlinear_demo_cases_within_two_percent):
     the batch sweep and the detailed sweep agree to that on a few points, and the fit is stated."""
     case = load_case(VALVE)
     axes = (parse_vary("clamp[0].element[1].voltage=10V:30V:3"), parse_vary("coil.inductance=60mH:240mH:2"))

@@ -8,8 +8,8 @@ Shared by ``tests/test_wide_range.py`` and ``benchmarks/reliability.py``:
   figures and the checks;
 * :func:`compare` — the two engines on one case: disagreements per headline figure and a
   verdict flip (figures within :data:`EXACT_TOL` relative where both engines use the same
-  piecewise-linear laws, :data:`FIT_TOL` where the batch engine uses its 3-segment fit of a
-  Shockley diode or a varistor);
+  piecewise-linear laws, :data:`FIT_TOL` where the batch engine uses its stated piecewise-linear
+  fit of a Shockley diode or a varistor);
 * :func:`run_pool` — many (seed, engine) tasks in worker processes with a hard time limit per
   task (a task over the limit is killed and counted, never waited for).
 """
@@ -27,8 +27,8 @@ from wide_range import draw
 
 #: relative agreement where both engines solve the same piecewise-linear laws (issue 14)
 EXACT_TOL = 1e-4
-#: agreement where the batch engine uses its 3-segment fit: the README states < 2 % on the demo
-#: cases; over the wide range the fit is checked to this bound (an assumption of this test)
+#: agreement where the batch engine uses its stated fit (kickback/engine/batch_laws.py: current within
+#: max(1 %, 1e-4·i0) of the exact law; energies within 3 % or 5e-4 of the energy put in)
 FIT_TOL = 0.05
 #: headline figures compared between the engines
 TIMES = ("to_10_percent_s", "to_1_percent_s", "release_s")

@@ -32,14 +32,13 @@ def locate(law: Law, u):
     moving past a lowest vertical piece, such as a forward-biased TVS; −1: none)."""
     S = law.n_states
     st = np.minimum(np.sum(law.uhi < u[:, None], axis=1), S - 1)
-    vert = np.full(u.shape, -1)
-    for k in range(S):
-        if law.kinds[k] != "seg":
-            continue
-        V = law.V[:, k]
-        tol = 1e-12 * np.maximum(1.0, np.abs(np.where(np.isfinite(V), V, 0.0)))
-        near = (law.r[:, k] == 0) & ((u >= V - tol) | (k == 0)) & ((u <= V + tol) | (k == S - 1))
-        vert = np.where((vert < 0) & near, k, vert)
+    seg = np.array([kd == "seg" for kd in law.kinds])
+    ks = np.arange(S)
+    V = law.V
+    tol = 1e-12 * np.maximum(1.0, np.abs(np.where(np.isfinite(V), V, 0.0)))
+    uu = u[:, None]
+    near = seg & (law.r == 0) & ((uu >= V - tol) | (ks == 0)) & ((uu <= V + tol) | (ks == S - 1))
+    vert = np.where(near.any(axis=1), np.argmax(near, axis=1), -1)  # the lowest such state
     return st, vert
 
 

@@ -8,8 +8,9 @@ its segments' clipped contributions, each anchored at zero current,
 (``a_k`` the end of segment k nearest zero current; a vertical segment jumps from ``I_lo`` to
 ``I_hi`` at ``V_k``), which is exact, monotone and insensitive to the one-ulp gaps chords leave
 between segments. The node voltage solving ``Σ I_b(v − off_b) + g·v = target`` is found exactly:
-the residual is evaluated on both sides of every kink, the kink or the linear piece holding the
-root is picked, and a root on a vertical jump is the vertical law's own voltage.
+the residual is nondecreasing in v, so bisection over the sorted kinks finds the first one at
+which it is ≥ 0; the kink or the linear piece before it holds the root, and a root on a vertical
+jump is the vertical law's own voltage.
 """
 
 from __future__ import annotations
@@ -19,20 +20,26 @@ import numpy as np
 
 def law_current(law, u, side: int = 1, limit=None):
     """Current [A] of ``law`` at branch voltage ``u`` [V] (G,); ``side`` −1/+1: left/right limit at a
-    vertical segment; ``limit`` (G,) caps the current (the channel during the fall)."""
-    total = np.zeros_like(u, dtype=float)
-    for k, kind in enumerate(law.kinds):
-        if kind == "block":
-            continue
-        V, r, lo, hi = law.V[:, k], law.r[:, k], law.Ilo[:, k], law.Ihi[:, k]
+    vertical segment; ``limit`` (G,) caps the current (the channel during the fall).
+
+    All segments at once, as (G, S) arrays (a fitted law has a few dozen)."""
+    seg = [k for k, kind in enumerate(law.kinds) if kind != "block"]
+    u = np.asarray(u, dtype=float)
+    if not seg:
+        total = np.zeros_like(u, dtype=float)
+    else:
+        V, r, lo, hi = law.V[:, seg], law.r[:, seg], law.Ilo[:, seg], law.Ihi[:, seg]
+        uu = u[:, None]
         vert = r == 0
         with np.errstate(invalid="ignore", divide="ignore"):
-            lin = np.clip((u - V) / np.where(vert, 1.0, r), lo, hi)
+            lin = np.clip((uu - V) / np.where(vert, 1.0, r), lo, hi)
         at = lo if side < 0 else hi
         tol = 1e-12 * np.maximum(1.0, np.abs(np.where(np.isfinite(V), V, 0.0)))
-        f = np.where(vert, np.where(u < V - tol, lo, np.where(u > V + tol, hi, at)), lin)
+        f = np.where(vert, np.where(uu < V - tol, lo, np.where(uu > V + tol, hi, at)), lin)
         anchor = np.where(lo >= 0, lo, np.where(hi <= 0, hi, 0.0))
-        total = total + (f - anchor)
+        total = np.zeros_like(u, dtype=float)
+        for k in range(len(seg)):  # summed in segment order, as one segment after another
+            total = total + (f[:, k] - anchor[:, k])
     if limit is not None:
         total = np.minimum(total, limit)
     return total
@@ -103,44 +110,58 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
     D = np.maximum(big, 1.0)
     valid = np.isfinite(kn)
     safe = np.where(valid, kn, 0.0)
-    RL = np.stack([_residual(laws, offs, safe[:, j], target, g_extra, -1, limits, active) for j in range(nk)], axis=1) \
-        if nk else np.zeros((G, 0))
-    RR = np.stack([_residual(laws, offs, safe[:, j], target, g_extra, 1, limits, active) for j in range(nk)], axis=1) \
-        if nk else np.zeros((G, 0))
-    RL = np.where(valid, RL, np.inf)
-    RR = np.where(valid, RR, np.inf)
     v = np.full(G, np.nan)
     nvalid = valid.sum(axis=1)
     rows = np.arange(G)
+
+    def res_at(j, side):
+        # the residual at knot j of every row (+inf past the valid knots, which sort last)
+        jj = np.minimum(j, max(nk - 1, 0))
+        ok_j = (j < nvalid) & valid[rows, jj]
+        r = _residual(laws, offs, np.where(ok_j, safe[rows, jj], 0.0), target, g_extra, side, limits, active)
+        return np.where(ok_j, r, np.inf)
+
     if nk:
-        ge = valid & (RR >= 0)
-        has = ge.any(axis=1)
-        j = np.argmax(ge, axis=1)
-        rlj = RL[rows, j]
+        # the first knot whose right-hand residual is ≥ 0: the residual is nondecreasing in v (every
+        # law's current is), so bisection finds the knot a scan over all knots would
+        lo = np.zeros(G, int)
+        hi = nvalid.copy()
+        while np.any(lo < hi):
+            mid = (lo + hi) // 2
+            c = res_at(mid, 1) >= 0
+            live = lo < hi
+            hi = np.where(live & c, mid, hi)
+            lo = np.where(live & ~c, mid + 1, lo)
+        j = lo
+        has = j < nvalid
+        j = np.minimum(j, nk - 1)
+        rlj = res_at(j, -1)
         at = has & (rlj <= 0)
         v = np.where(at, kn[rows, j], v)
         jm = np.maximum(j - 1, 0)
         inter = has & ~at & (j > 0)
+        rrm = res_at(jm, 1)
         with np.errstate(invalid="ignore", divide="ignore"):
-            vi = kn[rows, jm] - RR[rows, jm] * (kn[rows, j] - kn[rows, jm]) / (rlj - RR[rows, jm])
+            vi = kn[rows, jm] - rrm * (kn[rows, j] - kn[rows, jm]) / (rlj - rrm)
         v = np.where(inter, vi, v)
         below = has & ~at & (j == 0)
         k0 = np.where(below, kn[:, 0], 0.0)
         r0 = _residual(laws, offs, k0 - D, target, g_extra, 1, limits, active)
         with np.errstate(invalid="ignore", divide="ignore"):
-            slope = (RL[:, 0] - r0) / D
-            vb = k0 - RL[:, 0] / slope
+            rl0 = res_at(np.zeros(G, int), -1)
+            slope = (rl0 - r0) / D
+            vb = k0 - rl0 / slope
         v = np.where(below & (slope > 0), vb, v)
         above = ~has & (nvalid > 0)
         last = np.maximum(nvalid - 1, 0)
         kl = np.where(above, kn[rows, last], 0.0)
-        rl = RR[rows, last]
+        rl = res_at(last, 1)
         r1 = _residual(laws, offs, kl + D, target, g_extra, 1, limits, active)
         with np.errstate(invalid="ignore", divide="ignore"):
             slope = (r1 - rl) / D
             va = kl - rl / slope
         v = np.where(above & (slope > 0) & np.isfinite(rl), va, v)
-        jump = at & (rlj < RR[rows, j])
+        jump = at & (rlj < res_at(j, 1))
     else:
         jump = np.zeros(G, bool)
     none = nvalid == 0

@@ -18,6 +18,7 @@ import math
 import numpy as np
 
 from kickback.case import Case
+from kickback.engine.batch_fit import FIT_ABS
 from kickback.engine.batch_laws import ChainLaw, chain_law, element_piece, make_law
 from kickback.engine.batch_node import solve_node
 from kickback.models.switch import DEFAULT_BODY_DIODE_DROP
@@ -209,6 +210,13 @@ class BatchCircuit:
                 p = element_piece(el, g, i0, n)
                 if p.invalid is not None:
                     self.fail(p.invalid, f"{cl.name}: {el.name or el.type}: values give no device law")
+                if p.refuse is not None:
+                    self.fail(p.refuse[0], f"{cl.name}: {el.name or el.type}: {p.refuse[1]}")
+                if p.leak is not None and (any(e.type == "capacitor" for e in cl.elements) or self.capacitive):
+                    self.fail(p.leak > FIT_ABS * i0,
+                              f"{cl.name}: {el.name or el.type}: a reverse saturation current above {FIT_ABS:g}·i0, "
+                              "which the batch engine's fit leaves out (its reverse-biased diode blocks) while a "
+                              "capacitor can drive it: outside the fit's stated error (the detailed engine solves it)")
                 pieces.append(p)
             try:
                 law, els, notes = chain_law(pieces, n)

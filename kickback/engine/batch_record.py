@@ -66,6 +66,10 @@ class Record:
         if state is not None:
             k_st = np.minimum(state, law.n_states - 1)
             on_piece = (state < law.n_states) & seg_kind[k_st]
+        # the lowest segment whose current range holds cur (read where the mode's piece is not given)
+        holds = seg_kind & (law.Ilo[gi] <= cur[:, None]) & (cur[:, None] <= law.Ihi[gi])
+        any_holds = holds.any(axis=1)
+        first = np.argmax(holds, axis=1)
         for el in ch.elements:
             if el is None:
                 out.append(vc)
@@ -73,11 +77,7 @@ class Record:
             v_on = np.full(cur.shape, np.nan)
             if state is not None:
                 v_on = np.where(on_piece, el.V[gi, k_st] + el.r[gi, k_st] * cur, v_on)
-            for s, kind in enumerate(law.kinds):
-                if kind != "seg":
-                    continue
-                inside = np.isnan(v_on) & (law.Ilo[gi, s] <= cur) & (cur <= law.Ihi[gi, s])
-                v_on = np.where(inside, el.V[gi, s] + el.r[gi, s] * cur, v_on)
+            v_on = np.where(np.isnan(v_on) & any_holds, el.V[gi, first] + el.r[gi, first] * cur, v_on)
             take = np.clip(rest, el.band_lo[gi], el.band_hi[gi])
             rest = rest - take
             out.append(np.where(nonzero, np.nan_to_num(v_on), take))
