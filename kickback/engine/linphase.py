@@ -307,7 +307,7 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
 
     c = runner.c
     t0 = runner.t
-    if c.flux or c.pin is not None or not t_end > t0:
+    if c.flux or not t_end > t0 or not (c.pin is None or _run_pinned(runner, name, t_end, kw)):
         runner.run(name, t_end, [], **kw)
         return
     try:
@@ -336,9 +336,7 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
                 # the event was located on a kink of a law (a clamp's current reaching zero at
                 # its knee), on the near side of it: step just past
                 runner.run(name, min(t_end, runner.t + 1e-6 * (t_end - t0)), [])
-            if runner.t >= t_end or c.pin is not None:
-                if runner.t < t_end:
-                    runner.run(name, t_end, [])
+            if not _run_pinned(runner, name, t_end, kw):
                 return
             if not model.defect(runner.t, runner.y)[0] <= 1.0:
                 continue
@@ -356,10 +354,20 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
             leave = max(2.0 * (model.left_at - t_try), 4.0 * leave)
             runner.run(name, min(t_end, t_try + leave), [], **kw)
             kw.pop("first_step", None)
-            if runner.t >= t_end or c.pin is not None:
-                if runner.t < t_end:
-                    runner.run(name, t_end, [])
+            if not _run_pinned(runner, name, t_end, kw):
                 return
         else:
             break
     runner.run(name, t_end, [], **kw)
+
+
+def _run_pinned(runner, name: str, t_end: float, kw: dict) -> bool:
+    """Step on while the node is pinned at a vertical law (a clamp at its breakdown: not affine),
+    to where it leaves the law; False when the phase is over (``t_end`` reached), True when
+    the node is free again before it, so that the rest may still be solved in closed form."""
+    c = runner.c
+    if runner.t < t_end and c.pin is not None:
+        # a node with no capacitance floats and lands on its own: stepped to the end as before
+        runner.run(name, t_end, [], until_free=c.capacitive, **kw)
+        kw.pop("first_step", None)
+    return runner.t < t_end and c.pin is None

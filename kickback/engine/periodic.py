@@ -181,8 +181,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     scale = scales(c)
     n = c.ie
     solves = 0
+    known = None  # Φ(x_guess), where the first guess already solved that cycle
     if x_guess is None:
-        x_guess, solves = _first_guess(c, duty, frequency, rtol, scale)
+        x_guess, solves, known = _first_guess(c, duty, frequency, rtol, scale)
     x = np.array(x_guess, dtype=float)
     resid = step = math.inf
     jm = None  # Jacobian of the cycle map Φ
@@ -193,8 +194,12 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
     for _ in range(MAX_NEWTON):
-        x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
-        solves += 1
+        if known is not None and not full:
+            x1, e_on, e_off, runner = known, None, None, None
+        else:
+            x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
+            solves += 1
+        known = None
         f = x1 - x
         history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
@@ -222,6 +227,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                 jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x1) / h
                 solves += 1
             jm_fd = jm.copy()
+            # a state the map forgets (its column below the difference noise) gets a nil column:
+            # Newton takes the plain iterate there, not a step off by the noise
+            jm[:, _forgotten(jm, scale)] = 0.0
         elif jm is not None and x_prev is not None:
             # Broyden's rank-one update of F(x) = Φ(x) − x along the last step (scaled states)
             dx = (x - x_prev) / scale
@@ -262,6 +270,11 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
+
+
+def _forgotten(jm: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """Mask of the states the map forgets: their scaled column stays below :data:`FORGOTTEN`."""
+    return np.max(np.abs(jm) * scale[None, :] / scale[:, None], axis=0) <= FORGOTTEN
 
 
 def _merit(f: np.ndarray, scale: np.ndarray, jm: np.ndarray | None) -> float:
@@ -336,7 +349,7 @@ def _bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scal
 
 
 def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray):
-    """(First guess of the cycle-start state, cycle solves spent on it).
+    """(First guess of the cycle-start state, cycle solves spent on it, Φ there or None).
 
     The averaged model where it has a solution. Where it has none — the coil current reaches
     zero every cycle (discontinuous conduction), or nothing conducts with the switch off — the
@@ -349,7 +362,7 @@ def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: 
 
     x, ok = averaged_guess(c, duty, frequency, report=True)
     if ok:
-        return x, 0
+        return x, 0, None
     y = np.zeros(c.n_states)
     y[: c.ie] = x
     rest = rest_probe(c, 0.0, y)[: c.ie]
@@ -362,8 +375,8 @@ def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: 
         solves += 1
         r = float(np.max(np.abs(x1 - cand) / scale))
         if best is None or r < best[0]:
-            best = (r, cand)
-    return (x if best is None else best[1]), solves
+            best = (r, cand, x1)
+    return (x, solves, None) if best is None else (best[1], solves, best[2])
 
 
 def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
