@@ -286,8 +286,10 @@ def rest_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
 
 
 #: closed-form attempts per phase: a path that leaves the affine region again (a clamp that
-#: conducts on a later swing) is integrated on and tried again where it has come back
-MAX_ATTEMPTS = 10
+#: conducts on a later swing) is integrated on and tried again where it has come back, each
+#: stretch twice as long as the one before (an attempt costs far less than the steps a longer
+#: stretch overshoots by: a ring through a diode's knee, wide_range cases 39 and 172)
+MAX_ATTEMPTS = 20
 #: the first stretch stepped before an off-phase tail is tried again, relative to the phase (each
 #: further stretch four times as long)
 FIRST_STRIDE = 1e-4
@@ -350,8 +352,8 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
             return
         if model.left_at is not None and model.left_at > t_try:
             # holds here but the path leaves the model at left_at (a ring swinging out of a
-            # clamp's blocking band): step on past it, each time four times as far, and try again
-            leave = max(2.0 * (model.left_at - t_try), 4.0 * leave)
+            # clamp's blocking band): step on past it, each time twice as far, and try again
+            leave = max(2.0 * (model.left_at - t_try), 2.0 * leave)
             runner.run(name, min(t_end, t_try + leave), [], **kw)
             kw.pop("first_step", None)
             if not _run_pinned(runner, name, t_end, kw):
