@@ -56,11 +56,11 @@ BATCH_DISAGREE = "batch engine: exact-law figure differs from the detailed engin
 FIT = "batch engine: 3-segment fit moves an energy by more than 5 %"
 
 KNOWN = {
-    11: (PWM, SLOW_DRIVE), 90: (OVERFLOW,), 198: (OVERFLOW,), 14: (FIT, SLOW), 18: (FIT, SLOW),
+    90: (OVERFLOW,), 198: (OVERFLOW,), 14: (FIT, SLOW), 18: (FIT, SLOW),
     25: (SLOW_DRIVE,), 27: (SLOW_DRIVE,),
     39: (SLOW_DRIVE,), 49: (SLOW_DRIVE,), 60: (FIT,), 68: (BATCH_STOPITERATION, SLOW),
     73: (BATCH_STOPITERATION, SLOW), 97: (FIT, OVERFLOW), 124: (SLOW_DRIVE,), 135: (BATCH_STOPITERATION, SLOW),
-    146: (SLOW,), 157: (SLOW_DRIVE,), 167: (FIT,), 172: (SLOW_DRIVE,), 174: (SLOW_DRIVE,), 183: (SLOW_DRIVE,),
+    146: (SLOW,), 157: (SLOW_DRIVE,), 167: (FIT,), 183: (SLOW_DRIVE,),
     184: (SLOW_DRIVE,), 185: (SLOW_DRIVE,), 186: (FIT, OVERFLOW), 190: (SLOW_DRIVE,), 192: (LEDGER,),
 }
 
