@@ -31,8 +31,10 @@ import numpy as np
 from kickback.circuit import Circuit
 from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, Phase, PhaseRunner, Waveforms
 from kickback.engine.linphase import run_affine_phase
-from kickback.engine.periodic_bracket import FORGOTTEN  # noqa: F401  (its former home)
-from kickback.engine.periodic_bracket import bracketed_root as _bracketed_root
+from kickback.engine.periodic_bracket import (
+    FORGOTTEN,  # noqa: F401  (its former home)
+    bracketed_root,
+)
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
 from kickback.engine.periodic_bracket import one_kept_flips as _one_kept_flips
@@ -280,6 +282,11 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
+
+
+def _bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history):
+    """:func:`kickback.engine.periodic_bracket.bracketed_root` with this module's cycle map."""
+    return bracketed_root(c, duty, frequency, rtol, scale, jm, history, one_cycle, STEADY_TOL)
 
 
 def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray):

@@ -49,21 +49,22 @@ def merit(f: np.ndarray, scale: np.ndarray, jm: np.ndarray | None) -> float:
     return float(np.max(r))
 
 
-def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history):
+def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history,
+                   one_cycle, tol: float):
     """The fixed point by bracketing, where the cycle map depends on one state only (the coil
     current; the node is forgotten at turn-on) and Newton's method did not settle: in
     discontinuous conduction an LC ring left over at turn-on makes the map oscillate in the
     current (slope near 1 in places), and Newton steps jump between its swings. Two cycles of
     the iteration whose residuals have opposite signs bracket a fixed point; Brent's method
-    finds it. Returns (x, E_on, E_off, runner, residual, cycle solves) or None.
+    finds it. ``one_cycle`` is the cycle map (:func:`kickback.engine.periodic.one_cycle`), ``tol``
+    the relative residual a fixed point must meet. Returns (x, E_on, E_off, runner, residual,
+    cycle solves) or None.
 
     References
     ----------
     R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4.
     """
     from scipy.optimize import brentq
-
-    from kickback.engine.periodic import STEADY_TOL, one_cycle
 
     if jm is None or not history:
         return None
@@ -89,7 +90,7 @@ def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale
         return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
 
     try:
-        root = brentq(g, min(a, b), max(a, b), xtol=1e-3 * STEADY_TOL * scale[k],
+        root = brentq(g, min(a, b), max(a, b), xtol=1e-3 * tol * scale[k],
                       rtol=4 * np.finfo(float).eps, maxiter=200)  # scipy's least rtol
     except (ValueError, RuntimeError, SolverError):
         return None
@@ -102,6 +103,6 @@ def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale
     x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
     solves += 1
     resid = float(np.max(np.abs(x1 - x) / scale))
-    if not resid <= STEADY_TOL:
+    if not resid <= tol:
         return None
     return x, e_on, e_off, runner, resid, solves
