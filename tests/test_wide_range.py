@@ -37,27 +37,14 @@ N = int(os.environ.get("KICKBACK_WIDE_CASES", N_CI))
 START = int(os.environ.get("KICKBACK_WIDE_START", 0))
 LIMIT = float(os.environ.get("KICKBACK_WIDE_LIMIT", 8.0))
 
-# known defects at the time of writing (branch audit, before the engine fixes of issue 14);
-# found by `python benchmarks/reliability.py --cases 1000`, listed in ../scratch/found-*.md
-PWM = "detailed engine: the PWM steady state does not converge"
-SLOW_DRIVE = "detailed engine: a [drive] steady state takes far over 2 s"
-SLOW = "detailed engine: over 2 s (diode + varistor, diode + RC, …)"
-STEP = "detailed engine: solver error 'required step size is less than spacing between numbers'"
-CHAIN = "detailed engine: 'no chain current reaches N V' (Shockley diode in series with a varistor)"
-LEDGER = "detailed engine: energy ledger residual above 1e-3"
-BODY_DIODE = "detailed engine: negative body-diode energy (node pinned after the coil current reverses)"
-OVERFLOW = "detailed engine: RuntimeWarning overflow/invalid value inside the solve"
-STANDOFF = "detailed engine: a Shockley diode's on-state reverse voltage missed (large I_s)"
-RTOL = "detailed engine: figures off by ~2e-4 at the default rtol 1e-5"
-BATCH_STOPITERATION = "batch engine: bare StopIteration on a Shockley diode + varistor chain"
-BATCH_NEG_AVALANCHE = "batch engine: negative avalanche energy, avalanche check dropped"
-BATCH_AUDIT = "batch engine: ledger residual or negative element energy"
-BATCH_DISAGREE = "batch engine: exact-law figure differs from the detailed engine's"
-FIT = "batch engine: 3-segment fit moves an energy by more than 5 %"
+# known defects still open (issue 14), found by `python benchmarks/reliability.py --cases 1000`
+SLOW_DRIVE = "detailed engine: a [drive] steady state takes several seconds (a ring through a clamp's knee "\
+    "stepped by Radau; a capacitor charged through a diode converging linearly; a saturating coil)"
+FAILS_DRIVE = "detailed engine: the final turn-off ring after a [drive] exceeds the evaluation budget " \
+    "(saturating coil: no closed-form ring)"
 
 KNOWN = {
-    11: (PWM, SLOW_DRIVE), 25: (SLOW_DRIVE,), 39: (SLOW_DRIVE,), 124: (SLOW_DRIVE,), 172: (SLOW_DRIVE,),
-    174: (SLOW_DRIVE,), 185: (SLOW_DRIVE,),
+    25: (SLOW_DRIVE,), 39: (SLOW_DRIVE,), 124: (SLOW_DRIVE,), 185: (FAILS_DRIVE,),
 }
 
 

@@ -85,9 +85,27 @@ def _averaged(c: Circuit, duty: float, frequency: float) -> tuple[np.ndarray, bo
                 # reverse current): the mean of a PWM current lies between zero and about the
                 # on-state current
                 return fallback, False
+            mean = x
             x = x - 0.5 * t_on * _rates(c, x, True)[0]  # back to the cycle's start
+            if not _plausible(c, x):
+                # the linear step back holds only for an on-time short against the states' time
+                # constants: over a long one it lands far outside (a saturating coil's flux past
+                # L0·I_sat, where no current reaches it); the mean is the better start then
+                x = mean.copy()
             if c.capacitive:
                 x[1] = _rates(c, x, False)[1][1]  # the node as the off-state leaves it
         except (SolverError, ArithmeticError, ValueError):
             return fallback, False
     return (x, True) if np.all(np.isfinite(x)) else (fallback, False)
+
+
+def _plausible(c: Circuit, x: np.ndarray) -> bool:
+    """A cycle-start state a PWM cycle can have: a coil current between −0.5 and 2 times the
+    on-state current (a flux inside the saturation law's range), capacitor voltages within ten
+    times the voltage scale."""
+    if c.flux and not abs(x[0]) < c.L * c.i_sat:
+        return False
+    i = float(c.coil_current(x[0])) / c.i0
+    caps = np.abs(x[1:][: len(c.icap) + (1 if c.capacitive else 0)])
+    return bool(-0.5 <= i <= 2.0 and np.all(caps <= 10.0 * c.v_scale))
+

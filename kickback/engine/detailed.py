@@ -306,10 +306,12 @@ class PhaseRunner:
             raise SolverError(f"the solution became non-finite in the {name} phase")
         return sol, evs, pe
 
-    def run(self, name, t_end, events, record=None, **kw):
+    def run(self, name, t_end, events, record=None, until_free=False, **kw):
         """Integrate to ``t_end`` or a terminal event of ``events``, switching pin modes on the way.
 
         ``record(event, times)`` is called for every event of ``events`` that occurred.
+        ``until_free``: return also where a capacitive node leaves the vertical law it was pinned
+        at (the caller may solve the rest in closed form).
         """
         c = self.c
         switches = 0
@@ -365,6 +367,8 @@ class PhaseRunner:
                         self.unpin(fired_pin.pin)
                 else:
                     self.unpin(c.pin)
+                    if until_free:
+                        return sol
                 switches += 1
                 if switches > 10_000:
                     raise SolverError(f"the node voltage chatters at a clamp threshold near t = {self.t:.3g} s")

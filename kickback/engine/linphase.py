@@ -286,8 +286,10 @@ def rest_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
 
 
 #: closed-form attempts per phase: a path that leaves the affine region again (a clamp that
-#: conducts on a later swing) is integrated on and tried again where it has come back
-MAX_ATTEMPTS = 10
+#: conducts on a later swing) is integrated on and tried again where it has come back, each
+#: stretch twice as long as the one before (an attempt costs far less than the steps a longer
+#: stretch overshoots by: a ring through a diode's knee, wide_range cases 39 and 172)
+MAX_ATTEMPTS = 20
 #: the first stretch stepped before an off-phase tail is tried again, relative to the phase (each
 #: further stretch four times as long)
 FIRST_STRIDE = 1e-4
@@ -307,7 +309,7 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
 
     c = runner.c
     t0 = runner.t
-    if c.flux or c.pin is not None or not t_end > t0:
+    if c.flux or not t_end > t0 or not (c.pin is None or _run_pinned(runner, name, t_end, kw)):
         runner.run(name, t_end, [], **kw)
         return
     try:
@@ -336,9 +338,7 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
                 # the event was located on a kink of a law (a clamp's current reaching zero at
                 # its knee), on the near side of it: step just past
                 runner.run(name, min(t_end, runner.t + 1e-6 * (t_end - t0)), [])
-            if runner.t >= t_end or c.pin is not None:
-                if runner.t < t_end:
-                    runner.run(name, t_end, [])
+            if not _run_pinned(runner, name, t_end, kw):
                 return
             if not model.defect(runner.t, runner.y)[0] <= 1.0:
                 continue
@@ -352,14 +352,24 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
             return
         if model.left_at is not None and model.left_at > t_try:
             # holds here but the path leaves the model at left_at (a ring swinging out of a
-            # clamp's blocking band): step on past it, each time four times as far, and try again
-            leave = max(2.0 * (model.left_at - t_try), 4.0 * leave)
+            # clamp's blocking band): step on past it, each time twice as far, and try again
+            leave = max(2.0 * (model.left_at - t_try), 2.0 * leave)
             runner.run(name, min(t_end, t_try + leave), [], **kw)
             kw.pop("first_step", None)
-            if runner.t >= t_end or c.pin is not None:
-                if runner.t < t_end:
-                    runner.run(name, t_end, [])
+            if not _run_pinned(runner, name, t_end, kw):
                 return
         else:
             break
     runner.run(name, t_end, [], **kw)
+
+
+def _run_pinned(runner, name: str, t_end: float, kw: dict) -> bool:
+    """Step on while the node is pinned at a vertical law (a clamp at its breakdown: not affine),
+    to where it leaves the law; False when the phase is over (``t_end`` reached), True when
+    the node is free again before it, so that the rest may still be solved in closed form."""
+    c = runner.c
+    if runner.t < t_end and c.pin is not None:
+        # a node with no capacitance floats and lands on its own: stepped to the end as before
+        runner.run(name, t_end, [], until_free=c.capacitive, **kw)
+        kw.pop("first_step", None)
+    return runner.t < t_end and c.pin is None

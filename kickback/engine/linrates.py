@@ -17,7 +17,8 @@ from kickback.circuit import N_ENERGY_FIXED, Circuit
 #: points of each batch also evaluated by the scalar right-hand side
 N_CROSS = 24
 #: agreement required of the vectorised rates with the scalar ones: relative, plus an absolute
-#: part relative to the largest magnitude of the row over the cross-check points
+#: part relative to the largest magnitude of the row over the cross-check points (for the
+#: energy rows, the largest power of any element there)
 CROSS_REL = 1e-9
 
 
@@ -57,12 +58,21 @@ def _raw(c: Circuit, t: np.ndarray, Y: np.ndarray) -> np.ndarray:
     d[e + 2] = v * ich
     d[e + 3] = np.where(ioff > 0, v * ioff, 0.0)
     d[e + 4] = np.where(ioff < 0, v * ioff, 0.0)
+    shared = {}  # chain → its element voltages, where the chain shares a residual voltage
     for m, (k, j) in enumerate(c.energy_slots):
         ic = chains[c._pos[k]]
-        law = c.chains[k].laws[j]
+        ch = c.chains[k]
+        law = ch.laws[j]
         p = law.pieces()
-        safe = np.where(ic != 0, ic, 1.0)
-        vj = p.voltage(safe) if p is not None else law.voltage(safe)
+        if ch.pieces is None:
+            # as Chain.powers_at: a chain with a curved law gives the chain voltage that the
+            # other elements' laws leave to one of them (a reverse-biased Shockley diode holds
+            # what its clipped law cannot show near −I_s)
+            if k not in shared:
+                shared[k] = ch.element_voltages(ic, v - c.Vs * ch.reference, Y[c.icap[k]] if k in c.icap else 0.0)
+            vj = shared[k][j]
+        else:
+            vj = p.voltage(np.where(ic != 0, ic, 1.0))
         d[e + N_ENERGY_FIXED + m] = np.where(ic != 0, vj * ic, 0.0)
     return d
 
@@ -81,7 +91,11 @@ def rates(c: Circuit, t: np.ndarray, Y: np.ndarray) -> np.ndarray | None:
     n = t.size
     idx = np.unique(np.linspace(0, n - 1, min(n, N_CROSS)).astype(int))
     ref = np.array([c.rhs(float(t[k]), Y[:, k]) for k in idx]).T
-    allow = CROSS_REL * (np.abs(ref) + np.max(np.abs(ref), axis=1, keepdims=True)) + 1e-300
+    scale = np.max(np.abs(ref), axis=1, keepdims=True)
+    # the energy rows are powers [W] of one circuit: a power far below the largest one (a
+    # reverse-biased clamp's 1e-31 W beside the coil resistance's) is checked against that one
+    scale[c.ie:] = np.max(scale[c.ie:])
+    allow = CROSS_REL * (np.abs(ref) + scale) + 1e-300
     if not np.all(np.abs(d[:, idx] - ref) <= allow):
         return None
     return d

@@ -275,7 +275,8 @@ def _steps(t0, t_end, period):
     ring's amplitude only decays), ~1500 points at most."""
     fine = np.arange(t0, min(t_end, t0 + 20 * period), period / GRID)
     rest = np.geomspace(max(fine[-1] - t0, period), t_end - t0, 600) + t0 if t_end > fine[-1] else np.array([])
-    return np.unique(np.concatenate([fine, rest, [t0, t_end]]))
+    # (t_end − t0) + t0 may round an ulp past t_end: a sample there lies in no phase
+    return np.unique(np.concatenate([fine, np.minimum(rest, t_end), [t0, t_end]]))
 
 
 def _peaks(sol, c, steps):

@@ -31,6 +31,13 @@ import numpy as np
 from kickback.circuit import Circuit
 from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, Phase, PhaseRunner, Waveforms
 from kickback.engine.linphase import run_affine_phase
+from kickback.engine.periodic_bracket import (
+    FORGOTTEN,  # noqa: F401  (its former home)
+    bracketed_root,
+)
+from kickback.engine.periodic_bracket import forgotten as _forgotten
+from kickback.engine.periodic_bracket import merit as _merit
+from kickback.engine.periodic_bracket import one_kept_flips as _one_kept_flips
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
@@ -39,10 +46,6 @@ CYCLE_RTOL = 1e-8
 #: residual below which the next cycle is solved in full (energies, kept for the figures): it is
 #: then expected to be the verifying one
 FINAL_FROM = 1e-6
-#: a state whose finite-difference Jacobian column (scaled) stays below this is one the cycle map
-#: forgets (a node discharged through the switch at turn-on): the noise of a 1e-6 difference of
-#: two cycle solves at rtol 1e-8 is ~1e-3
-FORGOTTEN = 1e-2
 
 
 @dataclass(frozen=True)
@@ -181,8 +184,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     scale = scales(c)
     n = c.ie
     solves = 0
+    known = None  # Φ(x_guess), where the first guess already solved that cycle
     if x_guess is None:
-        x_guess, solves = _first_guess(c, duty, frequency, rtol, scale)
+        x_guess, solves, known = _first_guess(c, duty, frequency, rtol, scale)
     x = np.array(x_guess, dtype=float)
     resid = step = math.inf
     jm = None  # Jacobian of the cycle map Φ
@@ -193,12 +197,25 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
     for _ in range(MAX_NEWTON):
-        x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
-        solves += 1
+        if known is not None and not full:
+            x1, e_on, e_off, runner = known, None, None, None
+        else:
+            x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=full, energies=full)
+            solves += 1
+        known = None
         f = x1 - x
         history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
         merit = _merit(f, scale, jm_fd)
+        if x_prev is not None and resid > STEADY_TOL and merit > 0.1 * resid_prev \
+                and _one_kept_flips(jm_fd, scale, f, f_prev):
+            # one state carries the map, and a step that took off little of its residual
+            # crossed its fixed point: bracketed, Brent's method beats Newton jumping across
+            got = _bracketed_root(c, duty, frequency, rtol, scale, jm_fd, history)
+            if got is not None:
+                x, e_on, e_off, runner, resid, more = got
+                solves += more
+                break
         if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev:
             # the step did not reduce the residual: the map has a kink between (the coil current
             # reaching zero in the off phase or not, a clamp conducting or not) and its slope on
@@ -222,6 +239,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                 jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x1) / h
                 solves += 1
             jm_fd = jm.copy()
+            # a state the map forgets (its column below the difference noise) gets a nil column:
+            # Newton takes the plain iterate there, not a step off by the noise
+            jm[:, _forgotten(jm, scale)] = 0.0
         elif jm is not None and x_prev is not None:
             # Broyden's rank-one update of F(x) = Φ(x) − x along the last step (scaled states)
             dx = (x - x_prev) / scale
@@ -264,79 +284,13 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                        runner.i_turnoff)
 
 
-def _merit(f: np.ndarray, scale: np.ndarray, jm: np.ndarray | None) -> float:
-    """Residual the step control asks to decrease: over the states the cycle map depends on.
-
-    A state the map forgets (a capacitive node discharged through the switch within
-    picoseconds of turn-on: its Jacobian column is nil) follows the others exactly, but may swing
-    steeply with them (the phase of an LC ring at the end of the period); counting it would make
-    the step control reject good steps."""
-    r = np.abs(f) / scale
-    if jm is not None:
-        col = np.max(np.abs(jm) * scale[None, :] / scale[:, None], axis=0)
-        kept = col > FORGOTTEN
-        if np.any(kept):
-            r = r[kept]
-    return float(np.max(r))
-
-
 def _bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history):
-    """The fixed point by bracketing, where the cycle map depends on one state only (the coil
-    current; the node is forgotten at turn-on) and Newton's method did not settle: in
-    discontinuous conduction an LC ring left over at turn-on makes the map oscillate in the
-    current (slope near 1 in places), and Newton steps jump between its swings. Two cycles of
-    the iteration whose residuals have opposite signs bracket a fixed point; Brent's method
-    finds it. Returns (x, E_on, E_off, runner, residual, cycle solves) or None.
-
-    References
-    ----------
-    R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4.
-    """
-    from scipy.optimize import brentq
-
-    if jm is None or not history:
-        return None
-    n = c.ie
-    col = np.max(np.abs(jm) * scale[None, :] / scale[:, None], axis=0)
-    kept = np.flatnonzero(col > FORGOTTEN)
-    if kept.size != 1:
-        return None
-    k = int(kept[0])
-    pos = [float(x[k]) for x, f in history if f[k] > 0]
-    neg = [float(x[k]) for x, f in history if f[k] < 0]
-    if not pos or not neg:
-        return None
-    a, b = min(((p, q) for p in pos for q in neg), key=lambda pq: abs(pq[0] - pq[1]))
-    base = np.array(history[-1][0], dtype=float)
-    solves = 0
-
-    def g(s):
-        nonlocal solves
-        xx = base.copy()
-        xx[k] = s
-        solves += 1
-        return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
-
-    try:
-        root = brentq(g, min(a, b), max(a, b), xtol=1e-3 * STEADY_TOL * scale[k], rtol=8e-16, maxiter=200)
-    except (ValueError, RuntimeError, SolverError):
-        return None
-    x = base.copy()
-    x[k] = root
-    for _ in range(2):  # the forgotten states follow the kept one
-        x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
-        solves += 1
-        x[np.arange(n) != k] = x1[np.arange(n) != k]
-    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
-    solves += 1
-    resid = float(np.max(np.abs(x1 - x) / scale))
-    if not resid <= STEADY_TOL:
-        return None
-    return x, e_on, e_off, runner, resid, solves
+    """:func:`kickback.engine.periodic_bracket.bracketed_root` with this module's cycle map."""
+    return bracketed_root(c, duty, frequency, rtol, scale, jm, history, one_cycle, STEADY_TOL)
 
 
 def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray):
-    """(First guess of the cycle-start state, cycle solves spent on it).
+    """(First guess of the cycle-start state, cycle solves spent on it, Φ there or None).
 
     The averaged model where it has a solution. Where it has none — the coil current reaches
     zero every cycle (discontinuous conduction), or nothing conducts with the switch off — the
@@ -349,7 +303,7 @@ def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: 
 
     x, ok = averaged_guess(c, duty, frequency, report=True)
     if ok:
-        return x, 0
+        return x, 0, None
     y = np.zeros(c.n_states)
     y[: c.ie] = x
     rest = rest_probe(c, 0.0, y)[: c.ie]
@@ -362,8 +316,8 @@ def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: 
         solves += 1
         r = float(np.max(np.abs(x1 - cand) / scale))
         if best is None or r < best[0]:
-            best = (r, cand)
-    return (x if best is None else best[1]), solves
+            best = (r, cand, x1)
+    return (x, solves, None) if best is None else (best[1], solves, best[2])
 
 
 def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
