@@ -8,6 +8,7 @@ from scipy.optimize import minimize_scalar
 
 from kickback.circuit import Circuit
 from kickback.engine.detailed import Waveforms
+from kickback.errors import SolverError
 
 
 def sample_run(c: Circuit, phases, ev_times, peaks, bound_hit, rtol, n_rhs, per_step) -> Waveforms:
@@ -20,12 +21,18 @@ def sample_run(c: Circuit, phases, ev_times, peaks, bound_hit, rtol, n_rhs, per_
             ts.append((steps[:-1, None] + np.diff(steps)[:, None] * frac[None, :]).ravel())
     extra = [x for x in [*ev_times.values(), *peaks] if x is not None]
     t = np.unique(np.concatenate(ts + [np.asarray(extra, dtype=float)]))
-    y = np.empty((c.n_states, t.size))
+    y = np.full((c.n_states, t.size), np.nan)
     pins = np.zeros(t.size, dtype=int)
+    covered = np.zeros(t.size, dtype=bool)
     for n, ph in enumerate(phases):
         m = (t >= ph.t0) & (t <= ph.t1)
         y[:, m] = ph.sol(t[m])
         pins[m] = n
+        covered |= m
+    if not covered.all():  # a sample no phase holds would carry no state: say so, never sample garbage
+        k = int(np.argmin(covered))
+        raise SolverError(f"internal: the waveform sample at t = {t[k]:.6g} s lies outside every solved phase "
+                          f"({int((~covered).sum())} such samples); the result is withheld")
     parts = [derived_with_pin(c, ph.pin, t[pins == n], y[:, pins == n], ph) for n, ph in enumerate(phases)]
     v = np.concatenate([p[0] for p in parts])
     ich = np.concatenate([p[1] for p in parts])
