@@ -121,7 +121,7 @@ def _tolerance_cluster(n, workers, dask_malloc, q):
         # faults in every large numpy temporary afresh (see kickback.parallel.MALLOC_TRIM)
         dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None})
     case = load_case(BOARD / "ch1_irrigation_valve.toml")
-    with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None) as cl, \
+    with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0") as cl, \
             Client(cl) as client:
         client.run(_warm)  # imports and the engine's first run in every worker, outside the timing
         run_tolerance(case, 200, 1, recheck=0, engine="batch", executor=client)

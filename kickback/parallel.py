@@ -155,13 +155,17 @@ def map_ordered(func: Callable, items: Sequence, *, workers: int = 1, progress=N
     futures = [executor.submit(_run_group, func, items[s]) for s in groups(len(items), size)]
     out = []
     try:
-        for fut in futures:
-            out += fut.result()
+        for k in range(len(futures)):
+            out += futures[k].result()
+            # let the future go once read: a Dask worker keeps a task's result in its memory as
+            # long as a client holds its future (Dask distributed, "Managing Memory")
+            futures[k] = None
             if progress:
                 progress(len(out))
     except BaseException:
         for fut in futures:
-            fut.cancel()
+            if fut is not None:
+                fut.cancel()
         raise
     return out
 

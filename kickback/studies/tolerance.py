@@ -353,8 +353,11 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         if progress is not None:
             progress(ends[done - 1])
 
-    parts = parallel.map_ordered(_chunk_job, [(case, matrix[g], used, size, tuple(f for f, _, _ in flist))
-                                              for g in cuts], workers=workers, progress=step, group=1)
+    names = tuple(f for f, _, _ in flist)
+    # a chunk run in this process (one chunk, or workers=1) shares its batches among ``workers``;
+    # in a task of the map its inner maps run in the task's process (kickback.parallel)
+    parts = parallel.map_ordered(_chunk_job, [(case, matrix[g], used, size, names, workers) for g in cuts],
+                                 workers=workers, progress=step, group=1)
     figs = {f: np.full(n, np.nan) for f, _, _ in flist}
     passed = np.zeros(n, bool)
     k = 0  # samples that passed: the per-chunk counts, summed
@@ -381,8 +384,8 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
 def _chunk_job(args) -> dict:
     """One chunk of samples, run where the executor puts it: its figures, verdicts and errors,
     its pass count, and per check its sample with the smallest margin (index within the chunk)."""
-    case, rows, used, chunk, names = args
-    pts = evaluate(case, rows, engine=used, workers=1, chunk=chunk)
+    case, rows, used, chunk, names, workers = args
+    pts = evaluate(case, rows, engine=used, workers=workers, chunk=chunk)
     worst = {}
     for name, c in pts.checks.items():
         key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
