@@ -138,14 +138,17 @@ def _tolerance_cluster(n, workers, dask_malloc, q):
     q.put((dt, per_worker, cpu1 - cpu0, rss, malloc, tr.yield_, tr.yield_ci, tr.figures["peak_voltage_V"]))
 
 
-def bench_tolerance(n: int, workers: int, dask_malloc: bool) -> None:
+def bench_tolerance(n: int, workers: int, dask_malloc: bool, cluster_only: bool = False) -> None:
     ctx = mp.get_context("spawn")
     q = ctx.Queue()
     load0 = os.getloadavg()
-    p = ctx.Process(target=_tolerance_local, args=(n, q))
-    p.start()
-    t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, peak_one = q.get()
-    p.join()
+    t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, peak_one = np.nan, np.nan, np.nan, np.nan, np.nan, \
+        (np.nan, np.nan), None
+    if not cluster_only:
+        p = ctx.Process(target=_tolerance_local, args=(n, q))
+        p.start()
+        t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, peak_one = q.get()
+        p.join()
     load1 = os.getloadavg()
     p = ctx.Process(target=_tolerance_cluster, args=(n, workers, dask_malloc, q))
     p.start()
@@ -163,7 +166,7 @@ def bench_tolerance(n: int, workers: int, dask_malloc: bool) -> None:
     print(f"    client (and scheduler): CPU {cpu_client:.1f} s  peak memory {rss_client / 1024:.0f} MiB")
     print(f"    workers' MALLOC_TRIM_THRESHOLD_: {', '.join(malloc)}")
     print(f"  yield {y_one:.6f} [{ci_one[0]:.6f}, {ci_one[1]:.6f}] / {y_cl:.6f} [{ci_cl[0]:.6f}, {ci_cl[1]:.6f}]; "
-          f"peak voltages identical: {np.array_equal(peak_one, peak_cl)}")
+          f"peak voltages identical: {'(no local run)' if peak_one is None else np.array_equal(peak_one, peak_cl)}")
     print("  load average (1 min) before, between, after: " + ", ".join(f"{x[0]:.1f}" for x in (load0, load1, load2))
           + f" on {os.cpu_count()} cores")
 
@@ -174,12 +177,13 @@ def main() -> None:
     ap.add_argument("--samples", type=int, default=1_000_000)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--skip-check", action="store_true")
+    ap.add_argument("--cluster-only", action="store_true", help="the tolerance study on the cluster only")
     ap.add_argument("--dask-malloc", action="store_true",
                     help="keep Dask's MALLOC_TRIM_THRESHOLD_=65536 on the workers (its default), for comparison")
     args = ap.parse_args()
     if not args.skip_check:
         bench_check(args.cases, args.workers)
-    bench_tolerance(args.samples, args.workers, args.dask_malloc)
+    bench_tolerance(args.samples, args.workers, args.dask_malloc, args.cluster_only)
 
 
 if __name__ == "__main__":

@@ -107,7 +107,16 @@ def test_the_scheduler_option_on_the_command_line(client, tmp_path, monkeypatch)
     args = ["tolerance", str(p), "--samples", "40", "--seed", "3", "--json"]
     local = CliRunner().invoke(main, [*args, "--workers", "1"])
     monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
-    remote = CliRunner().invoke(main, [*args, "--scheduler", client.scheduler.address])
+    from kickback import parallel
+
+    opened, real = [], parallel.cluster_executor
+    monkeypatch.setattr(parallel, "cluster_executor", lambda address: opened.append(real(address)) or opened[-1])
+    try:
+        remote = CliRunner().invoke(main, [*args, "--scheduler", client.scheduler.address])
+    finally:  # the command's own client, closed before the cluster is (not left to atexit)
+        for executor in opened:
+            executor._client.close()
+    assert len(opened) == 1
     # exit 1: some samples fail the 45 V limit (yield below 1), on both
     assert local.exit_code == remote.exit_code == 1, (local.output, remote.output)
     assert json.loads(local.stdout) == json.loads(remote.stdout)
