@@ -23,13 +23,17 @@ def open_executor(address: str | None):
     if address is None:
         return None
     from kickback.errors import KickbackError
-    from kickback.parallel import cluster_executor
+    from kickback.parallel import cluster_executor, worker_malloc_note
 
     try:
-        return cluster_executor(address)
+        executor = cluster_executor(address)
     except KickbackError as err:
         note(f"kickback: {err}")
         sys.exit(2)
+    slow = worker_malloc_note(executor)
+    if slow:
+        note(slow)
+    return executor
 
 
 def workers_or_default(workers: int | None) -> int:

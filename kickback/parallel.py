@@ -34,7 +34,7 @@ from concurrent.futures import Executor
 import numpy as np
 
 __all__ = ["chunk_seeds", "cluster_executor", "current", "groups", "local_pool", "map_ordered", "shutdown",
-           "submit", "using"]
+           "submit", "using", "worker_malloc_note"]
 
 _EXECUTOR: contextvars.ContextVar = contextvars.ContextVar("kickback_executor", default=None)
 _INSIDE: contextvars.ContextVar = contextvars.ContextVar("kickback_inside_worker", default=False)
@@ -155,13 +155,17 @@ def map_ordered(func: Callable, items: Sequence, *, workers: int = 1, progress=N
     futures = [executor.submit(_run_group, func, items[s]) for s in groups(len(items), size)]
     out = []
     try:
-        for fut in futures:
-            out += fut.result()
+        for k in range(len(futures)):
+            out += futures[k].result()
+            # let the future go once read: a Dask worker keeps a task's result in its memory as
+            # long as a client holds its future (Dask distributed, "Managing Memory")
+            futures[k] = None
             if progress:
                 progress(len(out))
     except BaseException:
         for fut in futures:
-            fut.cancel()
+            if fut is not None:
+                fut.cancel()
         raise
     return out
 
@@ -232,3 +236,32 @@ def cluster_executor(address: str) -> Executor:
                             "an address such as tcp://HOST:8786 of a running 'dask scheduler')") from None
     atexit.register(client.close)
     return client.get_executor()
+
+
+#: the environment variable Dask's nanny sets on its workers by default (65536): glibc then keeps
+#: a fixed mmap threshold, so every large numpy temporary is a fresh mmap and its pages fault in
+#: again (glibc malloc(3), mallopt M_TRIM_THRESHOLD and M_MMAP_THRESHOLD; Dask distributed,
+#: "Worker Memory Management", automatically trim memory). Measured on kickback's batch engine:
+#: 13x the page faults and 1.6-1.7x the CPU time per sample (benchmarks/bench_check.py).
+MALLOC_TRIM = "MALLOC_TRIM_THRESHOLD_"
+
+
+def _malloc_trim() -> str | None:
+    return os.environ.get(MALLOC_TRIM)
+
+
+def worker_malloc_note(executor) -> str:
+    """A sentence when the Dask workers behind ``executor`` run with :data:`MALLOC_TRIM` set
+    (Dask's default), which slows the batch engine; "" otherwise or when they cannot be asked."""
+    client = getattr(executor, "_client", executor)
+    try:
+        found = client.run(_malloc_trim)
+    except Exception:  # noqa: BLE001 - not a Dask client, or the workers do not answer: nothing to say
+        return ""
+    values = sorted({str(v) for v in found.values() if v is not None})
+    if not values:
+        return ""
+    return (f"note: {sum(v is not None for v in found.values())} of {len(found)} Dask worker(s) run with "
+            f"{MALLOC_TRIM}={', '.join(values)} (set by Dask's nanny by default), which makes the batch engine "
+            "about 1.6x slower; start them with distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_ "
+            "set to null in a Dask config file (see the README, \"On a cluster\")")

@@ -12,49 +12,29 @@ import json
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
+from coil_cases import PEAK, V_F, V_SUPPLY, ZENER_1V, diode_zener_case, tolerance
 
 from kickback.cli import main
 
-V_SUPPLY, V_Z, V_F = 24.0, 20.0, 0.7
-PEAK = V_SUPPLY + V_Z + V_F  # closed form, 44.7 V
+TOL = tolerance("coil.inductance", band="10 %") + ZENER_1V
 
-CASE = '''title = "check test {name} (demo data)"
-[supply]
-voltage = "24 V"
-[coil]
-inductance = "100 mH"
-resistance = "30 Ω"
-[switch]
-type = "ideal"
-[[clamp]]
-across = "coil"
-[[clamp.element]]
-type = "diode"
-model = "constant-drop"
-forward_voltage = "0.7 V"
-[[clamp.element]]
-type = "zener"
-voltage = "20 V"
-[checks]
-max_peak_voltage = "{limit} V"
-'''
-TOL = '''[tolerance."coil.inductance"]
-band = "10 %"
-[tolerance."clamp[0].element[1].voltage"]
-band = "±1 V"
-'''
+
+def case_text(name, limit: float) -> str:
+    """The shared diode + Zener case (coil_cases) named ``name``, limited to ``limit`` volts."""
+    return diode_zener_case(f"check test {name}", limit)
 
 
 def _board(tmp_path: Path, *, bad: bool = False) -> Path:
     d = tmp_path / "board"
     (d / "sub").mkdir(parents=True)
-    (d / "ok.toml").write_text(CASE.format(name="ok", limit=47) + TOL, encoding="utf-8")
-    (d / "sub" / "tight.toml").write_text(CASE.format(name="tight", limit=44), encoding="utf-8")
+    (d / "ok.toml").write_text(case_text("ok", 47) + TOL, encoding="utf-8")
+    (d / "sub" / "tight.toml").write_text(case_text("tight", 44), encoding="utf-8")
     (d / "pyproject.toml").write_text('[project]\nname = "not-a-case"\n', encoding="utf-8")
     if bad:
-        (d / "broken.toml").write_text(CASE.format(name="broken", limit=47).replace('"30 Ω"', '"30 V"'),
+        (d / "broken.toml").write_text(case_text("broken", 47).replace('"30 Ω"', '"30 V"'),
                                        encoding="utf-8")
     return d
 
@@ -149,11 +129,61 @@ def test_tolerance_yield_per_case(tmp_path):
     assert "no [tolerance]" in table and "100.0 %" in table
 
 
+def test_tolerance_yield_below_one_with_its_interval(tmp_path):
+    """A limit inside the Zener band: the yield is the fraction of samples whose closed-form peak
+    24 + V_Z + 0.7 V stays within it, with the exact binomial (Clopper–Pearson) interval."""
+    from scipy.stats import binomtest
+
+    from kickback import load_case
+    from kickback.studies.tolerance import draw
+
+    p = tmp_path / "edge.toml"
+    p.write_text(case_text("edge", 45.5) + TOL, encoding="utf-8")
+    n, seed = 300, 5
+    res = _run([str(p), "--tolerance", str(n), "--seed", str(seed), "--json", "--workers", "1"])
+    assert res.exit_code == 0, res.output  # the nominal design passes: 44.7 V ≤ 45.5 V
+    tol = json.loads(res.stdout)["tolerance"]
+    # the samples the study draws (its own seeded inputs); which of them pass comes from the closed form
+    v_z = draw(load_case(p.read_text(encoding="utf-8")), n, seed)[:, 1]
+    k = int(np.sum(V_SUPPLY + v_z + V_F <= 45.5))
+    assert 0 < k < n and tol["samples"] == n and tol["failed_samples"] == n - k
+    assert tol["yield"] == pytest.approx(k / n, rel=1e-12)
+    # scipy's exact binomial interval (Clopper and Pearson 1934)
+    ci = binomtest(k, n).proportion_ci(confidence_level=0.95, method="exact")
+    assert tol["yield_ci95"] == pytest.approx([ci.low, ci.high], rel=1e-9)
+    table = _run([str(p), "--tolerance", str(n), "--seed", str(seed), "--workers", "1"]).stdout
+    assert f"{100 * k / n:.1f} % ({100 * ci.low:.1f}–{100 * ci.high:.1f} %)" in table
+
+
+def test_unsolved_case_is_named_and_exits_2(tmp_path, monkeypatch):
+    # a solver that cannot finish is forced in this process (--workers 1): check names the case,
+    # says why, gives no verdict and exits 2 (the other case still passes)
+    import kickback.simulation as simulation
+    from kickback.errors import SolverError
+
+    d = _board(tmp_path)
+    real = simulation.simulate
+
+    def fails_on_tight(case, *args, **kwargs):
+        if "tight" in case.title:
+            raise SolverError("step size fell below the spacing of doubles (forced)")
+        return real(case, *args, **kwargs)
+
+    monkeypatch.setattr(simulation, "simulate", fails_on_tight)
+    res = _run([str(d), "--workers", "1", "--json"])
+    assert res.exit_code == 2, res.output
+    rows = {Path(r["case"]).name: r for r in map(json.loads, res.stdout.splitlines())}
+    assert rows["tight.toml"]["status"] == "unsolved" and rows["tight.toml"]["pass"] is None
+    assert "forced" in rows["tight.toml"]["message"] and rows["ok.toml"]["pass"] is True
+    lines = res.stderr.strip().splitlines()
+    assert any("tight.toml" in line and "forced" in line for line in lines) and "Traceback" not in res.output
+
+
 def test_progress_on_stderr(tmp_path):
     d = tmp_path / "many"
     d.mkdir()
     for k in range(10):
-        (d / f"c{k}.toml").write_text(CASE.format(name=k, limit=47), encoding="utf-8")
+        (d / f"c{k}.toml").write_text(case_text(k, 47), encoding="utf-8")
     res = _run([str(d)])
     assert res.exit_code == 0
     assert "cases: 10 of 10" in res.stderr and "cases:" not in res.stdout
@@ -198,8 +228,8 @@ def test_a_result_failing_its_audit_gets_no_verdict(tmp_path, monkeypatch):
 def _mosfet_case(d: Path, name: str, breakdown: float) -> Path:
     """The closed-form case on a MOSFET with a breakdown voltage and no avalanche rating: the
     switch's avalanche-energy row exists by rule and has no margin."""
-    text = CASE.format(name=name, limit=47).replace(
-        'type = "ideal"', f'type = "mosfet"\non_resistance = "0.1 Ω"\nbreakdown_voltage = "{breakdown:g} V"')
+    text = diode_zener_case(f"check test {name}", 47, switch=(
+        f'type = "mosfet"\non_resistance = "0.1 Ω"\nbreakdown_voltage = "{breakdown:g} V"'))
     path = d / f"{name}.toml"
     path.write_text(text, encoding="utf-8")
     return path

@@ -3,11 +3,13 @@ number, as a local run; without Dask, --scheduler says what to install."""
 
 from __future__ import annotations
 
+import json
 import sys
 
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from coil_cases import MOSFET, TEMPERATURE, ZENER_1V, diode_zener_case, tolerance
 
 from kickback import load_case
 from kickback.cli import main
@@ -16,36 +18,8 @@ from kickback.studies.tolerance import run_tolerance
 
 distributed = pytest.importorskip("distributed")
 
-CASE = '''title = "cluster test (demo data)"
-[supply]
-voltage = "24 V"
-[coil]
-inductance = "100 mH"
-resistance = "30 Ω"
-[switch]
-type = "mosfet"
-on_resistance = "0.1 Ω"
-breakdown_voltage = "60 V"
-[[clamp]]
-across = "coil"
-[[clamp.element]]
-type = "diode"
-model = "constant-drop"
-forward_voltage = "0.7 V"
-[[clamp.element]]
-type = "zener"
-voltage = "20 V"
-[checks]
-max_peak_voltage = "45 V"
-[tolerance."coil.inductance"]
-band = "10 %"
-distribution = "normal"
-[tolerance."clamp[0].element[1].voltage"]
-band = "±1 V"
-[tolerance.coil_temperature]
-min = "-20 °C"
-max = "85 °C"
-'''
+CASE = (diode_zener_case("cluster test", 45, switch=MOSFET)
+        + tolerance("coil.inductance", band="10 %", distribution="normal") + ZENER_1V + TEMPERATURE)
 
 
 def test_scheduler_without_dask_says_what_to_install(tmp_path, monkeypatch):
@@ -64,9 +38,10 @@ def test_scheduler_without_dask_says_what_to_install(tmp_path, monkeypatch):
 
 @pytest.fixture(scope="module")
 def client():
-    # threads in this process: no worker processes to start on a loaded test machine; the Dask
-    # dashboard is not started (it would need bokeh and a port)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None) \
+    # threads in this process: no worker processes to start on a loaded test machine; the
+    # scheduler's HTTP server on a free port (":0"): with None it still tries 8787 and warns when
+    # another run holds that port (no dashboard either way: bokeh is not installed)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") \
             as cluster, distributed.Client(cluster) as c:
         yield c
 
@@ -112,3 +87,38 @@ def test_check_on_a_cluster(client, tmp_path):
     assert [c.status for c in remote] == ["pass", "fail"]
     strip = [{k: v for k, v in c.to_dict().items() if k != "seconds"} for c in local]
     assert strip == [{k: v for k, v in c.to_dict().items() if k != "seconds"} for c in remote]
+
+
+def test_the_malloc_note_asks_the_dask_workers(client, monkeypatch):
+    # the in-process workers share this process's environment; Dask's nanny would set this variable
+    from kickback import parallel
+
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
+    assert "2 of 2 Dask worker(s)" in parallel.worker_malloc_note(client.get_executor())
+    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_")
+    assert parallel.worker_malloc_note(client.get_executor()) == ""
+
+
+def test_the_scheduler_option_on_the_command_line(client, tmp_path, monkeypatch):
+    # --scheduler ADDRESS connects a client of its own to the running scheduler: the same JSON,
+    # number for number, as a local run; a note names the workers' malloc setting
+    p = tmp_path / "c.toml"
+    p.write_text(CASE, encoding="utf-8")
+    args = ["tolerance", str(p), "--samples", "40", "--seed", "3", "--json"]
+    local = CliRunner().invoke(main, [*args, "--workers", "1"])
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
+    from kickback import parallel
+
+    opened, real = [], parallel.cluster_executor
+    monkeypatch.setattr(parallel, "cluster_executor", lambda address: opened.append(real(address)) or opened[-1])
+    try:
+        remote = CliRunner().invoke(main, [*args, "--scheduler", client.scheduler.address])
+    finally:  # the command's own client, closed before the cluster is (not left to atexit)
+        for executor in opened:
+            executor._client.close()
+    assert len(opened) == 1
+    # exit 1: some samples fail the 45 V limit (yield below 1), on both
+    assert local.exit_code == remote.exit_code == 1, (local.output, remote.output)
+    assert json.loads(local.stdout) == json.loads(remote.stdout)
+    notes = [line for line in remote.stderr.splitlines() if "MALLOC_TRIM_THRESHOLD_" in line]
+    assert len(notes) == 1 and "MALLOC_TRIM_THRESHOLD_=65536" in notes[0] and "Traceback" not in remote.output

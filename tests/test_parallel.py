@@ -9,41 +9,14 @@ from concurrent.futures import Executor, Future, ThreadPoolExecutor
 
 import numpy as np
 import pytest
+from coil_cases import TEMPERATURE, ZENER_1V, diode_zener_case, tolerance
 
 from kickback import load_case, parallel
 from kickback.studies.tolerance import DRAW_BLOCK, draw, run_tolerance
 
-TOL = '''title = "parallel test (demo data)"
-[supply]
-voltage = "24 V"
-[coil]
-inductance = "100 mH"
-resistance = "30 Ω"
-[switch]
-type = "ideal"
-[[clamp]]
-across = "coil"
-[[clamp.element]]
-type = "diode"
-model = "constant-drop"
-forward_voltage = "0.7 V"
-[[clamp.element]]
-type = "zener"
-voltage = "20 V"
-[checks]
-max_peak_voltage = "45 V"
-[tolerance."coil.inductance"]
-band = "10 %"
-distribution = "uniform"
-[tolerance."supply.voltage"]
-band = "5 %"
-distribution = "normal"
-[tolerance."clamp[0].element[1].voltage"]
-band = "±1 V"
-[tolerance.coil_temperature]
-min = "-20 °C"
-max = "85 °C"
-'''
+TOL = (diode_zener_case("parallel test", 45)
+       + tolerance("coil.inductance", band="10 %", distribution="uniform")
+       + tolerance("supply.voltage", band="5 %", distribution="normal") + ZENER_1V + TEMPERATURE)
 
 
 class InProcess(Executor):
@@ -158,3 +131,73 @@ def test_a_process_with_a_pool_exits():
     if alive:
         proc.kill()
     assert not alive and proc.exitcode == 0
+
+
+def test_workers_one_runs_the_batch_engine_in_this_process(monkeypatch):
+    # 6000 samples: above figures_batch.PARALLEL_MIN, where the batch engine once asked for a pool
+    # of its own whatever workers=1 said (a "one process" benchmark ran on two)
+    case = load_case(TOL)
+    kw = dict(engine="batch", search_budget=4, recheck=0)
+    parallel.shutdown()
+    real = parallel.local_pool
+
+    def no_pool(workers):
+        raise AssertionError(f"a pool of {workers} was asked for with workers=1")
+
+    monkeypatch.setattr(parallel, "local_pool", no_pool)
+    one = run_tolerance(case, 6000, 7, workers=1, **kw)
+    asked = []
+    monkeypatch.setattr(parallel, "local_pool", lambda workers: asked.append(workers) or real(workers))
+    # one chunk of the Monte Carlo (6000 < CHUNK) run here still shares its batches among the workers
+    two = run_tolerance(case, 6000, 7, workers=2, **kw)
+    parallel.shutdown()
+    assert asked and set(asked) == {2}
+    _same(_numbers(one), _numbers(two))
+    assert one.yield_ == one.passed.sum() / 6000  # the per-chunk counts, summed, against the verdicts
+
+
+class _FakeClient:
+    """Stands for a Dask client: ``run(func)`` calls func once per 'worker' (here, in this process)."""
+
+    def run(self, func):
+        return {"tcp://a:1": func(), "tcp://b:2": func()}
+
+
+def test_a_note_when_dask_workers_trim_malloc(monkeypatch):
+    # glibc malloc(3): MALLOC_TRIM_THRESHOLD_ set fixes the mmap threshold; Dask's nanny sets it
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
+    note = parallel.worker_malloc_note(_FakeClient())
+    assert "2 of 2 Dask worker(s)" in note and "MALLOC_TRIM_THRESHOLD_=65536" in note and "null" in note
+    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_")
+    assert parallel.worker_malloc_note(_FakeClient()) == ""
+    with ThreadPoolExecutor(1) as threads:
+        assert parallel.worker_malloc_note(threads) == ""  # not a Dask executor: nothing to say
+
+
+def test_a_map_lets_each_future_go_once_read():
+    # a Dask worker holds a task's result while a client holds its future: map_ordered must drop
+    # each future after reading it, or the workers' memory grows with the study (weakref: the
+    # Python documentation, an object without references is freed at once)
+    import gc
+    import weakref
+
+    class Recording(InProcess):
+        def __init__(self):
+            super().__init__()
+            self.refs = []
+
+        def submit(self, fn, /, *args, **kwargs):
+            fut = super().submit(fn, *args, **kwargs)
+            self.refs.append(weakref.ref(fut))
+            return fut
+
+    ex = Recording()
+    alive = []
+
+    def progress(done):
+        gc.collect()
+        alive.append(sum(r() is not None for r in ex.refs[:done - 1]))
+
+    with parallel.using(ex):
+        assert parallel.map_ordered(abs, [-1, -2, -3, -4, -5], group=1, progress=progress) == [1, 2, 3, 4, 5]
+    assert ex.tasks == 5 and alive == [0, 0, 0, 0, 0]

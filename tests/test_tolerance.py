@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from coil_cases import TEMPERATURE, ZENER_1V, diode_zener_case, tolerance
 from scipy import stats
 
 from kickback import load_case
@@ -18,38 +19,9 @@ from kickback.models.passive import copper_resistance
 from kickback.studies.tolerance import apply, clopper_pearson, run_tolerance, sample
 
 DATA = Path(__file__).resolve().parent / "data"
-BASE = '''title = "tolerance test (demo data)"
-[supply]
-voltage = "24 V"
-[coil]
-inductance = "100 mH"
-resistance = "30 Ω"
-[switch]
-type = "ideal"
-[[clamp]]
-across = "coil"
-[[clamp.element]]
-type = "diode"
-model = "constant-drop"
-forward_voltage = "0.7 V"
-[[clamp.element]]
-type = "zener"
-voltage = "20 V"
-[checks]
-max_peak_voltage = "47 V"
-'''
-TOL = BASE + '''[tolerance."coil.inductance"]
-band = "10 %"
-distribution = "normal"
-[tolerance."supply.voltage"]
-min = "21.6 V"
-max = "26.4 V"
-[tolerance."clamp[0].element[1].voltage"]
-band = "±1 V"
-[tolerance.coil_temperature]
-min = "-20 °C"
-max = "85 °C"
-'''
+BASE = diode_zener_case("tolerance test", 47)
+TOL = (BASE + tolerance("coil.inductance", band="10 %", distribution="normal")
+       + tolerance("supply.voltage", min="21.6 V", max="26.4 V") + ZENER_1V + TEMPERATURE)
 
 
 def test_copper_coefficient_iec_60028():

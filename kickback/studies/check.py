@@ -146,13 +146,13 @@ def _check(c) -> dict:
 
 def check_one(job: tuple) -> CaseCheck:
     """Load, simulate, audit and judge one case file (a task of the executor); ``job`` is
-    ``(path, tolerance_samples, seed)``. Never raises for a bad case: its status says it."""
+    ``(path, tolerance_samples, seed, workers)``. Never raises for a bad case: its status says it."""
     from kickback.caseio import load_case
     from kickback.cliguard import located
     from kickback.errors import CaseError, KickbackError
     from kickback.simulation import simulate
 
-    path, n_tol, seed = job
+    path, n_tol, seed, workers = job
     start = time.perf_counter()
     try:
         case = load_case(Path(path))
@@ -173,20 +173,21 @@ def check_one(job: tuple) -> CaseCheck:
     if not result.audit.passed:
         return CaseCheck(path, "audit", f"{path}: the result failed its audit, no verdict given: "
                          + "; ".join(result.audit.findings), seconds=time.perf_counter() - start, **base)
-    tol = _tolerance(case, n_tol, seed) if n_tol else None
+    tol = _tolerance(case, n_tol, seed, workers) if n_tol else None
     return CaseCheck(path, "pass" if result.passed else "fail", "", seconds=time.perf_counter() - start,
                      tolerance=tol, **base)
 
 
-def _tolerance(case, n: int, seed: int) -> dict:
-    """The case's own [tolerance] study with ``n`` samples: its yield and 95 % interval."""
+def _tolerance(case, n: int, seed: int, workers: int = 1) -> dict:
+    """The case's own [tolerance] study with ``n`` samples: its yield and 95 % interval (on
+    ``workers`` processes when run outside a task, e.g. one case checked alone)."""
     from kickback.errors import KickbackError
     from kickback.studies.tolerance import run_tolerance
 
     if not case.tolerances:
         return {"none": "the case has no [tolerance] section"}
     try:
-        tr = run_tolerance(case, n, seed, workers=1, recheck=0)
+        tr = run_tolerance(case, n, seed, workers=workers, recheck=0)
     except KickbackError as err:
         return {"none": f"the tolerance study could not run: {err}"}
     return {"samples": n, "seed": seed, "yield": tr.yield_, "yield_ci95": list(tr.yield_ci), "engine": tr.asked,
@@ -207,7 +208,7 @@ def check_cases(paths, *, tolerance: int = 0, seed: int = 1, workers: int = 1, p
     progress : callable(n_done) or None
     executor : concurrent.futures.Executor, Dask Client or None — see :mod:`kickback.parallel`
     """
-    jobs = [(p, tolerance, seed) for p in paths]
+    jobs = [(p, tolerance, seed, workers) for p in paths]
     with parallel.using(executor):
         return parallel.map_ordered(check_one, jobs, workers=workers, progress=progress,
                                     group=1 if tolerance else None)

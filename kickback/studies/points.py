@@ -76,7 +76,8 @@ def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto"
     case : Case — the base case
     variations : dict — key path → values [SI], all of one length n; None: the case itself
     engine : str — "auto", "batch" or "detailed" (see the module docstring)
-    workers : int — worker processes for the detailed engine
+    workers : int — worker processes for either engine (1: this process; inside a task of a
+        parallel map, always this process, see :mod:`kickback.parallel`)
     progress : callable(n_done) or None
     chunk : int or None — variants per batch of the batch engine (its default when None)
     retry : int — at most this many variants the batch engine failed are run by the detailed one
@@ -103,10 +104,11 @@ def evaluate(case: Case, variations: dict | None = None, *, engine: str = "auto"
         before = {int(k): pts.findings[k] for k in audit_bad}
         redo = audit_bad[:retry] if batch_unsupported(case) is None else audit_bad[:0]
         if redo.size:
-            pts = _replace_rows(pts, redo, _batch(case, _take(var, redo), redo.size, chunk), count=False)
+            pts = _replace_rows(pts, redo, _batch(case, _take(var, redo), redo.size, chunk, workers=workers),
+                                  count=False)
         return _settle(pts, audit_bad, redo, "detailed", "batch", before)
     step = None if progress is None else (lambda done, _n: progress(done))
-    pts = _batch(case, var, n, chunk, progress=step)
+    pts = _batch(case, var, n, chunk, progress=step, workers=workers)
     bad = np.nonzero(pts.errors != None)[0][:retry]  # noqa: E711 - elementwise on an object array
     audit_bad = _audit_failed(pts)
     before = {int(k): pts.findings[k] for k in audit_bad}
@@ -123,13 +125,14 @@ def _take(var: dict, rows) -> dict:
     return {k: np.asarray(v)[rows] for k, v in var.items()}
 
 
-def _batch(case: Case, var: dict, n: int, chunk, progress=None) -> Points:
-    """Every variant by the batch engine, with each variant's audit findings."""
+def _batch(case: Case, var: dict, n: int, chunk, progress=None, workers: int = 1) -> Points:
+    """Every variant by the batch engine, with each variant's audit findings; its chunks on
+    ``workers`` processes (or the current executor, :mod:`kickback.parallel`)."""
     from kickback.audit import audit_many
     from kickback.figures_batch import CHUNK
     from kickback.studies.many import simulate_many
 
-    many = simulate_many(case, var, chunk=chunk or CHUNK, progress=progress)
+    many = simulate_many(case, var, chunk=chunk or CHUNK, progress=progress, workers=workers)
     pts = from_many(case, many)
     found = np.empty(pts.n, dtype=object)
     found[:] = audit_many(many)

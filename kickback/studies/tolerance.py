@@ -185,8 +185,8 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     idx = np.sort(_recheck_rng(seed, n).choice(n, size=min(recheck, n), replace=False)) \
         if used == "batch" and recheck > 0 else None
     with parallel.using(executor), _Recheck(case, matrix, idx, workers) as later:
-        figs, passed, errors, worst, fits, retried, audited, counts = _monte_carlo(case, matrix, flist, used,
-                                                                                   workers, progress, chunk)
+        figs, passed, k, errors, worst, fits, retried, audited, counts = _monte_carlo(case, matrix, flist, used,
+                                                                                      workers, progress, chunk)
         study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
         check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
     if retried:
@@ -196,7 +196,6 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
         from kickback.studies.pointtable import audit_note
 
         note = (note + "; " if note else "") + audit_note(*audited)
-    k = int(passed.sum())  # the per-chunk pass counts, summed
     pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
            for f, a in figs.items()}
     worst_per_check = {name: {"margin": json_float(m), "value": json_float(v), "limit": json_float(lim), "unit": unit,
@@ -280,8 +279,10 @@ def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
 
 def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
     """Every sample, chunk by chunk on the executor (:mod:`kickback.parallel`): the followed
-    figures, verdicts, errors and, per check, the sample with the smallest margin (no margin
-    counts as the smallest), merged from each chunk's own counts and minima."""
+    figures, verdicts, the number passed, errors and, per check, the sample with the smallest
+    margin (no margin counts as the smallest); the count and the minima are merged from each
+    chunk's own. Each chunk's rows go to its task; the figure columns come back (the
+    percentiles need them: 8 bytes per sample and figure in this process)."""
     n = len(matrix)
     size = max(1, chunk) if used == "batch" else DETAILED_TASK
     cuts = parallel.groups(n, size)
@@ -291,10 +292,14 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         if progress is not None:
             progress(ends[done - 1])
 
-    parts = parallel.map_ordered(_chunk_job, [(case, matrix[g], used, size, tuple(f for f, _, _ in flist))
-                                              for g in cuts], workers=workers, progress=step, group=1)
+    names = tuple(f for f, _, _ in flist)
+    # a chunk run in this process (one chunk, or workers=1) shares its batches among ``workers``;
+    # in a task of the map its inner maps run in the task's process (kickback.parallel)
+    parts = parallel.map_ordered(_chunk_job, [(case, matrix[g], used, size, names, workers) for g in cuts],
+                                 workers=workers, progress=step, group=1)
     figs = {f: np.full(n, np.nan) for f, _, _ in flist}
     passed = np.zeros(n, bool)
+    k = 0  # samples that passed: the per-chunk counts, summed
     errors = np.full(n, None, dtype=object)
     worst: dict = {}
     fits: list = []
@@ -307,6 +312,7 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         for f, a in part["figures"].items():
             figs[f][g] = a
         passed[g] = part["passed"]
+        k += part["n_passed"]
         errors[g] = part["errors"]
         fits += [x for x in part["fits"] if x not in fits]
         retried += part["retried"]
@@ -314,14 +320,15 @@ def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
         for name, (key, j, v, lim, m, unit) in part["worst"].items():
             if name not in worst or key < worst[name][0]:
                 worst[name] = (key, g.start + j, v, lim, m, unit)
-    return figs, passed, errors, worst, tuple(fits), retried, tuple(audited), {e: m for e, m in counts.items() if m}
+    return (figs, passed, k, errors, worst, tuple(fits), retried, tuple(audited),
+            {e: m for e, m in counts.items() if m})
 
 
 def _chunk_job(args) -> dict:
     """One chunk of samples, run where the executor puts it: its figures, verdicts and errors,
     its pass count, and per check its sample with the smallest margin (index within the chunk)."""
-    case, rows, used, chunk, names = args
-    pts = evaluate(case, rows, engine=used, workers=1, chunk=chunk)
+    case, rows, used, chunk, names, workers = args
+    pts = evaluate(case, rows, engine=used, workers=workers, chunk=chunk)
     worst = {}
     for name, c in pts.checks.items():
         key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
