@@ -27,6 +27,12 @@ FLOAT = (math.nan, 0, 0)
 FLOAT_CONDUCTANCE = 1e-7
 #: [relative to i0] a floating node's current balance may be off by this before it lands
 FLOAT_RESIDUAL = 1e-8
+#: the event that starts the floating mode fires where the conductance at the algebraic node
+#: voltage has fallen to this fraction of ``FLOAT_CONDUCTANCE``: :meth:`FloatingNode.can_float`
+#: checks the limit at the forced voltage, a little off the algebraic one, and an event at the
+#: limit itself could be refused there — leaving the node algebraic below the limit, where one
+#: step tolerance of the coil current moves the node voltage by volts and the solver stalls
+FLOAT_ENTRY = 0.5
 
 
 class FloatingNode:

@@ -21,7 +21,7 @@ import numpy as np
 from scipy.integrate import Radau, solve_ivp
 from scipy.linalg import lapack
 
-from kickback.circuit import FLOAT, FLOAT_CONDUCTANCE, FLOAT_RESIDUAL, Circuit
+from kickback.circuit import FLOAT, FLOAT_CONDUCTANCE, FLOAT_ENTRY, FLOAT_RESIDUAL, Circuit
 from kickback.engine.radau_check import CheckedNewton
 from kickback.errors import SolverError
 
@@ -159,6 +159,8 @@ class PhaseRunner:
         self.atol = tolerances(c, rtol)
         self.scale = np.maximum(self.atol / rtol, 1e-300)
         self.calls = 0
+        #: [S, relative to i0/v_scale] level of the conductance event that starts the floating mode
+        self.float_entry = FLOAT_ENTRY * FLOAT_CONDUCTANCE
         self.t = t0
         self.y = np.array(y0, dtype=float)
         self.phases: list[Phase] = []
@@ -211,7 +213,7 @@ class PhaseRunner:
         """Events of a node with no capacitance: it starts to float (its conductance falls
         below the limit), or it lands (the balance at the forced voltage is off)."""
         c = self.c
-        g_lim = FLOAT_CONDUCTANCE * c.i0 / c.v_scale
+        g_lim = self.float_entry * c.i0 / c.v_scale
         if c.pin is not None and c.pin is not FLOAT:
             return self._release_events()
         if c.pin is None:
@@ -235,6 +237,20 @@ class PhaseRunner:
             g.pin = None
             out.append(g)
         return out
+
+    def _refused_float(self) -> None:
+        """The conductance event fired but the node may not float here. Too small a current
+        stays so (the event, at its root, would fire again at once): it is left out until the
+        next mode. Otherwise (the balance at the forced voltage not yet within its limit) the
+        event is armed again at half the present conductance, so that a node whose conductance
+        keeps falling does float rather than stay algebraic, where its solve loses every digit."""
+        c = self.c
+        if abs(float(c.coil_current(self.y[0]))) < 1e-6 * c.i0:
+            self.no_float = True
+            return
+        G = c.node_conductance(self.t, c.node_voltage(self.t, self.y), self.y)
+        level = 0.5 * G * c.v_scale / c.i0 if math.isfinite(G) else self.float_entry
+        self.float_entry = min(0.5 * self.float_entry, level)
 
     def landing(self):
         """Where a floating node lands: on a vertical law whose voltage its forced voltage has
@@ -317,6 +333,7 @@ class PhaseRunner:
         switches = 0
         landed = False
         self.no_float = False
+        self.float_entry = FLOAT_ENTRY * FLOAT_CONDUCTANCE
         while True:
             if not c.capacitive and c.pin is None and not landed and c.can_float(self.t, self.y):
                 c.pin = FLOAT
@@ -339,14 +356,14 @@ class PhaseRunner:
             if sol.status == 1 and fired_pin is not None and not c.capacitive:
                 # the node starts to float (when it may), lands, or leaves a vertical law
                 self.no_float = False
+                self.float_entry = FLOAT_ENTRY * FLOAT_CONDUCTANCE
                 if c.pin is FLOAT:
                     c.pin = self.landing()
                     landed = True
                 elif c.pin is None:
                     c.pin = FLOAT if c.can_float(self.t, self.y) else None
-                    # the node may not float here (too small a current): the conductance event,
-                    # at its root, would fire again at once; it is left out until the next mode
-                    self.no_float = c.pin is None
+                    if c.pin is None:
+                        self._refused_float()
                 else:
                     c.pin = None
                 switches += 1
