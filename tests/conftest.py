@@ -34,6 +34,9 @@ def _examples_from_the_test_file_only(monkeypatch):
 
     assert hasattr(providers.HypothesisProvider, "_local_constants"), "Hypothesis changed: see this fixture"
     monkeypatch.setattr(providers.HypothesisProvider, "_local_constants", providers.Constants())
+    # its cache of the constants allowed per kind of draw may hold local ones from a draw made
+    # outside this fixture (at collection, say)
+    providers.CONSTANTS_CACHE.cache.clear()
 
 
 def _merge(part: dict) -> None:
