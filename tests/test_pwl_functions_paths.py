@@ -59,14 +59,14 @@ def test_moments_against_quadrature(n_el):
     rng = np.random.default_rng(7 + n_el)
     u = np.concatenate([rng.uniform(-1.0, 0.0, n_el), [-7.5, -60.0]])
     T = 10.0 ** rng.uniform(-7, -2, u.size)
-    I = moments(u / T, T)
+    mom = moments(u / T, T)
     for j in range(u.size):
         Tj = mpmath.mpf(T[j])
         uj = mpmath.mpf(u[j] / T[j]) * Tj
         for n in (0, 1, 7, 18):
             # on θ = τ/T (mpmath.quad on [0, T] itself loses digits for T of microseconds)
-            ref = Tj ** (n + 1) * mpmath.quad(lambda th: th**n * mpmath.exp(uj * th), [0, 1])
-            assert _rel(I[n, j], ref) < 1e-13, (j, n)
+            ref = Tj ** (n + 1) * mpmath.quad(lambda th, n=n, uj=uj: th**n * mpmath.exp(uj * th), [0, 1])
+            assert _rel(mom[n, j], ref) < 1e-13, (j, n)
 
 
 @pytest.mark.parametrize("rows", [SERIES + [(-40.0, -3e3, 5e-3), (-1e2, 4e3, 4e-3)], [(-3.0, 2.0, 1e-3)]],
@@ -87,5 +87,5 @@ def test_modal_integrals_against_quadrature(rows):
 
         for kind in ("K0", "K1", "J0", "J1", "H0"):
             Tm = mpmath.mpf(Tk)
-            ref = Tm * mpmath.quad(lambda th, kind=kind: f(kind, th * Tm), [0, 1])  # on θ = τ/T
+            ref = Tm * mpmath.quad(lambda th, kind=kind, Tm=Tm: f(kind, th * Tm), [0, 1])  # on θ = τ/T
             assert _rel(r[kind][k], ref) < 1e-12, (k, kind)

@@ -175,7 +175,7 @@ def psi01(s, T):
 _MOMENT_TERMS = 22
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _series_denominators(nmax: int) -> np.ndarray:
     """The denominators ``n + k + 1`` of the moments' series, shape (_MOMENT_TERMS, nmax + 1, 1)
     (term k, order n), as floats; built once per ``nmax`` (read-only)."""
