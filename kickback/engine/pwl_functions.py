@@ -173,6 +173,8 @@ def psi01(s, T):
 
 #: terms of the moments' series for |u| ≤ 1 (the last is below 1/22! ≈ 9e-22 of the first)
 _MOMENT_TERMS = 22
+#: up to this many elements the moments' series is summed as one array (see :func:`moments`)
+_MOMENT_WHOLE = 64
 
 
 @functools.cache
@@ -211,14 +213,24 @@ def moments(m, T, nmax: int = _NMAX):
     small = np.abs(u) <= 1.0
     if np.any(small):
         us = u[small]
-        terms = np.empty((_MOMENT_TERMS, 1, us.size))
-        term = np.ones_like(us)
-        for k in range(_MOMENT_TERMS):
-            terms[k, 0] = term
-            term = term * us / (k + 1)
-        # μ_n = Σ_k (u^k/k!)/(n + k + 1): every quotient at once, summed in k order (a reduction
-        # over the leading axis adds row after row, as the running sum term by term did)
-        mu[:, small] = np.add.reduce(terms / _series_denominators(nmax), axis=0)
+        # μ_n = Σ_k (u^k/k!)/(n + k + 1), summed in k order. A few elements (a single case's
+        # segment): every quotient at once, a reduction over the leading axis adds row after row
+        # as the running sum does; many (a batch): the running sum itself, without the large
+        # (terms × orders × elements) array
+        if us.size <= _MOMENT_WHOLE:
+            terms = np.empty((_MOMENT_TERMS, 1, us.size))
+            term = np.ones_like(us)
+            for k in range(_MOMENT_TERMS):
+                terms[k, 0] = term
+                term = term * us / (k + 1)
+            mu[:, small] = np.add.reduce(terms / _series_denominators(nmax), axis=0)
+        else:
+            acc = np.zeros((nmax + 1, us.size))
+            term = np.ones_like(us)
+            for k in range(_MOMENT_TERMS):
+                acc += term / (n_ax + k + 1)
+                term = term * us / (k + 1)
+            mu[:, small] = acc
     mid = ~small & (np.abs(u) <= _MOMENT_SWITCH)
     if np.any(mid):
         z = -u[mid]
@@ -280,17 +292,29 @@ def modal_integrals(m, w2, T, rp=None):
     if np.any(ser):
         ws = w2[ser]
         mom = moments(m[ser], T[ser])
-        # the k-th term of each integral is w²ᵏ·I_j/f (its moment I_j and factorial f in
-        # _INT_PLAN), all terms at once; summed in k order, as a running sum would
-        wk = np.cumprod(np.concatenate([np.ones((1, ws.size)), np.broadcast_to(ws, (_INT_TERMS - 1, ws.size))]),
-                        axis=0)
-        jm, fac = _INT_PLAN
-        terms = wk[None] * mom[jm] / fac
-        acc = np.zeros((len(_INT_KEYS), ws.size))
-        for k in range(_INT_TERMS):
-            acc += terms[:, k]
-        for q, key in enumerate(_INT_KEYS):
-            out[key][ser] = acc[q]
+        if ws.size <= _MOMENT_WHOLE:
+            # a few elements: the k-th term of each integral is w²ᵏ·I_j/f (its moment I_j and
+            # factorial f in _INT_PLAN), all terms at once, summed in k order as below
+            wk = np.cumprod(np.concatenate([np.ones((1, ws.size)),
+                                            np.broadcast_to(ws, (_INT_TERMS - 1, ws.size))]), axis=0)
+            jm, fac = _INT_PLAN
+            terms = wk[None] * mom[jm] / fac
+            acc5 = np.zeros((len(_INT_KEYS), ws.size))
+            for k in range(_INT_TERMS):
+                acc5 += terms[:, k]
+            acc = dict(zip(_INT_KEYS, acc5, strict=True))
+        else:
+            acc = {k: np.zeros(ws.size) for k in out}
+            wk = np.ones_like(ws)
+            for k in range(_INT_TERMS):
+                acc["K0"] += wk * mom[2 * k] / math.factorial(2 * k)
+                acc["K1"] += wk * mom[2 * k + 1] / math.factorial(2 * k)
+                acc["J0"] += wk * mom[2 * k + 1] / math.factorial(2 * k + 1)
+                acc["J1"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 1)
+                acc["H0"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 2)
+                wk = wk * ws
+        for k in out:
+            out[k][ser] = acc[k]
     ex = ~ser
     if np.any(ex):
         Tl, w2l, ml = T[ex], w2[ex], m[ex]
