@@ -23,6 +23,7 @@ gamma function ∫0^1 θ^n e^{uθ} dθ and its series).
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -38,6 +39,14 @@ _INT_TERMS = 9
 #: the moments μ_n(u) = ∫0^1 θ^n e^{uθ} dθ: below |u| this the downward φ recurrence is used
 _MOMENT_SWITCH = 40.0
 _NMAX = 2 * _INT_TERMS + 2
+
+#: the modal integrals' series (see :func:`modal_integrals`): per integral and term k, the index j
+#: of the moment I_j and the factorial dividing it (K0: I_2k/(2k)!, K1: I_2k+1/(2k)!, J0: I_2k+1/(2k+1)!,
+#: J1: I_2k+2/(2k+1)!, H0: I_2k+2/(2k+2)!)
+_INT_KEYS = ("K0", "K1", "J0", "J1", "H0")
+_INT_PLAN = (np.array([[2 * k + a for k in range(_INT_TERMS)] for a, _f in ((0, 0), (1, 0), (1, 1), (2, 1), (2, 2))]),
+             np.array([[[float(math.factorial(2 * k + f))] for k in range(_INT_TERMS)]
+                       for _a, f in ((0, 0), (1, 0), (1, 1), (2, 1), (2, 2))]))
 
 _FACT = np.array([math.factorial(k) for k in range(_PHI_TERMS + 3)], dtype=float)
 
@@ -116,6 +125,9 @@ def cosh_sinhc(m, w2, tau, rp=None):
     x2 = w2 * tau * tau
     em = np.exp(m * tau)
     series = np.abs(x2) < _CS_SERIES
+    one = _one_branch(m, w2, tau, rp, x2, em, series)
+    if one is not None:
+        return one
     xs = np.where(series, x2, 0.0)
     c_s = 1.0 + xs * (1 / 2 + xs * (1 / 24 + xs / 720))
     s_s = tau * (1.0 + xs * (1 / 6 + xs * (1 / 120 + xs / 5040)))
@@ -133,10 +145,45 @@ def cosh_sinhc(m, w2, tau, rp=None):
     return ec, es
 
 
+def _one_branch(m, w2, tau, rp, x2, em, series):
+    """:func:`cosh_sinhc` where every element takes the same branch (the common case: one
+    segment's grid): that branch alone, with the same operations as the general path, so the
+    values are the same to the bit; None for a mix (or a NaN)."""
+    if series.all():
+        c_s = 1.0 + x2 * (1 / 2 + x2 * (1 / 24 + x2 / 720))
+        s_s = tau * (1.0 + x2 * (1 / 6 + x2 * (1 / 120 + x2 / 5040)))
+        return em * c_s, em * s_s
+    if (x2 < 0).all() and not series.any():
+        nu = np.sqrt(-w2)
+        return em * np.cos(nu * tau), em * (np.sin(nu * tau) / nu)
+    if (x2 > 0).all() and not series.any():
+        w = np.sqrt(w2)
+        with np.errstate(over="ignore", invalid="ignore"):
+            ep = np.exp(rp * tau)
+            en = np.exp((m - w) * tau)
+        return 0.5 * (ep + en), 0.5 * (ep - en) / w
+    return None
+
+
 def psi01(s, T):
     """``∫0^T e^{sτ} dτ`` and ``∫0^T τ e^{sτ} dτ`` for real or complex rates ``s`` [1/s], ``T`` [s]."""
     p1, p2 = phi12(s * T)
     return T * p1, T * T * (p1 - p2)
+
+
+#: terms of the moments' series for |u| ≤ 1 (the last is below 1/22! ≈ 9e-22 of the first)
+_MOMENT_TERMS = 22
+#: up to this many elements the moments' series is summed as one array (see :func:`moments`)
+_MOMENT_WHOLE = 64
+
+
+@functools.cache
+def _series_denominators(nmax: int) -> np.ndarray:
+    """The denominators ``n + k + 1`` of the moments' series, shape (_MOMENT_TERMS, nmax + 1, 1)
+    (term k, order n), as floats; built once per ``nmax`` (read-only)."""
+    den = (np.arange(_MOMENT_TERMS)[:, None, None] + np.arange(nmax + 1)[None, :, None] + 1).astype(float)
+    den.setflags(write=False)
+    return den
 
 
 def moments(m, T, nmax: int = _NMAX):
@@ -166,12 +213,24 @@ def moments(m, T, nmax: int = _NMAX):
     small = np.abs(u) <= 1.0
     if np.any(small):
         us = u[small]
-        acc = np.zeros((nmax + 1, us.size))
-        term = np.ones_like(us)
-        for k in range(22):
-            acc += term / (n_ax + k + 1)
-            term = term * us / (k + 1)
-        mu[:, small] = acc
+        # μ_n = Σ_k (u^k/k!)/(n + k + 1), summed in k order. A few elements (a single case's
+        # segment): every quotient at once, a reduction over the leading axis adds row after row
+        # as the running sum does; many (a batch): the running sum itself, without the large
+        # (terms × orders × elements) array
+        if us.size <= _MOMENT_WHOLE:
+            terms = np.empty((_MOMENT_TERMS, 1, us.size))
+            term = np.ones_like(us)
+            for k in range(_MOMENT_TERMS):
+                terms[k, 0] = term
+                term = term * us / (k + 1)
+            mu[:, small] = np.add.reduce(terms / _series_denominators(nmax), axis=0)
+        else:
+            acc = np.zeros((nmax + 1, us.size))
+            term = np.ones_like(us)
+            for k in range(_MOMENT_TERMS):
+                acc += term / (n_ax + k + 1)
+                term = term * us / (k + 1)
+            mu[:, small] = acc
     mid = ~small & (np.abs(u) <= _MOMENT_SWITCH)
     if np.any(mid):
         z = -u[mid]
@@ -233,15 +292,27 @@ def modal_integrals(m, w2, T, rp=None):
     if np.any(ser):
         ws = w2[ser]
         mom = moments(m[ser], T[ser])
-        acc = {k: np.zeros(ws.size) for k in out}
-        wk = np.ones_like(ws)
-        for k in range(_INT_TERMS):
-            acc["K0"] += wk * mom[2 * k] / math.factorial(2 * k)
-            acc["K1"] += wk * mom[2 * k + 1] / math.factorial(2 * k)
-            acc["J0"] += wk * mom[2 * k + 1] / math.factorial(2 * k + 1)
-            acc["J1"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 1)
-            acc["H0"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 2)
-            wk = wk * ws
+        if ws.size <= _MOMENT_WHOLE:
+            # a few elements: the k-th term of each integral is w²ᵏ·I_j/f (its moment I_j and
+            # factorial f in _INT_PLAN), all terms at once, summed in k order as below
+            wk = np.cumprod(np.concatenate([np.ones((1, ws.size)),
+                                            np.broadcast_to(ws, (_INT_TERMS - 1, ws.size))]), axis=0)
+            jm, fac = _INT_PLAN
+            terms = wk[None] * mom[jm] / fac
+            acc5 = np.zeros((len(_INT_KEYS), ws.size))
+            for k in range(_INT_TERMS):
+                acc5 += terms[:, k]
+            acc = dict(zip(_INT_KEYS, acc5, strict=True))
+        else:
+            acc = {k: np.zeros(ws.size) for k in out}
+            wk = np.ones_like(ws)
+            for k in range(_INT_TERMS):
+                acc["K0"] += wk * mom[2 * k] / math.factorial(2 * k)
+                acc["K1"] += wk * mom[2 * k + 1] / math.factorial(2 * k)
+                acc["J0"] += wk * mom[2 * k + 1] / math.factorial(2 * k + 1)
+                acc["J1"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 1)
+                acc["H0"] += wk * mom[2 * k + 2] / math.factorial(2 * k + 2)
+                wk = wk * ws
         for k in out:
             out[k][ser] = acc[k]
     ex = ~ser
