@@ -105,6 +105,15 @@ def write_files(out: Path, files: dict, family: tuple[str, ...] = ()) -> None:
     click.echo(f"wrote {', '.join(str(p) for p in paths)}", err=True)
 
 
+def write_study(out: Path, files: dict, stem: str, figure=None) -> None:
+    """Write a study's data ``files`` (name → text) and, when ``figure`` is given (a callable that
+    builds the matplotlib figure, called only then), ``stem.png``/``stem.svg``, as one set."""
+    family = tuple(files) + pictures(stem)
+    if figure is not None:
+        files = files | figure_files(stem, figure())
+    write_files(out, files, family)
+
+
 def read_measured(path: str):
     """The --measured trace of `run` (units from its header), or exit 2 with a one-line message."""
     from kickback.errors import KickbackError

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from kickback.cli_common import die, out_folder, pictures, write_files
+from kickback.cli_common import die, out_folder, write_study
 from kickback.cliguard import located, note, set_source
 
 
@@ -103,14 +103,9 @@ def fit(trace: str, kind: str, supply, shunt, time_col, value_col, time_unit, va
         die(located(err, trace))
     payload = to_json(result.to_dict())
     if out_dir is not None:
-        files = {"fit.json": payload}
-        if not no_plot:
-            from kickback.outputs.fitplots import fit_figure
-            from kickback.outputs.plots import figure_bytes
+        from kickback.outputs.fitplots import fit_figure
 
-            fig = fit_figure(result)
-            files |= {f"fit.{fmt}": figure_bytes(fig, fmt) for fmt in ("png", "svg")}
-        write_files(out, files, ("fit.json",) + pictures("fit"))
+        write_study(out, {"fit.json": payload}, "fit", None if no_plot else lambda: fit_figure(result))
     click.echo(f"trace: {tr.source}, time {tr.time_column!r}, current {tr.value_column!r}", err=True)
     for line in result.notes:
         note(f"note: {line}")

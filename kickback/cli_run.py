@@ -12,13 +12,13 @@ from kickback.cli_common import (
     audit_failed,
     die,
     fail,
-    figure_files,
     load_or_exit,
     measured_outputs,
     out_folder,
     pictures,
     read_measured,
     write_files,
+    write_study,
 )
 from kickback.cliguard import FiniteFloatRange, located
 
@@ -121,12 +121,9 @@ def compare(case: str, as_json: bool, out_dir: str | None, no_plot: bool) -> Non
         audit_failed(c, own.result, None)
     payload = to_json(cmp.to_dict())
     if out_dir is not None:
-        files = {"compare.json": payload}
-        if not no_plot:
-            from kickback.outputs.comparison import comparison_figure
+        from kickback.outputs.comparison import comparison_figure
 
-            files |= figure_files("compare", comparison_figure(cmp))
-        write_files(out, files, ("compare.json",) + pictures("compare"))
+        write_study(out, {"compare.json": payload}, "compare", None if no_plot else lambda: comparison_figure(cmp))
     click.echo(payload if as_json else comparison_table(cmp), nl=False)
     sys.exit(0 if own.result.passed else 1)
 

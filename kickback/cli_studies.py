@@ -13,11 +13,9 @@ from kickback.cli_common import (
     SEED,
     check_room_for_a_clamp,
     die,
-    figure_files,
     load_or_exit,
     out_folder,
-    pictures,
-    write_files,
+    write_study,
 )
 from kickback.cli_parallel import open_executor, scheduler_option
 from kickback.cliguard import located
@@ -75,17 +73,15 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
         sw = with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress,
                                                                   engine=engine, executor=executor))
     except CaseError as err:
-        die(f"{c.source}: {err.key}: {err.message}" if err.key else f"{c.source}: {err.message}")
+        die(located(err, c.source))
     except SolverError as err:
         die(f"{c.source}: --engine: {err}")
     payload = to_json(sw.to_dict())
     if out_dir is not None:
-        files = {"sweep.csv": sweep_csv(sw), "sweep.json": payload}
-        if not no_plot:
-            from kickback.outputs.sweeps import sweep_figure
+        from kickback.outputs.sweeps import sweep_figure
 
-            files |= figure_files("sweep", sweep_figure(sw))
-        write_files(out, files, ("sweep.csv", "sweep.json") + pictures("sweep"))
+        write_study(out, {"sweep.csv": sweep_csv(sw), "sweep.json": payload}, "sweep",
+                    None if no_plot else lambda: sweep_figure(sw))
     click.echo(payload if as_json else sweep_table(sw), nl=False)
     sys.exit(0 if sw.passed.all() else 1)
 
@@ -127,12 +123,9 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
         die(f"{c.source}: --engine: {err}")
     payload = to_json(ch.to_dict())
     if out_dir is not None:
-        files = {"choose.json": payload}
-        if not no_plot:
-            from kickback.outputs.choice import tradeoff_figure
+        from kickback.outputs.choice import tradeoff_figure
 
-            files |= figure_files("tradeoff", tradeoff_figure(ch))
-        write_files(out, files, ("choose.json",) + pictures("tradeoff"))
+        write_study(out, {"choose.json": payload}, "tradeoff", None if no_plot else lambda: tradeoff_figure(ch))
     click.echo(payload if as_json else choice_table(ch), nl=False)
     sys.exit(0 if ch.ranked else 1)
 
@@ -184,11 +177,9 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
         die(f"{c.source}: --engine: {err}")
     payload = to_json(tr.to_dict())
     if out_dir is not None:
-        files = {"tolerance.json": payload, "samples.csv": samples_csv(tr)}
-        if not no_plot:
-            from kickback.outputs.tolerances import tolerance_figure
+        from kickback.outputs.tolerances import tolerance_figure
 
-            files |= figure_files("tolerance", tolerance_figure(tr))
-        write_files(out, files, ("tolerance.json", "samples.csv") + pictures("tolerance"))
+        write_study(out, {"tolerance.json": payload, "samples.csv": samples_csv(tr)}, "tolerance",
+                    None if no_plot else lambda: tolerance_figure(tr))
     click.echo(payload if as_json else tolerance_table(tr), nl=False)
     sys.exit(0 if tr.passed.all() else 1)
