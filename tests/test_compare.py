@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
@@ -25,9 +26,11 @@ def _mantissa(x: float) -> float:
 
 
 def test_builtin_options_are_sized_to_the_derated_switch():
+    """Sized to keep checks.min_margin (5 %) under derating × rated voltage (0.8 × 60 V)."""
     case = load_case(VALVE)
     v_allow, vs, i0 = allowed_voltage(case), case.supply.voltage, on_current(case)
     assert v_allow == 0.8 * 60.0
+    v_allow *= 1.0 - case.checks.min_margin
     z = next(o for o in builtin_options(case) if "Zener" in o.name).clamps[0].elements[1]
     assert _mantissa(z.voltage) in E24 and z.voltage <= v_allow - vs - diode_drop(i0)
     r = next(o for o in builtin_options(case) if o.name.startswith("diode +") and "Ω" in o.name)
@@ -125,8 +128,10 @@ def test_builtin_zener_sized_at_the_coils_current():
     """At 3 A the generic diode drops about 1.05 V, not its 0.9 V at 1 A: v_allow − V_s − V_d =
     0.89·55 − 24 − 1.05 ≈ 23.9 V, so the E24 Zener (IEC 60063) is 22 V (24 V would put the node at
     49.05 V, over the 48.95 V limit). With an ideal switch and Zener the node sits at
-    V_s + V_d(i0) + V_Z (DESIGN §3), checked against the simulated peak."""
+    V_s + V_d(i0) + V_Z (DESIGN §3), checked against the simulated peak. With checks.min_margin 0,
+    the options are sized to the derated rating itself."""
     case = load_case(_HIGH_CURRENT, source="hc.toml")
+    case = replace(case, checks=replace(case.checks, min_margin=0.0))
     i0, v_allow = 3.0, 0.89 * 55.0
     vd = _generic_diode_drop(i0)
     head = v_allow - 24.0 - vd
@@ -142,6 +147,30 @@ def test_builtin_zener_sized_at_the_coils_current():
     row = next(x for x in cmp.rows if "Zener" in x.name)
     assert row.result.figures.peak_voltage_V == pytest.approx(24.0 + vd + want, rel=1e-6)
     assert row.result.figures.peak_voltage_V <= v_allow and not row.failing
+
+
+def test_pass_below_min_margin_is_said_as_choose_rejects_it():
+    """Sized with no minimum margin the Zener is the 22 V of the test above; as the case's own
+    clamp its node, V_s + V_d(i0) + V_Z (DESIGN §3), keeps (v_allow − peak)/v_allow ≈ 3.9 % under
+    the derated rating, below the default checks.min_margin of 5 %: compare says so (table and
+    JSON) where choose would reject it. Every built-in option compare offers keeps the margin."""
+    from kickback.outputs.comparison import comparison_table
+
+    case = load_case(_HIGH_CURRENT, source="hc.toml")
+    v_allow = 0.89 * 55.0
+    margin = (v_allow - (24.0 + _generic_diode_drop(3.0) + 22.0)) / v_allow
+    assert margin < case.checks.min_margin == 0.05
+    bare = replace(case, checks=replace(case.checks, min_margin=0.0))
+    z22 = next(o for o in builtin_options(bare) if "Zener" in o.name)
+    assert z22.clamps[0].elements[1].voltage == 22.0
+    cmp = compare(replace(case, clamps=z22.clamps))
+    d = cmp.own.to_dict()
+    assert d["pass"] and d["below_min_margin"] and d["margin"] == pytest.approx(margin, rel=1e-4)
+    line = next(ln for ln in comparison_table(cmp).splitlines() if ln.startswith("  * "))
+    assert "under checks.min_margin 5 %" in line
+    offered = [r for r in cmp.rows if not r.own and r.result is not None and r.result.passed]
+    assert offered and not any(r.thin for r in offered)
+    assert all(r.margin >= 0.05 for r in offered)
 
 
 def test_snubber_capacitor_no_board_carries_is_flagged():

@@ -20,6 +20,9 @@ def comparison_table(cmp) -> str:
             rows.append([name, "—", "—", "—", "—", "—", "—", f"cannot simulate: {r.error}"])
             continue
         verdict = "pass" if d["pass"] else "FAIL: " + ", ".join(d["failing_checks"])
+        if r.thin:
+            verdict += (f" (switch-voltage margin {100 * r.margin:.1f} % under checks.min_margin "
+                        f"{100 * r.min_margin:g} %: choose would not pick it)")
         rows.append([name, q(d["peak_voltage_V"], "V"), q(d["clamp_energy_J"], "J"),
                      q(d["clamp_peak_current_A"], "A"), q(d["to_10_percent_s"], "s"), q(d["to_zero_s"], "s"),
                      q(d["release_s"], "s"), verdict])
@@ -29,7 +32,7 @@ def comparison_table(cmp) -> str:
     lines += ["", "* the case's own clamp set (sets the exit status)"]
     lines += _part_lines(cmp)
     if cmp.builtin:
-        note = ("other options: built-in families sized to the derated switch voltage at the coil's current "
+        note = ("other options: built-in families sized to keep checks.min_margin under the derated switch voltage at the coil's current "
                 "(generic diode 0.9 V at 1 A; ideal Zener/TVS: a built-in TVS clamps at its breakdown voltage, "
                 "V_C = V_BR, and needs a part with stand-off V_WM at least the supply); give your own parts as "
                 "[[option]] in the case")

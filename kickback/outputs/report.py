@@ -174,8 +174,8 @@ def comparison_section(cmp) -> Section:
         classes.append("pass" if d["pass"] else "fail")
     body = parts.table(["option", "peak switch V", "clamp energy", "clamp peak I", "to 10 %", "to zero", "release",
                         "verdict"], rows, "checks compare", classes)
-    where = ("Alternatives: built-in families sized to the derated switch voltage (generic diode 0.9 V at 1 A, "
-             "ideal Zener and TVS) — they show the trade-off, they are not parts."
+    where = ("Alternatives: built-in families sized to keep checks.min_margin under the derated switch "
+             "voltage (generic diode 0.9 V at 1 A, ideal Zener and TVS) — they show the trade-off, they are not parts."
              if cmp.builtin else "Alternatives: the case's own [[option]] sets.")
     body += f'<p class="note">{escape(where)} Each option is checked against the same ratings and limits.</p>'
     fig = comparison_figure(cmp)  # its legends sit beside the plots already, clear of every curve

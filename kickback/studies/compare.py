@@ -8,7 +8,7 @@ from kickback.case import Case, Option
 from kickback.errors import KickbackError
 from kickback.result import Result
 from kickback.simulation import simulate
-from kickback.studies.designs import builtin_options, impractical
+from kickback.studies.designs import builtin_options, derated_rating, impractical
 
 
 @dataclass(frozen=True)
@@ -20,6 +20,21 @@ class CompareRow:
     result: Result | None
     error: str | None = None
     flag: str | None = None  # why no one would build this option (it is then not simulated)
+    v_allow: float | None = None  # the derated switch voltage [V] (None: the switch has no rating)
+    min_margin: float = 0.0  # the case's checks.min_margin, as choose applies it
+
+    @property
+    def margin(self) -> float | None:
+        """Switch-voltage margin under the derated rating, (V_allow − peak)/V_allow (as choose ranks it)."""
+        if self.result is None or self.v_allow is None:
+            return None
+        return (self.v_allow - self.result.figures.peak_voltage_V) / self.v_allow
+
+    @property
+    def thin(self) -> bool:
+        """Every check passes but the margin is under ``checks.min_margin`` (choose would reject it)."""
+        m = self.margin
+        return self.result is not None and self.result.passed and m is not None and m < self.min_margin
 
     @property
     def failing(self) -> list[str]:
@@ -41,6 +56,8 @@ class CompareRow:
             "to_zero_s": f.to_zero_s,
             "release_s": f.release_s,
             "pass": self.result.passed,
+            "margin": self.margin,
+            "below_min_margin": self.thin,
             "failing_checks": self.failing,
         }
 
@@ -95,7 +112,8 @@ def compare(case: Case, **sim_options) -> Comparison:
 
 def _row(case: Case, name: str, own: bool, sim_options) -> CompareRow:
     try:
-        return CompareRow(name, own, simulate(case, **sim_options))
+        return CompareRow(name, own, simulate(case, **sim_options), v_allow=derated_rating(case),
+                          min_margin=case.checks.min_margin)
     except KickbackError as err:
         msg = getattr(err, "message", None) or str(err)
         return CompareRow(name, own, None, msg)

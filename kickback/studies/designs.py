@@ -1,6 +1,8 @@
 """Built-in clamp options sized for a case's coil and switch (used when the case lists none).
 
-Each family is sized to the switch's derated voltage ``V_allow = derating × rated_voltage``:
+Each family is sized to the switch's derated voltage ``V_allow = derating × rated_voltage``,
+less the minimum margin that ``choose`` asks of a pick (``checks.min_margin``), so that every
+option offered keeps that margin: ``V_allow`` below stands for ``(1 − min_margin) × V_allow``:
 
 * plain diode — the node sits a diode drop above the supply;
 * diode + resistor — ``R`` the E12 value below ``(V_allow − V_s − V_f)/i_0``;
@@ -69,14 +71,21 @@ def impractical(option: Option) -> str | None:
     return None
 
 
-def allowed_voltage(case: Case) -> float:
-    """The switch voltage the built-in options are sized to [V]."""
+def derated_rating(case: Case) -> float | None:
+    """The derated switch voltage [V]: ``checks.derating`` × the rated (else breakdown) voltage;
+    None when the switch has neither."""
     s = case.switch
     rated = s.rated_voltage if s.rated_voltage is not None else s.breakdown_voltage
-    if rated is None:
+    return None if rated is None else case.checks.derating * rated
+
+
+def allowed_voltage(case: Case) -> float:
+    """The switch voltage the built-in options are sized to [V]."""
+    v = derated_rating(case)
+    if v is None:
         raise CaseError("sizing the built-in clamp options needs switch.rated_voltage (expected a voltage "
                         "rating, or [[option]] clamp sets in the case)", source=case.source, key="switch")
-    return case.checks.derating * rated
+    return v
 
 
 def on_current(case: Case) -> float:
@@ -89,7 +98,7 @@ def on_current(case: Case) -> float:
 
 def builtin_options(case: Case) -> tuple[Option, ...]:
     """The built-in families, sized for ``case`` (see the module docstring)."""
-    v_allow = allowed_voltage(case)
+    v_allow = (1.0 - case.checks.min_margin) * allowed_voltage(case)
     vs = case.supply.voltage
     i0 = on_current(case)
     L = case.coil.inductance
