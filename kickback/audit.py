@@ -32,6 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from kickback.conventions import AVALANCHE_NEGLIGIBLE
 from kickback.ratings import avalanche_check_applies
 
 #: largest relative ledger residual a result may have (DESIGN.md §3)
@@ -39,8 +40,8 @@ LEDGER_LIMIT = 1e-3
 #: a dissipated energy may be this far below zero, relative to the energy put in (rounding)
 NEGATIVE_FLOOR = 1e-9
 #: an avalanche counts when its energy (either sign) is above this fraction of the stored energy
-#: (the threshold kickback.ratings uses for the avalanche check)
-AVALANCHE_FRACTION = 1e-9
+#: (the threshold of the avalanche check and finding, kickback.conventions)
+AVALANCHE_FRACTION = AVALANCHE_NEGLIGIBLE
 #: a peak this far (relative) above the breakdown voltage means the switch avalanched
 OVER_BREAKDOWN = 1e-3
 #: column-name endings of figures that may be absent (a time that does not occur)

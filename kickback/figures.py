@@ -7,16 +7,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kickback.engine.detailed import ZERO_FRACTION, Waveforms
+from kickback.conventions import (
+    AVALANCHE_NEGLIGIBLE,
+    CONDUCTION_FRACTION,
+    LEAKAGE_MARGIN,
+    ON_STATE_FRACTION,
+    ZERO_FRACTION,
+)
+from kickback.engine.detailed import Waveforms
 from kickback.models.factory import chain_leakage
 from kickback.standoff import blocked_voltage, chain_blocks, has_diode, interior_maxima, rest_node_voltage
-
-#: a chain counts as conducting above this fraction of the initial coil current
-CONDUCTION_FRACTION = 1e-6
-#: a clamp conducting more than this fraction of the coil current in the on-state is reported
-ON_STATE_FRACTION = 1e-4
-#: an on-state current up to this multiple of the chain's reverse leakage is leakage, not conduction
-LEAKAGE_MARGIN = 1.01
 
 
 def conducts_while_on(on_current: float, initial_current: float, leakage: float = 0.0) -> bool:
@@ -305,7 +305,7 @@ def compute_figures(w: Waveforms) -> Figures:
             release = None if t_rel is None else t_rel + case.coil.release_delay
     if w.bound_hit:
         findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")
-    if e_av > 1e-9 * stored:
+    if e_av > AVALANCHE_NEGLIGIBLE * stored:
         findings.append(f"the switch avalanches: {e_av:.3g} J at up to {peak_v:.4g} V")
     s = case.switch
     sw_tj = junction_peak(w.t, w.v * (w.i_channel + w.i_offstate), s.thermal_resistance, s.thermal_tau,

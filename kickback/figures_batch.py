@@ -12,7 +12,8 @@ import os
 
 import numpy as np
 
-from kickback.figures import ON_STATE_FRACTION, ClampFigures, ElementFigures, Figures
+from kickback.conventions import AVALANCHE_NEGLIGIBLE, ON_STATE_FRACTION, ZERO_FRACTION
+from kickback.figures import ClampFigures, ElementFigures, Figures
 
 
 def columns(bc, st) -> dict:
@@ -130,7 +131,7 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
     if bound:
         findings.append(f"the run stopped at its time bound {f('end_time_s'):.3g} s before the transient ended")
     e_av = f("switch.avalanche_energy_J")
-    if e_av > 1e-9 * f("coil.stored_energy_J"):
+    if e_av > AVALANCHE_NEGLIGIBLE * f("coil.stored_energy_J"):
         findings.append(f"the switch avalanches: {e_av:.3g} J at up to {f('switch.peak_voltage_V'):.4g} V")
     sw = switch_law(s.type, on_resistance=s.on_resistance, saturation_voltage=s.saturation_voltage,
                     fall_time=s.fall_time, breakdown_voltage=s.breakdown_voltage,
@@ -139,7 +140,7 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
                                  if el.type != "capacitor"]
     models += list(bc.fit_notes)
     models.append("batch engine: exact piecewise-linear solution, closed form per conduction state; "
-                  "current 'at zero' below 1e-09 × initial")
+                  f"current 'at zero' below {ZERO_FRACTION:g} × initial")
     return Figures(
         initial_current_A=i0, stored_energy_J=f("coil.stored_energy_J"),
         initial_capacitor_energy_J=f("initial_capacitor_energy_J"), resistance_energy_J=f("coil.resistance_energy_J"),

@@ -14,7 +14,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from kickback.case import Case
-from kickback.figures import LEAKAGE_MARGIN, ON_STATE_FRACTION, Figures, figure_columns
+from kickback.conventions import AVALANCHE_NEGLIGIBLE, LEAKAGE_MARGIN, ON_STATE_FRACTION
+from kickback.figures import Figures, figure_columns
 from kickback.keypath import value_getter
 from kickback.models.factory import chain_leakage
 from kickback.models.thermal import wunsch_bell_rating
@@ -114,8 +115,6 @@ def rows(columns, k: int = 0) -> list[Check]:
 #: how the working-voltage check of a lone TVS is formed
 WORKING_NOTE = ("the supply against the stand-off voltage V_WM, not derated (V_WM is already the datasheet's "
                 "largest voltage with no conduction): a lone TVS holds the supply whenever it must not conduct")
-#: avalanche energy below this fraction of the stored energy counts as none (rounding)
-AVALANCHE_NEGLIGIBLE = 1e-9
 
 
 def _margin(num, den):
