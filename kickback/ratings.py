@@ -102,6 +102,21 @@ class CheckColumn:
                      bool(self.passed[k]), self.unit, self.note.at(k))
 
 
+def blank_column(part: str, quantity: str, unit: str, n: int) -> CheckColumn:
+    """A check no variant of n has (yet): NaN values, passing, ``applies`` False, no note."""
+    return CheckColumn(part, quantity, unit, np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan),
+                       np.ones(n, bool), np.zeros(n, bool))
+
+
+def put_rows(column: CheckColumn, rows, other: CheckColumn) -> CheckColumn:
+    """``column`` with the variants ``rows`` taken from ``other`` (the same check of another run of
+    them); the note is not kept (a table of variants from several runs has none)."""
+    arrays = [a.copy() for a in (column.value, column.limit, column.margin, column.passed, column.applies)]
+    for a, b in zip(arrays, (other.value, other.limit, other.margin, other.passed, other.applies), strict=True):
+        a[rows] = b
+    return CheckColumn(column.part, column.quantity, column.unit or other.unit, *arrays)
+
+
 def _opt(x) -> float | None:
     x = float(x)
     return None if np.isnan(x) else x
