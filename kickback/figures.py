@@ -245,7 +245,6 @@ def compute_figures(w: Waveforms) -> Figures:
     peak_t = float(w.t[k_pk])
 
     clamps = []
-    findings = []
     slot = {kj: m for m, kj in enumerate(c.energy_slots)}
     for k, ch in enumerate(c.chains):
         ic, vchain, ev = chain_signals(w, k)
@@ -284,9 +283,6 @@ def compute_figures(w: Waveforms) -> Figures:
                                       energy, float(np.max(np.abs(vj), initial=0.0)),
                                       float(np.max(np.abs(ic), initial=0.0)), standoff, pk_p, width, tj))
         on_i = float(c.on.chain_currents[k]) if k < len(c.on.chain_currents) else 0.0
-        if conducts_while_on(on_i, i0, chain_leakage(ch.clamp.elements)):
-            findings.append(f"clamp '{ch.name}' conducts {abs(on_i):.3g} A while the switch is on "
-                            f"({abs(on_i * c.on.chain_voltages[k]):.3g} W in the clamp, extra switch current)")
         clamps.append(ClampFigures(ch.name, ch.clamp.across, sum(x.energy_J for x in els),
                                    float(np.max(np.abs(ic), initial=0.0)),
                                    _duration_above(w.t, ic, CONDUCTION_FRACTION * i0), on_i, tuple(els)))
@@ -294,19 +290,14 @@ def compute_figures(w: Waveforms) -> Figures:
     i = w.i_coil
     rel = case.coil.release_current
     release = None
-    if rel is not None:
-        if i0 < rel:
-            findings.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
-                            "the armature may never pull in")
-        else:
-            t_rel = first_crossing_below(w.t, i, rel)
-            if t_rel is not None:
-                t_rel = refine_crossing(w, t_rel, lambda y: c.coil_current(y[0]), rel)
-            release = None if t_rel is None else t_rel + case.coil.release_delay
-    if w.bound_hit:
-        findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")
-    if e_av > AVALANCHE_NEGLIGIBLE * stored:
-        findings.append(f"the switch avalanches: {e_av:.3g} J at up to {peak_v:.4g} V")
+    if rel is not None and not i0 < rel:
+        t_rel = first_crossing_below(w.t, i, rel)
+        if t_rel is not None:
+            t_rel = refine_crossing(w, t_rel, lambda y: c.coil_current(y[0]), rel)
+        release = None if t_rel is None else t_rel + case.coil.release_delay
+    findings = turnoff_findings(case, i0, [cf.on_state_current_A for cf in clamps], lambda k: c.on.chain_voltages[k],
+                                bound_hit=w.bound_hit, end_time=float(w.t[-1]), avalanche_energy=e_av,
+                                stored=stored, peak_voltage=peak_v)
     s = case.switch
     sw_tj = junction_peak(w.t, w.v * (w.i_channel + w.i_offstate), s.thermal_resistance, s.thermal_tau,
                           case.checks.ambient_temperature)
@@ -329,6 +320,37 @@ def compute_figures(w: Waveforms) -> Figures:
         left_in_coil_J=coil_end, energy_balance_error=float(balance), end_time_s=float(w.t[-1]),
         bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models), switch_junction_peak_K=sw_tj,
         motor_energy_J=e_motor)
+
+
+def turnoff_findings(case, i0: float, on_currents, on_voltage, *, bound_hit: bool, end_time: float,
+                     avalanche_energy: float, stored: float, peak_voltage: float) -> list[str]:
+    """The findings of one turn-off, in the same words whichever engine solved it.
+
+    Parameters
+    ----------
+    case : Case
+    i0 : float — the coil's on-state current [A]
+    on_currents : sequence of float — each clamp's on-state current [A], in the case's order
+    on_voltage : callable — ``on_voltage(k)``: clamp k's on-state voltage [V] (asked only of a
+        clamp that conducts while on, :func:`conducts_while_on`)
+    bound_hit : bool — the run stopped at its time bound, at ``end_time`` [s]
+    avalanche_energy, stored : float — the switch's avalanche energy and the coil's stored energy [J]
+    peak_voltage : float — the switch node's peak [V]
+    """
+    out = []
+    for k, (cl, on_i) in enumerate(zip(case.clamps, on_currents, strict=True)):
+        if conducts_while_on(on_i, i0, chain_leakage(cl.elements)):
+            out.append(f"clamp '{cl.name}' conducts {abs(on_i):.3g} A while the switch is on "
+                       f"({abs(on_i * on_voltage(k)):.3g} W in the clamp, extra switch current)")
+    rel = case.coil.release_current
+    if rel is not None and i0 < rel:
+        out.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
+                   "the armature may never pull in")
+    if bound_hit:
+        out.append(f"the run stopped at its time bound {end_time:.3g} s before the transient ended")
+    if avalanche_energy > AVALANCHE_NEGLIGIBLE * stored:
+        out.append(f"the switch avalanches: {avalanche_energy:.3g} J at up to {peak_voltage:.4g} V")
+    return out
 
 
 def figure_columns(fig: Figures) -> dict:

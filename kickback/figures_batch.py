@@ -12,8 +12,8 @@ import os
 
 import numpy as np
 
-from kickback.conventions import AVALANCHE_NEGLIGIBLE, ON_STATE_FRACTION, ZERO_FRACTION
-from kickback.figures import ClampFigures, ElementFigures, Figures
+from kickback.conventions import ZERO_FRACTION
+from kickback.figures import ClampFigures, ElementFigures, Figures, turnoff_findings
 
 
 def columns(bc, st) -> dict:
@@ -103,7 +103,6 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
 
     s = case.switch
     clamps = []
-    findings = []
     i0 = f("coil.initial_current_A")
     for q, cl in enumerate(case.clamps):
         els = []
@@ -116,23 +115,14 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
                                       f(pre + "standoff_voltage_V"), f(pre + "peak_power_W"),
                                       opt(pre + "pulse_width_s")))
         on_i = f(f"clamps[{q}].on_state_current_A")
-        if abs(on_i) > ON_STATE_FRACTION * i0:
-            k_ch = bc.chain_index.index(q)
-            on_v = float(bc.on_chain_voltages[k_ch][k])
-            findings.append(f"clamp '{cl.name}' conducts {abs(on_i):.3g} A while the switch is on "
-                            f"({abs(on_i * on_v):.3g} W in the clamp, extra switch current)")
         clamps.append(ClampFigures(cl.name, cl.across, f(f"clamps[{q}].energy_J"), f(f"clamps[{q}].peak_current_A"),
                                    f(f"clamps[{q}].conduction_s"), on_i, tuple(els)))
-    rel = case.coil.release_current
-    if rel is not None and i0 < rel:
-        findings.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
-                        "the armature may never pull in")
     bound = bool(f("bound_hit"))
-    if bound:
-        findings.append(f"the run stopped at its time bound {f('end_time_s'):.3g} s before the transient ended")
     e_av = f("switch.avalanche_energy_J")
-    if e_av > AVALANCHE_NEGLIGIBLE * f("coil.stored_energy_J"):
-        findings.append(f"the switch avalanches: {e_av:.3g} J at up to {f('switch.peak_voltage_V'):.4g} V")
+    findings = turnoff_findings(case, i0, [cf.on_state_current_A for cf in clamps],
+                                lambda q: float(bc.on_chain_voltages[bc.chain_index.index(q)][k]),
+                                bound_hit=bound, end_time=f("end_time_s"), avalanche_energy=e_av,
+                                stored=f("coil.stored_energy_J"), peak_voltage=f("switch.peak_voltage_V"))
     sw = switch_law(s.type, on_resistance=s.on_resistance, saturation_voltage=s.saturation_voltage,
                     fall_time=s.fall_time, breakdown_voltage=s.breakdown_voltage,
                     avalanche_resistance=s.avalanche_resistance, body_diode_voltage=s.body_diode_voltage)
