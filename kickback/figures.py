@@ -353,21 +353,26 @@ def turnoff_findings(case, i0: float, on_currents, on_voltage, *, bound_hit: boo
     return out
 
 
-def figure_columns(fig: Figures) -> dict:
+def figure_columns(fig: Figures, nan_if_absent: float = np.nan) -> dict:
     """One case's figures as the result contract's columns: name → (1,) float array.
 
     The names are those the batch engine fills for many variants (``switch.peak_voltage_V``,
-    ``coil.decay_s.to_zero``, ``clamps[0].elements[1].energy_J`` …); a time that does not occur
-    (None) is NaN, as there. Junction temperatures (``switch.junction_peak_K``,
-    ``clamps[k].elements[j].junction_peak_K``) appear where a Foster network gave one.
+    ``coil.decay_s.to_zero``, ``clamps[0].elements[1].energy_J`` …); a figure that does not occur
+    (None: a time, a pulse width, a junction temperature without a Foster network) is NaN, as
+    there. ``nan_if_absent``: what a NaN *given* for such a figure becomes (the audit asks for
+    +inf, so that its finite-figure rule still sees it; NaN: left as it is).
     """
-    def c(x):
-        return np.array([np.nan if x is None else float(x)])
+    def c(x, absent_ok=False):
+        if x is None:
+            return np.array([np.nan])
+        x = float(x)
+        return np.array([nan_if_absent if (absent_ok and np.isnan(x)) else x])
 
     out = {"coil.initial_current_A": c(fig.initial_current_A), "coil.stored_energy_J": c(fig.stored_energy_J),
            "coil.resistance_energy_J": c(fig.resistance_energy_J),
-           "coil.decay_s.to_10_percent": c(fig.to_10_percent_s), "coil.decay_s.to_1_percent": c(fig.to_1_percent_s),
-           "coil.decay_s.to_zero": c(fig.to_zero_s), "coil.release_s": c(fig.release_s),
+           "coil.decay_s.to_10_percent": c(fig.to_10_percent_s, True),
+           "coil.decay_s.to_1_percent": c(fig.to_1_percent_s, True),
+           "coil.decay_s.to_zero": c(fig.to_zero_s, True), "coil.release_s": c(fig.release_s, True),
            "switch.peak_voltage_V": c(fig.peak_voltage_V), "switch.peak_time_s": c(fig.peak_time_s),
            "switch.crossover_energy_J": c(fig.crossover_energy_J),
            "switch.avalanche_energy_J": c(fig.avalanche_energy_J),
@@ -377,16 +382,14 @@ def figure_columns(fig: Figures) -> dict:
             pre = f"clamps[{k}].elements[{j}]."
             out |= {pre + "energy_J": c(ef.energy_J), pre + "peak_voltage_V": c(ef.peak_voltage_V),
                     pre + "peak_current_A": c(ef.peak_current_A), pre + "standoff_voltage_V": c(ef.standoff_voltage_V),
-                    pre + "peak_power_W": c(ef.peak_power_W), pre + "pulse_width_s": c(ef.pulse_width_s)}
-            if ef.junction_peak_K is not None:
-                out[pre + "junction_peak_K"] = c(ef.junction_peak_K)
+                    pre + "peak_power_W": c(ef.peak_power_W), pre + "pulse_width_s": c(ef.pulse_width_s, True),
+                    pre + "junction_peak_K": c(ef.junction_peak_K, True)}
         out |= {f"clamps[{k}].energy_J": c(cf.energy_J), f"clamps[{k}].peak_current_A": c(cf.peak_current_A),
                 f"clamps[{k}].conduction_s": c(cf.conduction_s),
                 f"clamps[{k}].on_state_current_A": c(cf.on_state_current_A)}
     out |= {"left_in_capacitors_J": c(fig.left_in_capacitors_J), "left_in_coil_J": c(fig.left_in_coil_J),
             "initial_capacitor_energy_J": c(fig.initial_capacitor_energy_J),
             "energy_balance_error": c(fig.energy_balance_error), "end_time_s": c(fig.end_time_s),
-            "bound_hit": c(float(fig.bound_hit)), "motor_energy_J": c(fig.motor_energy_J)}
-    if fig.switch_junction_peak_K is not None:
-        out["switch.junction_peak_K"] = c(fig.switch_junction_peak_K)
+            "bound_hit": c(float(fig.bound_hit)), "motor_energy_J": c(fig.motor_energy_J),
+            "switch.junction_peak_K": c(fig.switch_junction_peak_K, True)}
     return out
