@@ -15,6 +15,7 @@ from kickback.conventions import (
     ZERO_FRACTION,
 )
 from kickback.engine.detailed import Waveforms
+from kickback.ledger import balance_residual
 from kickback.models.factory import chain_leakage
 from kickback.standoff import blocked_voltage, chain_blocks, has_diode, interior_maxima, rest_node_voltage
 
@@ -236,9 +237,8 @@ def compute_figures(w: Waveforms) -> Figures:
     e_r, e_sup, e_ch, e_av, e_bd = (float(x) for x in e[:5])
     e_el = [float(x) for x in e[5:5 + len(c.energy_slots)]]
     e_motor = float(e[-1]) if c.motor else 0.0  # electrical energy converted to mechanical
-    total_in = stored + cap0 + max(e_sup, 0.0)
     out = e_r + e_ch + e_av + e_bd + sum(e_el) + cap_end + coil_end + e_motor
-    balance = (stored + cap0 + e_sup - out) / total_in
+    balance = balance_residual(stored, cap0, e_sup, out)
 
     k_pk = int(np.argmax(w.v))
     peak_v = float(w.v[k_pk])

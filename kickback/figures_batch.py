@@ -14,6 +14,7 @@ import numpy as np
 
 from kickback.conventions import ZERO_FRACTION
 from kickback.figures import ClampFigures, ElementFigures, Figures, turnoff_findings
+from kickback.ledger import balance_residual
 
 
 def columns(bc, st) -> dict:
@@ -77,9 +78,8 @@ def columns(bc, st) -> dict:
     out["left_in_capacitors_J"] = cap_end
     out["left_in_coil_J"] = coil_end
     out["initial_capacitor_energy_J"] = bc.cap0.copy()
-    total_in = bc.stored + bc.cap0 + np.maximum(E["sup"], 0.0)
     spent = E["R"] + E["ch"] + E["av"] + E["bd"] + e_el_total + cap_end + coil_end
-    out["energy_balance_error"] = (bc.stored + bc.cap0 + E["sup"] - spent) / total_in
+    out["energy_balance_error"] = balance_residual(bc.stored, bc.cap0, E["sup"], spent)
     out["end_time_s"] = st.t.copy()
     out["bound_hit"] = st.bound_hit.astype(float)
     for key, val in out.items():
