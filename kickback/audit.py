@@ -32,6 +32,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from kickback.conventions import AVALANCHE_NEGLIGIBLE
+from kickback.figures import figure_columns
 from kickback.ratings import avalanche_check_applies
 
 #: largest relative ledger residual a result may have (DESIGN.md §3)
@@ -39,8 +41,8 @@ LEDGER_LIMIT = 1e-3
 #: a dissipated energy may be this far below zero, relative to the energy put in (rounding)
 NEGATIVE_FLOOR = 1e-9
 #: an avalanche counts when its energy (either sign) is above this fraction of the stored energy
-#: (the threshold kickback.ratings uses for the avalanche check)
-AVALANCHE_FRACTION = 1e-9
+#: (the threshold of the avalanche check and finding, kickback.conventions)
+AVALANCHE_FRACTION = AVALANCHE_NEGLIGIBLE
 #: a peak this far (relative) above the breakdown voltage means the switch avalanched
 OVER_BREAKDOWN = 1e-3
 #: column-name endings of figures that may be absent (a time that does not occur)
@@ -182,46 +184,16 @@ def audit_columns(case, cols: dict, present: dict, get, n: int, rows=None) -> li
 
 
 def result_columns(result) -> dict:
-    """A single :class:`~kickback.result.Result`'s figures as n = 1 columns.
+    """A single :class:`~kickback.result.Result`'s figures as n = 1 columns
+    (:func:`kickback.figures.figure_columns`), with its PWM figures.
 
     None (a time that does not occur) becomes NaN; a NaN given where a time could be None
     becomes +inf, so that the finite rule still sees it.
     """
-    f = result.figures
-
-    def col(x, optional=False):
-        if x is None:
-            return np.array([math.nan])
-        x = float(x)
-        return np.array([math.inf if (optional and math.isnan(x)) else x])
-
-    out = {"coil.initial_current_A": col(f.initial_current_A), "coil.stored_energy_J": col(f.stored_energy_J),
-           "coil.resistance_energy_J": col(f.resistance_energy_J),
-           "coil.decay_s.to_10_percent": col(f.to_10_percent_s, True),
-           "coil.decay_s.to_1_percent": col(f.to_1_percent_s, True),
-           "coil.decay_s.to_zero": col(f.to_zero_s, True), "coil.release_s": col(f.release_s, True),
-           "switch.peak_voltage_V": col(f.peak_voltage_V), "switch.peak_time_s": col(f.peak_time_s),
-           "switch.crossover_energy_J": col(f.crossover_energy_J),
-           "switch.avalanche_energy_J": col(f.avalanche_energy_J),
-           "switch.body_diode_energy_J": col(f.body_diode_energy_J), "supply.energy_J": col(f.supply_energy_J),
-           "left_in_capacitors_J": col(f.left_in_capacitors_J), "left_in_coil_J": col(f.left_in_coil_J),
-           "initial_capacitor_energy_J": col(f.initial_capacitor_energy_J),
-           "energy_balance_error": col(f.energy_balance_error), "end_time_s": col(f.end_time_s),
-           "motor_energy_J": col(f.motor_energy_J), "switch.junction_peak_K": col(f.switch_junction_peak_K, True)}
-    for k, c in enumerate(f.clamps):
-        out |= {f"clamps[{k}].energy_J": col(c.energy_J), f"clamps[{k}].peak_current_A": col(c.peak_current_A),
-                f"clamps[{k}].conduction_s": col(c.conduction_s),
-                f"clamps[{k}].on_state_current_A": col(c.on_state_current_A)}
-        for j, e in enumerate(c.elements):
-            pre = f"clamps[{k}].elements[{j}]."
-            out |= {pre + "energy_J": col(e.energy_J), pre + "peak_voltage_V": col(e.peak_voltage_V),
-                    pre + "peak_current_A": col(e.peak_current_A),
-                    pre + "standoff_voltage_V": col(e.standoff_voltage_V), pre + "peak_power_W": col(e.peak_power_W),
-                    pre + "pulse_width_s": col(e.pulse_width_s, True),
-                    pre + "junction_peak_K": col(e.junction_peak_K, True)}
+    out = figure_columns(result.figures, nan_if_absent=math.inf)
     for d, p in enumerate(result.pwm):
         for key, x in _numbers(p.to_dict(), f"pwm[{d}]"):
-            out[key] = col(x, True)
+            out[key] = np.array([math.inf if math.isnan(x) else float(x)])
     return out
 
 

@@ -7,16 +7,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kickback.engine.detailed import ZERO_FRACTION, Waveforms
+from kickback.conventions import (
+    AVALANCHE_NEGLIGIBLE,
+    CONDUCTION_FRACTION,
+    LEAKAGE_MARGIN,
+    ON_STATE_FRACTION,
+    ZERO_FRACTION,
+)
+from kickback.engine.detailed import Waveforms
+from kickback.ledger import balance_residual
 from kickback.models.factory import chain_leakage
 from kickback.standoff import blocked_voltage, chain_blocks, has_diode, interior_maxima, rest_node_voltage
-
-#: a chain counts as conducting above this fraction of the initial coil current
-CONDUCTION_FRACTION = 1e-6
-#: a clamp conducting more than this fraction of the coil current in the on-state is reported
-ON_STATE_FRACTION = 1e-4
-#: an on-state current up to this multiple of the chain's reverse leakage is leakage, not conduction
-LEAKAGE_MARGIN = 1.01
 
 
 def conducts_while_on(on_current: float, initial_current: float, leakage: float = 0.0) -> bool:
@@ -236,16 +237,14 @@ def compute_figures(w: Waveforms) -> Figures:
     e_r, e_sup, e_ch, e_av, e_bd = (float(x) for x in e[:5])
     e_el = [float(x) for x in e[5:5 + len(c.energy_slots)]]
     e_motor = float(e[-1]) if c.motor else 0.0  # electrical energy converted to mechanical
-    total_in = stored + cap0 + max(e_sup, 0.0)
     out = e_r + e_ch + e_av + e_bd + sum(e_el) + cap_end + coil_end + e_motor
-    balance = (stored + cap0 + e_sup - out) / total_in
+    balance = balance_residual(stored, cap0, e_sup, out)
 
     k_pk = int(np.argmax(w.v))
     peak_v = float(w.v[k_pk])
     peak_t = float(w.t[k_pk])
 
     clamps = []
-    findings = []
     slot = {kj: m for m, kj in enumerate(c.energy_slots)}
     for k, ch in enumerate(c.chains):
         ic, vchain, ev = chain_signals(w, k)
@@ -284,9 +283,6 @@ def compute_figures(w: Waveforms) -> Figures:
                                       energy, float(np.max(np.abs(vj), initial=0.0)),
                                       float(np.max(np.abs(ic), initial=0.0)), standoff, pk_p, width, tj))
         on_i = float(c.on.chain_currents[k]) if k < len(c.on.chain_currents) else 0.0
-        if conducts_while_on(on_i, i0, chain_leakage(ch.clamp.elements)):
-            findings.append(f"clamp '{ch.name}' conducts {abs(on_i):.3g} A while the switch is on "
-                            f"({abs(on_i * c.on.chain_voltages[k]):.3g} W in the clamp, extra switch current)")
         clamps.append(ClampFigures(ch.name, ch.clamp.across, sum(x.energy_J for x in els),
                                    float(np.max(np.abs(ic), initial=0.0)),
                                    _duration_above(w.t, ic, CONDUCTION_FRACTION * i0), on_i, tuple(els)))
@@ -294,19 +290,14 @@ def compute_figures(w: Waveforms) -> Figures:
     i = w.i_coil
     rel = case.coil.release_current
     release = None
-    if rel is not None:
-        if i0 < rel:
-            findings.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
-                            "the armature may never pull in")
-        else:
-            t_rel = first_crossing_below(w.t, i, rel)
-            if t_rel is not None:
-                t_rel = refine_crossing(w, t_rel, lambda y: c.coil_current(y[0]), rel)
-            release = None if t_rel is None else t_rel + case.coil.release_delay
-    if w.bound_hit:
-        findings.append(f"the run stopped at its time bound {w.t[-1]:.3g} s before the transient ended")
-    if e_av > 1e-9 * stored:
-        findings.append(f"the switch avalanches: {e_av:.3g} J at up to {peak_v:.4g} V")
+    if rel is not None and not i0 < rel:
+        t_rel = first_crossing_below(w.t, i, rel)
+        if t_rel is not None:
+            t_rel = refine_crossing(w, t_rel, lambda y: c.coil_current(y[0]), rel)
+        release = None if t_rel is None else t_rel + case.coil.release_delay
+    findings = turnoff_findings(case, i0, [cf.on_state_current_A for cf in clamps], lambda k: c.on.chain_voltages[k],
+                                bound_hit=w.bound_hit, end_time=float(w.t[-1]), avalanche_energy=e_av,
+                                stored=stored, peak_voltage=peak_v)
     s = case.switch
     sw_tj = junction_peak(w.t, w.v * (w.i_channel + w.i_offstate), s.thermal_resistance, s.thermal_tau,
                           case.checks.ambient_temperature)
@@ -329,3 +320,76 @@ def compute_figures(w: Waveforms) -> Figures:
         left_in_coil_J=coil_end, energy_balance_error=float(balance), end_time_s=float(w.t[-1]),
         bound_hit=w.bound_hit, findings=tuple(findings), models=tuple(models), switch_junction_peak_K=sw_tj,
         motor_energy_J=e_motor)
+
+
+def turnoff_findings(case, i0: float, on_currents, on_voltage, *, bound_hit: bool, end_time: float,
+                     avalanche_energy: float, stored: float, peak_voltage: float) -> list[str]:
+    """The findings of one turn-off, in the same words whichever engine solved it.
+
+    Parameters
+    ----------
+    case : Case
+    i0 : float — the coil's on-state current [A]
+    on_currents : sequence of float — each clamp's on-state current [A], in the case's order
+    on_voltage : callable — ``on_voltage(k)``: clamp k's on-state voltage [V] (asked only of a
+        clamp that conducts while on, :func:`conducts_while_on`)
+    bound_hit : bool — the run stopped at its time bound, at ``end_time`` [s]
+    avalanche_energy, stored : float — the switch's avalanche energy and the coil's stored energy [J]
+    peak_voltage : float — the switch node's peak [V]
+    """
+    out = []
+    for k, (cl, on_i) in enumerate(zip(case.clamps, on_currents, strict=True)):
+        if conducts_while_on(on_i, i0, chain_leakage(cl.elements)):
+            out.append(f"clamp '{cl.name}' conducts {abs(on_i):.3g} A while the switch is on "
+                       f"({abs(on_i * on_voltage(k)):.3g} W in the clamp, extra switch current)")
+    rel = case.coil.release_current
+    if rel is not None and i0 < rel:
+        out.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
+                   "the armature may never pull in")
+    if bound_hit:
+        out.append(f"the run stopped at its time bound {end_time:.3g} s before the transient ended")
+    if avalanche_energy > AVALANCHE_NEGLIGIBLE * stored:
+        out.append(f"the switch avalanches: {avalanche_energy:.3g} J at up to {peak_voltage:.4g} V")
+    return out
+
+
+def figure_columns(fig: Figures, nan_if_absent: float = np.nan) -> dict:
+    """One case's figures as the result contract's columns: name → (1,) float array.
+
+    The names are those the batch engine fills for many variants (``switch.peak_voltage_V``,
+    ``coil.decay_s.to_zero``, ``clamps[0].elements[1].energy_J`` …); a figure that does not occur
+    (None: a time, a pulse width, a junction temperature without a Foster network) is NaN, as
+    there. ``nan_if_absent``: what a NaN *given* for such a figure becomes (the audit asks for
+    +inf, so that its finite-figure rule still sees it; NaN: left as it is).
+    """
+    def c(x, absent_ok=False):
+        if x is None:
+            return np.array([np.nan])
+        x = float(x)
+        return np.array([nan_if_absent if (absent_ok and np.isnan(x)) else x])
+
+    out = {"coil.initial_current_A": c(fig.initial_current_A), "coil.stored_energy_J": c(fig.stored_energy_J),
+           "coil.resistance_energy_J": c(fig.resistance_energy_J),
+           "coil.decay_s.to_10_percent": c(fig.to_10_percent_s, True),
+           "coil.decay_s.to_1_percent": c(fig.to_1_percent_s, True),
+           "coil.decay_s.to_zero": c(fig.to_zero_s, True), "coil.release_s": c(fig.release_s, True),
+           "switch.peak_voltage_V": c(fig.peak_voltage_V), "switch.peak_time_s": c(fig.peak_time_s),
+           "switch.crossover_energy_J": c(fig.crossover_energy_J),
+           "switch.avalanche_energy_J": c(fig.avalanche_energy_J),
+           "switch.body_diode_energy_J": c(fig.body_diode_energy_J), "supply.energy_J": c(fig.supply_energy_J)}
+    for k, cf in enumerate(fig.clamps):
+        for j, ef in enumerate(cf.elements):
+            pre = f"clamps[{k}].elements[{j}]."
+            out |= {pre + "energy_J": c(ef.energy_J), pre + "peak_voltage_V": c(ef.peak_voltage_V),
+                    pre + "peak_current_A": c(ef.peak_current_A), pre + "standoff_voltage_V": c(ef.standoff_voltage_V),
+                    pre + "peak_power_W": c(ef.peak_power_W), pre + "pulse_width_s": c(ef.pulse_width_s, True),
+                    pre + "junction_peak_K": c(ef.junction_peak_K, True)}
+        out |= {f"clamps[{k}].energy_J": c(cf.energy_J), f"clamps[{k}].peak_current_A": c(cf.peak_current_A),
+                f"clamps[{k}].conduction_s": c(cf.conduction_s),
+                f"clamps[{k}].on_state_current_A": c(cf.on_state_current_A)}
+    out |= {"left_in_capacitors_J": c(fig.left_in_capacitors_J), "left_in_coil_J": c(fig.left_in_coil_J),
+            "initial_capacitor_energy_J": c(fig.initial_capacitor_energy_J),
+            "energy_balance_error": c(fig.energy_balance_error), "end_time_s": c(fig.end_time_s),
+            "bound_hit": c(float(fig.bound_hit)), "motor_energy_J": c(fig.motor_energy_J),
+            "switch.junction_peak_K": c(fig.switch_junction_peak_K, True)}
+    return out

@@ -12,7 +12,9 @@ import os
 
 import numpy as np
 
-from kickback.figures import ON_STATE_FRACTION, ClampFigures, ElementFigures, Figures
+from kickback.conventions import ZERO_FRACTION
+from kickback.figures import ClampFigures, ElementFigures, Figures, turnoff_findings
+from kickback.ledger import balance_residual
 
 
 def columns(bc, st) -> dict:
@@ -76,9 +78,8 @@ def columns(bc, st) -> dict:
     out["left_in_capacitors_J"] = cap_end
     out["left_in_coil_J"] = coil_end
     out["initial_capacitor_energy_J"] = bc.cap0.copy()
-    total_in = bc.stored + bc.cap0 + np.maximum(E["sup"], 0.0)
     spent = E["R"] + E["ch"] + E["av"] + E["bd"] + e_el_total + cap_end + coil_end
-    out["energy_balance_error"] = (bc.stored + bc.cap0 + E["sup"] - spent) / total_in
+    out["energy_balance_error"] = balance_residual(bc.stored, bc.cap0, E["sup"], spent)
     out["end_time_s"] = st.t.copy()
     out["bound_hit"] = st.bound_hit.astype(float)
     for key, val in out.items():
@@ -102,7 +103,6 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
 
     s = case.switch
     clamps = []
-    findings = []
     i0 = f("coil.initial_current_A")
     for q, cl in enumerate(case.clamps):
         els = []
@@ -115,23 +115,14 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
                                       f(pre + "standoff_voltage_V"), f(pre + "peak_power_W"),
                                       opt(pre + "pulse_width_s")))
         on_i = f(f"clamps[{q}].on_state_current_A")
-        if abs(on_i) > ON_STATE_FRACTION * i0:
-            k_ch = bc.chain_index.index(q)
-            on_v = float(bc.on_chain_voltages[k_ch][k])
-            findings.append(f"clamp '{cl.name}' conducts {abs(on_i):.3g} A while the switch is on "
-                            f"({abs(on_i * on_v):.3g} W in the clamp, extra switch current)")
         clamps.append(ClampFigures(cl.name, cl.across, f(f"clamps[{q}].energy_J"), f(f"clamps[{q}].peak_current_A"),
                                    f(f"clamps[{q}].conduction_s"), on_i, tuple(els)))
-    rel = case.coil.release_current
-    if rel is not None and i0 < rel:
-        findings.append(f"the on-state current {i0:.3g} A is below the release current {rel:.3g} A: "
-                        "the armature may never pull in")
     bound = bool(f("bound_hit"))
-    if bound:
-        findings.append(f"the run stopped at its time bound {f('end_time_s'):.3g} s before the transient ended")
     e_av = f("switch.avalanche_energy_J")
-    if e_av > 1e-9 * f("coil.stored_energy_J"):
-        findings.append(f"the switch avalanches: {e_av:.3g} J at up to {f('switch.peak_voltage_V'):.4g} V")
+    findings = turnoff_findings(case, i0, [cf.on_state_current_A for cf in clamps],
+                                lambda q: float(bc.on_chain_voltages[bc.chain_index.index(q)][k]),
+                                bound_hit=bound, end_time=f("end_time_s"), avalanche_energy=e_av,
+                                stored=f("coil.stored_energy_J"), peak_voltage=f("switch.peak_voltage_V"))
     sw = switch_law(s.type, on_resistance=s.on_resistance, saturation_voltage=s.saturation_voltage,
                     fall_time=s.fall_time, breakdown_voltage=s.breakdown_voltage,
                     avalanche_resistance=s.avalanche_resistance, body_diode_voltage=s.body_diode_voltage)
@@ -139,7 +130,7 @@ def figures_of(bc, cols, k: int = 0) -> Figures:
                                  if el.type != "capacitor"]
     models += list(bc.fit_notes)
     models.append("batch engine: exact piecewise-linear solution, closed form per conduction state; "
-                  "current 'at zero' below 1e-09 × initial")
+                  f"current 'at zero' below {ZERO_FRACTION:g} × initial")
     return Figures(
         initial_current_A=i0, stored_energy_J=f("coil.stored_energy_J"),
         initial_capacitor_energy_J=f("initial_capacitor_energy_J"), resistance_energy_J=f("coil.resistance_energy_J"),

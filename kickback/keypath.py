@@ -110,3 +110,35 @@ def _set(obj, parts, value, path):
     items = list(getattr(obj, attr))
     items[index] = new_child
     return dataclasses.replace(obj, **{attr: tuple(items)})
+
+
+def value_getter(case: Case, variations: dict, n: int, rows=None):
+    """``get(path)`` → (n,) float array over n variants: the varied values, else the case's value
+    (NaN for a value not given, or a key the case's structure does not have).
+
+    The one way the rating rules (:func:`kickback.ratings.check_columns`) and the batch engine
+    read case values, for one case (``variations = {}``, n = 1) or many variants.
+
+    Parameters
+    ----------
+    case : Case — the base case
+    variations : dict — key path → (N,) values [SI]
+    n : int — variants
+    rows : index array or None — the rows of the varied values to take (None: all)
+    """
+    import math
+
+    import numpy as np
+
+    def get(path):
+        if path in variations:
+            a = np.asarray(variations[path], float)
+            return a if rows is None else a[rows]
+        try:
+            val = get_value(case, path)
+        except Exception:  # noqa: BLE001 - a key the case structure does not have: not given
+            val = None
+        x = math.nan if val is None or isinstance(val, bool) else float(val)
+        return np.full(n, x)
+
+    return get

@@ -80,6 +80,24 @@ def ledger_terms(figures, case) -> tuple[LedgerTerm, ...]:
     return tuple(terms)
 
 
+def balance_residual(stored, capacitors, supply, out):
+    """The ledger's relative residual from its sums, as both engines' figures form it (scalars or
+    (n,) arrays): (stored + capacitors + supply − out) / (stored + capacitors + max(supply, 0)),
+    the denominator being :func:`ledger_input`'s reference.
+
+    Parameters
+    ----------
+    stored : coil energy at the start [J]
+    capacitors : capacitor energy at the start [J]
+    supply : energy the supply delivered [J] (negative: it took energy back)
+    out : everything dissipated, converted and left at the end, summed [J]
+    """
+    import numpy as np
+
+    given = np.maximum(supply, 0.0) if isinstance(supply, np.ndarray) else max(supply, 0.0)
+    return (stored + capacitors + supply - out) / (stored + capacitors + given)
+
+
 def ledger_input(terms) -> float:
     """The ledger's reference [J]: everything stored at start plus the supply's energy when it
     delivers (a supply that takes energy back is not an input)."""

@@ -228,11 +228,3 @@ def test_result_contract_matches_the_detailed_engine(cases_dir):
     a, b = simulate(case).to_dict(), simulate(case, engine="batch").to_dict()
     assert keys(a) == keys(b)
     assert [c["part"] + c["quantity"] for c in a["checks"]] == [c["part"] + c["quantity"] for c in b["checks"]]
-
-
-def test_threshold_constants_agree():
-    """The engine layer's conduction threshold is the figures layer's."""
-    from kickback.engine.batch_record import CONDUCTION_FRACTION as engine_value
-    from kickback.figures import CONDUCTION_FRACTION as figures_value
-
-    assert engine_value == figures_value

@@ -305,9 +305,9 @@ def test_clamp_conducting_while_on_fails(engine):
 
 
 def test_clamp_conducting_while_on_batch_columns_agree():
-    """ratings_batch gives the same row (value, pass) as ratings, and only where the clamp conducts in
-    the on-state: a supply of 0.5 V stays below the Zener's 0.7 V forward drop, so that variant has no
-    row."""
+    """The rules as columns over many variants (kickback.ratings.check_columns) give the same row
+    (value, pass) as for one case, and only where the clamp conducts in the on-state: a supply of
+    0.5 V stays below the Zener's 0.7 V forward drop, so that variant has no row."""
     from kickback.studies.many import simulate_many
 
     case = _lone_zener_case()

@@ -258,3 +258,34 @@ def test_no_cycle_held_apart_by_lazy_imports():
     unknown = [sorted(c) for c in cycles(graph) if not any(c <= known for known in KNOWN_LAZY_CYCLES)]
     assert not unknown, (f"import cycles (a lazy import that only holds a cycle apart counts as the cycle): "
                          f"{unknown}")
+
+
+# --------------------------------------------------------------------------- conventions defined once
+#: the shared conventions (issue 17: "one place for conventions"); kickback/conventions.py holds them
+CONVENTIONS = ("ZERO_FRACTION", "RING_END_FRACTION", "CONDUCTION_FRACTION", "ON_STATE_FRACTION", "LEAKAGE_MARGIN",
+               "AVALANCHE_NEGLIGIBLE")
+
+
+def _defines(source: str) -> set[str]:
+    """Names of :data:`CONVENTIONS` a module's source assigns at module level (an import does not count)."""
+    out = set()
+    for node in ast.parse(source).body:
+        targets = node.targets if isinstance(node, ast.Assign) else \
+            [node.target] if isinstance(node, ast.AnnAssign) else []
+        out |= {t.id for t in targets if isinstance(t, ast.Name) and t.id in CONVENTIONS}
+    return out
+
+
+def test_the_convention_scan_sees_a_second_definition():
+    assert _defines("from kickback.conventions import ZERO_FRACTION\nZERO_FRACTION = 1e-9\nx = 1\n") \
+        == {"ZERO_FRACTION"}
+    assert _defines("from kickback.conventions import ZERO_FRACTION\n") == set()
+
+
+def test_conventions_are_defined_once():
+    """Both engines, the figures, the rating rules and the audit import the thresholds from
+    kickback/conventions.py; no other module defines its own copy."""
+    where = {name: _defines(path.read_text(encoding="utf-8")) for name, (path, _) in MODULES.items()}
+    assert where["kickback.conventions"] == set(CONVENTIONS)
+    stray = {name: found for name, found in where.items() if found and name != "kickback.conventions"}
+    assert not stray, f"conventions defined outside kickback/conventions.py: {stray}"

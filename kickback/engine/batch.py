@@ -19,10 +19,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from kickback.conventions import RING_END_FRACTION
 from kickback.engine import batch_events as bev
 from kickback.engine.batch_modes import Mode, Modes
 from kickback.engine.batch_record import Record
-from kickback.engine.detailed import RING_END_FRACTION
 from kickback.engine.pwl import SegmentError
 from kickback.engine.pwl_allroots import all_roots
 from kickback.engine.pwl_build import build_modal, build_scalar

@@ -11,8 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from kickback.engine.batch_record import CONDUCTION_FRACTION
-from kickback.engine.detailed import ZERO_FRACTION
+from kickback.conventions import CONDUCTION_FRACTION, ZERO_FRACTION
 
 MODE, LZ, RING, CROSS, BOUND = range(5)
 DECAY, RINGING, CROSSING, DONE = range(4)

@@ -13,14 +13,13 @@ off-state law (avalanche, body diode), 2… the clamp chains that are not a lone
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from kickback.case import Case
 from kickback.engine.batch_fit import FIT_ABS
 from kickback.engine.batch_laws import ChainLaw, chain_law, element_piece, make_law
 from kickback.engine.batch_node import solve_node
+from kickback.keypath import value_getter  # noqa: F401 - the engine's getter (one definition, in keypath)
 from kickback.models.switch import DEFAULT_BODY_DIODE_DROP
 
 #: features the batch engine does not model (the detailed engine does)
@@ -326,21 +325,3 @@ class BatchCircuit:
         """Model notes of the batch."""
         out = [f"{self.kind} switch laws as in the detailed engine"] + self.fit_notes
         return out
-
-
-def value_getter(case: Case, variations: dict, n: int, rows=None):
-    """``get(path)`` over n variants: the varied values, else the case's value (NaN for None)."""
-    from kickback.keypath import get_value
-
-    def get(path):
-        if path in variations:
-            a = np.asarray(variations[path], float)
-            return a if rows is None else a[rows]
-        try:
-            val = get_value(case, path)
-        except Exception:  # noqa: BLE001 - a key the case structure does not have: not given
-            val = None
-        x = math.nan if val is None or isinstance(val, bool) else float(val)
-        return np.full(n, x)
-
-    return get

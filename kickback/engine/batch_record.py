@@ -12,12 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from kickback.conventions import CONDUCTION_FRACTION
 from kickback.engine.batch_node import law_current
 from kickback.standoff import blocked_voltage, chain_blocks, has_diode, rest_node_voltage
-
-#: a chain counts as conducting above this fraction of the initial coil current (the same value as
-#: kickback.figures.CONDUCTION_FRACTION; the engine layer does not import the figures layer)
-CONDUCTION_FRACTION = 1e-6
 
 
 def take_rows(law, idx):

@@ -22,13 +22,10 @@ from scipy.integrate import Radau, solve_ivp
 from scipy.linalg import lapack
 
 from kickback.circuit import FLOAT, FLOAT_CONDUCTANCE, FLOAT_ENTRY, FLOAT_RESIDUAL, Circuit
+from kickback.conventions import RING_END_FRACTION, ZERO_FRACTION
 from kickback.engine.radau_check import CheckedNewton
 from kickback.errors import SolverError
 
-#: current below which the coil counts as "at zero", relative to the initial current
-ZERO_FRACTION = 1e-9
-#: energy still oscillating (coil plus capacitors, relative to the start) below which a run ends
-RING_END_FRACTION = 1e-3
 #: a snubber capacitor is held (its charge left in it at the run's end) when the energy its chain
 #: could move over a span as long as the run so far is below this fraction of the rest level
 HELD_FRACTION = 0.1

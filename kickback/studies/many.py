@@ -25,7 +25,7 @@ import numpy as np
 from kickback.case import Case
 from kickback.engine.batch_params import value_getter
 from kickback.figures_batch import CHUNK, normalize_variations, run_columns
-from kickback.ratings_batch import CheckColumn, check_columns
+from kickback.ratings import CheckColumn, check_columns
 
 
 @dataclass(frozen=True)

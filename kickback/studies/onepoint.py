@@ -32,5 +32,6 @@ def result_figures(r) -> dict:
             "error": None, "audit": list(r.audit.findings),
             "checks": [(f"{c.part} {c.quantity}", c.value, c.limit, c.margin, c.passed) for c in r.checks],
             "check_units": {f"{c.part} {c.quantity}": c.unit for c in r.checks},
+            "check_parts": {f"{c.part} {c.quantity}": (c.part, c.quantity) for c in r.checks},
             "stored_energy_J": f.stored_energy_J, "energy_balance_error": f.energy_balance_error} | {
                 f"clamp[{k}].energy_J": c.energy_J for k, c in enumerate(f.clamps)}

@@ -32,8 +32,9 @@ import numpy as np
 
 from kickback.case import Case
 from kickback.errors import SolverError
+from kickback.ratings import blank_column, put_rows
 from kickback.studies.onepoint import point_figures
-from kickback.studies.pointtable import FIGURES, CheckCol, Points, audit_note
+from kickback.studies.pointtable import FIGURES, Points, audit_note
 
 ENGINES = ("auto", "batch", "detailed")
 #: variants the batch engine failed that are run again by the detailed engine, per call
@@ -159,12 +160,8 @@ def _settle(pts: Points, audit_bad: np.ndarray, redo: np.ndarray, first: str, ot
     unsolved = sorted(set(still.tolist()) | (redo_set - {k for k in redo_set if pts.errors[k] is None}))
     if unsolved:
         figs = {k: v.copy() for k, v in pts.figures.items()}
-        checks = {}
-        for name, c in pts.checks.items():
-            cols = [a.copy() for a in (c.value, c.limit, c.margin, c.passed, c.applies)]
-            for a, fill in zip(cols, (np.nan, np.nan, np.nan, True, False), strict=True):
-                a[unsolved] = fill
-            checks[name] = CheckCol(*cols, unit=c.unit)
+        checks = {name: put_rows(c, unsolved, blank_column(c.part, c.quantity, c.unit, len(unsolved)))
+                  for name, c in pts.checks.items()}
         passed, errors = pts.passed.copy(), pts.errors.copy()
         for k in unsolved:
             if k in before:
@@ -211,11 +208,7 @@ def from_many(case: Case, many) -> Points:
         figs[f"clamp[{k}].energy_J"] = e.copy()
         total = total + e
     figs["clamp_energy_J"] = total
-    checks = {}
-    for c in many.checks.values():
-        checks[f"{c.part} {c.quantity}"] = CheckCol(np.asarray(c.value, float), np.asarray(c.limit, float),
-                                                    np.asarray(c.margin, float), np.asarray(c.passed, bool),
-                                                    np.asarray(c.applies, bool), c.unit)
+    checks = {f"{c.part} {c.quantity}": c for c in many.checks.values()}
     errors = np.full(n, None, dtype=object)
     errors[~ok] = many.message[~ok]
     return Points("batch", _ordered(figs), checks, np.asarray(many.passed, bool), errors, tuple(many.fits))
@@ -252,17 +245,16 @@ def from_rows(case: Case, rows: list[dict]) -> Points:
             order.setdefault(name, None)
     checks = {}
     for name in order:
-        value, limit, margin = (np.full(n, np.nan) for _ in range(3))
-        passed, applies = np.ones(n, bool), np.zeros(n, bool)
+        unit = next((r["check_units"][name] for r in rows if name in r.get("check_units", {})), "")
+        part, quantity = next((r["check_parts"][name] for r in rows if name in r.get("check_parts", {})), (name, ""))
+        c = checks[name] = blank_column(part, quantity, unit, n)
         for k, r in enumerate(rows):
             for nm, v, lim, m, ok in r.get("checks", []):
                 if nm == name:
-                    value[k] = np.nan if v is None else v
-                    limit[k] = np.nan if lim is None else lim
-                    margin[k] = np.nan if m is None else m
-                    passed[k], applies[k] = ok, True
-        unit = next((r["check_units"][name] for r in rows if name in r.get("check_units", {})), "")
-        checks[name] = CheckCol(value, limit, margin, passed, applies, unit)
+                    c.value[k] = np.nan if v is None else v
+                    c.limit[k] = np.nan if lim is None else lim
+                    c.margin[k] = np.nan if m is None else m
+                    c.passed[k], c.applies[k] = ok, True
     errors = np.empty(n, dtype=object)
     errors[:] = [r.get("error") for r in rows]
     passed = np.array([bool(r.get("pass")) and r.get("error") is None for r in rows], bool)
@@ -279,14 +271,8 @@ def _replace_rows(pts: Points, rows: np.ndarray, again: Points, count: bool = Tr
         figs.setdefault(k, np.full(pts.n, np.nan))[rows] = v
     checks = dict(pts.checks)
     for name, c in again.checks.items():
-        old = checks.get(name)
-        if old is None:
-            old = CheckCol(np.full(pts.n, np.nan), np.full(pts.n, np.nan), np.full(pts.n, np.nan),
-                           np.ones(pts.n, bool), np.zeros(pts.n, bool))
-        cols = [a.copy() for a in (old.value, old.limit, old.margin, old.passed, old.applies)]
-        for a, b in zip(cols, (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):
-            a[rows] = b
-        checks[name] = CheckCol(*cols, unit=c.unit or old.unit)
+        old = checks.get(name) or blank_column(c.part, c.quantity, c.unit, pts.n)
+        checks[name] = put_rows(old, rows, c)
     passed = pts.passed.copy()
     passed[rows] = again.passed
     errors = pts.errors.copy()
@@ -322,8 +308,7 @@ def concat(parts: list[Points]) -> Points:
             figs.setdefault(k, np.full(n, np.nan))[sl] = v
         for name, c in p.checks.items():
             if name not in checks:
-                checks[name] = CheckCol(np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan),
-                                        np.ones(n, bool), np.zeros(n, bool), c.unit)
+                checks[name] = blank_column(c.part, c.quantity, c.unit, n)
             tgt = checks[name]
             for a, b in zip((tgt.value, tgt.limit, tgt.margin, tgt.passed, tgt.applies),
                             (c.value, c.limit, c.margin, c.passed, c.applies), strict=True):

@@ -1,5 +1,6 @@
 """The table of many variants' figures, checks and verdicts that the studies share
-(:class:`Points`, one :class:`CheckCol` per rating check), and the words a study says about it.
+(:class:`Points`, one :class:`kickback.ratings.CheckColumn` per rating check), and the words a
+study says about it.
 
 :func:`kickback.studies.points.evaluate` fills it from either engine.
 """
@@ -17,18 +18,6 @@ FIGURES = {"peak_voltage_V": "V", "clamp_energy_J": "J", "avalanche_energy_J": "
 
 
 @dataclass(frozen=True)
-class CheckCol:
-    """One rating check over the variants (arrays of shape (n,)); NaN where it does not apply."""
-
-    value: np.ndarray
-    limit: np.ndarray
-    margin: np.ndarray
-    passed: np.ndarray  # True where it does not apply
-    applies: np.ndarray
-    unit: str = ""  # SI symbol of value and limit (K for a temperature)
-
-
-@dataclass(frozen=True)
 class Points:
     """Figures, checks and verdicts of n variants of one case.
 
@@ -38,8 +27,8 @@ class Points:
         single variants may have run on the other one, see ``ran``
     figures : dict — name → float array (NaN: the time does not occur, or not simulated);
         the names of :data:`FIGURES` and ``clamp[k].energy_J`` for every clamp
-    checks : dict — "part quantity" → :class:`CheckCol`, in the order of
-        :func:`kickback.ratings.rating_checks`
+    checks : dict — "part quantity" → :class:`kickback.ratings.CheckColumn` (the rating rules'
+        own columns), in the order of :func:`kickback.ratings.rating_checks`
     passed : bool array — simulated and every check passes
     errors : object array — None, or why the variant could not be simulated
     fits : tuple of str — piecewise-linear fits of nonlinear laws the batch engine used
