@@ -341,8 +341,11 @@ class PhaseRunner:
         7.35 V node in tests/test_detailed_float_fall.py). A residual past the landing limit
         (a vertical law reached) is left to :meth:`landing`."""
         c = self.c
-        r = c.float_residual(self.t, self.y)
-        if abs(r) <= self.land_residual and c.forced_slope(self.t):
+        # at the fall's end (the phase ends there, still floating) the floating voltage is the
+        # fall's own, just before it
+        t = self.t if c.forced_slope(self.t) else float(np.nextafter(self.t, -math.inf))
+        r = c.float_residual(t, self.y)
+        if abs(r) <= self.land_residual and c.forced_slope(t):
             self.y[0] = c.coil_state(float(c.coil_current(self.y[0])) + r)
 
     def landing(self):
@@ -450,6 +453,8 @@ class PhaseRunner:
                                      c.t_turnoff))
             self.t = float(sol.t[-1])
             self.y = sol.y[:, -1].copy()
+            if sol.status == 0 and c.pin is FLOAT:
+                self._project()
             if sol.status == 1 and fired_pin is not None and not c.capacitive:
                 # the node starts to float (when it may), lands, or leaves a vertical law
                 self.no_float = False
