@@ -156,7 +156,9 @@ class Chain(SeriesSolve):
             else:
                 return 0.0
             i = self.current_at(voltage, v_cap)
-            return 1.0 / (d.a / max(d.i_s + i, 1e-300) + d.r_s)
+            # an overflowing current (a voltage far past the knee, no series resistance): vertical
+            den = d.a / max(d.i_s + i, 1e-300) + d.r_s
+            return 1.0 / den if den > 0 else math.inf
         if self._smooth is None and self.active:
             # several nonlinear laws in series: the exact derivative at the solved current,
             # 1 / Σ dv_k/di (one chain solve instead of two for a difference quotient)

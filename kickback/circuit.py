@@ -19,7 +19,7 @@ from kickback.case import Case
 from kickback.chain import Chain, regularized
 from kickback.coilstate import CoilStates
 from kickback.errors import CaseError
-from kickback.floatnode import FLOAT, FLOAT_CONDUCTANCE, FLOAT_ENTRY, FLOAT_RESIDUAL, FloatingNode  # noqa: F401
+from kickback.floatnode import FLOAT, FLOAT_CONDUCTANCE, FLOAT_ENTRY, FLOAT_LANDING, FLOAT_RESIDUAL, FloatingNode  # noqa: F401
 from kickback.models.switch import switch_law
 from kickback.nodebalance import solve_monotone as _solve_monotone
 from kickback.onstate import OnState, solve_on_state

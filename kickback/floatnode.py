@@ -10,7 +10,9 @@ coil current follows the limited branches and the node voltage is the coil's:
 v = V_s − R·i − (back-EMF) − L·di/dt (the limit of the balance as the slope → 0; C. K.
 Alexander and M. N. O. Sadiku, Fundamentals of Electric Circuits, ch. 6, v = L di/dt).
 The engine (:mod:`kickback.engine.detailed`) enters this mode by events and leaves it when
-the balance at the forced voltage is off by more than ``FLOAT_RESIDUAL``·i0.
+the balance at the forced voltage is off by more than its limit, or (during a current fall)
+when the other branches' conductance rises past :meth:`FloatingNode.float_limit`, where the
+quasi-static coil rate s/(1 + R·G) stops being the more accurate one.
 """
 
 from __future__ import annotations
@@ -25,14 +27,27 @@ FLOAT = (math.nan, 0, 0)
 #: [S, relative to i0/v_scale]: one rounding unit of the coil current would move an algebraic
 #: node voltage by more than ~1e-9 of v_scale
 FLOAT_CONDUCTANCE = 1e-7
+#: [S, relative to i0/v_scale] the largest conductance at which a node may float during a current
+#: fall (see :meth:`FloatingNode.float_limit`): with R·G ≤ R·i0/v_scale·1e-2 ≤ 1e-2 the
+#: quasi-static slope s/(1 + R·G) holds
+FLOAT_CONDUCTANCE_MAX = 1e-2
+#: the coil current of an algebraic node is off its exact value by this fraction of the solver's
+#: tolerance rtol·|i| + atol: measured 2e-2 (a 20 V varistor across a 24 V, 10 µH, 5 kΩ coil
+#: during a 1 µs fall, tests/test_detailed_float_fall.py); a Radau step's error estimate bounds
+#: the error well below its tolerance where the solution is smooth (E. Hairer and G. Wanner,
+#: Solving Ordinary Differential Equations II, §IV.8, from memory)
+ALGEBRAIC_ERROR = 1e-2
 #: [relative to i0] a floating node's current balance may be off by this before it lands
 FLOAT_RESIDUAL = 1e-8
 #: the event that starts the floating mode fires where the conductance at the algebraic node
-#: voltage has fallen to this fraction of ``FLOAT_CONDUCTANCE``: :meth:`FloatingNode.can_float`
-#: checks the limit at the forced voltage, a little off the algebraic one, and an event at the
-#: limit itself could be refused there — leaving the node algebraic below the limit, where one
-#: step tolerance of the coil current moves the node voltage by volts and the solver stalls
+#: voltage has fallen to this fraction of :meth:`FloatingNode.float_limit`;
+#: :meth:`FloatingNode.can_float` checks twice the limit at the forced voltage, a little off the
+#: algebraic one (an event at the checked limit itself could be refused there, leaving the node
+#: algebraic below the limit, where one step tolerance of the coil current moves the node
+#: voltage by volts and the solver stalls)
 FLOAT_ENTRY = 0.5
+#: a floating node lands where its conductance rises above this multiple of the limit
+FLOAT_LANDING = 4.0
 
 
 class FloatingNode:
@@ -61,7 +76,51 @@ class FloatingNode:
         i = float(self.coil_current(y[0]))
         g0, k0 = self.state_gain(i)
         emf = self.k_emf * self.speed_of(y) if self.motor else 0.0
-        return self.Vs - self.R * i - emf - self.forced_slope(t) / (g0 * k0)
+        return self.Vs - self.R * i - emf - self.float_rate(t, y) / (g0 * k0)
+
+    def float_rate(self, t: float, y: np.ndarray) -> float:
+        """[A/s] rate of a floating node's coil current: s/(1 + R·G), s the limited branches'
+        rate and G the other branches' conductance at the node.
+
+        The node balance i = i_limited(t) + h(v), differentiated with v = V_s − R·i − L·di/dt,
+        gives di/dt·(1 + R·G) = s − G·L·d²i/dt²; the last term (the quasi-static error) is
+        dropped. With s alone the balance would drift by R·G·s per second and the floating
+        voltage would have to land as soon as G·R·s·Δt reached the residual limit."""
+        s = self.forced_slope(t)
+        if not s:
+            return 0.0
+        i = float(self.coil_current(y[0]))
+        g0, k0 = self.state_gain(i)
+        emf = self.k_emf * self.speed_of(y) if self.motor else 0.0
+        G = self.node_conductance(t, self.Vs - self.R * i - emf - s / (g0 * k0), y)
+        return s / (1.0 + self.R * G) if math.isfinite(G) else s
+
+    def float_limit(self, t: float, v: float, y: np.ndarray, di: float) -> float:
+        """[S] node conductance below which the floating voltage is the more accurate one.
+
+        Solved from the balance (the algebraic mode), the node voltage is off by δi/G, δi [A]
+        the coil current's error: ``ALGEBRAIC_ERROR`` × ``di``, the solver's tolerance on it.
+        Floating, it is off by the dropped L·G·L·d²i/dt² ≈ (L·s)²·κ·(R·G)², κ = |dG/dv|/G
+        [1/V] (d²i/dt² from
+        differentiating s/(1 + R·G) with dv/dt ≈ −R·s). The two are equal at
+        G* = (δi/((L·s)²·κ·R²))^(1/3); G* is kept within ``FLOAT_CONDUCTANCE`` and
+        ``FLOAT_CONDUCTANCE_MAX`` (relative to i0/v_scale). Without a current fall (s = 0) the
+        fixed lower limit holds."""
+        unit = self.i0 / self.v_scale
+        lo, hi = FLOAT_CONDUCTANCE * unit, FLOAT_CONDUCTANCE_MAX * unit
+        s = self.forced_slope(t)
+        if not s or not math.isfinite(v):
+            return lo
+        d = 1e-6 * self.v_scale
+        ga, gb = self.node_conductance(t, v - d, y), self.node_conductance(t, v + d, y)
+        if not (math.isfinite(ga) and math.isfinite(gb) and ga > 0 and gb > 0):
+            return lo
+        kappa = abs(math.log(gb / ga)) / (2 * d)
+        g0, k0 = self.state_gain(float(self.coil_current(y[0])))
+        a = (s / (g0 * k0)) ** 2 * kappa * self.R ** 2
+        if a <= 0:
+            return hi
+        return min(hi, max(lo, (ALGEBRAIC_ERROR * di / a) ** (1.0 / 3.0)))
 
     def node_conductance(self, t: float, v: float, y: np.ndarray) -> float:
         """[S] total small-signal conductance of the node's branches at v (inf on a vertical law)."""
@@ -81,9 +140,12 @@ class FloatingNode:
             r = -self.i0 if r == -math.inf else self.i0
         return max(-self.i0, min(self.i0, r))
 
-    def can_float(self, t: float, y: np.ndarray) -> bool:
-        """The node may float at (t, y): its balance holds at the forced voltage to within
-        half of ``FLOAT_RESIDUAL`` and the branches' conductance there is below the limit."""
+    def can_float(self, t: float, y: np.ndarray, di: float = 0.0) -> bool:
+        """The node may float at (t, y): its balance holds at the forced voltage to within half
+        of ``FLOAT_RESIDUAL`` (or twice ``di``, the solver's tolerance on the coil current [A]:
+        the balance of an algebraic node is no better) and the branches' conductance there is
+        below twice :meth:`float_limit` during a current fall (the entry event fires at half of
+        it), below ``FLOAT_CONDUCTANCE`` outside."""
         if self.capacitive or self.conducting:
             return False
         if abs(float(self.coil_current(y[0]))) < 1e-6 * self.i0:
@@ -91,9 +153,11 @@ class FloatingNode:
             # on the leakage alone: the node balance is solved as usual, down to the zero event
             return False
         v = self.forced_voltage(t, y)
-        if abs(self.float_residual(t, y)) > 0.5 * FLOAT_RESIDUAL * self.i0:
+        if abs(self.float_residual(t, y)) > max(0.5 * FLOAT_RESIDUAL * self.i0, 2.0 * di):
             return False
-        return self.node_conductance(t, v, y) < FLOAT_CONDUCTANCE * self.i0 / self.v_scale
+        g_lim = 2.0 * self.float_limit(t, v, y, di) if self.forced_slope(t) else \
+            FLOAT_CONDUCTANCE * self.i0 / self.v_scale
+        return self.node_conductance(t, v, y) < g_lim
 
     def _floating_jacobian(self, t, v, y, g, jm):
         """Jacobian of a floating node: the coil current follows its forced rate, the node

@@ -21,7 +21,7 @@ import numpy as np
 from scipy.integrate import Radau, solve_ivp
 from scipy.linalg import lapack
 
-from kickback.circuit import FLOAT, FLOAT_CONDUCTANCE, FLOAT_ENTRY, FLOAT_RESIDUAL, Circuit
+from kickback.circuit import FLOAT, FLOAT_ENTRY, FLOAT_LANDING, FLOAT_RESIDUAL, Circuit
 from kickback.conventions import RING_END_FRACTION, ZERO_FRACTION
 from kickback.engine.radau_check import CheckedNewton
 from kickback.errors import SolverError
@@ -34,6 +34,9 @@ MAX_RHS_CALLS = 400_000
 DEFAULT_RTOL = 1e-5
 #: a node with capacitance is pinned at a vertical law this far (relative) before its voltage
 PIN_AHEAD = 1e-7
+#: a node may float across a jump of its voltage that is an initial layer shorter than this
+#: fraction of the fall (see :meth:`PhaseRunner.can_float`)
+FLOAT_LAYER = 1e-5
 #: the edge phase takes at least this many steps over the fall time
 EDGE_STEPS = 20
 
@@ -156,8 +159,15 @@ class PhaseRunner:
         self.atol = tolerances(c, rtol)
         self.scale = np.maximum(self.atol / rtol, 1e-300)
         self.calls = 0
-        #: [S, relative to i0/v_scale] level of the conductance event that starts the floating mode
-        self.float_entry = FLOAT_ENTRY * FLOAT_CONDUCTANCE
+        #: level of the conductance event that starts the floating mode, relative to the limit
+        #: (:meth:`Circuit.float_limit`)
+        self.float_entry = FLOAT_ENTRY
+        #: [A] the balance residual at which the present floating phase lands
+        self.land_residual = 0.0
+        #: [s] the entry event is held off before this time (an initial layer passing)
+        self.float_gate = -math.inf
+        #: [s] time constant of the initial layer that refused the last entry (0: none)
+        self.layer = 0.0
         self.t = t0
         self.y = np.array(y0, dtype=float)
         self.phases: list[Phase] = []
@@ -206,25 +216,79 @@ class PhaseRunner:
         c.pin = None
         self.y[1] = pin[0] - pin[2] * 2 * PIN_AHEAD * max(1.0, abs(pin[0]))
 
+    def coil_tolerance(self, y) -> float:
+        """[A] the solver's tolerance on the coil current at state ``y``, rtol·|i| + atol: how
+        far an algebraic node's coil current may sit off its exact value (its balance, and the
+        voltage solved from it, is no better)."""
+        c = self.c
+        i = float(c.coil_current(y[0]))
+        return self.rtol * abs(i) + self.atol[0] * c.state_gain(i)[0]
+
+    def float_tolerance(self, t, y) -> float:
+        """[A] :meth:`coil_tolerance` during a current fall (where the floating mode's limits
+        follow from it, :meth:`Circuit.float_limit`); 0 outside (the fixed limits hold)."""
+        return self.coil_tolerance(y) if self.c.forced_slope(t) else 0.0
+
+    def can_float(self) -> bool:
+        """The algebraic node may float here (:meth:`Circuit.can_float`), and its voltage does
+        not jump on entry: by at most 10·rtol·v_scale, unless the jump is an initial layer far
+        shorter than the fall (its time constant L·G/(1 + R·G) below ``FLOAT_LAYER`` × t_f;
+        outside a fall, × L·i0/v_scale). Entered inside a longer layer (the node rising after
+        t = 0 through a clamp's conductance), the floating voltage would be ahead of the node by
+        volts."""
+        c = self.c
+        t, y = self.t, self.y
+        self.layer = 0.0
+        if not c.can_float(t, y, self.float_tolerance(t, y)):
+            return False
+        if not c.forced_slope(t):
+            return True
+        v_alg = c.node_voltage(t, y)
+        if abs(c.forced_voltage(t, y) - v_alg) <= 10.0 * self.rtol * c.v_scale:
+            return True
+        G = c.node_conductance(t, v_alg, y)
+        g0, k0 = c.state_gain(float(c.coil_current(y[0])))
+        span = c.switch.fall_time if c._in_fall(t) else c.i0 / (g0 * k0 * c.v_scale)
+        tau = G / (g0 * k0 * (1.0 + c.R * G)) if math.isfinite(G) else math.inf
+        if tau <= FLOAT_LAYER * span:
+            return True
+        #: [s] the layer's time constant: the entry event waits for it to pass
+        self.layer = tau
+        return False
+
+    def _wait_layer(self) -> None:
+        """Refused inside an initial layer: the entry event is held off for 20 of its time
+        constants (the layer's conductance falls there so fast that the event, armed again at
+        a lower level, would fire again at the same instant)."""
+        if math.isfinite(self.layer):
+            self.float_gate = self.t + 20.0 * self.layer
+
     def _float_events(self):
         """Events of a node with no capacitance: it starts to float (its conductance falls
-        below the limit), or it lands (the balance at the forced voltage is off)."""
+        below the limit), or it lands (the balance at the forced voltage is off, or the
+        conductance there rises so far that the dropped quasi-static term matters)."""
         c = self.c
-        g_lim = self.float_entry * c.i0 / c.v_scale
         if c.pin is not None and c.pin is not FLOAT:
             return self._release_events()
         if c.pin is None:
             if self.no_float:
                 return []
+            entry = self.float_entry
+
+            gate = self.float_gate
 
             def g(t, y):
-                G = c.node_conductance(t, c.node_voltage(t, y), y)
+                if t < gate:
+                    return 1.0
+                v = c.node_voltage(t, y)
+                G = c.node_conductance(t, v, y)
+                g_lim = entry * c.float_limit(t, v, y, self.float_tolerance(t, y))
                 return 1.0 if not math.isfinite(G) else (G - g_lim) / (G + g_lim)
             g.direction = -1
             g.terminal = True
             g.pin = FLOAT
             return [g]
-        eps = FLOAT_RESIDUAL * c.i0
+        eps = self.land_residual = max(FLOAT_RESIDUAL * c.i0, 4.0 * self.float_tolerance(self.t, self.y))
         out = []
         for sign in (1, -1):
             def g(t, y, sign=sign):
@@ -233,6 +297,17 @@ class PhaseRunner:
             g.terminal = True
             g.pin = None
             out.append(g)
+
+        def g_rise(t, y):
+            v = c.forced_voltage(t, y)
+            G = c.node_conductance(t, v, y)
+            g_lim = FLOAT_LANDING * c.float_limit(t, v, y, self.float_tolerance(t, y))
+            return 1.0 if not math.isfinite(G) else (G - g_lim) / (G + g_lim)
+        g_rise.direction = 1
+        g_rise.terminal = True
+        g_rise.pin = None
+        if c.forced_slope(self.t):
+            out.append(g_rise)
         return out
 
     def _refused_float(self) -> None:
@@ -245,9 +320,30 @@ class PhaseRunner:
         if abs(float(c.coil_current(self.y[0]))) < 1e-6 * c.i0:
             self.no_float = True
             return
-        G = c.node_conductance(self.t, c.node_voltage(self.t, self.y), self.y)
-        level = 0.5 * G * c.v_scale / c.i0 if math.isfinite(G) else self.float_entry
+        if self.layer:
+            self._wait_layer()
+            return
+        v = c.node_voltage(self.t, self.y)
+        G = c.node_conductance(self.t, v, self.y)
+        g_lim = c.float_limit(self.t, v, self.y, self.float_tolerance(self.t, self.y))
+        level = 0.5 * G / g_lim if math.isfinite(G) else self.float_entry
         self.float_entry = min(0.5 * self.float_entry, level)
+
+    def _project(self) -> None:
+        """Where a floating node lands on its own balance (its conductance has risen), set the
+        coil current onto it at the floating voltage: floating, the node voltage is the trusted
+        one (off by the quasi-static error only) while the coil current, integrated at its
+        forced rate, drifts off the balance by up to the landing residual; solved from the
+        balance with that current, the node voltage would jump by residual/G (1.8e-4 V on a
+        7.35 V node in tests/test_detailed_float_fall.py). A residual past the landing limit
+        (a vertical law reached) is left to :meth:`landing`."""
+        c = self.c
+        # at the fall's end (the phase ends there, still floating) the floating voltage is the
+        # fall's own, just before it
+        t = self.t if c.forced_slope(self.t) else float(np.nextafter(self.t, -math.inf))
+        r = c.float_residual(t, self.y)
+        if abs(r) <= self.land_residual and c.forced_slope(t):
+            self.y[0] = c.coil_state(float(c.coil_current(self.y[0])) + r)
 
     def landing(self):
         """Where a floating node lands: on a vertical law whose voltage its forced voltage has
@@ -330,10 +426,14 @@ class PhaseRunner:
         switches = 0
         landed = False
         self.no_float = False
-        self.float_entry = FLOAT_ENTRY * FLOAT_CONDUCTANCE
+        self.float_entry = FLOAT_ENTRY
+        self.float_gate = -math.inf
         while True:
-            if not c.capacitive and c.pin is None and not landed and c.can_float(self.t, self.y):
-                c.pin = FLOAT
+            if not c.capacitive and c.pin is None and not landed:
+                if self.can_float():
+                    c.pin = FLOAT
+                elif self.layer:
+                    self._wait_layer()
             landed = False
             sol, evs, pe = self._solve(name, t_end, events, kw)
             fired_pin = None
@@ -350,15 +450,18 @@ class PhaseRunner:
                                      c.t_turnoff))
             self.t = float(sol.t[-1])
             self.y = sol.y[:, -1].copy()
+            if sol.status == 0 and c.pin is FLOAT:
+                self._project()
             if sol.status == 1 and fired_pin is not None and not c.capacitive:
                 # the node starts to float (when it may), lands, or leaves a vertical law
                 self.no_float = False
-                self.float_entry = FLOAT_ENTRY * FLOAT_CONDUCTANCE
+                self.float_entry = FLOAT_ENTRY
                 if c.pin is FLOAT:
+                    self._project()
                     c.pin = self.landing()
                     landed = True
                 elif c.pin is None:
-                    c.pin = FLOAT if c.can_float(self.t, self.y) else None
+                    c.pin = FLOAT if self.can_float() else None
                     if c.pin is None:
                         self._refused_float()
                 else:
