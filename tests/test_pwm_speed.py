@@ -198,3 +198,35 @@ def test_averaged_guess_of_a_saturating_coil_over_a_long_on_time():
     # the clamp's capacitor discharged through its resistor
     sc = scales(c)
     assert np.max(np.abs(ss.x - np.array([0.0, vs, 0.0])) / sc) < 1e-9, ss.x
+
+
+def test_held_capacitor_drains_at_the_saturation_current_in_closed_form():
+    # invented valve coil (demo data) with a diode + resistor + capacitor clamp: the capacitor
+    # takes the flyback charge, then holds it behind its diode, which drains it at the diode's
+    # saturation current (large here: n = 2.4) while the coil rings with its winding
+    # capacitance for ~8000 LC periods. It was stepped past the evaluation budget.
+    from kickback.engine.detailed import integrate
+    from kickback.engine.linring import RingSolution
+
+    d = Element("diode", "d", model="shockley", forward_voltage=1.29, at_current=5.18, ideality=2.39,
+                series_resistance=0.124)
+    clamp = Clamp("C0", "coil", (d, Element("resistor", "r", resistance=2.54),
+                                 Element("capacitor", "c", capacitance=4.5e-6)))
+    case = Case("held capacitor (demo data)", Supply(4.85), Coil(3.7e-3, 3.9, capacitance=3.1e-10),
+                Switch("ideal", fall_time=2e-8, breakdown_voltage=13.0), (clamp,))
+    c = Circuit(case)
+    w = integrate(c)
+    assert w.n_rhs < 100_000
+    ring = [p for p in w.phases if isinstance(p.sol, RingSolution)]
+    assert ring, "the ring is solved in closed form"
+    p = ring[-1]
+    k = c.icap[0]
+    v0, v1 = float(p.sol.dynamic(p.t0)[k, 0]), float(p.sol.dynamic(p.t1)[k, 0])
+    # the Shockley law i = I_s·(e^(V/(n·V_T)) − 1) through its terminal point (V_F − I_F·R_s, I_F)
+    # (Sedra & Smith, Microelectronic Circuits, ch. 4); V_T = kT/q at 298.15 K (25 °C) (CODATA constants,
+    # from memory); in deep reverse the diode carries −I_s, and the capacitor falls as
+    # C·dv/dt = −I_s (a constant-current discharge)
+    vt = 1.380649e-23 * 298.15 / 1.602176634e-19
+    i_s = 5.18 / math.expm1((1.29 - 5.18 * 0.124) / (2.39 * vt))
+    drop = i_s * (p.t1 - p.t0) / 4.5e-6
+    assert abs((v0 - v1) - drop) <= 1e-3 * drop, (v0 - v1, drop)
