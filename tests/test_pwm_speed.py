@@ -269,3 +269,34 @@ def test_on_phase_beside_a_held_capacitor_is_solved_in_closed_form():
     i_s = 1.0 / math.expm1((0.9 - 0.05) / (2.0 * vt))
     drop = i_s * t_on / 1e-6
     assert abs((5.0 - v1) - drop) <= 1e-3 * drop, (5.0 - v1, drop)
+
+
+def test_held_capacitor_steady_state_is_bracketed():
+    # the wide-range draw 721 (invented, demo data): a BJT-switched coil with a diode + resistor +
+    # capacitor clamp at 86 % duty. The clamp's capacitor drains ~1e-7 of its voltage per cycle
+    # through the diode's saturation current and is topped up at the flyback only below the knee:
+    # its slope in the cycle map is 1 within 1e-6, Newton's step there is undefined, and the
+    # shooting failed ("did not converge ... Newton step 2e-06"). The fixed point is bracketed
+    # instead: a cycle started just below the reported capacitor voltage gains charge, one just
+    # above loses it (the residual changes sign across it, so the root lies between).
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from wide_range import draw
+
+    from kickback.caseio import load_case
+
+    case = load_case(draw(721).text, source="case 721")
+    c = Circuit(case)
+    duty, f = case.drive.duties[0], case.drive.frequency
+    ss = steady_state(c, duty, f)
+    assert ss.residual <= STEADY_TOL
+    k = c.icap[0]
+    sc = scales(c)
+    gains = []
+    for sign in (-1.0, 1.0):
+        x = ss.x.copy()
+        x[k] += sign * 1e-6 * sc[k]
+        gains.append(float(one_cycle(c, x, duty, f, 1e-8, energies=False)[0][k] - x[k]))
+    assert gains[0] > 0 > gains[1], gains
