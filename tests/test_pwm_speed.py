@@ -279,11 +279,7 @@ def test_held_capacitor_steady_state_is_bracketed():
     # shooting failed ("did not converge ... Newton step 2e-06"). The fixed point is bracketed
     # instead: a cycle started just below the reported capacitor voltage gains charge, one just
     # above loses it (the residual changes sign across it, so the root lies between).
-    import sys
-    from pathlib import Path
-
-    sys.path.insert(0, str(Path(__file__).parent))
-    from wide_range import draw
+    from wide_range import draw  # tests/ is on the path (pytest's rootdir insertion)
 
     from kickback.caseio import load_case
 
