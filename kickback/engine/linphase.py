@@ -29,8 +29,10 @@ import numpy as np
 from numpy.polynomial import legendre
 
 from kickback.circuit import Circuit
-from kickback.engine.linmodes import decompose as _decompose
-from kickback.engine.linmodes import expm_extended  # noqa: F401  (former home)
+from kickback.engine.linmodes import (
+    decompose_held,
+    expm_extended,  # noqa: F401  (former home)
+)
 from kickback.nodebalance import solve_monotone
 
 #: allowed departure of the true right-hand side from the affine model, integrated over the
@@ -210,7 +212,7 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     reliably) — the caller then integrates step by step."""
     c, ie, scale = model.c, model.ie, model.scale
     span = t_end - t0
-    dec = _decompose_held(model, y0, span)
+    dec = decompose_held(model.A, model.b, y0[:ie], span, scale, LIN_TOL)
     if dec is None:
         return None
     lam, vec, coef, x_end, held = dec
@@ -256,35 +258,6 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
         return sol
     return LinearSolution(t0, sol.y0, ie, lam, vec, coef, edges, x_end, check_t.reshape(-1, GL_NODES),
                           rates.reshape(len(edges) - 1, GL_NODES, -1), steps, held)
-
-
-def _decompose_held(model: AffineModel, y0: np.ndarray, span: float):
-    """(λ, modes, coefficients, end state, held) of ``model`` from ``y0`` over ``span`` [s].
-
-    A *held* state — a capacitor behind a Shockley diode in reverse: it drains at the constant
-    saturation current, and nothing else depends on it — has a nil row and column in ``A`` (to
-    :data:`LIN_TOL` over the phase). Its eigenvalue ~0 beside the augmented one makes the modes
-    defective, so it is taken out: it ramps, ``x = x0 + b·t``, and the rest are solved as before
-    (the path is verified against the true rates all the same). ``held`` is None without one.
-    """
-    ie, A, b, scale = model.ie, model.A, model.b, model.scale
-    x0 = np.asarray(y0[:ie], dtype=float)
-    rel = np.abs(A) * scale[None, :] / scale[:, None] * span
-    small = (np.max(rel, axis=0) <= LIN_TOL) & (np.max(rel, axis=1) <= LIN_TOL)
-    if not np.any(small) or np.all(small):
-        dec = _decompose(A, b, x0, span, scale)
-        return None if dec is None else (*dec, None)
-    keep, idx = np.flatnonzero(~small), np.flatnonzero(small)
-    dec = _decompose(A[np.ix_(keep, keep)], b[keep], x0[keep], span, scale[keep])
-    if dec is None:
-        return None
-    lam, vk, coef, xk_end = dec
-    vec = np.zeros((ie + 1, vk.shape[1]), dtype=vk.dtype)
-    vec[keep], vec[ie] = vk[:-1], vk[-1]
-    x_end = x0.copy()
-    x_end[keep] = xk_end
-    x_end[idx] += b[idx] * span
-    return lam, vec, coef, x_end, (idx, b[idx].copy())
 
 
 def linear_event(model: AffineModel):
