@@ -154,3 +154,34 @@ def _ext_dot(w, Al, v) -> complex:
             av = Al @ part.astype(np.longdouble)
             out += unit * complex(float(wr @ av), float(wi @ av))
     return out
+
+
+def decompose_held(A: np.ndarray, b: np.ndarray, x0: np.ndarray, span: float, scale: np.ndarray, tol: float):
+    """(λ, modes, coefficients, end state, held) of ``dx/dt = A·x + b`` from ``x0`` over ``span``
+    [s]: :func:`decompose`, with held states taken out.
+
+    A *held* state — a capacitor behind a Shockley diode in reverse: it drains at the constant
+    saturation current, and nothing else depends on it — has a nil row and column in ``A`` (to ``tol``
+    relative to the scales over the phase). Its eigenvalue ~0 beside the augmented one makes the modes
+    defective, so it is taken out: it ramps, ``x = x0 + b·t``, and the rest are solved as before
+    (the path is verified against the true rates all the same). ``held`` is None without one.
+    """
+    ie = A.shape[0]
+    x0 = np.asarray(x0, dtype=float)
+    rel = np.abs(A) * scale[None, :] / scale[:, None] * span
+    small = (np.max(rel, axis=0) <= tol) & (np.max(rel, axis=1) <= tol)
+    if not np.any(small) or np.all(small):
+        dec = decompose(A, b, x0, span, scale)
+        return None if dec is None else (*dec, None)
+    keep, idx = np.flatnonzero(~small), np.flatnonzero(small)
+    dec = decompose(A[np.ix_(keep, keep)], b[keep], x0[keep], span, scale[keep])
+    if dec is None:
+        return None
+    lam, vk, coef, xk_end = dec
+    vec = np.zeros((ie + 1, vk.shape[1]), dtype=vk.dtype)
+    vec[keep], vec[ie] = vk[:-1], vk[-1]
+    x_end = x0.copy()
+    x_end[keep] = xk_end
+    x_end[idx] += b[idx] * span
+    return lam, vec, coef, x_end, (idx, b[idx].copy())
+

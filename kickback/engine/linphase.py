@@ -29,8 +29,10 @@ import numpy as np
 from numpy.polynomial import legendre
 
 from kickback.circuit import Circuit
-from kickback.engine.linmodes import decompose as _decompose
-from kickback.engine.linmodes import expm_extended  # noqa: F401  (former home)
+from kickback.engine.linmodes import (
+    decompose_held,
+    expm_extended,  # noqa: F401  (former home)
+)
 from kickback.nodebalance import solve_monotone
 
 #: allowed departure of the true right-hand side from the affine model, integrated over the
@@ -109,8 +111,10 @@ class AffineModel:
 class LinearSolution:
     """Dense closed-form solution of an affine phase: callable like scipy's OdeSolution."""
 
-    def __init__(self, t0, y0, ie, lam, vec, coef, edges, x_end, nodes=None, rates=None, steps=None):
+    def __init__(self, t0, y0, ie, lam, vec, coef, edges, x_end, nodes=None, rates=None, steps=None, held=None):
         self.t0, self.y0, self.ie, self.x_end = t0, y0, ie, x_end
+        #: (indices, rates) of held states: x = x0 + rate·(t − t0), outside the modes
+        self.held = held
         self.steps = edges if steps is None else steps  # [s] sampling grid offered to the sampler
         self.lam, self.vec, self.coef = lam, vec, coef
         self.edges = edges  # [s] absolute panel edges
@@ -123,6 +127,9 @@ class LinearSolution:
     def dynamic(self, t) -> np.ndarray:
         s = np.atleast_1d(np.asarray(t, dtype=float)) - self.t0
         z = np.real(self.vec @ (self.coef[:, None] * np.exp(self.lam[:, None] * s[None, :])))[: self.ie]
+        if self.held is not None:
+            idx, rate = self.held
+            z[idx] = self.y0[idx, None] + rate[:, None] * s[None, :]
         z[:, s >= self.edges[-1] - self.t0] = self.x_end[:, None]
         return z
 
@@ -205,10 +212,10 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     reliably) — the caller then integrates step by step."""
     c, ie, scale = model.c, model.ie, model.scale
     span = t_end - t0
-    dec = _decompose(model.A, model.b, y0[:ie], span, scale)
+    dec = decompose_held(model.A, model.b, y0[:ie], span, scale, LIN_TOL)
     if dec is None:
         return None
-    lam, vec, coef, x_end = dec
+    lam, vec, coef, x_end, held = dec
     from kickback.engine.linrates import rates as vector_rates
 
     vectorised = c.capacitive and c.pin is None and not c.flux
@@ -222,7 +229,7 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     steps = edges if fine is None else np.union1d(edges, t0 + fine)
     # and the slow remainder no coarser than the Radau steps it replaces would sample it
     steps = np.union1d(steps, np.linspace(t0, t_end, SAMPLE_SPLITS + 1))
-    sol = LinearSolution(t0, np.array(y0, dtype=float), ie, lam, vec, coef, edges, x_end, steps=steps)
+    sol = LinearSolution(t0, np.array(y0, dtype=float), ie, lam, vec, coef, edges, x_end, steps=steps, held=held)
     check_t = np.concatenate([edges[:-1, None] + np.diff(edges)[:, None] * _XI01[None, :]]).ravel() \
         if energies else edges
     ys = sol.dynamic(check_t)
@@ -250,7 +257,7 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     if not energies:
         return sol
     return LinearSolution(t0, sol.y0, ie, lam, vec, coef, edges, x_end, check_t.reshape(-1, GL_NODES),
-                          rates.reshape(len(edges) - 1, GL_NODES, -1), steps)
+                          rates.reshape(len(edges) - 1, GL_NODES, -1), steps, held)
 
 
 def linear_event(model: AffineModel):
@@ -320,17 +327,20 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
         return
     stride = FIRST_STRIDE * (t_end - t0)
     leave = 0.0
+    # the model is taken again after each stretch stepped: in an off phase with snubber
+    # capacitors (a capacitor behind a diode holds the charge the clamp left, and the diode blocks
+    # only at that voltage), and in an on phase (a probe settled on a law's kink — the node at
+    # 0 V with no coil current, where an ideal channel's law bends — linearises the wrong side)
+    again = c.cap_chains if rest else True
     for _ in range(MAX_ATTEMPTS):
-        if rest and c.cap_chains and runner.t > t0:
-            # linearised again where the path is now: a capacitor behind a diode holds the
-            # charge the clamp left, and the diode blocks only at that voltage
+        if again and runner.t > t0:
+            probe = rest_probe(c, runner.t, runner.y) if rest else settled_probe(c, runner.t, runner.y)
             try:
-                model = AffineModel(c, runner.t, rest_probe(c, runner.t, runner.y), scale, t_end - t0)
+                model = AffineModel(c, runner.t, probe, scale, t_end - t0)
             except (SolverError, ArithmeticError, ValueError):
                 break
         if not model.defect(runner.t, runner.y)[0] <= 1.0:
-            # (with snubber capacitors the model is taken again after each stretch, see above)
-            t_stop = min(t_end, runner.t + stride) if rest and c.cap_chains else t_end
+            t_stop = min(t_end, runner.t + stride) if again else t_end
             stride *= 4.0
             runner.run(name, t_stop, [linear_event(model)], **kw)
             kw.pop("first_step", None)

@@ -26,6 +26,8 @@ import math
 import numpy as np
 from scipy.optimize import brentq
 
+from kickback.engine.linring_held import CURVED_TOL, curved_departure, curved_retry, held_states, shockley
+
 #: a ring is solved in closed form only when it would last at least this many periods
 MIN_PERIODS = 50
 GRID = 16  # grid points per fastest period
@@ -43,14 +45,17 @@ def _emu(mu: np.ndarray, T: np.ndarray) -> np.ndarray:
 class RingSolution:
     """Closed-form state of the ring at times t (callable like scipy's OdeSolution)."""
 
-    def __init__(self, t0, y0, ie, x_inf, lam, amp, r0, grad, quad):
+    def __init__(self, t0, y0, ie, x_inf, lam, amp, r0, grad, quad, ramp=None):
         self.t0, self.y0, self.ie = t0, np.asarray(y0, dtype=float), ie
+        #: [unit/s] rate of each held state (a capacitor behind a reverse-biased diode), else 0
+        self.ramp = np.zeros(ie) if ramp is None else np.asarray(ramp, dtype=float)
         self.x_inf, self.lam, self.amp = x_inf, lam, amp  # amp: (n_dyn, n_modes) complex
         self.r0, self.grad, self.quad = r0, grad, quad  # energy rates at x_inf, ∇, Hessian/2
 
     def dynamic(self, t) -> np.ndarray:
         s = np.atleast_1d(np.asarray(t, dtype=float)) - self.t0
-        return self.x_inf[:, None] + np.real(self.amp @ np.exp(self.lam[:, None] * s[None, :]))
+        return self.x_inf[:, None] + np.real(self.amp @ np.exp(self.lam[:, None] * s[None, :])) \
+            + self.ramp[:, None] * s[None, :]
 
     def energies(self, t) -> np.ndarray:
         s = np.atleast_1d(np.asarray(t, dtype=float)) - self.t0
@@ -60,7 +65,9 @@ class RingSolution:
         e2 = _emu(mu[:, :, None], s[None, None, :])  # (modes, modes, n)
         qa = np.einsum("mij,ik,jl->mkl", self.quad, self.amp, self.amp)  # (rows, modes, modes)
         quad = np.real(np.einsum("mkl,kln->mn", qa, e2))
-        return self.y0[self.ie:, None] + self.r0[:, None] * s[None, :] + lin + quad
+        # a held state's ramp enters the rates linearly (its square, I_s² terms, is left out)
+        held = (self.grad @ self.ramp)[:, None] * (0.5 * s * s)[None, :]
+        return self.y0[self.ie:, None] + self.r0[:, None] * s[None, :] + lin + quad + held
 
     def __call__(self, t):
         scalar = np.ndim(t) == 0
@@ -78,6 +85,8 @@ def _branch_pieces(c):
     for k in c.active_chains:
         ch = c.chains[k]
         p = ch.pieces
+        if p is None:  # a curved law: checked against its tangent (try_linear_ring)
+            continue
         th = [x for x in (p.v_fwd, p.v_rev) if math.isfinite(x)]
         out.append((c.icap.get(k), c.Vs * ch.reference, th))
     return out
@@ -90,13 +99,14 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     is then how long to integrate step by step before trying again (the ring's amplitude still
     reaches a kink of some law), or None (the ring cannot be solved in closed form).
     """
-    from kickback.engine.detailed import Phase
+    from kickback.engine.detailed import HELD_FRACTION, Phase
 
     c = runner.c
     t0, y0 = runner.t, np.array(runner.y, dtype=float)
     if c.pin is not None or c.flux or c.motor or c.conducting or c._in_fall(t0):
         return False, False, None
-    if any(c.chains[k].pieces is None for k in c.active_chains):
+    curved = [k for k in c.active_chains if c.chains[k].pieces is None]
+    if not all(shockley(c.chains[k]) for k in curved):
         return False, False, None
     ie = c.ie
     A = c.jacobian(t0, y0)[:ie, :ie]
@@ -104,53 +114,71 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     b = f0[:ie] - A @ y0[:ie]
     if not (np.all(np.isfinite(A)) and np.all(np.isfinite(b))):
         return False, False, None
+    # a capacitor behind a reverse-biased Shockley diode is held: it drains at the diode's
+    # (constant) saturation current, a ramp; the rest rings about it
+    held = held_states(c, curved, t0, y0)
+    ramp = np.zeros(ie)
+    ramp[held] = f0[held]
+    A[:, held] = 0.0
+    A[held, :] = 0.0
+    b[held] = 0.0
+    keep = np.setdiff1d(np.arange(ie), held)
+    ring_caps = [k for k in dyn_caps if c.icap.get(k) not in held]
     try:
-        x_inf = np.linalg.solve(A, -b)
-        lam, vec = np.linalg.eig(A)
-        if np.linalg.cond(vec) > 1e8 or not np.all(lam.real < 0):
-            return False, False, None
-        coef = np.linalg.solve(vec, (y0[:ie] - x_inf).astype(complex))
+        x_inf = y0[:ie].copy()
+        x_inf[keep] = np.linalg.solve(A[np.ix_(keep, keep)], -b[keep])
+        lam, vk = np.linalg.eig(A[np.ix_(keep, keep)])
+        if np.linalg.cond(vk) > 1e8 or not np.all(lam.real < 0):
+            return False, False, curved_retry(c, curved)
+        vec = np.zeros((ie, keep.size), dtype=complex)
+        vec[keep] = vk
+        coef = np.linalg.solve(vk, (y0[keep] - x_inf[keep]).astype(complex))
     except np.linalg.LinAlgError:
         return False, False, None
     amp = vec * coef[None, :]
     w_fast = float(np.max(np.abs(lam.imag)))
     sigma = float(np.min(-lam.real))
-    e_now = max(_dyn_energy(c, y0[:ie, None], v_fin, dyn_caps)[0], 1e-300)
-    if w_fast <= 0 or not rest_level > 0:
+    e_now = max(_dyn_energy(c, y0[:ie, None], v_fin, ring_caps)[0], 1e-300)
+    if not rest_level > 0:
         return False, False, None
-    t_est = math.log(max(e_now / rest_level, 1.0)) / (2 * sigma)
-    if t_est * w_fast / (2 * math.pi) < MIN_PERIODS:
-        return False, False, None
-    # every branch stays on its piece for all t ≥ t0: |u(t) − u_∞| ≤ Σ|w·a_k|
+    t_est = math.log(max(e_now / rest_level, 1.0)) / (2 * sigma) if w_fast > 0 else 0.0
+    if t_est * w_fast / (2 * math.pi) < MIN_PERIODS and not held:
+        return False, False, curved_retry(c, curved)
+    # every branch stays on its piece for t0 ≤ t ≤ t0 + H: |u(t) − u_∞| ≤ Σ|w·a_k| plus the held
+    # capacitors' ramps over H; H is the span to t_bound, or less where a ramp would carry a
+    # diode out of its flat reverse (the ring is then continued from there)
     y_inf = y0.copy()
     y_inf[:ie] = x_inf
     nv_grad, nv_inf = _node_affine(c, t0, y_inf, amp)
-    for icap, ref, th in _branch_pieces(c):
-        w = nv_grad.copy()
-        u_inf = nv_inf - ref
-        if icap is not None:
-            w[icap] -= 1.0
-            u_inf -= x_inf[icap]
-        bound = float(np.sum(np.abs(w @ amp)))
-        if any(abs(u_inf - x) <= bound * (1 + 1e-6) + 1e-9 * c.v_scale for x in th):
-            return False, False, 20 * 2 * math.pi / w_fast
+    retry = 20 * 2 * math.pi / w_fast if w_fast > 0 else None
+    if w_fast <= 0 or not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, 0.0):
+        return False, False, retry
+    horizon = t_bound - t0
+    while not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, horizon):
+        horizon *= 0.5
+        if horizon < retry:
+            return False, False, retry
+    t_lim = t0 + horizon
     # the model must reproduce the true rates (its pieces) at x_∞ and at the extreme states
-    size = np.abs(A) @ np.maximum(np.abs(y0[:ie]), np.abs(x_inf)) + np.abs(b) + 1e-300
+    size = np.abs(A) @ np.maximum(np.abs(y0[:ie]), np.abs(x_inf)) + np.abs(b) + np.abs(ramp) + 1e-300
     for probe in (y_inf, y0):
-        d = c.rhs(t0, probe)[:ie] - (A @ probe[:ie] + b)
+        d = c.rhs(t0, probe)[:ie] - (A @ probe[:ie] + b + ramp)
         if np.any(np.abs(d) > 1e-9 * size):
             return False, False, None
     r0, grad, quad = _energy_quadratic(c, t0, y_inf, np.sum(np.abs(amp), axis=1))
-    sol = RingSolution(t0, y0, ie, x_inf, lam, amp, r0, grad, quad)
+    sol = RingSolution(t0, y0, ie, x_inf, lam, amp, r0, grad, quad, ramp)
     # the end: oscillating energy below its level, then a zero of the coil current
     period = 2 * math.pi / w_fast
     dt = period / GRID
-    t_end, bound_hit = _first_below(c, sol, t0, t_bound, dt, rest_level, v_fin, dyn_caps)
+    drains = {k: abs(ramp[c.icap[k]]) * c.chains[k].capacitance for k in dyn_caps if c.icap.get(k) in held}
+    level = (rest_level, HELD_FRACTION * rest_level, drains)
+    t_end, bound_hit = _first_below(c, sol, t0, t_lim, dt, level, v_fin, dyn_caps)
     if not bound_hit:
         i_end = float(sol.dynamic(t_end)[0, 0])
         if abs(i_end) > ring_end * c.i0:
-            t_z = _first_zero(sol, t_end, t_bound, dt)
-            t_end, bound_hit = (t_z, False) if t_z is not None else (t_bound, True)
+            t_z = _first_zero(sol, t_end, t_lim, dt)
+            t_end, bound_hit = (t_z, False) if t_z is not None else (t_lim, True)
+    partial = bound_hit and t_lim < t_bound
     for key, frac in (("10%", 0.1), ("1%", 0.01)):
         if ev_times[key] is None:
             ev_times[key] = _first_down(sol, t0, t_end, dt, frac * c.i0)
@@ -159,7 +187,36 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     runner.peaks.extend(peaks)
     runner.phases.append(Phase("ring", t0, t_end, sol, steps, None, c.conducting, c.t_turnoff))
     runner.t, runner.y = t_end, sol(t_end)
+    if partial:  # on from t_lim: a period step by step, then in closed form again
+        return False, False, period
     return True, bound_hit, None
+
+
+def _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, horizon) -> bool:
+    """Every branch stays on its piece, and every Shockley diode flat, over ``horizon`` [s]."""
+    for icap, ref, th in _branch_pieces(c):
+        w = nv_grad.copy()
+        u_inf = nv_inf - ref
+        if icap is not None:
+            w[icap] -= 1.0
+            u_inf -= x_inf[icap]
+        bound = float(np.sum(np.abs(w @ amp))) + abs(float(w @ ramp)) * horizon
+        if any(abs(u_inf - x) <= bound * (1 + 1e-6) + 1e-9 * c.v_scale for x in th):
+            return False
+    for k in curved:
+        # a Shockley diode's chain: its law is curved everywhere, but far enough in reverse it
+        # is flat (−I_s): its departure from the tangent the model took, over the whole interval
+        # the chain voltage can reach, must stay below :data:`CURVED_TOL` of the start current
+        w = nv_grad.copy()
+        u_inf = nv_inf - c.Vs * c.chains[k].reference
+        icap = c.icap.get(k)
+        if icap is not None:
+            w[icap] -= 1.0
+            u_inf -= x_inf[icap]
+        bound = float(np.sum(np.abs(w @ amp))) + abs(float(w @ ramp)) * horizon
+        if not curved_departure(c, k, t0, y0, u_inf, bound) <= CURVED_TOL * abs(c.i0):
+            return False
+    return True
 
 
 def _node_affine(c, t, y_inf, amp):
@@ -209,31 +266,47 @@ def _energy_quadratic(c, t, y_inf, span):
     return r0, grad, quad
 
 
-def _dyn_energy(c, x, v_fin, dyn_caps):
-    """Oscillating energy (coil plus capacitors about their final voltages) of states x (ie, n)."""
+def _dyn_energy(c, x, v_fin, dyn_caps, ts=None, held_level=0.0, drains=None):
+    """Oscillating energy (coil plus capacitors about their final voltages) of states x (ie, n).
+
+    With the times ``ts`` [s]: a capacitor draining through a blocking diode at the constant
+    current ``drains[k]`` [A] counts only while it is not *held* — while the energy it drains
+    over a span as long as the run so far exceeds ``held_level`` [J] (the detailed engine's
+    rule, :func:`kickback.engine.detailed.integrate`)."""
     v = x[1] if c.capacitive else v_fin
     w = 0.5 * c.L * x[0] ** 2 + 0.5 * c.C_node * (v - v_fin) ** 2
     for k in dyn_caps:
         target = v_fin - c.Vs * c.chains[k].reference
-        w = w + 0.5 * c.chains[k].capacitance * (x[c.icap[k]] - target) ** 2
+        dv = x[c.icap[k]] - target
+        term = 0.5 * c.chains[k].capacitance * dv ** 2
+        if ts is not None and drains and k in drains:
+            term = np.where(drains[k] * np.abs(dv) * ts <= held_level, 0.0, term)
+        w = w + term
     return np.atleast_1d(w)
 
 
 def _first_below(c, sol, t0, t_bound, dt, level, v_fin, dyn_caps):
+    """First time the ring's energy is below its level: ``level`` is (rest level [J], held
+    level [J], drains, see :func:`_dyn_energy`)."""
+    rest, held_level, drains = level
+
+    def e_at(ts):
+        return _dyn_energy(c, sol.dynamic(ts), v_fin, dyn_caps, ts, held_level, drains) - rest
+
     t = t0
     while t < t_bound:
         ts = t + dt * np.arange(1, CHUNK + 1)
         ts = ts[ts <= t_bound] if ts[-1] > t_bound else ts
         if ts.size == 0:
             break
-        e = _dyn_energy(c, sol.dynamic(ts), v_fin, dyn_caps) - level
+        e = e_at(ts)
         k = np.flatnonzero(e <= 0)
         if k.size:
             k = int(k[0])
             a = ts[k - 1] if k > 0 else t
 
             def g(s):
-                return float(_dyn_energy(c, sol.dynamic(s), v_fin, dyn_caps)[0] - level)
+                return float(e_at(np.atleast_1d(s))[0])
             return (brentq(g, a, ts[k], xtol=1e-15 * ts[k]) if g(a) > 0 else ts[k]), False
         t = float(ts[-1])
     return t_bound, True

@@ -34,6 +34,8 @@ from kickback.engine.linphase import run_affine_phase
 from kickback.engine.periodic_bracket import (
     FORGOTTEN,  # noqa: F401  (its former home)
     bracketed_root,
+    held_root,
+    held_state,
 )
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
@@ -211,7 +213,17 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                 and _one_kept_flips(jm_fd, scale, f, f_prev):
             # one state carries the map, and a step that took off little of its residual
             # crossed its fixed point: bracketed, Brent's method beats Newton jumping across
-            got = _bracketed_root(c, duty, frequency, rtol, scale, jm_fd, history)
+            got = held_root(c, duty, frequency, rtol, scale, jm_fd, history, one_cycle, STEADY_TOL) \
+                or _bracketed_root(c, duty, frequency, rtol, scale, jm_fd, history)
+            if got is not None:
+                x, e_on, e_off, runner, resid, more = got
+                solves += more
+                break
+        if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev \
+                and held_state(jm_fd, scale) is not None:
+            # a held state (nil slope where the Jacobian was taken) and a step that did not
+            # help: bracket it (periodic_bracket.held_root) rather than back off along the step
+            got = held_root(c, duty, frequency, rtol, scale, jm_fd, history, one_cycle, STEADY_TOL)
             if got is not None:
                 x, e_on, e_off, runner, resid, more = got
                 solves += more
@@ -264,7 +276,8 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         # Newton step lands on the fixed point, and that cycle is the one reported
         full = True
     else:
-        got = _bracketed_root(c, duty, frequency, rtol, scale, jm_fd, history)
+        got = _bracketed_root(c, duty, frequency, rtol, scale, jm_fd, history) \
+            or held_root(c, duty, frequency, rtol, scale, jm_fd, history, one_cycle, STEADY_TOL)
         if got is None:
             raise SolverError(f"the periodic steady state did not converge at duty {duty:g} "
                               f"(relative residual {resid:.1e}, Newton step {step:.1e} after {MAX_NEWTON} "

@@ -9,6 +9,8 @@ R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from kickback.circuit import Circuit
@@ -18,6 +20,9 @@ from kickback.errors import SolverError
 #: forgets (a node discharged through the switch at turn-on): the noise of a 1e-6 difference of
 #: two cycle solves at rtol 1e-8 is ~1e-3
 FORGOTTEN = 1e-2
+#: a state whose own slope in the cycle map is 1 within this is *held* (the difference noise of
+#: its diagonal entry is ~1e-6; a slope this close to 1 leaves Newton's step undefined anyway)
+HELD_SLOPE = 1e-3
 
 
 def forgotten(jm: np.ndarray, scale: np.ndarray) -> np.ndarray:
@@ -106,3 +111,79 @@ def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale
     if not resid <= tol:
         return None
     return x, e_on, e_off, runner, resid, solves
+
+
+def held_state(jm, scale: np.ndarray) -> int | None:
+    """The state the cycle map carries over unchanged, where its Jacobian was taken (a capacitor
+    held behind a blocking diode: it drains by a fixed charge each cycle and is topped up only
+    below some voltage): its scaled column is the unit vector, to :data:`HELD_SLOPE` on the diagonal
+    and :data:`FORGOTTEN` off it. None when
+    there is not exactly one."""
+    if jm is None:
+        return None
+    col = np.abs(jm) * scale[None, :] / scale[:, None]
+    n = jm.shape[0]
+    held = [k for k in range(n) if abs(jm[k, k] - 1.0) <= HELD_SLOPE
+            and np.all(np.delete(col[:, k], k) <= FORGOTTEN)]
+    return held[0] if len(held) == 1 else None
+
+
+def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history,
+              one_cycle, tol: float):
+    """The fixed point in a held state ``k`` (:func:`held_state`) by bracketing.
+
+    Its residual is ``F(s) = T(s) − D``: a fixed drain ``D`` per cycle (where nothing tops it up,
+    F is flat at −D and Newton's step is undefined) and a top-up ``T(s)`` that grows as the
+    capacitor starts below the clamp's knee (exponentially for a Shockley diode). The root of
+    ``ln(T(s)/D)``, bracketed by two cycles of the iteration with residuals of opposite signs, is
+    found by Brent's method (nearly linear for a Shockley diode); the other states are held at
+    the best cycle's, then follow. The bracket, not a Newton step, bounds the distance to the
+    fixed point. Returns as :func:`bracketed_root`, or None.
+    """
+    from scipy.optimize import brentq
+
+    k = held_state(jm, scale)
+    if k is None or not history:
+        return None
+    n = c.ie
+    others = np.arange(n) != k
+    pts = [(float(x[k]), float(f[k])) for x, f in history]
+    pos = [p for p in pts if p[1] > 0]
+    neg = [p for p in pts if p[1] < 0]
+    if not pos or not neg:
+        return None
+    drain = max(-f for _, f in neg)
+    lo, hi = max(pos), min(neg)
+    if not lo[0] < hi[0]:
+        return None
+    # the cycle whose other states are best settled
+    base = np.array(min(history, key=lambda xf: float(np.max(np.abs(xf[1][others]) / scale[others])))[0])
+    solves = 0
+
+    def residual(s):
+        nonlocal solves
+        xx = base.copy()
+        xx[k] = s
+        solves += 1
+        return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
+
+    try:
+        root = brentq(lambda s: math.log(max(residual(s) + drain, 1e-12 * drain) / drain), lo[0], hi[0],
+                      xtol=1e-3 * tol * scale[k], rtol=4 * np.finfo(float).eps, maxiter=100)
+    except (ValueError, RuntimeError, SolverError):
+        return None
+    x = base.copy()
+    x[k] = root
+    for _ in range(3):  # the other states follow the held one
+        x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
+        solves += 1
+        if float(np.max(np.abs(x1 - x)[others] / scale[others])) <= tol:
+            break
+        x[others] = x1[others]
+    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
+    solves += 1
+    resid = float(np.max(np.abs(x1 - x) / scale))
+    if not resid <= tol:
+        return None
+    return x, e_on, e_off, runner, resid, solves
+
