@@ -1,0 +1,150 @@
+"""A cold ``kickback run`` (issue 18): wall time of fresh processes, measured as ratios in one run.
+
+Run from the repository top:
+    python benchmarks/bench_cold.py [--n 15] [--case cases/irrigation_valve.toml] [--baseline DIR]
+    python benchmarks/bench_cold.py --phases [--n 7]
+
+Each round starts, one after the other and in a rotating order, a fresh Python process for
+
+* ``python -c pass`` (the interpreter alone: the floor of any command),
+* ``kickback run CASE --out TMP`` with this checkout's code (``PYTHONPATH`` = the repository top),
+  the plots included, as the ``kickback`` console script runs it,
+* the same command with the code of ``--baseline DIR`` (another checkout, e.g. one made with
+  ``git archive <commit> | tar -x -C DIR``), when given.
+
+and prints each one's median, quartiles and minimum over ``--n`` rounds, the median of the
+per-round ratios (this code / baseline, this code / the interpreter alone) and the load average
+before and after. On a shared machine the wall times move with the load; a ratio measured within
+a round moves much less. A run's exit status must be 0 or 1 (a verdict), else the benchmark stops.
+
+``--phases`` instead runs ``--n`` fresh processes that time, in order, each step of the same run
+inside the process (imports, case loading, the simulation, the JSON, CSV and table, the picture
+and each file format) and prints the median of each step.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+#: what the ``kickback`` console script does
+ENTRY = "import sys; from kickback.cli import main; sys.exit(main())"
+
+PHASES = r'''
+import sys, time
+marks = [("interpreter", time.perf_counter())]
+def mark(name):
+    marks.append((name, time.perf_counter()))
+import kickback.cli; mark("import kickback.cli (click)")
+from kickback.cli_common import load_or_exit
+case = load_or_exit(sys.argv[1]); mark("load the case")
+from kickback.simulation import simulate; mark("import the engine (numpy, scipy)")
+result = simulate(case, rtol=1e-5); mark("simulate")
+from kickback.outputs.csvout import waveforms_csv
+from kickback.outputs.jsonout import to_json
+from kickback.outputs.table import result_table
+to_json(result.to_dict()); waveforms_csv(result); result_table(result); mark("JSON, CSV, table")
+from kickback.outputs.plots import figure_bytes
+import matplotlib.figure; mark("import matplotlib")
+fig, _ = result.plot(); mark("draw the figure (plot_result)")
+figure_bytes(fig, "png"); mark("PNG")
+figure_bytes(fig, "svg"); mark("SVG")
+import json
+print(json.dumps({name: b - a for (_, a), (name, b) in zip(marks, marks[1:])}))
+'''
+
+
+def _env(path: Path | None) -> dict[str, str]:
+    env = dict(os.environ)
+    env.pop("PYTHONPATH", None)
+    if path is not None:
+        env["PYTHONPATH"] = str(path)
+    return env
+
+
+def _time(cmd: list[str], env: dict[str, str], ok=(0,)) -> float:
+    t0 = time.perf_counter()
+    proc = subprocess.run(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT)
+    dt = time.perf_counter() - t0
+    if proc.returncode not in ok:
+        sys.exit(f"bench_cold: {' '.join(cmd)} exited {proc.returncode}: {proc.stderr.decode()[-400:]}")
+    return dt
+
+
+def _quartiles(xs: list[float]) -> tuple[float, float, float]:
+    q = statistics.quantiles(xs, n=4) if len(xs) > 1 else [xs[0]] * 3
+    return q[0], statistics.median(xs), q[2]
+
+
+def bench(n: int, case: str, baseline: Path | None, plot: bool) -> None:
+    out = Path(tempfile.mkdtemp(prefix="kickback-cold-"))
+    run = [sys.executable, "-c", ENTRY, "run", case, "--out", str(out)] + ([] if plot else ["--no-plot"])
+    variants = {"python -c pass": ([sys.executable, "-c", "pass"], _env(None), (0,)),
+                "kickback run (this code)": (run, _env(ROOT), (0, 1))}
+    if baseline is not None:
+        variants["kickback run (baseline)"] = (run, _env(baseline.resolve()), (0, 1))
+    for cmd, env, ok in variants.values():  # warm the file cache and the bytecode caches once
+        _time(cmd, env, ok)
+    print(f"{' '.join(run[3:])}, {n} rounds, load average before: {os.getloadavg()}")
+    times: dict[str, list[float]] = {k: [] for k in variants}
+    names = list(variants)
+    for r in range(n):
+        for k in names[r % len(names):] + names[:r % len(names)]:
+            cmd, env, ok = variants[k]
+            times[k].append(_time(cmd, env, ok))
+    print(f"load average after: {os.getloadavg()}")
+    print(f"{'':28s} {'median':>8s} {'q1':>8s} {'q3':>8s} {'min':>8s}  [s]")
+    for k, xs in times.items():
+        q1, med, q3 = _quartiles(xs)
+        print(f"{k:28s} {med:8.3f} {q1:8.3f} {q3:8.3f} {min(xs):8.3f}")
+    new = times["kickback run (this code)"]
+    floor = times["python -c pass"]
+    print(f"this code - interpreter alone, median of rounds: {statistics.median(a - b for a, b in zip(new, floor)):.3f} s")
+    if baseline is not None:
+        old = times["kickback run (baseline)"]
+        ratios = [a / b for a, b in zip(new, old)]
+        q1, med, q3 = _quartiles(ratios)
+        print(f"this code / baseline, per round: median {med:.3f} (quartiles {q1:.3f}–{q3:.3f})")
+
+
+def phases(n: int, case: str) -> None:
+    rows: dict[str, list[float]] = {}
+    totals = []
+    cmd = [sys.executable, "-c", PHASES, case]
+    _time(cmd, _env(ROOT))
+    print(f"phases of one cold run of {case} in this code, {n} processes, load average {os.getloadavg()}")
+    for _ in range(n):
+        t0 = time.perf_counter()
+        proc = subprocess.run(cmd, env=_env(ROOT), capture_output=True, text=True, cwd=ROOT, check=True)
+        totals.append(time.perf_counter() - t0)
+        for name, value in json.loads(proc.stdout.strip().splitlines()[-1]).items():
+            rows.setdefault(name, []).append(value)
+    for name, xs in rows.items():
+        print(f"{name:40s} {1000 * statistics.median(xs):7.0f} ms")
+    print(f"{'process wall time (median)':40s} {1000 * statistics.median(totals):7.0f} ms")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--n", type=int, default=15, help="rounds (default 15)")
+    ap.add_argument("--case", default="cases/irrigation_valve.toml")
+    ap.add_argument("--baseline", type=Path, default=None, help="another checkout's top folder")
+    ap.add_argument("--no-plot", action="store_true", help="time `run --no-plot` instead")
+    ap.add_argument("--phases", action="store_true", help="time each step inside the process instead")
+    args = ap.parse_args()
+    if args.phases:
+        phases(args.n, args.case)
+    else:
+        bench(args.n, args.case, args.baseline, not args.no_plot)
+
+
+if __name__ == "__main__":
+    main()
