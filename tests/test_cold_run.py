@@ -1,16 +1,175 @@
-"""A cold ``kickback run`` (issue 18): the faster PNG writer gives matplotlib's own pixels.
+"""A cold ``kickback run`` (issue 18): what it imports, and the child that draws its pictures.
 
-The speed itself is measured by ``benchmarks/bench_cold.py`` (a benchmark, not a timed test).
+The speed itself is measured by ``benchmarks/bench_cold.py`` (a benchmark, not a timed test); these
+tests hold what that speed rests on: ``run`` imports only what it needs, and the pictures drawn in
+the forked child (:mod:`kickback.outputs.painter`) are byte for byte those drawn in-process, with
+the in-process drawing taking over whenever the child cannot deliver.
 """
 
 from __future__ import annotations
 
+import json
+import os
+import subprocess
+import sys
+import warnings
 from pathlib import Path
 
 import pytest
 
+from kickback.outputs import painter as painter_mod
+
 ROOT = Path(__file__).resolve().parent.parent
 CASE = ROOT / "cases" / "irrigation_valve.toml"
+PWM_CASE = ROOT / "cases" / "valve_pwm_hold.toml"
+
+#: modules a single run never needs: studies, parallel back ends, the schematic, compiled engines
+NOT_FOR_RUN = ("dask", "distributed", "numba", "schemdraw", "hypothesis", "kickback.studies",
+               "kickback.engine.batch", "kickback.engine.radau5", "matplotlib.pyplot", "scipy.stats",
+               "scipy.interpolate", "concurrent.futures.process")
+
+_PROBE = """
+import atexit, json, sys
+listing = sys.argv.pop()
+def _report():
+    names = sorted(m for m in sys.modules)
+    with open(listing, "w") as fh:
+        json.dump(names, fh)
+atexit.register(_report)
+from kickback.cli import main
+main()
+"""
+
+
+def _run_modules(tmp_path, args, painter: str) -> tuple[subprocess.CompletedProcess, set[str]]:
+    """Run ``kickback`` in a fresh process; the modules it had imported at exit."""
+    listing = tmp_path / "modules.json"
+    env = dict(os.environ, PYTHONPATH=str(ROOT), **{painter_mod.ENV: painter})
+    proc = subprocess.run([sys.executable, "-c", _PROBE, *args, str(listing)], env=env,
+                          capture_output=True, text=True, cwd=tmp_path)
+    return proc, set(json.loads(listing.read_text()))
+
+
+def _imported(modules: set[str], name: str) -> bool:
+    return name in modules or any(m.startswith(name + ".") for m in modules)
+
+
+def test_run_imports_only_what_it_needs(tmp_path):
+    # --no-plot: no matplotlib at all; and never a study, a cluster, the compiled engines or pyplot
+    proc, mods = _run_modules(tmp_path, ["run", str(CASE), "--out", str(tmp_path / "o"), "--no-plot"], "0")
+    assert proc.returncode in (0, 1), proc.stderr
+    assert not _imported(mods, "matplotlib")
+    assert [m for m in NOT_FOR_RUN if _imported(mods, m)] == []
+    assert "scipy.integrate" in mods  # the probe sees the engine's own import (it could fail)
+
+
+def test_run_draws_in_the_child_when_told(tmp_path):
+    # KICKBACK_PAINTER=1: the parent never imports matplotlib, yet the pictures are written
+    proc, mods = _run_modules(tmp_path, ["run", str(CASE), "--out", str(tmp_path / "o")], "1")
+    assert proc.returncode in (0, 1), proc.stderr
+    assert not _imported(mods, "matplotlib")
+    assert [m for m in NOT_FOR_RUN if _imported(mods, m)] == []
+    assert (tmp_path / "o" / "waveforms.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert b"<svg" in (tmp_path / "o" / "waveforms.svg").read_bytes()[:400]
+
+
+def test_run_without_the_child_draws_in_process(tmp_path):
+    proc, mods = _run_modules(tmp_path, ["run", str(CASE), "--out", str(tmp_path / "o")], "0")
+    assert proc.returncode in (0, 1), proc.stderr
+    assert "matplotlib.figure" in mods
+    assert [m for m in NOT_FOR_RUN if _imported(mods, m)] == []
+
+
+@pytest.mark.parametrize("case", [CASE, PWM_CASE], ids=("valve", "pwm"))
+def test_child_and_in_process_write_the_same_files(tmp_path, case):
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    outs = {}
+    for mode in ("1", "0"):
+        out = tmp_path / mode
+        proc = subprocess.run([sys.executable, "-m", "kickback.cli", "run", str(case), "--out", str(out)],
+                              env={**env, painter_mod.ENV: mode}, capture_output=True, text=True)
+        assert proc.returncode in (0, 1), proc.stderr
+        outs[mode] = {p.name: p.read_bytes() for p in sorted(out.iterdir())}
+    assert sorted(outs["1"]) == sorted(outs["0"])
+    assert {"waveforms.png", "waveforms.svg"} <= set(outs["1"])
+    assert outs["1"] == outs["0"]
+
+
+def _pictures(result):
+    from kickback.cli_run import pictures_of
+
+    return pictures_of(result)
+
+
+def _boom(arg):
+    raise ValueError(f"cannot draw {arg!r}")
+
+
+def _warns(arg):
+    warnings.warn(f"odd value {arg}", RuntimeWarning, stacklevel=1)
+    return {"x": bytes([arg])}
+
+
+@pytest.fixture
+def forced(monkeypatch):
+    monkeypatch.setenv(painter_mod.ENV, "1")
+    yield
+    assert painter_mod.CHILDREN == set()  # every child reaped
+
+
+def test_child_returns_what_the_parent_would_draw(forced):
+    from kickback.caseio import load_case
+    from kickback.simulation import simulate
+
+    result = simulate(load_case(CASE))
+    p = painter_mod.start(_pictures)
+    assert p is not None and p.send(result)
+    got = p.receive()
+    assert p.error is None
+    assert got == _pictures(result)
+
+
+def test_failure_in_the_child_leaves_the_drawing_to_the_parent(forced):
+    p = painter_mod.start(_boom)
+    assert p.send(7)
+    assert p.receive() is None
+    assert "ValueError: cannot draw 7" in p.error
+
+
+def test_unpicklable_job_is_not_sent(forced):
+    p = painter_mod.start(_pictures)
+    assert not p.send(lambda: None)
+    assert p.receive() is None and "pickle" in p.error.lower()
+
+
+def test_child_warnings_are_raised_again_in_the_parent(forced):
+    p = painter_mod.start(_warns)
+    assert p.send(5)
+    with pytest.warns(RuntimeWarning, match="odd value 5"):
+        assert p.receive() == {"x": b"\x05"}
+
+
+def test_closing_an_unused_child_reaps_it(forced):
+    p = painter_mod.start(_pictures)
+    pid = p.pid
+    p.close()
+    p.close()
+    with pytest.raises(ChildProcessError):
+        os.waitpid(pid, os.WNOHANG)
+
+
+def test_free_core_follows_the_setting_and_the_load(monkeypatch):
+    monkeypatch.setenv(painter_mod.ENV, "0")
+    assert not painter_mod.free_core()
+    monkeypatch.setenv(painter_mod.ENV, "")
+    monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.5, 0.0, 0.0))
+    assert painter_mod.free_core()
+    monkeypatch.setattr(os, "getloadavg", lambda: (2.0, 0.0, 0.0))
+    assert not painter_mod.free_core()
+    monkeypatch.setattr(os, "cpu_count", lambda: 1)
+    monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+    assert not painter_mod.free_core()
 
 
 def _decoded(png: bytes):
