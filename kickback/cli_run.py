@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gc
 import sys
 from pathlib import Path
 
@@ -40,6 +41,11 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     The result is audited first (energy ledger, no negative dissipation, every check the ratings
     call for, finite figures); a result that fails its audit gets no verdict: exit status 2.
     """
+    # One run allocates a bounded amount (a few MB of cyclic garbage on the demo cases), while the
+    # cyclic collector's passes over what numpy, scipy and matplotlib create on import cost ~8 %
+    # of a cold run's CPU time (benchmarks/bench_cold.py): it is off until the command ends.
+    collecting = gc.isenabled()
+    gc.disable()
     painter = None
     try:
         c = load_or_exit(case)
@@ -53,6 +59,8 @@ def run(case: str, as_json: bool, out_dir: str | None, no_plot: bool, rtol: floa
     finally:
         if painter is not None:
             painter.close()
+        if collecting:
+            gc.enable()
 
 
 def _run(c, out: Path | None, trace, painter, as_json: bool, no_plot: bool, rtol: float) -> None:

@@ -214,3 +214,25 @@ def test_see_through_figure_keeps_its_alpha():
     mode, _, pixels = _decoded(figure_bytes(fig, "png"))
     assert mode == "RGBA" and pixels[..., 3].min() == 0
     assert (pixels == _decoded(_matplotlib_png(fig))[2]).all()
+
+
+def test_run_collects_no_cycles_while_it_runs_and_restores_the_collector(tmp_path, monkeypatch):
+    import gc
+
+    from click.testing import CliRunner
+
+    import kickback.simulation
+    from kickback.cli import main
+
+    seen = []
+    real = kickback.simulation.simulate
+
+    def watched(*args, **kwargs):
+        seen.append(gc.isenabled())
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(kickback.simulation, "simulate", watched)
+    assert gc.isenabled()
+    result = CliRunner().invoke(main, ["run", str(CASE), "--no-plot", "--out", str(tmp_path / "o")])
+    assert result.exit_code in (0, 1), result.output
+    assert seen == [False] and gc.isenabled()
