@@ -76,10 +76,10 @@ def _env(path: Path | None) -> dict[str, str]:
     return env
 
 
-def _time(cmd: list[str], env: dict[str, str], ok=(0,)) -> tuple[float, float]:
+def _time(cmd: list[str], env: dict[str, str], ok=(0,), cwd: Path = ROOT) -> tuple[float, float]:
     """Wall time and CPU time (user + system, the process and its children) of one run [s]."""
     t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT)
+    proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=cwd)
     err = proc.stderr.read()
     _, status, usage = os.wait4(proc.pid, 0)
     dt = time.perf_counter() - t0
@@ -96,7 +96,11 @@ def _quartiles(xs: list[float]) -> tuple[float, float, float]:
 
 
 def bench(n: int, case: str, baseline: Path | None, plot: bool, painter: bool) -> None:
-    out = Path(tempfile.mkdtemp(prefix="kickback-cold-"))
+    # run from a folder of its own: ``python -c`` puts the working folder first on sys.path, so
+    # from the repository top every variant would import this checkout's code
+    work = Path(tempfile.mkdtemp(prefix="kickback-cold-"))
+    out = work / "out"
+    case = str((ROOT / case).resolve())
     run = [sys.executable, "-c", ENTRY, "run", case, "--out", str(out)] + ([] if plot else ["--no-plot"])
     variants = {"python -c pass": ([sys.executable, "-c", "pass"], _env(None), (0,)),
                 "kickback run (this code)": (run, _env(ROOT), (0, 1))}
@@ -106,14 +110,19 @@ def bench(n: int, case: str, baseline: Path | None, plot: bool, painter: bool) -
         variants["kickback run (this code)"] = (run, {**_env(ROOT), "KICKBACK_PAINTER": "1"}, (0, 1))
         variants["this code, in-process"] = (run, {**_env(ROOT), "KICKBACK_PAINTER": "0"}, (0, 1))
     for cmd, env, ok in variants.values():  # warm the file cache and the bytecode caches once
-        _time(cmd, env, ok)
-    print(f"{' '.join(run[3:])}, {n} rounds, load average before: {os.getloadavg()}")
+        _time(cmd, env, ok, work)
+    print(f"run {Path(case).relative_to(ROOT)} --out DIR{'' if plot else ' --no-plot'}, {n} rounds, "
+          f"load average before: {os.getloadavg()}")
+    for k, (_cmd, env, _ok) in variants.items():  # which code each variant runs
+        where = subprocess.run([sys.executable, "-c", "import kickback; print(kickback.__file__)"], env=env,
+                               cwd=work, capture_output=True, text=True, check=True).stdout.strip()
+        print(f"  {k}: {where}")
     times: dict[str, list[tuple[float, float]]] = {k: [] for k in variants}
     names = list(variants)
     for r in range(n):
         for k in names[r % len(names):] + names[:r % len(names)]:
             cmd, env, ok = variants[k]
-            times[k].append(_time(cmd, env, ok))
+            times[k].append(_time(cmd, env, ok, work))
     print(f"load average after: {os.getloadavg()}")
     for j, what in enumerate(("wall time", "CPU time (user + system)")):
         print(f"{what + ' [s]':28s} {'median':>8s} {'q1':>8s} {'q3':>8s} {'min':>8s}")
