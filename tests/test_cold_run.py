@@ -10,8 +10,10 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import subprocess
 import sys
+import time
 import warnings
 from pathlib import Path
 
@@ -236,3 +238,38 @@ def test_run_collects_no_cycles_while_it_runs_and_restores_the_collector(tmp_pat
     result = CliRunner().invoke(main, ["run", str(CASE), "--no-plot", "--out", str(tmp_path / "o")])
     assert result.exit_code in (0, 1), result.output
     assert seen == [False] and gc.isenabled()
+
+
+def _gone(pid: int) -> bool:
+    """Whether process ``pid`` has ended (no longer listed, or a zombie waiting to be reaped)."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except (FileNotFoundError, ProcessLookupError):
+        return True
+    return stat.rsplit(")", 1)[1].split()[0] in ("Z", "X")
+
+
+@pytest.mark.skipif(not Path("/proc/self/task").exists(), reason="reads /proc (Linux)")
+@pytest.mark.parametrize(("sig", "status"), [(signal.SIGINT, 130), (signal.SIGTERM, 143)], ids=("SIGINT", "SIGTERM"))
+def test_signal_to_the_parent_stops_the_picture_child(tmp_path, sig, status):
+    # the signal goes to the parent alone (not its group): its usual exit status, nothing written,
+    # and no child left running (the parent stops it; a child would also end at the end of its pipe)
+    env = dict(os.environ, PYTHONPATH=str(ROOT), **{painter_mod.ENV: "1"})
+    out = tmp_path / "o"
+    proc = subprocess.Popen([sys.executable, "-m", "kickback.cli", "run", str(CASE), "--out", str(out)],
+                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    children = Path(f"/proc/{proc.pid}/task/{proc.pid}/children")
+    end = time.monotonic() + 60
+    kids: list[str] = []
+    while not kids and time.monotonic() < end and proc.poll() is None:
+        kids = children.read_text().split() if children.exists() else []
+        time.sleep(0.005)
+    assert kids, "the run never forked its picture child"
+    os.kill(proc.pid, sig)
+    _, stderr = proc.communicate(timeout=60)
+    assert proc.returncode == status, stderr
+    end = time.monotonic() + 10
+    while not _gone(int(kids[0])) and time.monotonic() < end:
+        time.sleep(0.05)
+    assert _gone(int(kids[0]))
+    assert not out.exists()
