@@ -164,6 +164,7 @@ def test_free_core_follows_the_setting_and_the_load(monkeypatch):
     monkeypatch.setenv(painter_mod.ENV, "0")
     assert not painter_mod.free_core()
     monkeypatch.setenv(painter_mod.ENV, "")
+    monkeypatch.setattr(sys, "platform", "linux")
     monkeypatch.setattr(os, "cpu_count", lambda: 2)
     monkeypatch.setattr(os, "getloadavg", lambda: (0.9, 0.0, 0.0))
     assert painter_mod.free_core()
@@ -172,6 +173,12 @@ def test_free_core_follows_the_setting_and_the_load(monkeypatch):
     monkeypatch.setattr(os, "cpu_count", lambda: 1)
     monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
     assert not painter_mod.free_core()
+    monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    assert painter_mod.free_core()
+    monkeypatch.setattr(sys, "platform", "darwin")
+    assert not painter_mod.free_core()
+    monkeypatch.setenv(painter_mod.ENV, "1")
+    assert painter_mod.free_core()
 
 
 def _decoded(png: bytes):

@@ -1,16 +1,16 @@
 """Drawing a run's pictures in a second process while this one simulates (issue 18, a cold run).
 
-A cold ``kickback run --out`` spends about a fifth of its CPU time importing matplotlib and a
-third drawing and encoding the pictures; the engine needs neither. On a machine with a core to
+A cold ``kickback run --out`` spends about a fifth of its CPU time importing matplotlib and nearly
+a third drawing and encoding the pictures; the engine needs neither. On a machine with a core to
 spare, :func:`start` forks a child that imports matplotlib (and loads its font) while the parent
 imports scipy and simulates; :meth:`Painter.send` then hands the child the result (pickled) and
 :meth:`Painter.receive` gets the pictures' bytes back. The child runs the same function the
 parent would, so the files are the same either way.
 
-Whenever the child cannot be used the caller draws in its own process: no ``os.fork``, a single
-core, a load average that leaves no core idle (a busy machine gains nothing from a second
-process and pays for it), a result that cannot be pickled, or a child that fails, dies or takes
-longer than :data:`WAIT_S`. An error in the drawing itself therefore surfaces in the parent, as
+Whenever the child cannot be used the caller draws in its own process: not Linux (unless asked
+for), a single core, a load average that leaves no core idle (a busy machine gains nothing from
+a second process and pays for it), a result that cannot be pickled, or a child that fails, dies
+or takes longer than :data:`WAIT_S`. An error in the drawing itself therefore surfaces in the parent, as
 without the child. Warnings raised in the child are raised again in the parent. The child ignores
 Ctrl-C (the parent's to handle, :mod:`kickback.cliguard`), which stops it with SIGTERM.
 
@@ -26,6 +26,7 @@ import os
 import pickle
 import select
 import signal
+import sys
 import time
 import warnings
 from collections.abc import Callable
@@ -42,14 +43,17 @@ ENV = "KICKBACK_PAINTER"
 
 
 def free_core() -> bool:
-    """Whether a second process would run beside this one: ``os.fork`` exists and the machine's
-    one-minute load average leaves at least one of its cores idle (on a busy machine the child only
-    adds its cost: measured at a load of 7 on 2 cores, a run took ~10 % more CPU and wall time)."""
+    """Whether a second process would run beside this one: on Linux (macOS system libraries do not
+    all survive a fork, so ``multiprocessing`` spawns there), when the machine's one-minute load
+    average leaves at least one of its cores idle (on a busy machine the child only adds its cost:
+    measured at a load of 7 on 2 cores, a run took ~10 % more CPU and wall time)."""
     setting = os.environ.get(ENV, "")
     if setting == "0" or not hasattr(os, "fork"):
         return False
     if setting == "1":
         return True
+    if not sys.platform.startswith("linux"):
+        return False
     cores = os.cpu_count() or 1
     try:
         load = os.getloadavg()[0]
