@@ -73,6 +73,12 @@ def _stop_workers() -> None:
 
     for proc in multiprocessing.active_children():
         proc.terminate()
+    painter = sys.modules.get("kickback.outputs.painter")  # run's picture child, if one was started
+    for pid in list(painter.CHILDREN) if painter is not None else ():
+        try:
+            os.kill(pid, signal.SIGTERM)
+        except OSError:
+            pass
 
 
 def _on_signal(signum, frame):

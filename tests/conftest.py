@@ -5,10 +5,16 @@ xdist workers solved, and the store's rewrite in a refresh run (tests/agreement_
 from __future__ import annotations
 
 import json
+import os
 import sys
 from pathlib import Path
 
 import pytest
+
+# `kickback run --out` may draw its pictures in a forked child when a core is free
+# (kickback/outputs/painter.py): the suite draws in-process, whatever the machine's load, and
+# tests/test_cold_run.py asks for the child where it tests it (same bytes either way)
+os.environ.setdefault("KICKBACK_PAINTER", "0")
 
 ROOT = Path(__file__).resolve().parent.parent
 CASES = ROOT / "cases"
