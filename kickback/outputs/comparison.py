@@ -32,7 +32,8 @@ def comparison_table(cmp) -> str:
     lines += ["", "* the case's own clamp set (sets the exit status)"]
     lines += _part_lines(cmp)
     if cmp.builtin:
-        note = ("other options: built-in families sized to keep checks.min_margin under the derated switch voltage at the coil's current "
+        note = ("other options: built-in families sized to keep checks.min_margin under the derated switch "
+                "voltage at the coil's current "
                 "(generic diode 0.9 V at 1 A; ideal Zener/TVS: a built-in TVS clamps at its breakdown voltage, "
                 "V_C = V_BR, and needs a part with stand-off V_WM at least the supply); give your own parts as "
                 "[[option]] in the case")
