@@ -1,0 +1,171 @@
+"""Both engines (issue 14): the ring after an avalanche into an RC snubber, against an independent solve.
+
+A MOSFET avalanches at a vertical V_BR with an RC snubber across it: the avalanche ends with the
+snubber capacitor charged to V_BR, the resistor between it and the node carrying exactly no
+current and the coil current at zero. From there the node rings back to the supply through the
+coil and the snubber (the body diode catching the first swing below ground). The detailed engine
+read the resistor's conductance at exactly 0 V across it as 0 S (a piecewise-linear law with no
+zero-current band was read as if it had one), took the capacitor for one that can only drain
+through a leakage, ended the run at the first current zero and left 1.2e-4 J "in capacitors":
+clamp energy 24 % and coil-resistance energy 7 % below the batch engine (wide-range case 600).
+
+Both engines end a run the same way (DESIGN.md §3, kickback/engine/detailed.py
+``RING_END_FRACTION``): once the energy still moving — ½·L·i² plus each capacitor's
+½·C·(v − v_rest)² — is below 0.1 % of the energy at the start, and then at the next zero of the
+coil current if the current is still above 0.1 % of i0. The reference below ends the same way.
+
+Reference: the node equations written out here (Kirchhoff's current law at the switch node,
+L di/dt across the coil, C dv/dt for the snubber capacitor — C. K. Alexander and M. N. O. Sadiku,
+Fundamentals of Electric Circuits, ch. 7–8), the channel current falling linearly over t_f
+(N. Mohan, T. M. Undeland and W. P. Robbins, Power Electronics, 3rd ed., ch. 2), the body diode
+0.7 V + R_on below ground (the program's stated MOSFET law), the node held at V_BR while the
+avalanche takes current; scipy.integrate.solve_ivp (Radau, rtol 1e-11) phase by phase, split at
+the avalanche's start and end. All values are invented demo values (the random valid case 600 of
+tests/wide_range.py).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import integrate
+
+from kickback import load_case, simulate
+from kickback.models.base import LinearPieces
+from kickback.studies.many import simulate_many
+
+RTOL = 1e-11
+VS, L, R, C_COIL = 142.97967581960745, 0.03631107173970061, 573.3501441502639, 1.4729129593823037e-11
+R_ON, T_F, C_SW, V_BR = 0.22655482298901714, 7.791058907619259e-08, 1.556988172977454e-11, 406.26133783961194
+R_S, C_S, V_BD = 174.56748816828858, 1.4491955259564449e-09, 0.7
+
+CASE = f"""
+title = "demo: avalanching MOSFET with an RC snubber across it"
+[supply]
+voltage = "{VS!r} V"
+[coil]
+inductance = "{L!r} H"
+resistance = "{R!r} Ω"
+capacitance = "{C_COIL!r} F"
+[switch]
+type = "mosfet"
+on_resistance = "{R_ON!r} Ω"
+fall_time = "{T_F!r} s"
+capacitance = "{C_SW!r} F"
+breakdown_voltage = "{V_BR!r} V"
+[[clamp]]
+name = "RC"
+across = "switch"
+[[clamp.element]]
+type = "resistor"
+resistance = "{R_S!r} Ω"
+[[clamp.element]]
+type = "capacitor"
+capacitance = "{C_S!r} F"
+"""
+
+C_N = C_SW + C_COIL
+I0 = VS / (R + R_ON)
+V0 = I0 * R_ON  # on-state: the snubber capacitor starts at the on-state node voltage
+E0 = 0.5 * L * I0 ** 2 + 0.5 * C_COIL * (VS - V0) ** 2 + 0.5 * C_SW * V0 ** 2 + 0.5 * C_S * V0 ** 2
+REST = 1e-3 * E0
+
+
+def _switch(v, t):
+    ch = min(v / R_ON, I0 * (1.0 - t / T_F)) if t < T_F else 0.0
+    bd = (v + V_BD) / R_ON if v < -V_BD else 0.0
+    return ch, bd
+
+
+def _free(t, y):
+    i, v, vc = y[:3]
+    ch, bd = _switch(v, t)
+    ir = (v - vc) / R_S
+    return [(VS - v - R * i) / L, (i - ch - bd - ir) / C_N, ir / C_S, R * i * i, R_S * ir * ir, v * ch, 0.0]
+
+
+def _held(t, y):
+    i, _, vc = y[:3]
+    ch, _ = _switch(V_BR, t)
+    ir = (V_BR - vc) / R_S
+    return [(VS - V_BR - R * i) / L, 0.0, ir / C_S, R * i * i, R_S * ir * ir, V_BR * ch, V_BR * (i - ch - ir)]
+
+
+def _moving(y):
+    """Energy still moving [J]: coil, node and snubber above their rest (node and capacitor at VS)."""
+    return 0.5 * L * y[0] ** 2 + 0.5 * C_N * (y[1] - VS) ** 2 + 0.5 * C_S * (y[2] - VS) ** 2
+
+
+def _reference():
+    """Coil-resistance, snubber-resistor, channel and avalanche energies [J] at the run's end."""
+    y = np.array([I0, V0, V0, 0.0, 0.0, 0.0, 0.0])
+    t, held, rang, crossing = 0.0, False, False, False
+    atol = [1e-15, 1e-10, 1e-10, 1e-18, 1e-18, 1e-18, 1e-18]
+    for _ in range(50):
+        if held:
+            def ev(t, y):
+                return y[0] - _switch(V_BR, t)[0] - (V_BR - y[2]) / R_S  # the avalanche current ends
+            ev.direction = -1
+            evs = [ev]
+        else:
+            def up(t, y):
+                return y[1] - V_BR * (1 + 1e-13)
+            up.direction = 1
+
+            def rest(t, y, crossing=crossing, rang=rang):
+                if crossing:
+                    return y[0]  # then the next zero of the coil current
+                return _moving(y) - REST if rang else 1.0
+            rest.direction = 0 if crossing else -1
+            evs = [up, rest]
+        for e in evs:
+            e.terminal = True
+        t1 = T_F if t < T_F else 1.0
+        sol = integrate.solve_ivp(_held if held else _free, (t, t1), y, method="Radau", rtol=RTOL, atol=atol,
+                                  events=evs, first_step=1e-14)
+        assert sol.status >= 0, sol.message
+        t, y = sol.t[-1], sol.y[:, -1].copy()
+        if sol.status == 0:
+            continue
+        if held:
+            held, rang = False, True  # the coil current is at zero: the ring starts
+        elif len(sol.t_events[0]):
+            held, y[1] = True, V_BR
+        elif crossing or abs(y[0]) <= 1e-3 * I0:
+            return t, y[3:]
+        else:
+            crossing = True
+    raise AssertionError("reference did not finish")
+
+
+@pytest.fixture(scope="module")
+def reference():
+    return _reference()
+
+
+def test_resistor_with_no_voltage_still_conducts():
+    # Ohm's law: di/dv = 1/R at every voltage, 0 V included
+    assert LinearPieces(0.0, R_S, 0.0, R_S).slope_at(0.0) == pytest.approx(1.0 / R_S, rel=1e-15)
+    assert LinearPieces(0.0, 2.0, 0.0, 5.0).slope_at(0.0) == pytest.approx(0.2, rel=1e-15)
+    assert LinearPieces(1.0, 2.0, -1.0, 5.0).slope_at(0.0) == 0.0  # a real zero-current band
+
+
+def test_detailed_engine_follows_the_ring(reference):
+    t_end, (e_r, e_s, e_ch, e_av) = reference
+    f = simulate(load_case(CASE, source="ring-after-avalanche")).figures
+    # the run went on after the first current zero (2.85e-5 s) until the ring had settled
+    assert f.end_time_s == pytest.approx(t_end, rel=1e-3)
+    assert f.resistance_energy_J == pytest.approx(e_r, rel=1e-5)
+    assert f.clamps[0].energy_J == pytest.approx(e_s, rel=1e-5)
+    assert f.avalanche_energy_J == pytest.approx(e_av, rel=1e-5)
+    assert f.crossover_energy_J == pytest.approx(e_ch, rel=1e-5)
+
+
+def test_batch_engine_follows_the_ring(reference):
+    t_end, (e_r, e_s, e_ch, e_av) = reference
+    m = simulate_many(load_case(CASE, source="ring-after-avalanche"), workers=1)
+    c = m.figures
+    assert float(c["coil.resistance_energy_J"][0]) == pytest.approx(e_r, rel=1e-6)
+    assert float(c["clamps[0].energy_J"][0]) == pytest.approx(e_s, rel=1e-6)
+    assert float(c["switch.avalanche_energy_J"][0]) == pytest.approx(e_av, rel=1e-6)
+    assert float(c["switch.crossover_energy_J"][0]) == pytest.approx(e_ch, rel=1e-6)
