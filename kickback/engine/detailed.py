@@ -37,6 +37,8 @@ MAX_RHS_CALLS = 400_000
 DEFAULT_RTOL = 1e-5
 #: a node with capacitance is pinned at a vertical law this far (relative) before its voltage
 PIN_AHEAD = 1e-7
+#: smallest factor by which a steep law tightens the node voltage's relative tolerance
+STEEP_FLOOR = 1e-6
 #: the edge phase takes at least this many steps over the fall time
 EDGE_STEPS = 20
 
@@ -49,8 +51,12 @@ class _Radau(CheckedNewton, Radau):
     systems of a few states.
     """
 
-    def __init__(self, *args, **kwargs):
+    def __init__(self, *args, rtol_vector=None, **kwargs):
         super().__init__(*args, **kwargs)
+        if rtol_vector is not None:
+            # per-state relative tolerance (scipy's Radau takes a scalar; its error scale
+            # atol + rtol·|y| is elementwise, so a vector set here is used as is)
+            self.rtol = np.maximum(rtol_vector, 100 * np.finfo(float).eps)
         if not hasattr(self.J, "toarray"):
             self.lu = self._lu
             self.solve_lu = self._solve_lu
@@ -149,6 +155,44 @@ def tolerances(c: Circuit, rtol: float) -> np.ndarray:
     return atol
 
 
+def relative_tolerances(c: Circuit, rtol: float) -> np.ndarray | None:
+    """Relative tolerance per state, or None where ``rtol`` serves every state.
+
+    A steep law (incremental resistance r, knee at V_k) turns an error δ of the node voltage
+    into a current error δ/r; with δ = rtol·|V_k| that is rtol·|V_k|/r, which for an avalanche
+    of 10 mΩ at 400 V is 4·10⁴ times rtol·i0 (the avalanche current lost at the end of its
+    pulse). The node voltage and the snubber capacitors' voltages are therefore held to
+    rtol·min(1, r·i0/|V_k|) over every law with a finite knee and r > 0 (vertical laws are
+    pinned instead), the factor floored at ``STEEP_FLOOR``.
+    """
+    if not c.capacitive:
+        return None
+    worst = 1.0
+
+    def steep(v_k, r):
+        nonlocal worst
+        if math.isfinite(v_k) and abs(v_k) > 0 and r > c.r_min:
+            worst = min(worst, r * c.i0 / abs(v_k))
+
+    off = c.switch.off_state
+    steep(off.v_fwd, off.r_fwd)
+    steep(off.v_rev, off.r_rev)
+    for k in c.active_chains:
+        p = c.chains[k].pieces
+        if p is not None:
+            ref = c.Vs * c.chains[k].reference
+            steep(ref + p.v_fwd, p.r_fwd)
+            steep(ref + p.v_rev, p.r_rev)
+    if worst >= 1.0:
+        return None
+    worst = max(worst, STEEP_FLOOR)
+    out = np.full(c.n_states, rtol)
+    out[1] = rtol * worst
+    for idx in c.icap.values():
+        out[idx] = rtol * worst
+    return out
+
+
 class PhaseRunner:
     """Integrates a circuit phase by phase with Radau, switching the node's pin mode at the
     vertical laws' events; records the phases (dense solutions) and the node's voltage peaks."""
@@ -157,6 +201,7 @@ class PhaseRunner:
         self.c = c
         self.rtol = rtol
         self.atol = tolerances(c, rtol)
+        self.rtol_vector = relative_tolerances(c, rtol)
         self.scale = np.maximum(self.atol / rtol, 1e-300)
         self.calls = 0
         #: [S, relative to i0/v_scale] level of the conductance event that starts the floating mode
@@ -311,7 +356,7 @@ class PhaseRunner:
             # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
             with np.errstate(divide="ignore"):
                 sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
-                                jac=self.jac, dense_output=True, events=evs, **kw)
+                                jac=self.jac, dense_output=True, events=evs, rtol_vector=self.rtol_vector, **kw)
         except SolverError:
             raise
         except (ValueError, ArithmeticError, FloatingPointError) as exc:
