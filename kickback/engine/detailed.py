@@ -508,13 +508,21 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         # a capacitor behind a reverse-biased Shockley diode drains only through the diode's
         # saturation current (seconds to hours): it is held when the energy its chain could move
         # at its present current and conductance, over a span as long as the run so far, is
-        # below a tenth of the rest level; its charge is then left in the capacitor (DESIGN §3)
+        # below a tenth of the rest level; its charge is then left in the capacitor (DESIGN §3).
+        # What the chain could move is read both from its conductance and from the current it
+        # would carry with the capacitor at rest (the larger): an RC snubber charged to V_BR by an
+        # avalanche has exactly 0 V across its resistor as the ring starts, where a
+        # piecewise-linear law's slope reads 0 S, and was taken for a held capacitor (the run
+        # ended at the first current zero; tests/test_ring_after_avalanche.py)
         ch = c.chains[k]
         v = c.node_voltage(t, y)
         vx = v - c.Vs * ch.reference
-        i = ch.current_at(vx, y[c.icap[k]])
-        g = ch.conductance_at(vx, y[c.icap[k]])
-        return (abs(i) + g * abs(dv)) * abs(dv) * t <= HELD_FRACTION * rest_level
+        vc = y[c.icap[k]]
+        i = ch.current_at(vx, vc)
+        g = ch.conductance_at(vx, vc)
+        i_rest = ch.current_at(vx, vc - dv)
+        moved = max(g * abs(dv), abs(i_rest - i)) if math.isfinite(i_rest) else math.inf
+        return (abs(i) + moved) * abs(dv) * t <= HELD_FRACTION * rest_level
 
     rest_level = RING_END_FRACTION * e0
     if c.case.coil.release_current is not None:

@@ -74,15 +74,7 @@ class LinearPieces:
         return 0.0
 
     def slope_at(self, v: float) -> float:
-        """Incremental conductance di/dv [S] at voltage ``v`` [V] (inf on a vertical piece).
-
-        With no zero-current band (``v_rev == v_fwd``, a resistor) the law has a kink at that
-        voltage, not a gap: there the smaller of its two slopes is returned, never 0 — a resistor
-        with exactly no voltage across it still conducts.
-        """
-        if v == self.v_fwd == self.v_rev:
-            r = max(self.r_fwd, self.r_rev)
-            return 1.0 / r if r > 0 else math.inf
+        """Incremental conductance di/dv [S] at voltage ``v`` [V] (inf on a vertical piece)."""
         if v > self.v_fwd:
             return 1.0 / self.r_fwd if self.r_fwd > 0 else math.inf
         if v < self.v_rev:
