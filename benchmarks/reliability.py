@@ -105,12 +105,14 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--cases", type=int, default=10_000, help="cases to draw (default 10000)")
     ap.add_argument("--start", type=int, default=0, help="first seed (default 0)")
+    ap.add_argument("--seeds", type=int, nargs="+", default=None,
+                    help="these seeds only (instead of --cases/--start): re-check named cases")
     ap.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
     ap.add_argument("--limit", type=float, default=5.0, help="seconds before a case is killed (default 5)")
     ap.add_argument("--log", type=Path, default=None, help="JSON-lines record of every solve (resumes)")
     ap.add_argument("--save", type=Path, default=None, help="write each failing case's TOML here")
     args = ap.parse_args(argv)
-    seeds = range(args.start, args.start + args.cases)
+    seeds = args.seeds if args.seeds is not None else range(args.start, args.start + args.cases)
     done: list[dict] = []
     if args.log is not None and args.log.exists():
         done = [json.loads(x) for x in args.log.read_text().splitlines() if x.strip()]
@@ -134,7 +136,7 @@ def main(argv=None) -> int:
     finally:
         if log is not None:
             log.close()
-    print(summarize(records, args.cases), end="")
+    print(summarize(records, len(seeds)), end="")
     print(f"\n{len(tasks)} solves in {time.perf_counter() - t0:.0f} s on {args.workers} workers"
           f" ({len(done)} taken from the log)")
     if args.save is not None:

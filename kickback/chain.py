@@ -23,6 +23,23 @@ def regularized(pieces: LinearPieces, r_min: float) -> LinearPieces:
                         pieces.v_rev, pieces.r_rev if pieces.r_rev > 0 else r_min)
 
 
+def _regularize_last(laws: list, r_min: float) -> list:
+    """Piecewise-linear ``laws`` of one chain (None: a capacitor) with ``r_min`` [Ω] given, per
+    conduction direction where the chain's total resistance is zero, to the last element of zero
+    resistance (its element power then carries the regularising r_min·i², and the elements still
+    add up to the chain's law)."""
+    out = list(laws)
+    idx = [k for k, law in enumerate(laws) if law is not None]
+    for side in ("r_fwd", "r_rev"):
+        if idx and sum(getattr(laws[k].pieces(), side) for k in idx) == 0:
+            k = idx[-1]
+            p = out[k].pieces()
+            q = LinearPieces(p.v_fwd, r_min if side == "r_fwd" else p.r_fwd,
+                             p.v_rev, r_min if side == "r_rev" else p.r_rev)
+            out[k] = PiecewiseLinearLaw(q, out[k].description)
+    return out
+
+
 @dataclass
 class Chain(SeriesSolve):
     """One clamp as used by the circuit.
@@ -43,11 +60,20 @@ class Chain(SeriesSolve):
         self.laws = []
         self.exact_pieces: list[LinearPieces | None] = []
         self.capacitance = None
-        for el in self.clamp.elements:
-            law = element_law(el)
-            self.exact_pieces.append(law.pieces() if law is not None else None)
+        laws = exact = [element_law(el) for el in self.clamp.elements]
+        # a chain of piecewise-linear laws only is regularised as a whole, where its total
+        # resistance is zero: a zero-resistance diode beside a 1 Ω Zener given r_min of its own
+        # moved the chain's current at V_BR by r_min/1 Ω relative, and an avalanche sharing the
+        # current with it by far more (1.1e-4 of its energy at the default regularisation)
+        whole = all(law is None or law.pieces() is not None for law in laws)
+        if whole and self.r_min > 0:
+            laws = _regularize_last(laws, self.r_min)
+        for el, law, law_exact in zip(self.clamp.elements, laws, exact, strict=True):
+            self.exact_pieces.append(law_exact.pieces() if law_exact is not None else None)
             if law is None:
                 self.capacitance = el.capacitance
+            elif whole:
+                pass
             elif self.r_min > 0 and law.pieces() is not None:
                 p = regularized(law.pieces(), self.r_min)
                 law = PiecewiseLinearLaw(p, law.description)

@@ -109,11 +109,18 @@ def test_vertical_chain_current_is_infinite_beyond_threshold():
 
 
 def test_regularised_chain_has_no_thresholds():
-    """r_min > 0 raises the zero resistances: finite current (V − 24.7)/(2·r_min) (derived)."""
+    """r_min > 0 raises a chain's zero total resistance: finite current (V − 24.7)/r_min (derived)."""
     r_min = 1e-3
     ch = _chain(_cd_diode(0.7), _zener(24.0), r_min=r_min)
     assert ch.thresholds() == [], "a regularised chain is not vertical"
-    _close(ch.current(24.8), 0.1 / (2 * r_min), 1e-10, "regularised D + Z current")
+    _close(ch.current(24.8), 0.1 / r_min, 1e-10, "regularised D + Z current")
+
+
+def test_chain_with_resistance_is_not_regularised():
+    """A zero-resistance diode beside a 1 Ω Zener: the chain's law is exact whatever r_min,
+    i = (V − 24.7 V)/1 Ω (Ohm's law); per-element regularisation had made it 1 Ω + r_min."""
+    ch = _chain(_cd_diode(0.7), _zener(24.0, 1.0), r_min=1e-3)
+    _close(ch.current(25.7), 1.0, 1e-14, "D + Z(1 Ω) current")
 
 
 # ============================================================================ Shockley chains

@@ -136,6 +136,10 @@ class ElementPiece:
     invalid: np.ndarray | None = None  # (N,) bool: values that make no law
     refuse: tuple | None = None  # ((N,) bool, reason): values outside the fit's stated error
     leak: np.ndarray | None = None  # (N,) [A] reverse saturation current the fit leaves out (Shockley)
+    #: the exact law's voltage [V] at reverse currents: ``exact(i, idx)`` for currents ``i`` (G,) of
+    #: the variants ``idx``; read where a reverse-saturated Shockley diode shares a chain's
+    #: held-off voltage with a leaking element (a varistor far below its knee)
+    exact: object = None
 
 
 @dataclass
@@ -148,6 +152,10 @@ class ChainLaw:
     #: elements sit at their reverse zero-current edge and the diode holds the rest (as the
     #: detailed engine shares a reverse-saturated chain)
     saturating: int | None = None
+    #: per element (None: capacitor, or no exact law kept): :attr:`ElementPiece.exact`
+    exact: list = field(default_factory=list)
+    #: (a = n·V_T, I_s, R_s) arrays (N,) of the saturating diode
+    diode: tuple | None = None
 
 
 def _pw(V, r, n):
@@ -195,7 +203,7 @@ def element_piece(el, get, i0, n) -> ElementPiece:
             segs = chords(vfun, i0, n)
         note = ("Shockley diode as a piecewise-linear fit (" + describe() + "; exact law in the detailed engine)")
         return ElementPiece("diode", segs, [], description="Shockley diode (fitted)", fitted=True, fit_note=note,
-                            invalid=bad | (vj <= 0), leak=np.where(bad, 0.0, i_s))
+                            invalid=bad | (vj <= 0), leak=np.where(bad, 0.0, i_s), exact=(a, i_s, rs))
     if t in ("zener", "tvs"):
         v, rd = get("voltage"), get("dynamic_resistance")
         if el.test_current is not None:  # the datasheet's values (models.factory.breakdown_parameters)
@@ -216,7 +224,7 @@ def element_piece(el, get, i0, n) -> ElementPiece:
     if t == "resistor":
         R = get("resistance")
         return ElementPiece("resistor", _pw(0.0, R, n), _pw_rev(0.0, R, n), linear=True, description="resistor",
-                            invalid=~(R > 0))
+                            invalid=~(R > 0), exact=lambda i, idx: R[idx] * i)
     if t == "varistor":
         v1, alpha, i1 = get("voltage"), get("exponent"), get("at_current")
         i1 = np.where(np.isfinite(i1), i1, 1e-3)
@@ -230,7 +238,11 @@ def element_piece(el, get, i0, n) -> ElementPiece:
         rev = [(-V, r, -hi, -lo) for V, r, lo, hi in reversed(fwd)]
         note = ("varistor as a piecewise-linear fit, both polarities (" + describe()
                 + "; exact law in the detailed engine)")
+        def exact(i, idx):
+            return np.sign(i) * v1[idx] * (np.abs(i) / i1[idx]) ** (1.0 / alpha[idx])
+
         return ElementPiece("varistor", fwd, rev, description="varistor (fitted)", fitted=True, fit_note=note,
+                            exact=exact,
                             invalid=~((v1 > 0) & (alpha > 0)),
                             refuse=(alpha < FIT_MIN_EXPONENT, f"varistor exponent below {FIT_MIN_EXPONENT:g}: the "
                                     "batch engine's piecewise-linear fit has no stated error there (the detailed "

@@ -232,6 +232,9 @@ class BatchCircuit:
             sat = [j for j, el in enumerate(cl.elements) if el.type == "diode" and el.model != "constant-drop"]
             if len(sat) == 1:
                 ch.saturating = sat[0]
+                it = iter(pieces)
+                ch.exact = [None if el.type == "capacitor" else next(it).exact for el in cl.elements]
+                ch.diode, ch.exact[sat[0]] = ch.exact[sat[0]], None
             if caps is not None:
                 self.fail(np.any(law.r[:, [s for s, kd in enumerate(law.kinds) if kd == "seg"]] <= 0, axis=1),
                           f"{cl.name}: a capacitor in series with elements of zero resistance has no defined "

@@ -88,7 +88,52 @@ class Record:
                 for j, e in zip(others, edges, strict=True):
                     out[j] = np.where(rev, e, out[j])
                 out[d] = np.where(rev, u - vc - total, out[d])
+                if ch.diode is not None and any(ch.exact[j] is not None for j in others):
+                    # the leaking elements share with the diode what the others' edges leave
+                    fixed = sum((e for j, e in zip(others, edges, strict=True) if ch.exact[j] is None),
+                                np.zeros(cur.shape))
+                    leak = ~nonzero & (u - vc < fixed)
+                    if np.any(leak):
+                        for j, e in zip(others, edges, strict=True):
+                            out[j] = np.where(leak & (ch.exact[j] is None), e, out[j])
+                        self._leak_split(ch, d, others, edges, gi, u - vc, leak, out)
         return out
+
+    @staticmethod
+    def _leak_split(ch, d, others, edges, gi, ux, rev, out):
+        """The held-off voltage of a chain whose Shockley diode is reverse-saturated, shared by
+        the exact laws (as the detailed engine's chain solve shares it): the chain current
+        i = I_s·(e^s − 1) with the diode at a·s + R_s·i, the other elements at their exact
+        reverse laws (a varistor far below its knee) or their zero-current edges; s by bisection
+        on the monotone sum (Shockley, W. Shockley, Bell Syst. Tech. J. 28, 1949; varistor
+        i = I_1·(v/V_1)^α, L. M. Levinson and H. R. Philipp, Am. Ceram. Soc. Bull. 65, 1986)."""
+        k = np.nonzero(rev)[0]
+        g = gi[k]
+        a, i_s, rs = (x[g] for x in ch.diode)
+        target = ux[k]
+        fixed = sum((e[k] for j, e in zip(others, edges, strict=True) if ch.exact[j] is None), np.zeros(k.size))
+
+        def total(s):
+            i = i_s * np.expm1(s)
+            return a * s + rs * i + fixed + sum(ch.exact[j](i, g) for j in others if ch.exact[j] is not None)
+
+        lo = np.minimum((target - fixed) / a - 1.0, -1e-300)
+        hi = np.zeros(k.size)
+        with np.errstate(over="ignore", invalid="ignore"):
+            for _ in range(200):
+                mid = 0.5 * (lo + hi)
+                above = total(mid) > target
+                hi = np.where(above, mid, hi)
+                lo = np.where(above, lo, mid)
+                if np.all(hi - lo <= 1e-15 * np.abs(lo)):
+                    break
+            s = 0.5 * (lo + hi)
+            i = i_s * np.expm1(s)
+            for j in others:
+                if ch.exact[j] is not None:
+                    out[j][k] = ch.exact[j](i, g)
+            rest = sum((out[j][k] for j in others), np.zeros(k.size))
+        out[d][k] = target - rest  # the diode: what the others leave (the sum to the last bit)
 
     def _update(self, c, gi, cur, vel, keep):
         """Extremes at segment ends (the stand-off is not read there: see :meth:`rest_states`
