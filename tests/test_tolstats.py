@@ -81,6 +81,14 @@ def test_a_small_study_is_gathered_and_a_large_one_merged(runs):
     assert not m.exact and m.samples is None and m.figures is None and m.passed is None
     assert m.to_dict()["percentiles_from"].startswith("merged")
     assert g.n == m.n == N
+    from kickback.outputs.tolerances import tolerance_figure, tolerance_table
+
+    assert "merged from per-chunk histograms" in tolerance_table(m)
+    assert "per-chunk" not in tolerance_table(g)
+    assert tolerance_table(m).split("percentiles")[0] == tolerance_table(g).split("percentiles")[0]
+    fig = tolerance_figure(m)  # drawn from the merged counts alone
+    assert [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()] == \
+        [ax.get_title(loc="left") for ax in tolerance_figure(g).axes if ax.get_visible()]
 
 
 def test_merged_percentiles_lie_within_their_bracket_of_numpy(runs):
@@ -204,3 +212,28 @@ def test_bins_are_ordered_like_the_values():
     assert np.all(lo <= x) and np.all(x < hi)
     normal = np.abs(x) > 1e-300
     assert np.all((hi - lo)[normal] <= tolstats.BIN_REL_WIDTH * np.minimum(abs(lo), abs(hi))[normal] * (1 + 1e-12))
+
+
+def test_the_command_streams_samples_csv_into_its_out_set(tmp_path):
+    from click.testing import CliRunner
+
+    from kickback.cli import main
+    from kickback.outputs.tolerances import samples_csv
+
+    p = tmp_path / "c.toml"
+    p.write_text(TOL, encoding="utf-8")
+    out = tmp_path / "o"
+    res = CliRunner().invoke(main, ["tolerance", str(p), "--samples", "300", "--seed", "3", "--recheck", "0",
+                                    "--workers", "2", "--out", str(out), "--no-plot"])
+    assert res.exit_code in (0, 1), res.output
+    tr = run_tolerance(load_case(p), 300, 3, workers=1, recheck=0)
+    assert (out / "samples.csv").read_text(encoding="utf-8") == samples_csv(tr)
+    assert sorted(q.name for q in out.iterdir()) == ["samples.csv", "tolerance.json"]
+    # a study that cannot run leaves no file behind, not even the one being streamed
+    bad = tmp_path / "thermal.toml"
+    bad.write_text(TOL.replace('type = "ideal"\n', 'type = "ideal"\nthermal_resistance = ["1 K/W"]\n'
+                               'thermal_tau = ["1 ms"]\n', 1), encoding="utf-8")
+    res = CliRunner().invoke(main, ["tolerance", str(bad), "--samples", "4", "--engine", "batch",
+                                    "--out", str(tmp_path / "o2")])
+    assert res.exit_code == 2 and "Traceback" not in res.output
+    assert sorted(q.name for q in tmp_path.iterdir()) == ["c.toml", "o", "thermal.toml"]
