@@ -119,6 +119,10 @@ def _tolerance_cluster(n, workers, dask_malloc, q):
         # Dask's nanny starts its workers with MALLOC_TRIM_THRESHOLD_=65536; glibc then maps and
         # faults in every large numpy temporary afresh (see kickback.parallel.MALLOC_TRIM)
         dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None})
+    # Dask's statistical profiler samples each running task every 10 ms and keeps the trees for
+    # distributed.admin.low-level-log-length one-second cycles: a worker's memory grew with the
+    # study (about 14 MiB per 10^4 samples measured, flat with it off; distributed/profile.py)
+    dask.config.set({"distributed.worker.profile.enabled": False})
     case = load_case(BOARD / "ch1_irrigation_valve.toml")
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0") as cl, \
             Client(cl) as client:
