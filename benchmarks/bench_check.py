@@ -105,8 +105,7 @@ def _tolerance_local(n, q):
     dt = time.perf_counter() - t
     cpu1, rss = _usage()
     children = resource.getrusage(resource.RUSAGE_CHILDREN)
-    q.put((dt, cpu1 - cpu0, rss, children.ru_utime + children.ru_stime, tr.yield_, tr.yield_ci,
-           tr.figures["peak_voltage_V"]))
+    q.put((dt, cpu1 - cpu0, rss, children.ru_utime + children.ru_stime, tr.yield_, tr.yield_ci, tr.to_dict()))
 
 
 def _tolerance_cluster(n, workers, dask_malloc, q):
@@ -120,6 +119,10 @@ def _tolerance_cluster(n, workers, dask_malloc, q):
         # Dask's nanny starts its workers with MALLOC_TRIM_THRESHOLD_=65536; glibc then maps and
         # faults in every large numpy temporary afresh (see kickback.parallel.MALLOC_TRIM)
         dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None})
+    # Dask's statistical profiler samples each running task every 10 ms and keeps the trees for
+    # distributed.admin.low-level-log-length one-second cycles: a worker's memory grew with the
+    # study (about 14 MiB per 10^4 samples measured, flat with it off; distributed/profile.py)
+    dask.config.set({"distributed.worker.profile.enabled": False})
     case = load_case(BOARD / "ch1_irrigation_valve.toml")
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0") as cl, \
             Client(cl) as client:
@@ -135,24 +138,24 @@ def _tolerance_cluster(n, workers, dask_malloc, q):
         per_worker = [(after[w][0] - before[w][0], after[w][1]) for w in sorted(after)]
         malloc = sorted({str(v) for v in client.run(lambda: __import__("os").environ.get("MALLOC_TRIM_THRESHOLD_"))
                          .values()})
-    q.put((dt, per_worker, cpu1 - cpu0, rss, malloc, tr.yield_, tr.yield_ci, tr.figures["peak_voltage_V"]))
+    q.put((dt, per_worker, cpu1 - cpu0, rss, malloc, tr.yield_, tr.yield_ci, tr.to_dict()))
 
 
 def bench_tolerance(n: int, workers: int, dask_malloc: bool, cluster_only: bool = False) -> None:
     ctx = mp.get_context("spawn")
     q = ctx.Queue()
     load0 = os.getloadavg()
-    t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, peak_one = np.nan, np.nan, np.nan, np.nan, np.nan, \
+    t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, json_one = np.nan, np.nan, np.nan, np.nan, np.nan, \
         (np.nan, np.nan), None
     if not cluster_only:
         p = ctx.Process(target=_tolerance_local, args=(n, q))
         p.start()
-        t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, peak_one = q.get()
+        t_one, cpu_one, rss_one, cpu_children, y_one, ci_one, json_one = q.get()
         p.join()
     load1 = os.getloadavg()
     p = ctx.Process(target=_tolerance_cluster, args=(n, workers, dask_malloc, q))
     p.start()
-    t_cl, per_worker, cpu_client, rss_client, malloc, y_cl, ci_cl, peak_cl = q.get()
+    t_cl, per_worker, cpu_client, rss_client, malloc, y_cl, ci_cl, json_cl = q.get()
     p.join()
     load2 = os.getloadavg()
     cpu_cl = sum(c for c, _ in per_worker)
@@ -166,7 +169,8 @@ def bench_tolerance(n: int, workers: int, dask_malloc: bool, cluster_only: bool 
     print(f"    client (and scheduler): CPU {cpu_client:.1f} s  peak memory {rss_client / 1024:.0f} MiB")
     print(f"    workers' MALLOC_TRIM_THRESHOLD_: {', '.join(malloc)}")
     print(f"  yield {y_one:.6f} [{ci_one[0]:.6f}, {ci_one[1]:.6f}] / {y_cl:.6f} [{ci_cl[0]:.6f}, {ci_cl[1]:.6f}]; "
-          f"peak voltages identical: {'(no local run)' if peak_one is None else np.array_equal(peak_one, peak_cl)}")
+          f"JSON identical (percentiles, brackets, worst samples, ...): "
+          f"{'(no local run)' if json_one is None else json_one == json_cl}")
     print("  load average (1 min) before, between, after: " + ", ".join(f"{x[0]:.1f}" for x in (load0, load1, load2))
           + f" on {os.cpu_count()} cores")
 

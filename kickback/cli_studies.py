@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import sys
 
 import click
@@ -157,7 +158,7 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
 
     from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
-    from kickback.outputs.tolerances import samples_csv, tolerance_table
+    from kickback.outputs.tolerances import SamplesCsv, tolerance_table
     from kickback.studies.tolerance import run_tolerance
 
     c = load_or_exit(case)
@@ -167,19 +168,29 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
              'value, e.g. [tolerance."coil.inductance"] band = "10 %")')
     workers = workers or min(os.cpu_count() or 1, 8)
     executor = open_executor(scheduler)
-    try:
-        tr = with_progress("samples", samples,
-                            lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
-                                                           engine=engine, recheck=recheck, executor=executor))
-    except CaseError as err:
-        die(located(err, c.source))
-    except SolverError as err:
-        die(f"{c.source}: --engine: {err}")
-    payload = to_json(tr.to_dict())
-    if out_dir is not None:
-        from kickback.outputs.tolerances import tolerance_figure
+    with contextlib.ExitStack() as stack:
+        sink = csv_path = None
+        if out is not None:  # samples.csv streamed chunk by chunk, in sample order (never all in memory)
+            from kickback.outputs.files import streamed
+            from kickback.studies.tolerance import figure_list
 
-        write_study(out, {"tolerance.json": payload, "samples.csv": samples_csv(tr)}, "tolerance",
-                    None if no_plot else lambda: tolerance_figure(tr))
+            fh, csv_path = stack.enter_context(streamed(out, "samples.csv"))
+            sink = SamplesCsv(fh, tuple(t.path for t in c.tolerances), figure_list(c))
+        try:
+            tr = with_progress("samples", samples,
+                               lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
+                                                              engine=engine, recheck=recheck, executor=executor,
+                                                              sink=sink))
+        except CaseError as err:
+            die(located(err, c.source))
+        except SolverError as err:
+            die(f"{c.source}: --engine: {err}")
+        payload = to_json(tr.to_dict())
+        if out is not None:
+            from kickback.outputs.tolerances import tolerance_figure
+
+            fh.close()
+            write_study(out, {"tolerance.json": payload, "samples.csv": csv_path}, "tolerance",
+                        None if no_plot else lambda: tolerance_figure(tr))
     click.echo(payload if as_json else tolerance_table(tr), nl=False)
-    sys.exit(0 if tr.passed.all() else 1)
+    sys.exit(0 if tr.n_passed == tr.n else 1)

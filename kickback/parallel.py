@@ -33,8 +33,8 @@ from concurrent.futures import Executor
 
 import numpy as np
 
-__all__ = ["chunk_seeds", "cluster_executor", "current", "groups", "local_pool", "map_ordered", "shutdown",
-           "submit", "using", "worker_malloc_note"]
+__all__ = ["chunk_seeds", "cluster_executor", "current", "groups", "imap_ordered", "local_pool", "map_ordered",
+           "shutdown", "submit", "using", "worker_malloc_note"]
 
 _EXECUTOR: contextvars.ContextVar = contextvars.ContextVar("kickback_executor", default=None)
 _INSIDE: contextvars.ContextVar = contextvars.ContextVar("kickback_inside_worker", default=False)
@@ -140,34 +140,50 @@ def map_ordered(func: Callable, items: Sequence, *, workers: int = 1, progress=N
     progress : callable(n_done) or None — called as results arrive, in order
     group : int or None — items per task (None: about :data:`GROUPS_PER_WORKER` tasks per worker)
     """
+    return list(imap_ordered(func, items, workers=workers, progress=progress, group=group))
+
+
+def imap_ordered(func: Callable, items: Sequence, *, workers: int = 1, progress=None,
+                 group: int | None = None, ahead: int | None = None) -> Iterator:
+    """:func:`map_ordered` as a generator: each result is yielded as soon as it and every earlier
+    one are in, so the caller can merge it and let it go; at most ``ahead`` tasks (None: four per
+    worker) are submitted beyond the one being read, so results waiting to be read stay bounded
+    in memory, here and on a Dask worker."""
     items = list(items)
     executor = None if inside_worker() else current()
     if executor is None and workers > 1 and len(items) > 1 and _pool_allowed():
         executor = local_pool(workers)
     if executor is None or len(items) < 2:
-        out = []
         for k, x in enumerate(items):
-            out.append(func(x))
+            yield func(x)
             if progress:
                 progress(k + 1)
-        return out
-    size = group or max(1, -(-len(items) // (GROUPS_PER_WORKER * max(workers, _width(executor)))))
-    futures = [executor.submit(_run_group, func, items[s]) for s in groups(len(items), size)]
-    out = []
+        return
+    width = max(workers, _width(executor))
+    size = group or max(1, -(-len(items) // (GROUPS_PER_WORKER * width)))
+    cuts = groups(len(items), size)
+    ahead = max(1, ahead or GROUPS_PER_WORKER * width)
+    futures: list = []
+    done = 0
     try:
-        for k in range(len(futures)):
-            out += futures[k].result()
+        for k in range(len(cuts)):
+            while len(futures) < min(len(cuts), k + 1 + ahead):
+                futures.append(executor.submit(_run_group, func, items[cuts[len(futures)]]))
+            part = futures[k].result()
             # let the future go once read: a Dask worker keeps a task's result in its memory as
             # long as a client holds its future (Dask distributed, "Managing Memory")
             futures[k] = None
+            for x in part:
+                done += 1
+                yield x
+            del part
             if progress:
-                progress(len(out))
+                progress(done)
     except BaseException:
         for fut in futures:
             if fut is not None:
                 fut.cancel()
         raise
-    return out
 
 
 def submit(func: Callable, arg, *, workers: int = 1):

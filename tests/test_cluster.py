@@ -65,6 +65,23 @@ def test_tolerance_on_a_cluster_is_number_for_number_local(client, engine):
     assert 0 < local.yield_ < 1  # some samples fail: the verdicts were compared, not only passes
 
 
+def test_merged_tolerance_statistics_on_a_cluster_are_number_for_number_local(client):
+    # above the gather limit (here 0) only per-chunk summaries come back: the percentiles, their
+    # brackets, the histograms' counts and the worst samples are merged the same on the cluster
+    case = load_case(CASE)
+    kw = dict(engine="batch", chunk=300, search_budget=4, recheck=2, gather=0)
+    local = run_tolerance(case, 1200, 5, workers=1, **kw)
+    remote = run_tolerance(case, 1200, 5, executor=client, **kw)
+    assert local.samples is None and remote.samples is None and local.brackets
+    assert local.to_dict() == remote.to_dict()
+    for f, s in local.summaries.items():
+        assert np.array_equal(s.keys, remote.summaries[f].keys) and np.array_equal(s.counts, remote.summaries[f].counts)
+    # and the same as the study that gathers every sample, but for the percentiles
+    gathered = run_tolerance(case, 1200, 5, workers=1, **(kw | {"gather": 10**5})).to_dict()
+    assert {k: v for k, v in gathered.items() if not k.startswith("percentile")} == \
+        {k: v for k, v in local.to_dict().items() if not k.startswith("percentile")}
+
+
 @pytest.mark.parametrize("engine", ["batch", "detailed"])
 def test_sweep_on_a_cluster_is_number_for_number_local(client, engine):
     case = load_case(CASE)

@@ -20,7 +20,7 @@ from pathlib import Path
 
 from kickback.errors import OutputError
 
-__all__ = ["PENDING", "check_writable", "discard_pending", "write_atomic", "write_set"]
+__all__ = ["PENDING", "check_writable", "discard_pending", "streamed", "write_atomic", "write_set"]
 
 #: staging folders and temporary files being written now (removed by a signal handler on exit)
 PENDING: set[str] = set()
@@ -112,7 +112,43 @@ def _signals_held():
         signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
-def _write(path: Path, data: str | bytes) -> None:
+@contextlib.contextmanager
+def streamed(out: str | os.PathLike, name: str):
+    """A text file written piece by piece (e.g. as a study's chunks arrive) for the set of files going
+    into the folder ``out``: yields ``(fh, path)``; ``path`` (a temporary file on ``out``'s file system)
+    is then given to :func:`write_set` as the file's content, which moves it into place with the
+    rest. Removed if the set is never written.
+
+    Raises
+    ------
+    OutputError — the temporary file cannot be made.
+    """
+    out = Path(out)
+    base = out if out.is_dir() else _existing_ancestor(out)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=base)
+    except OSError as err:
+        raise OutputError(f"--out: cannot write in {base}: {err.strerror or err} (expected a writable folder)",
+                          source=str(out)) from None
+    PENDING.add(tmp)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            yield fh, Path(tmp)
+    except OSError as err:
+        raise OutputError(f"--out: cannot write {name}: {err.strerror or err} (expected a writable folder with "
+                          "space)", source=str(out)) from None
+    finally:
+        if os.path.exists(tmp):  # not moved into place by write_set
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+        PENDING.discard(tmp)
+
+
+def _write(path: Path, data: str | bytes | Path) -> None:
+    if isinstance(data, Path):  # a file written already (see streamed): moved, not copied
+        os.replace(data, path)
+        os.chmod(path, 0o666 & ~_umask())
+        return
     mode = "wb" if isinstance(data, bytes) else "w"
     with open(path, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as fh:
         fh.write(data)
@@ -154,7 +190,8 @@ def write_set(out: str | os.PathLike, files: dict[str, str | bytes], family: tup
     out : str or os.PathLike
         The output folder; created (with its parents) when missing.
     files : dict
-        File name → text or bytes.
+        File name → text, bytes, or the Path of a file written already on the same file system
+        (:func:`streamed`), moved into the set.
     family : tuple of str
         Every file name this kind of run can write; those present in ``out`` but not in ``files``
         (left by an earlier run, e.g. plots before a ``--no-plot`` run) are removed with the swap.

@@ -33,7 +33,7 @@ def tolerance_section(study=None):
     from kickback.studies.tolerance import PERCENTILES
 
     lo, hi = study.yield_ci
-    body = (f"<p><b>Yield {100 * study.yield_:.2f} %</b> of {len(study.samples)} samples pass every check "
+    body = (f"<p><b>Yield {100 * study.yield_:.2f} %</b> of {study.n} samples pass every check "
             f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, exact binomial); seed {study.seed}, "
             f"{escape(engine_words(study))}.</p>")
     head = ["figure"] + [("min" if p == 0 else "max" if p == 100 else f"{p:g} %") for p in PERCENTILES]

@@ -43,18 +43,20 @@ def _params(d: dict) -> str:
 
 
 def tolerance_table(tr) -> str:
-    lines = [f"{tr.case.title} — tolerance study: {len(tr.samples)} samples, seed {tr.seed}, "
+    lines = [f"{tr.case.title} — tolerance study: {tr.n} samples, seed {tr.seed}, "
              f"{engine_words(tr)}"]
     lines += [f"  {x}" for x in engine_lines(tr)]
     lines.append("")
     lo, hi = tr.yield_ci
-    n_fail = int((~tr.passed).sum())
+    n_fail = tr.n - tr.n_passed
     lines.append(f"yield: {100 * tr.yield_:.2f} % of samples pass every check "
                  f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, exact binomial); {n_fail} fail")
-    errs = sum(e is not None for e in tr.errors)
+    errs = tr.n_errors
     if errs:
         lines.append(f"{errs} samples could not be simulated (counted as failing)")
-    lines += ["", "percentiles"]
+    lines += ["", "percentiles" if tr.exact else
+              "percentiles (merged from per-chunk histograms: each within 0.025 % of numpy's on the samples; "
+              "min and max exact)"]
     rows = [["figure"] + [f"{p:g} %" if p not in (0.0, 100.0) else ("min" if p == 0 else "max")
                           for p in PERCENTILES]]
     for f, unit, _ in tr.figure_list:
@@ -121,19 +123,46 @@ def recheck_rows(tr) -> list[tuple[str, str]]:
 
 def samples_csv(tr) -> str:
     """The samples as CSV: a header naming every numeric column with its unit (temperatures in °C,
-    like every other output), one row per sample."""
-    from kickback.outputs.csvout import csv_cell, csv_unit
-
+    like every other output), one row per sample (a study whose samples were gathered; a larger
+    one streams them with :class:`SamplesCsv`)."""
     buf = io.StringIO()
-    wr = csv.writer(buf, lineterminator="\n")
-    units = [csv_unit(_unit(n)) for n in tr.names]
-    wr.writerow([f"{n} [{u}]" for n, (u, _) in zip(tr.names, units, strict=True)]
-                + [f"{f} [{u}]".replace(f"_{u} [", " [") for f, u, _ in tr.figure_list] + ["pass", "note"])
-    for k, row in enumerate(tr.samples):
-        figs = [csv_cell(tr.figures[f][k]) for f, _, _ in tr.figure_list]
-        wr.writerow([csv_cell(x, off) for x, (_, off) in zip(row, units, strict=True)] + figs
-                    + [str(bool(tr.passed[k])).lower(), tr.errors[k] or ""])
+    out = SamplesCsv(buf, tr.names, tr.figure_list)
+    out(0, tr.samples, tr.figures, tr.passed, tr.errors)
     return buf.getvalue()
+
+
+class SamplesCsv:
+    """A sink of :func:`kickback.studies.tolerance.run_tolerance` that writes samples.csv to the text
+    file ``fh`` chunk by chunk, as the chunks arrive (in sample order, whatever the workers): the
+    samples are never all in memory. The header goes first, with the first chunk or at once."""
+
+    def __init__(self, fh, names, figure_list):
+        from kickback.outputs.csvout import csv_unit
+
+        self.fh, self.names, self.figure_list = fh, tuple(names), tuple(figure_list)
+        self.units = [csv_unit(_unit(n)) for n in self.names]
+        self.writer = csv.writer(fh, lineterminator="\n")
+        self.writer.writerow([f"{n} [{u}]" for n, (u, _) in zip(self.names, self.units, strict=True)]
+                             + [f"{f} [{u}]".replace(f"_{u} [", " [") for f, u, _ in self.figure_list]
+                             + ["pass", "note"])
+
+    def __call__(self, start, rows, figures, passed, errors) -> None:
+        from kickback.outputs.csvout import csv_cell
+
+        cols = [figures[f] for f, _, _ in self.figure_list]
+        for k, row in enumerate(rows):
+            self.writer.writerow([csv_cell(x, off) for x, (_, off) in zip(row, self.units, strict=True)]
+                                 + [csv_cell(c[k]) for c in cols] + [str(bool(passed[k])).lower(), errors[k] or ""])
+
+
+def histogram(tr, f: str, target: int = 60) -> tuple[np.ndarray, np.ndarray]:
+    """Edges and counts of figure ``f``'s histogram: at most about ``target`` equal bins whose width
+    is a power of two, each a union of the fine bins counted chunk by chunk
+    (:func:`kickback.studies.tolstats.plot_bins`): the counts are exact, equal to
+    ``numpy.histogram`` of the samples with the same edges, and sum to the samples where ``f`` occurs."""
+    from kickback.studies.tolstats import plot_bins
+
+    return plot_bins(tr.summaries[f], target)
 
 
 def tolerance_figure(tr):
@@ -145,7 +174,7 @@ def tolerance_figure(tr):
     from kickback.outputs import style
 
     case = tr.case
-    shown = [(f, u) for f, u, _ in tr.figure_list if np.isfinite(tr.figures[f]).any() and np.nanmax(tr.figures[f]) > 0]
+    shown = [(f, u) for f, u, _ in tr.figure_list if tr.summaries[f].n and tr.summaries[f].high > 0]
     n_rows = max(1, (len(shown) + 1) // 2)
     fig = Figure(figsize=(11, 0.6 + 3.0 * n_rows), layout="constrained")
     axes = np.atleast_1d(fig.subplots(n_rows, 2)).ravel()
@@ -153,9 +182,9 @@ def tolerance_figure(tr):
               else None, "release_s": case.checks.max_release_time, "to_zero_s": case.checks.max_decay_time,
               "clamp_energy_J": case.checks.max_clamp_energy}
     for ax, (f, u) in zip(axes, shown, strict=False):
-        a = tr.figures[f][np.isfinite(tr.figures[f])]
-        ax.hist(a, bins=min(60, max(10, int(np.sqrt(a.size)))), color=style.FILL, alpha=0.75,
-                label=f"{a.size} samples")
+        m = tr.summaries[f].n
+        edges, counts = histogram(tr, f, min(60, max(10, int(np.sqrt(m)))))
+        ax.stairs(counts, edges, fill=True, color=style.FILL, alpha=0.75, label=f"{int(counts.sum())} samples")
         lim = limits.get(f)
         if lim:
             ax.axvline(lim, label=f"limit {q(lim, u)}", **style.LIMIT)
@@ -170,7 +199,7 @@ def tolerance_figure(tr):
         ax.set_ylabel("samples")
     for ax in axes[len(shown):]:
         ax.set_visible(False)
-    style.title(fig, f"{case.title} — {len(tr.samples)} samples, yield {100 * tr.yield_:.2f} % "
+    style.title(fig, f"{case.title} — {tr.n} samples, yield {100 * tr.yield_:.2f} % "
                      f"({engine_words(tr)})")
     engine_footnote(fig, tr)
     return fig

@@ -192,7 +192,7 @@ def _tolerance(case, n: int, seed: int, workers: int = 1) -> dict:
         return {"none": f"the tolerance study could not run: {err}"}
     return {"samples": n, "seed": seed, "yield": tr.yield_, "yield_ci95": list(tr.yield_ci), "engine": tr.asked,
             "engines": tr.engines,
-            "failed_samples": int(len(tr.passed) - tr.passed.sum())}
+            "failed_samples": tr.n - tr.n_passed}
 
 
 def check_cases(paths, *, tolerance: int = 0, seed: int = 1, workers: int = 1, progress=None,

@@ -11,7 +11,7 @@ from kickback import parallel
 from kickback.case import Case
 from kickback.errors import CaseError
 from kickback.keypath import get_value, set_value
-from kickback.models.passive import COPPER_ZERO_K, copper_resistance
+from kickback.models.passive import copper_resistance
 from kickback.studies.tolresult import (
     FIGURES,
     PERCENTILES,
@@ -20,15 +20,21 @@ from kickback.studies.tolresult import (
     json_float,
     params_row,
 )
+from kickback.studies.tolsample import DRAW_BLOCK, draw, draw_rows, evaluate, sample, variations_of
+
+__all__ = ["CHUNK", "DRAW_BLOCK", "GATHER", "PERCENTILES", "ToleranceResult", "apply", "check_varied", "draw",
+           "draw_rows", "evaluate", "figure_list", "nominal", "run_tolerance", "sample", "variations_of"]
 
 MAX_CORNER_VALUES = 10  # 2^10 corners at most
 #: samples per batch of the Monte Carlo (memory is bounded by it, not by the number of samples)
 CHUNK = 10_000
-#: draws per random block (one SeedSequence child each); fixed, so the samples never depend on
-#: the workers, the executor or ``chunk``
-DRAW_BLOCK = 10_000
 #: samples per task when the detailed engine runs them (each sample is solved on its own)
 DETAILED_TASK = 8
+#: studies of up to this many samples keep every sample in this process: exact percentiles, and
+#: every sample's figures in the result; larger ones keep only the merged per-chunk summaries
+#: (percentiles within a stated bracket, :mod:`kickback.studies.tolstats`) and each task draws its
+#: own samples
+GATHER = 100_000
 #: batch-engine samples run again by the detailed engine, drawn at random (seeded)
 RECHECK = 16
 #: rounds of the worst-case search per figure when the batch engine runs (one batch per round)
@@ -41,37 +47,6 @@ def figure_list(case: Case) -> tuple[tuple[str, str, bool], ...]:
     extra = tuple((f"clamp[{k}].energy_J", "J", True) for k in range(len(case.clamps))) \
         if len(case.clamps) > 1 else ()
     return FIGURES + extra
-
-
-def sample(case: Case, n: int, rng: np.random.Generator) -> np.ndarray:
-    """``n`` draws of every toleranced value, shape (n, k) [SI]; normal draws are kept inside the
-    physical range by redrawing the few that cross zero (a coil temperature: copper's zero-resistance
-    point, IEC 60028)."""
-    cols = []
-    for tol in case.tolerances:
-        if tol.distribution == "uniform":
-            x = rng.uniform(tol.low, tol.high, n)
-        else:
-            mid, sd = 0.5 * (tol.low + tol.high), 0.5 * (tol.high - tol.low) / tol.k_sigma
-            x = rng.normal(mid, sd, n)
-            # keep the draws physical: above 0, or above copper's zero-resistance point
-            floor = COPPER_ZERO_K if tol.path == "coil_temperature" else 0.0
-            bad = x <= floor
-            while bad.any():
-                x[bad] = rng.normal(mid, sd, int(bad.sum()))
-                bad = x <= floor
-        cols.append(x)
-    return np.column_stack(cols) if cols else np.zeros((n, 0))
-
-
-def draw(case: Case, n: int, seed: int) -> np.ndarray:
-    """``n`` draws of every toleranced value (:func:`sample`), shape (n, k) [SI], block by block:
-    block j of :data:`DRAW_BLOCK` draws uses child j of ``SeedSequence(seed).spawn`` (see
-    :func:`kickback.parallel.chunk_seeds`), so the numbers depend on ``seed`` and ``n`` only."""
-    seeds = parallel.chunk_seeds(seed, n, DRAW_BLOCK)
-    parts = [sample(case, g.stop - g.start, np.random.default_rng(s))
-             for g, s in zip(parallel.groups(n, DRAW_BLOCK), seeds, strict=False)]
-    return np.vstack(parts) if parts else np.zeros((0, len(case.tolerances)))
 
 
 def _recheck_rng(seed: int, n: int) -> np.random.Generator:
@@ -103,12 +78,40 @@ def check_varied(case: Case, matrix: np.ndarray) -> None:
     ------
     CaseError — ``key="tolerance"``: the values and the rule they break.
     """
+    _check_box(case, [matrix])
+
+
+def _check_box(case: Case, blocks) -> None:
+    """:func:`check_varied` over the samples given block by block (the box merged from each block's)."""
     from kickback.casevary import check_ranges
 
     ends = np.array([[t.low for t in case.tolerances], [t.high for t in case.tolerances]], float)
-    rows = np.vstack([np.atleast_2d(np.asarray(matrix, float)).reshape(-1, len(case.tolerances)), ends])
-    var = variations_of(case, rows)
-    check_ranges(case, {p: (float(np.min(v)), float(np.max(v))) for p, v in var.items()}, "tolerance")
+    box: dict = {}
+    for block in [ends, *blocks]:
+        rows = np.atleast_2d(np.asarray(block, float)).reshape(-1, len(case.tolerances))
+        if not len(rows):
+            continue
+        for p, v in variations_of(case, rows).items():
+            lo, hi = float(np.min(v)), float(np.max(v))
+            box[p] = (min(lo, box[p][0]), max(hi, box[p][1])) if p in box else (lo, hi)
+    check_ranges(case, box, "tolerance")
+
+
+def _scan(case: Case, n: int, seed: int, idx) -> np.ndarray:
+    """Draw the samples block by block without keeping them: check their box (:func:`check_varied`)
+    and return the rows ``idx`` (the recheck's samples)."""
+    idx = np.zeros(0, np.int64) if idx is None else np.asarray(idx, np.int64)
+    picked = np.zeros((idx.size, len(case.tolerances)))
+
+    def blocks():
+        for g in parallel.groups(n, DRAW_BLOCK):
+            block = draw_rows(case, n, seed, g.start, g.stop)
+            here = (idx >= g.start) & (idx < g.stop)
+            picked[here] = block[idx[here] - g.start]
+            yield block
+
+    _check_box(case, blocks())
+    return picked
 
 
 def nominal(case: Case) -> np.ndarray:
@@ -118,35 +121,9 @@ def nominal(case: Case) -> np.ndarray:
     return np.array(out, dtype=float)
 
 
-def variations_of(case: Case, matrix) -> dict:
-    """The rows of ``matrix`` (one column per toleranced value) as variations of ``case`` by key
-    path; the coil temperature scales the (toleranced) coil resistance as :func:`apply` does."""
-    matrix = np.atleast_2d(np.asarray(matrix, float))
-    out: dict = {}
-    temperature = None
-    for j, tol in enumerate(case.tolerances):
-        if tol.path == "coil_temperature":
-            temperature = (matrix[:, j], tol.reference)
-        else:
-            out[".".join(p.strip() for p in tol.path.split("."))] = matrix[:, j]
-    if temperature is not None:
-        r = out.get("coil.resistance", np.full(matrix.shape[0], case.coil.resistance))
-        out["coil.resistance"] = copper_resistance(r, temperature[0], temperature[1])
-    return out
-
-
-def evaluate(case: Case, matrix: np.ndarray, *, engine: str = "detailed", workers: int = 1, progress=None,
-             chunk: int | None = None):
-    """Figures, checks and verdicts of every row of ``matrix``
-    (:class:`kickback.studies.points.Points`)."""
-    from kickback.studies.points import evaluate as run
-
-    return run(case, variations_of(case, matrix), engine=engine, workers=workers, progress=progress, chunk=chunk)
-
-
 def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=None,
                   search_budget: int | None = None, engine: str = "auto", chunk: int = CHUNK,
-                  recheck: int = RECHECK, executor=None) -> ToleranceResult:
+                  recheck: int = RECHECK, executor=None, gather: int = GATHER, sink=None) -> ToleranceResult:
     """Monte Carlo with ``n`` samples (seeded), corners, worst-case search and sensitivity.
 
     Parameters
@@ -166,6 +143,13 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     executor : concurrent.futures.Executor, Dask Client or None — runs the chunks (None: the
         persistent local pool of ``workers`` processes, see :mod:`kickback.parallel`); the same
         seed gives the same numbers on any executor and any number of workers
+    gather : int — up to this many samples (:data:`GATHER`), every sample is kept in this process:
+        the result holds each sample's values, figures and verdict, and exact percentiles. Above
+        it, only the per-chunk summaries are merged (:mod:`kickback.studies.tolchunks`): yield,
+        worst samples and the worst-case search's starts exactly, percentiles within a stated
+        bracket (:mod:`kickback.studies.tolstats`); the samples are not kept.
+    sink : callable or None — ``sink(start, rows, figures, passed, errors)`` with each chunk's
+        samples, in chunk order (whatever the workers), e.g. to stream them to a file
 
     Raises
     ------
@@ -173,6 +157,7 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     SolverError — ``engine="batch"`` for a case the batch engine does not cover
     """
     from kickback.studies.points import pick_engine
+    from kickback.studies.tolchunks import run_chunks
 
     if not case.tolerances:
         raise CaseError("the case has no [tolerance] section (expected at least one toleranced value, "
@@ -180,39 +165,63 @@ def run_tolerance(case: Case, n: int, seed: int, *, workers: int = 1, progress=N
     used, note = pick_engine(case, engine)
     names = tuple(t.path for t in case.tolerances)
     flist = figure_list(case)
-    matrix = draw(case, n, seed)
-    check_varied(case, matrix)
+    keep = n <= gather
     idx = np.sort(_recheck_rng(seed, n).choice(n, size=min(recheck, n), replace=False)) \
         if used == "batch" and recheck > 0 else None
-    with parallel.using(executor), _Recheck(case, matrix, idx, workers) as later:
-        figs, passed, k, errors, worst, fits, retried, audited, counts = _monte_carlo(case, matrix, flist, used,
-                                                                                      workers, progress, chunk)
-        study = _rest(case, names, flist, matrix, figs, used, workers, search_budget)
-        check = None if idx is None else recheck_detailed(idx, figs, passed, flist, later.points())
-    if retried:
-        note = (note + "; " if note else "") + (f"{retried} sample(s) the batch engine could not simulate were run "
-                                                "by the detailed engine")
-    if audited[0]:
+    if keep:
+        matrix = draw(case, n, seed)
+        check_varied(case, matrix)
+        picked = None if idx is None else matrix[idx]
+    else:
+        matrix, picked = None, _scan(case, n, seed, idx)
+    size = max(1, chunk) if used == "batch" else DETAILED_TASK
+    with parallel.using(executor), _Recheck(case, picked, workers) as later:
+        mc = run_chunks(case, seed, n, matrix, flist, used, workers, progress, size, keep=keep, recheck_idx=idx,
+                        sink=sink)
+        study = _rest(case, names, flist, mc, used, workers, search_budget)
+        check = None if idx is None else recheck_detailed(idx, mc["recheck_figures"], mc["recheck_passed"], flist,
+                                                          later.points())
+    if mc["retried"]:
+        note = (note + "; " if note else "") + (f"{mc['retried']} sample(s) the batch engine could not simulate were "
+                                                "run by the detailed engine")
+    if mc["audit"][0]:
         from kickback.studies.pointtable import audit_note
 
-        note = (note + "; " if note else "") + audit_note(*audited)
-    pct = {f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
-           for f, a in figs.items()}
+        note = (note + "; " if note else "") + audit_note(*mc["audit"])
+    pct, brackets = _percentiles(mc, keep)
     worst_per_check = {name: {"margin": json_float(m), "value": json_float(v), "limit": json_float(lim), "unit": unit,
-                              "params": params_row(names, matrix[j])}
-                       for name, (_key, j, v, lim, m, unit) in worst.items()}
+                              "params": params_row(names, row)}
+                       for name, (_key, _j, v, lim, m, unit, row) in mc["worst"].items()}
     corners, search, sens = study
-    return ToleranceResult(case, names, matrix, figs, passed, list(errors), clopper_pearson(k, n), pct,
-                           worst_per_check, corners, search, sens, seed, flist, used, fits, note, check, engine,
-                           counts)
+    return ToleranceResult(
+        case, names, matrix, mc.get("figures"), mc.get("passed"), None if not keep else list(mc["errors"]),
+        clopper_pearson(mc["n_passed"], n), pct, worst_per_check, corners, search, sens, seed, flist, used,
+        mc["fits"], note, check, engine, mc["engines"], n=n, n_passed=mc["n_passed"], n_errors=mc["n_errors"],
+        summaries=mc["summaries"], brackets=brackets)
+
+
+def _percentiles(mc: dict, exact: bool) -> tuple[dict, dict | None]:
+    """Every figure's :data:`PERCENTILES`: numpy's on the gathered samples (``exact``), or the midpoints
+    of their brackets from the merged summaries, with the brackets (figure → {p: (low, high)})."""
+    from kickback.studies import tolstats
+
+    if exact:
+        return ({f: {p: (float(np.nanpercentile(a, p)) if np.isfinite(a).any() else None) for p in PERCENTILES}
+                 for f, a in mc["figures"].items()}, None)
+    pct, brackets = {}, {}
+    for f, s in mc["summaries"].items():
+        found = {p: tolstats.percentile(s, p) for p in PERCENTILES}
+        pct[f] = {p: None if v is None else v[0] for p, v in found.items()}
+        brackets[f] = {p: None if v is None else (v[1], v[2]) for p, v in found.items()}
+    return pct, brackets
 
 
 class _Recheck:
     """The detailed engine's run of the recheck samples, started in worker processes before the
     batch engine runs the Monte Carlo (the two share the machine's cores), or run when asked."""
 
-    def __init__(self, case, matrix, idx, workers):
-        self.case, self.rows, self.workers = case, None if idx is None else matrix[idx], workers
+    def __init__(self, case, rows, workers):
+        self.case, self.rows, self.workers = case, rows, workers
         self.futures = []
 
     def __enter__(self):
@@ -243,7 +252,7 @@ def _detailed_job(args):
     return _detailed_points(*args)
 
 
-def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
+def _rest(case, names, flist, mc, used, workers, search_budget):
     """Corners, the worst-case search and the one-at-a-time sensitivity."""
 
     def figures_at(x):
@@ -260,7 +269,7 @@ def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
                 j = int(np.nanargmax(a))
                 corners[f] = {"max": float(a[j]), "min": float(np.nanmin(a)), "params": params_row(names, cm[j])}
                 corner_best[f] = (float(a[j]), cm[j])
-    search = _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist,
+    search = _search(mc, corner_best, lows, highs, figures_at, names, flist,
                      search_budget or (40 if used == "detailed" else 2 * len(names) * SEARCH_ROUNDS))
     nom = nominal(case)
     sens = {}
@@ -277,82 +286,18 @@ def _rest(case, names, flist, matrix, figs, used, workers, search_budget):
     return corners, search, sens
 
 
-def _monte_carlo(case, matrix, flist, used, workers, progress, chunk):
-    """Every sample, chunk by chunk on the executor (:mod:`kickback.parallel`): the followed
-    figures, verdicts, the number passed, errors and, per check, the sample with the smallest
-    margin (no margin counts as the smallest); the count and the minima are merged from each
-    chunk's own. Each chunk's rows go to its task; the figure columns come back (the
-    percentiles need them: 8 bytes per sample and figure in this process)."""
-    n = len(matrix)
-    size = max(1, chunk) if used == "batch" else DETAILED_TASK
-    cuts = parallel.groups(n, size)
-    ends = [g.stop for g in cuts]
-
-    def step(done):
-        if progress is not None:
-            progress(ends[done - 1])
-
-    names = tuple(f for f, _, _ in flist)
-    # a chunk run in this process (one chunk, or workers=1) shares its batches among ``workers``;
-    # in a task of the map its inner maps run in the task's process (kickback.parallel)
-    parts = parallel.map_ordered(_chunk_job, [(case, matrix[g], used, size, names, workers) for g in cuts],
-                                 workers=workers, progress=step, group=1)
-    figs = {f: np.full(n, np.nan) for f, _, _ in flist}
-    passed = np.zeros(n, bool)
-    k = 0  # samples that passed: the per-chunk counts, summed
-    errors = np.full(n, None, dtype=object)
-    worst: dict = {}
-    fits: list = []
-    retried = 0
-    audited = [0, 0, ""]  # samples that failed their audit, solved again, on which engine
-    counts = dict.fromkeys(("batch", "detailed"), 0)
-    for g, part in zip(cuts, parts, strict=True):
-        for e, m in part["engines"].items():
-            counts[e] += m
-        for f, a in part["figures"].items():
-            figs[f][g] = a
-        passed[g] = part["passed"]
-        k += part["n_passed"]
-        errors[g] = part["errors"]
-        fits += [x for x in part["fits"] if x not in fits]
-        retried += part["retried"]
-        audited = [audited[0] + part["audit"][0], audited[1] + part["audit"][1], part["audit"][2] or audited[2]]
-        for name, (key, j, v, lim, m, unit) in part["worst"].items():
-            if name not in worst or key < worst[name][0]:
-                worst[name] = (key, g.start + j, v, lim, m, unit)
-    return (figs, passed, k, errors, worst, tuple(fits), retried, tuple(audited),
-            {e: m for e, m in counts.items() if m})
-
-
-def _chunk_job(args) -> dict:
-    """One chunk of samples, run where the executor puts it: its figures, verdicts and errors,
-    its pass count, and per check its sample with the smallest margin (index within the chunk)."""
-    case, rows, used, chunk, names, workers = args
-    pts = evaluate(case, rows, engine=used, workers=workers, chunk=chunk)
-    worst = {}
-    for name, c in pts.checks.items():
-        key = np.where(c.applies, np.where(np.isnan(c.margin), -np.inf, c.margin), np.inf)
-        j = int(np.argmin(key))
-        if c.applies[j]:
-            worst[name] = (float(key[j]), j, c.value[j], c.limit[j], c.margin[j], c.unit)
-    return {"figures": {f: pts.figures[f] for f in names if f in pts.figures}, "passed": pts.passed,
-            "n_passed": int(np.sum(pts.passed)), "errors": list(pts.errors), "worst": worst,
-            "fits": list(pts.fits), "retried": pts.retried, "engines": pts.engine_counts(),
-            "audit": (pts.audit_failed, pts.audit_solved, pts.audit_engine)}
-
-
-def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, budget) -> dict:
+def _search(mc, corner_best, lows, highs, figures_at, names, flist, budget) -> dict:
     """The worst-case search of every figure that varies over the samples, from the worst sample
-    (or corner, when it is worse)."""
+    (merged from each chunk's, :mod:`kickback.studies.tolchunks`), or the worst corner when it is
+    worse."""
     from kickback.studies.worstcase import compass_search
 
     starts = {}
     for f, _, _ in flist:
-        a = figs[f]
-        if not np.isfinite(a).any() or np.nanmax(a) == np.nanmin(a):
+        s, best = mc["summaries"][f], mc["maxima"][f]
+        if best is None or s.low == s.high:
             continue  # absent or constant over the samples (e.g. no avalanche at all)
-        j = int(np.nanargmax(a))
-        start_val, start = float(a[j]), matrix[j]
+        start_val, start = best[0], best[2]
         if f in corner_best and corner_best[f][0] > start_val:
             start_val, start = corner_best[f]
         starts[f] = (np.clip(start, lows, highs), start_val)
@@ -367,11 +312,12 @@ def _search(figs, matrix, corner_best, lows, highs, figures_at, names, flist, bu
 
 def recheck_detailed(idx, figs, passed, flist, pts) -> dict:
     """Samples ``idx`` as run again by the detailed engine (``pts``, :class:`Points`) against the
-    batch engine's figures ``figs``: per figure the largest absolute and relative difference
-    (batch − detailed) and where, times present in one engine only, and verdicts that differ."""
+    batch engine's figures ``figs`` (figure → the values at ``idx``) and verdicts ``passed`` (at
+    ``idx``): per figure the largest absolute and relative difference (batch − detailed) and where,
+    times present in one engine only, and verdicts that differ."""
     out = {}
     for f, unit, _ in flist:
-        a, b = figs[f][idx], pts.figures.get(f, np.full(idx.size, np.nan))
+        a, b = np.asarray(figs[f]), pts.figures.get(f, np.full(idx.size, np.nan))
         both = np.isfinite(a) & np.isfinite(b)
         one = int(np.sum(np.isfinite(a) != np.isfinite(b)))
         entry = {"unit": unit, "max_abs": None, "max_rel": None, "sample": None, "present_in_one_only": one}
@@ -383,5 +329,5 @@ def recheck_detailed(idx, figs, passed, flist, pts) -> dict:
             entry |= {"max_abs": float(np.max(d[both])), "max_rel": float(rel[j]), "sample": int(idx[j])}
         out[f] = entry
     return {"samples": int(idx.size), "indices": [int(i) for i in idx], "figures": out,
-            "verdicts_differ": int(np.sum(passed[idx] != pts.passed)),
+            "verdicts_differ": int(np.sum(np.asarray(passed) != pts.passed)),
             "detailed_errors": int(sum(e is not None for e in pts.errors))}

@@ -33,12 +33,21 @@ def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, fl
 
 @dataclass(frozen=True)
 class ToleranceResult:
+    """A tolerance study's numbers.
+
+    A study of at most :data:`kickback.studies.tolerance.GATHER` samples keeps every sample
+    (``samples``, ``figures``, ``passed``, ``errors``) and its percentiles are numpy's, exact; a
+    larger one keeps only the merged per-chunk summaries (those four are None) and its
+    percentiles are the midpoints of ``brackets`` (:mod:`kickback.studies.tolstats`). The yield,
+    the worst samples and the histograms come from the merged counts either way.
+    """
+
     case: Case
     names: tuple[str, ...]
-    samples: np.ndarray  # (n, k) [SI]
-    figures: dict  # figure → array (NaN where a time does not occur)
-    passed: np.ndarray
-    errors: list
+    samples: np.ndarray | None  # (n, k) [SI]; None when not gathered
+    figures: dict | None  # figure → array (NaN where a time does not occur); None when not gathered
+    passed: np.ndarray | None  # None when not gathered
+    errors: list | None  # None when not gathered
     yield_ci: tuple[float, float]
     percentiles: dict  # figure → {percentile: value}
     worst_per_check: dict  # check → {"margin", "value", "limit", "params"}
@@ -53,28 +62,46 @@ class ToleranceResult:
     recheck: dict | None = None  # batch samples run again by the detailed engine (see recheck())
     asked: str = "auto"  # the --engine given: auto, batch or detailed
     engines: dict | None = None  # samples per engine whose figures they hold (None: all on ``engine``)
+    n: int = 0  # samples
+    n_passed: int = 0  # samples that pass every check
+    n_errors: int = 0  # samples that could not be simulated (they fail)
+    summaries: dict | None = None  # figure → tolstats.Summary merged from the chunks'
+    brackets: dict | None = None  # figure → {percentile: (low, high)}; None: percentiles exact
 
     @property
     def yield_(self) -> float:
-        return float(self.passed.mean()) if self.passed.size else float("nan")
+        return self.n_passed / self.n if self.n else float("nan")
+
+    @property
+    def exact(self) -> bool:
+        """True when the percentiles are numpy's on the gathered samples."""
+        return self.brackets is None
 
     def to_dict(self) -> dict:
         def clean(x):
             return None if x is None or (isinstance(x, float) and np.isnan(x)) else x
 
         units = {f: u for f, u, _ in self.figure_list}
-
-        return {"title": self.case.title, "seed": self.seed, "samples": int(len(self.samples)),
-                "engine": self.asked, "engines": self.engines or {self.engine: int(len(self.samples))},
+        brackets = None if self.brackets is None else \
+            {f: {str(p): (None if v is None else list(v)) for p, v in d.items()} for f, d in self.brackets.items()}
+        return {"title": self.case.title, "seed": self.seed, "samples": self.n,
+                "engine": self.asked, "engines": self.engines or {self.engine: self.n},
                 "fits": list(self.fits), "engine_note": self.engine_note or None,
                 "parameters": [parameter_dict(t) for t in self.case.tolerances],
                 "yield": self.yield_, "yield_ci95": list(self.yield_ci),
                 "percentiles": {f: {str(p): clean(v) for p, v in d.items()} for f, d in self.percentiles.items()},
+                "percentiles_from": PERCENTILES_FROM[self.exact], "percentile_brackets": brackets,
                 "worst_per_check": self.worst_per_check, "corners": self.corners, "worst_case_search": self.search,
                 "sensitivity": {f: [{"parameter": n, "swing": s, "unit": units.get(f, "")} for n, s in v]
                                 for f, v in self.sensitivity.items()},
-                "failed_samples": int(sum(e is not None for e in self.errors)),
+                "failed_samples": self.n_errors,
                 "detailed_recheck": self.recheck}
+
+
+#: how the percentiles were found, as the JSON says it (key: exact or not)
+PERCENTILES_FROM = {True: "every sample (numpy.percentile, linear)",
+                    False: "merged per-chunk histograms: the midpoint of a bracket at most 0.025 % wide holding "
+                           "numpy.percentile of the samples (min and max exact)"}
 
 
 def parameter_unit(path: str) -> str:
