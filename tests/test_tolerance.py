@@ -160,6 +160,31 @@ def test_search_finds_an_interior_maximum_the_corners_miss():
     assert 5.0 < r < 400.0, "the worst resistance lies inside the band"
 
 
+def test_interior_maximum_within_the_figures_accuracy_is_not_a_finding():
+    """f(x) = 1 + a·x·(1 − x) on the band [0, 1] peaks at x = ½ with 1 + a/4 against 1 at both
+    corners (calculus). An excess a/4 beyond the stated accuracy is a maximum the corners miss;
+    one inside it (a fitted law's 2 %, kickback.studies.choose.CONFIRM_FIT) is not."""
+    from types import SimpleNamespace
+
+    from kickback.studies.tolerance import _search
+
+    def run(a, accuracy):
+        def figures_at(x):
+            x = np.asarray(x)[:, 0]
+            return {"f_J": 1.0 + a * x * (1.0 - x)}
+
+        mc = {"summaries": {"f_J": SimpleNamespace(low=1.0, high=1.0 + a / 8)},
+              "maxima": {"f_J": (1.0 + a * 0.1 * 0.9, 0, np.array([0.1]))}}
+        out = _search(mc, {"f_J": (1.0, np.array([0.0]))}, np.array([0.0]), np.array([1.0]), figures_at,
+                      ["x"], [("f_J", "J", None)], 60, accuracy=accuracy)["f_J"]
+        assert out["max"] == pytest.approx(1.0 + a / 4, rel=1e-6)
+        return out["interior"]
+
+    assert run(4e-3, 1e-6)  # 0.1 % above the corners, exact laws: found
+    assert not run(4e-3, 0.02)  # the same 0.1 % with a fitted law: inside its accuracy
+    assert run(0.2, 0.02)  # 5 % above: found whatever the engine
+
+
 def test_cli_tolerance(tmp_path):
     p = tmp_path / "tol.toml"
     p.write_text(TOL)

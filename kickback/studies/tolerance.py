@@ -270,7 +270,8 @@ def _rest(case, names, flist, mc, used, workers, search_budget):
                 corners[f] = {"max": float(a[j]), "min": float(np.nanmin(a)), "params": params_row(names, cm[j])}
                 corner_best[f] = (float(a[j]), cm[j])
     search = _search(mc, corner_best, lows, highs, figures_at, names, flist,
-                     search_budget or (40 if used == "detailed" else 2 * len(names) * SEARCH_ROUNDS))
+                     search_budget or (40 if used == "detailed" else 2 * len(names) * SEARCH_ROUNDS),
+                     accuracy=_figure_accuracy(used, mc["fits"]))
     nom = nominal(case)
     sens = {}
     one_at_a_time = []
@@ -286,10 +287,21 @@ def _rest(case, names, flist, mc, used, workers, search_budget):
     return corners, search, sens
 
 
-def _search(mc, corner_best, lows, highs, figures_at, names, flist, budget) -> dict:
+def _figure_accuracy(used: str, fits) -> float:
+    """The relative accuracy of the figures the study's engine gives: the bound on a fitted law's
+    effect on every figure when the batch engine fits a Shockley diode or varistor, else the
+    agreement of the engines on exact laws (both as :mod:`kickback.studies.choose` states them)."""
+    from kickback.studies.choose import CONFIRM_EXACT, CONFIRM_FIT
+
+    return CONFIRM_FIT if used == "batch" and fits else CONFIRM_EXACT
+
+
+def _search(mc, corner_best, lows, highs, figures_at, names, flist, budget, accuracy=1e-6) -> dict:
     """The worst-case search of every figure that varies over the samples, from the worst sample
     (merged from each chunk's, :mod:`kickback.studies.tolchunks`), or the worst corner when it is
-    worse."""
+    worse. A maximum inside the bands counts as one the corners miss (``interior``) only when it
+    exceeds the worst corner by more than the figures' relative ``accuracy``: a smaller excess is
+    not a finding the engine can resolve."""
     from kickback.studies.worstcase import compass_search
 
     starts = {}
@@ -306,7 +318,8 @@ def _search(mc, corner_best, lows, highs, figures_at, names, flist, budget) -> d
     for f, (best_val, best_x) in found.items():
         c_max = corner_best.get(f, (None,))[0]
         search[f] = {"max": float(best_val), "params": params_row(names, best_x), "corner_max": c_max,
-                     "interior": bool(c_max is not None and best_val > c_max * (1 + 1e-6) + 1e-300)}
+                     "interior": bool(c_max is not None
+                                      and best_val > c_max + accuracy * abs(c_max) + 1e-300)}
     return search
 
 
