@@ -77,7 +77,7 @@ def dissipations(case) -> list[tuple[str, str]]:
     for k, cl in enumerate(case.clamps):
         for j, el in enumerate(cl.elements):
             if el.type != "capacitor":
-                out.append((f"clamps[{k}].elements[{j}].energy_J", f"{cl.name}: {el.name or f'{el.type} {j + 1}'}"))
+                out.append((f"clamps[{k}].elements[{j}].energy_J", cl.element_label(j)))
     return out
 
 
@@ -115,7 +115,7 @@ def expected_checks(case, cols: dict, get, n: int) -> dict:
     keys["tvs"] = keys["zener"]
     for k, cl in enumerate(case.clamps):
         for j, el in enumerate(cl.elements):
-            part = f"{cl.name}: {el.name or f'{el.type} {j + 1}'}"
+            part = cl.element_label(j)
             for key, quantity in keys[el.type]:
                 out[f"{part}: {quantity}"] = given(f"clamp[{k}].element[{j}].{key}")
             if el.thermal_resistance is not None and el.max_junction_temperature is not None:

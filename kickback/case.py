@@ -112,6 +112,18 @@ class Clamp:
     elements: tuple[Element, ...]
     path: str = ""
 
+    def element_label(self, j: int) -> str:
+        """How the ledger and the checks name element ``j``: see :func:`part_label`."""
+        el = self.elements[j]
+        return part_label(self.name, el.name or f"{el.type} {j + 1}")
+
+
+def part_label(clamp: str, element: str) -> str:
+    """A clamp element's name in the ledger and the checks: "clamp: element", or the clamp's name
+    alone when the element has the same name (a one-part clamp named as its part: "D1", not
+    "D1: D1")."""
+    return clamp if element == clamp else f"{clamp}: {element}"
+
 
 @dataclass(frozen=True)
 class Option:

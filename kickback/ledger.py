@@ -13,6 +13,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from kickback.case import part_label
+
 #: the energy left in the coil is a ledger term above this fraction of the input
 LEFT_IN_COIL_SHOWN = 1e-9
 
@@ -72,7 +74,7 @@ def ledger_terms(figures, case) -> tuple[LedgerTerm, ...]:
     for k, cl in enumerate(f.clamps):
         for j, el in enumerate(cl.elements):
             if el.type != "capacitor":  # a capacitor's energy is in the stored/left terms
-                terms.append(LedgerTerm(f"clamp[{k}].element[{j}]", "out", f"{cl.name}: {el.name}", el.energy_J))
+                terms.append(LedgerTerm(f"clamp[{k}].element[{j}]", "out", part_label(cl.name, el.name), el.energy_J))
     terms.append(LedgerTerm("left_capacitors", "left", "left in capacitors", f.left_in_capacitors_J))
     stored = f.stored_energy_J + f.initial_capacitor_energy_J + max(f.supply_energy_J, 0.0)
     if abs(f.left_in_coil_J) > LEFT_IN_COIL_SHOWN * stored:

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from kickback.case import Case
+from kickback.case import Case, part_label
 from kickback.conventions import AVALANCHE_NEGLIGIBLE, LEAKAGE_MARGIN, ON_STATE_FRACTION
 from kickback.figures import Figures, figure_columns
 from kickback.keypath import value_getter
@@ -234,7 +234,7 @@ def check_list(case: Case, cols: dict, get, n: int) -> list[CheckColumn]:
         for j, el in enumerate(cl.elements):
             pre = f"clamps[{k}].elements[{j}]."
             key = f"clamp[{k}].element[{j}]."
-            part = f"{cl.name}: {el.name or f'{el.type} {j + 1}'}"
+            part = cl.element_label(j)
 
             def rated(name, key=key):
                 r = get(key + name)
@@ -356,7 +356,7 @@ def pwm_checks(case: Case, pf) -> list[Check]:
                                c.applies, c.note))
     flat = [(cl, el) for cl in case.clamps for el in cl.elements]
     for (cl, el), ef in zip(flat, pf.elements, strict=True):
-        part = f"{cl.name}: {ef['element']}{tag}"
+        part = part_label(cl.name, ef["element"]) + tag
         if el.type == "diode":
             r = a(el.rated_average_current)
             out.append(_at_most(part, "average current", "A", a(abs(ef["mean_A"])), r, ck.derating, np.isfinite(r),
