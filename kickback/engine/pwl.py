@@ -294,7 +294,7 @@ class ModalSegment:
         """
         T = np.asarray(T, float)
         M = self._closed_moments(T)
-        bad = self._cancelling(T)
+        bad = self._cancelling(T, M)
         if np.any(bad):
             idx = np.nonzero(bad)[0]
             M[idx] = quadrature_moments(self.take(idx), T[idx], self.rates(idx))
@@ -308,7 +308,20 @@ class ModalSegment:
         """(fast real rates, slow rate) [1/s] per case, for quadrature panels and search grids."""
         return mode_rates(self.terms, idx)
 
-    def _cancelling(self, T):
+    def _cancelling(self, T, M):
+        """Whether the closed-form moments ``M`` of a case may have cancelled: a state whose
+        particular and modal terms are more than ``_CANCEL`` times its own size on the segment.
+
+        The closed form's error in ``∫x_k² dτ`` is about ε·big_k²·T; the state's own size is read
+        both from its values at τ = 0, T/2, T and from its root mean square over the segment,
+        ``√(M_kk/T)`` (the closed form's own diagonal). The mean square alone sees a lightly
+        damped ring: its three samples may all fall near a zero of the oscillation (a ring
+        segment that starts and ends at current zeros), where the sampled size alone read a ring
+        of 10⁵ periods as a cancellation and sent it to a quadrature of more than 10⁵ panels.
+        A mean square the sample misses is safe to trust: where it is at least big²/_CANCEL², the
+        closed form's rounding (≲ ε·big²·T) is at most ε·_CANCEL² ≈ 2e-11 of it, and a diagonal
+        that did cancel is of that rounding size, far below the threshold.
+        """
         # the S part e^{mτ}·sinh(wτ)/w (or sin(ωτ)/ω) is at most min(τ, 1/|w|) of |b| on a decaying
         # term: bounded by |b|·T alone, a fast real pair (a node mode of nanoseconds under a
         # decay of milliseconds, |b| ~ 1e9·|a|) would look like a cancellation it is not
@@ -318,6 +331,12 @@ class ModalSegment:
                 span = np.minimum(T, 1.0 / np.sqrt(np.abs(w2)))
             big = big + np.abs(a) + np.abs(b) * span[:, None]
         small = np.maximum.reduce([np.abs(self.state(T * f)) for f in (0.0, 0.5, 1.0)])
+        nX = small.shape[1]
+        diag = np.diagonal(M, axis1=1, axis2=2)[:, :nX]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rms = np.sqrt(np.where(np.isfinite(diag) & (T[:, None] > 0), np.maximum(diag, 0.0), 0.0)
+                          / np.where(T > 0, T, 1.0)[:, None])
+        small = np.maximum(small, rms)
         ratio = big / np.maximum(small, 1e-300 + 1e-12 * big)
         return np.max(ratio, axis=1) > _CANCEL
 
