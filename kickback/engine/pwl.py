@@ -47,6 +47,9 @@ _TRIPLE_GAP = 1e-7
 #: size of the particular/modal parts relative to the state above which the closed-form
 #: moments would cancel (error ~ ε·ratio²) and quadrature is used
 _CANCEL = 300.0
+#: panels per case after which the energy quadrature of a segment gives up on that case
+MAX_QUADRATURE_PANELS = 100_000
+QUADRATURE_FAILURE = "the energy quadrature of a segment needed more than 10⁵ panels"
 
 
 class SegmentError(KickbackError, ArithmeticError):
@@ -404,6 +407,9 @@ def quadrature_moments(seg, T, rates):
 
     Panels double from ``1/λ_fast`` while the fastest mode lives (capped at 12/λ so that the
     rule stays exact to rounding) and are at most ``1.5/λ_slow`` long (oscillation, slow decay).
+    A case that would need more than :data:`MAX_QUADRATURE_PANELS` panels gets a row of NaN
+    (the caller fails that variant alone, with :data:`QUADRATURE_FAILURE` as the reason); the
+    other cases of the batch keep their moments.
     """
     fast, slow = rates
     G = T.shape[0]
@@ -413,7 +419,7 @@ def quadrature_moments(seg, T, rates):
     s = np.zeros(G)
     h0 = np.minimum(T, 1.0 / lam)
     cap_slow = 1.5 / np.maximum(slow, 1e-300)
-    for _ in range(100_000):
+    for _ in range(MAX_QUADRATURE_PANELS):
         live = s < T * (1 - 1e-15)
         if not np.any(live):
             break
@@ -428,8 +434,7 @@ def quadrature_moments(seg, T, rates):
         xi = np.concatenate([x, np.ones(x.shape[:2] + (1,)), tq[..., None]], axis=2)
         M += np.einsum("gk,gki,gkj->gij", wq, xi, xi)
         s = s + h
-    else:
-        raise SegmentError("the energy quadrature of a segment needed more than 10⁵ panels")
+    M[s < T * (1 - 1e-15)] = np.nan
     return M
 
 
