@@ -57,6 +57,9 @@ def _waveforms(bc, st, circuit, cols) -> Waveforms:
         xi = np.concatenate([X, np.ones((K, 1)), taus[:, None]], axis=1)
         fk = _rep(fs, K)
         M2 = sk.moments(taus)
+        if not np.all(np.isfinite(M2)):
+            raise SolverError("batch engine: the waveform's energies could not be integrated "
+                              "(the energy quadrature of a segment needed more than 10⁵ panels)")
         inc, els = energy_increments(bc, rows, fk, M2)
         el_rows = [val for m, row in enumerate(els) for j, val in enumerate(row)
                    if bc.chains[m].elements[j] is not None]

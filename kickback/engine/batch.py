@@ -23,7 +23,7 @@ from kickback.conventions import RING_END_FRACTION
 from kickback.engine import batch_events as bev
 from kickback.engine.batch_modes import Mode, Modes
 from kickback.engine.batch_record import Record
-from kickback.engine.pwl import SegmentError
+from kickback.engine.pwl import QUADRATURE_FAILURE, SegmentError
 from kickback.engine.pwl_allroots import all_roots
 from kickback.engine.pwl_build import build_modal, build_scalar
 from kickback.engine.pwl_roots import Events, first_event
@@ -220,6 +220,10 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     except SegmentError as err:
         bc.fail(np.isin(np.arange(bc.n), gi), str(err))
         return
+    lost = ~np.all(np.isfinite(M2), axis=(1, 2))
+    if np.any(lost):  # only the variants whose quadrature gave up fail; the group goes on
+        bc.fail(np.isin(np.arange(bc.n), gi[lost]), QUADRATURE_FAILURE)
+        M2[lost] = 0.0
     Xe = seg.state(tau)
     Xd = seg.deriv(tau)
     dv = Xe[:, 1] - Xg[:, 1] if bc.capacitive else None
