@@ -113,6 +113,9 @@ ANY_ELEMENT_KEY = {k for spec in ELEMENTS.values() for k in spec}
 
 #: field kinds that hold one number
 NUMERIC = ("q", "n", "f")
+#: field kinds that hold a list of numbers; a study varies one entry by its index
+#: (``switch.thermal_tau[1]``, ``drive.duties[0]``)
+NUMERIC_LISTS = ("l", "ln")
 
 
 def key_specs() -> tuple[dict, dict, dict]:
@@ -126,23 +129,26 @@ def key_specs() -> tuple[dict, dict, dict]:
 
 
 
-def numeric_keys() -> dict[str, str]:
+def numeric_keys(lists: bool = False) -> dict[str, str]:
     """Every numeric key of the case file → its unit ('' for a plain number).
 
     Table keys read ``table.key`` (``switch.gate_voltage``); element keys ``element:TYPE.key``
-    (``element:zener.voltage``).
+    (``element:zener.voltage``). With ``lists``, the keys holding a list of numbers
+    (:data:`NUMERIC_LISTS`: ``switch.thermal_tau``, ``drive.duties``) as well.
     """
+    kinds = NUMERIC + (NUMERIC_LISTS if lists else ())
     tables, elements, _ = key_specs()
-    out = {f"{t}.{k}": f.unit for t, spec in tables.items() for k, f in spec.items() if f.kind in NUMERIC}
+    out = {f"{t}.{k}": f.unit for t, spec in tables.items() for k, f in spec.items() if f.kind in kinds}
     out |= {f"element:{t}.{k}": f.unit for t, spec in elements.items() for k, f in spec.items()
-            if f.kind in NUMERIC}
+            if f.kind in kinds}
     return out
 
 
 def leaf_units() -> dict[str, str]:
-    """Numeric key name → unit, over every table and element type (a name has one unit)."""
+    """Numeric key name → unit, over every table and element type, lists included (a name has
+    one unit)."""
     out: dict[str, str] = {}
-    for key, unit in numeric_keys().items():
+    for key, unit in numeric_keys(lists=True).items():
         out[key.rsplit(".", 1)[1]] = unit
     return out
 
