@@ -153,8 +153,11 @@ def normalize_variations(case, variations) -> tuple[dict, int]:
 
     Raises
     ------
-    CaseError — an unknown key path, a value that is not numeric, or arrays of unequal length.
+    CaseError — an unknown key path, a value that is not numeric, a key that does not apply to
+    the case (:func:`kickback.casevary.resolve`: a BJT's key on a MOSFET, a resistor's key on a
+    Zener — a value no engine would read), or arrays of unequal length.
     """
+    from kickback.casevary import resolve
     from kickback.errors import CaseError
     from kickback.keypath import get_value, set_value
 
@@ -163,6 +166,7 @@ def normalize_variations(case, variations) -> tuple[dict, int]:
     for key, values in variations.items():
         path = ".".join(p.strip() for p in str(key).split("."))
         get_value(case, path)  # raises CaseError for a path the case does not have
+        resolve(case, path)  # and for a key the case file would refuse for this case
         a = np.atleast_1d(np.asarray(values, dtype=float))
         if a.ndim != 1:
             raise CaseError(f"the values of {path!r} must be a 1-D sequence (got shape {a.shape})", key=path)

@@ -211,3 +211,17 @@ def test_a_foster_stage_swept_by_its_index_reaches_the_junction_temperature():
     energy = pts.figures["clamp[0].energy_J"][0]
     rise = tj[1] - tj[0]
     assert 0 < rise <= energy * 40.0 / 2.0 * (1 + 1e-9)
+
+
+@pytest.mark.parametrize(("path", "words"), [
+    ("switch.saturation_voltage", "applies to a bjt switch"),
+    ("switch.gain", "applies to a bjt switch"),
+    ("clamp[0].element[1].resistance", "does not apply to a zener element"),
+], ids=["bjt-key-on-mosfet", "bjt-gain-on-mosfet", "resistor-key-on-zener"])
+def test_simulate_many_refuses_a_key_no_engine_reads(path, words):
+    """simulate_many took these and returned the same figures for every value (no engine reads a
+    BJT's key on a MOSFET): now refused as the case file refuses it."""
+    from kickback import simulate_many
+
+    with pytest.raises(CaseError, match=words):
+        simulate_many(load_case(_VALVE), {path: [0.1, 0.2]})
