@@ -21,15 +21,25 @@ import itertools
 import math
 
 from kickback.case import Case
+from kickback.casebounds import MAGNITUDE
 from kickback.casebuild import Context, build_case
-from kickback.casekeys import NUMERIC, NUMERIC_LISTS, did_you_mean, key_specs, leaf_units, numeric_keys
+from kickback.casekeys import (
+    CONDITIONS,
+    NUMERIC,
+    NUMERIC_LISTS,
+    Field,
+    did_you_mean,
+    key_specs,
+    leaf_units,
+    numeric_keys,
+)
 from kickback.errors import CaseError
 from kickback.keypath import split_path
 from kickback.units import format_quantity
 
 #: the key tables' own functions, kept here for callers
-__all__ = ["MAX_CORNER_KEYS", "case_doc", "check_ranges", "check_values", "leaf_units", "numeric_keys", "resolve",
-           "variable_paths"]
+__all__ = ["MAX_CORNER_KEYS", "case_doc", "check_each", "check_ranges", "check_values", "leaf_units", "numeric_keys",
+           "resolve", "variable_paths"]
 #: field kinds a study varies: one number, or one entry of a list
 _VARIABLE = NUMERIC + NUMERIC_LISTS
 #: at most this many varied keys are checked at every corner of their box (2^k loader runs);
@@ -46,7 +56,7 @@ def variable_paths(case: Case) -> list[str]:
         for k, f in spec.items():
             for path in _paths(f"{t}.{k}", f, getattr(case, t, None), k):
                 try:
-                    _resolve(case, path)
+                    _field(case, path)
                 except CaseError:
                     continue
                 out.append(path)
@@ -76,7 +86,7 @@ def resolve(case: Case, path: str) -> str:
     a mistyped path gets the case loader's "did you mean" with the closest path this case can vary.
     """
     try:
-        return _resolve(case, path)
+        return _field(case, path).unit
     except CaseError as err:
         hint = did_you_mean(path.replace(" ", ""), variable_paths(case))
         if not hint or "is a list" in err.message:  # (that message names the index to add)
@@ -85,7 +95,8 @@ def resolve(case: Case, path: str) -> str:
         raise CaseError(head + hint + sep + tail, source=err.source, line=err.line, key=err.key) from None
 
 
-def _resolve(case: Case, path: str) -> str:
+def _field(case: Case, path: str) -> Field:
+    """The key table's field of the one value at ``path`` (a list's entry: its one-value field)."""
     tables, elements, only = key_specs()
     parts = split_path(path)
     name, index = parts[0]
@@ -125,11 +136,12 @@ def _resolve(case: Case, path: str) -> str:
                             key=path)
         if entry >= n:
             raise CaseError(f"index {entry} out of range (the case gives {n} {leaf} entries)", key=path)
+        return dataclasses.replace(field, kind="q" if field.kind == "l" else "n")
     elif field.kind not in NUMERIC:
         raise CaseError(f"{leaf!r} is not a numeric value (expected a key holding one number)", key=path)
     elif entry is not None:
         raise CaseError(f"{leaf!r} holds one value (expected no index: {leaf}, not {leaf}[{entry}])", key=path)
-    return field.unit
+    return field
 
 
 def _applies(case: Case, table: str, leaf: str, only: dict, path: str) -> None:
@@ -276,3 +288,34 @@ def check_ranges(case: Case, ranges: dict, what: str = "--vary") -> None:
             check_values(case, {k: x}, what)
     for pick in (0, -1):
         check_values(case, {k: e[pick] for k, e in zip(keys, ends, strict=True)}, what)
+
+
+def check_each(case: Case, path: str, values, what: str = "variations") -> None:
+    """Every one of ``values`` at ``path`` passes its key's own rule — finite, its condition
+    (``> 0``, ``in (0, 1]``, …) and, for a quantity, the magnitude kickback computes with —
+    checked at once over the array; the first that does not is put through the loader
+    (:func:`check_values`) for the case file's own message. The rules across keys are left to
+    the caller (:func:`check_ranges` for a box of values).
+
+    Raises
+    ------
+    CaseError — ``key=what``: the value, the key and what was expected, on one line.
+    """
+    import numpy as np
+
+    field = _field(case, path)
+    a = np.asarray(values, float).ravel()
+    ok = np.isfinite(a)
+    with np.errstate(invalid="ignore"):
+        ok &= np.array([CONDITIONS[field.cond][0](x) for x in a], bool) if field.cond else True
+        if field.kind == "q":
+            ok &= (a == 0) | ((np.abs(a) >= MAGNITUDE[0]) & (np.abs(a) <= MAGNITUDE[1]))
+    if ok.all():
+        return
+    k = int(np.argmin(ok))
+    if not math.isfinite(a[k]):
+        raise CaseError(f"{path}: the values must be finite (got {a[k]:g} at index {k})", source=case.source,
+                        key=what)
+    check_values(case, {path: float(a[k])}, what)
+    raise CaseError(f"{path}: {_shown(float(a[k]), field.unit)} at index {k} (expected {field.expected()})",
+                    source=case.source, key=what)

@@ -225,3 +225,20 @@ def test_simulate_many_refuses_a_key_no_engine_reads(path, words):
 
     with pytest.raises(CaseError, match=words):
         simulate_many(load_case(_VALVE), {path: [0.1, 0.2]})
+
+
+@pytest.mark.parametrize(("values", "words"), [
+    ({"checks.derating": [0.8, 1.5]}, "checks.derating: must be in (0, 1], got 1.5 (expected a fraction"),
+    ({"coil.inductance": [0.05, -0.01]}, "coil.inductance: must be > 0, got -10 mH (expected a value in H > 0"),
+    ({"clamp[0].element[1].voltage": [20.0, -5.0]}, "clamp[0].element[1].voltage: must be > 0, got -5 V"),
+    ({"coil.inductance": [0.05, 1e20]}, "outside the range kickback computes with"),
+    ({"coil.inductance": [0.05, float("nan")]}, "must be finite"),
+], ids=["derating-above-1", "negative-inductance", "negative-zener-voltage", "beyond-magnitude", "nan"])
+def test_simulate_many_refuses_a_value_the_case_file_refuses(values, words):
+    """A derating of 1.5 ran with its limits raised by half and passed; a negative Zener voltage
+    ran and failed only its audit: each value now passes its key's own rule, with the file's words."""
+    from kickback import simulate_many
+
+    with pytest.raises(CaseError) as err:
+        simulate_many(load_case(_VALVE), values)
+    assert words in str(err.value) and "\n" not in str(err.value)
