@@ -26,7 +26,7 @@ from kickback.case import Case, Tolerance
 from kickback.casevary import check_ranges, resolve
 from kickback.errors import CaseError
 from kickback.keypath import get_value
-from kickback.units import UnitError, parse_quantity
+from kickback.units import UnitError, format_quantity, parse_quantity
 
 _KEYS = {"band", "min", "max", "distribution", "sigmas", "reference"}
 _PERCENT = re.compile(r"\s*[±+]?\s*(?:[+-]/-)?\s*(\d+(?:\.\d*)?|\.\d+)\s*%\s*")
@@ -98,13 +98,14 @@ def _one(ctx, path, key: str, spec: dict, case: Case) -> Tolerance:
         raise ctx.error(path, 'missing band, or min and max (expected e.g. band = "5 %")')
     if not low < high:
         raise ctx.error(path, f"empty range {low:g} … {high:g} (expected min < max)")
-    if not temperature and low <= 0 and nominal > 0:
-        raise ctx.error(path, f"the range reaches {low:g}, not a physical value here (expected a range above 0)")
     if not temperature:
-        try:  # the band's ends pass the case file's own rules
+        try:  # the band's ends pass the case file's own rules (the file's message for a value it refuses)
             check_ranges(case, {key: (float(low), float(high))}, "band")
         except CaseError as err:
             raise ctx.error(path, err.message) from None
+    if not temperature and low <= 0 and nominal > 0:  # a key whose file rule allows 0 (a capacitance, a speed)
+        shown = format_quantity(low, unit) if unit else f"{low:g}"
+        raise ctx.error(path, f"the range reaches {shown}, not a physical value here (expected a range above 0)")
     dist = spec.get("distribution", "uniform")
     if dist not in ("uniform", "normal"):
         raise ctx.error(path + ("distribution",), f"{dist!r} is not allowed (expected uniform or normal)")

@@ -27,13 +27,15 @@ CONDITIONS = {
 @dataclass(frozen=True)
 class Field:
     """What one key holds: kind q(uantity) n(umber) f(raction: a number or a percentage string)
-    s(tring) b(ool) c(hoice) t(ables)."""
+    s(tring) b(ool) c(hoice) t(ables); ``absent``: what leaving the key out means, where that is
+    worth a line in the report's inputs ("not given: linear core")."""
 
     kind: str
     unit: str = ""
     cond: str = ""
     required: bool = False
     choices: tuple[str, ...] = ()
+    absent: str = ""
 
     def expected(self) -> str:
         cond = CONDITIONS[self.cond][1]
@@ -50,8 +52,8 @@ class Field:
         return {"s": "a string in quotes", "b": "true or false", "t": "an array of tables"}[self.kind]
 
 
-def _q(unit: str, cond: str = ">0", required: bool = False) -> Field:
-    return Field("q", unit, cond, required)
+def _q(unit: str, cond: str = ">0", required: bool = False, absent: str = "") -> Field:
+    return Field("q", unit, cond, required, absent=absent)
 
 
 STRING, _BOOL = Field("s"), Field("b")
@@ -62,12 +64,14 @@ _THERMAL = {"thermal_resistance": Field("l", "K/W", ">0"), "thermal_tau": Field(
 
 SUPPLY = {"voltage": _q("V", required=True)}
 COIL = {"inductance": _q("H", required=True), "resistance": _q("Ω", ">=0", True),
-        "capacitance": _q("F", ">=0"), "release_current": _q("A"), "release_delay": _q("s", ">=0"),
-        "initial_current": _q("A"), "saturation_current": _q("A")}
+        "capacitance": _q("F", ">=0"), "release_current": _q("A", absent="not given: no release time"),
+        "release_delay": _q("s", ">=0"), "initial_current": _q("A", absent="not given: the DC on-state"),
+        "saturation_current": _q("A", absent="not given: linear core")}
 SWITCH = {"type": Field("c", required=True, choices=SWITCH_TYPES), "on_resistance": _q("Ω"),
           "saturation_voltage": _q("V", ">=0"), "fall_time": _q("s", ">=0"), "capacitance": _q("F", ">=0"),
-          "breakdown_voltage": _q("V"), "avalanche_resistance": _q("Ω", ">=0"),
-          "body_diode_voltage": _q("V"), "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J"),
+          "breakdown_voltage": _q("V", absent="not given: never breaks down"),
+          "avalanche_resistance": _q("Ω", ">=0"), "body_diode_voltage": _q("V", absent="not given: 0.7 V + RDS(on)"),
+          "rated_voltage": _q("V"), "rated_avalanche_energy": _q("J", absent="not given: any avalanche fails"),
           "gain": Field("n", cond=">1"), "drive_voltage": _q("V"), "base_resistance": _q("Ω"),
           "base_emitter_voltage": _q("V"), "overdrive": Field("n", cond=">1"), "gate_voltage": _q("V"),
           "on_resistance_gate_voltage": _q("V"), "rated_repetitive_avalanche_energy": _q("J"), **_THERMAL}
@@ -76,7 +80,8 @@ SWITCH_ONLY = {"on_resistance": "mosfet", "saturation_voltage": "bjt", "body_dio
                "overdrive": "bjt", "gate_voltage": "mosfet", "on_resistance_gate_voltage": "mosfet"}
 CLAMP = {"name": STRING, "across": Field("c", required=True, choices=ACROSS),
          "element": Field("t", required=True)}
-CHECKS = {"derating": Field("f", cond="(0,1]"), "energy_derating": Field("f", cond="(0,1]"),
+CHECKS = {"derating": Field("f", cond="(0,1]"),
+          "energy_derating": Field("f", cond="(0,1]", absent="not given: same as derating"),
           "max_release_time": _q("s"), "max_peak_voltage": _q("V"), "max_decay_time": _q("s"),
           "max_clamp_energy": _q("J"), "ambient_temperature": _q("K", "T"),
           "min_margin": Field("f", cond="[0,1)")}
@@ -91,15 +96,16 @@ OPTION = {"name": Field("s", required=True), "clamp": Field("t")}
 
 COMMON = {"type": Field("c", required=True, choices=ELEMENT_TYPES), "name": STRING}
 _BREAKDOWN = {"voltage": _q("V"), "dynamic_resistance": _q("Ω", ">=0"),
-              "forward_voltage": _q("V"), "rated_pulse_energy": _q("J"), "rated_peak_power": _q("W"),
-              "rated_pulse_width": _q("s"), "test_current": _q("A")}
+              "forward_voltage": _q("V", absent="not given: 0.7 V forward"), "rated_pulse_energy": _q("J"),
+              "rated_peak_power": _q("W"), "rated_pulse_width": _q("s"), "test_current": _q("A")}
 #: a TVS as its datasheet gives it: V_WM, V_BR at I_T, V_C at I_PP (IEC 61643-321 terms)
 _TVS_DATASHEET = {"standoff_voltage": _q("V"), "breakdown_voltage": _q("V"), "clamping_voltage": _q("V"),
                   "peak_pulse_current": _q("A")}
 ELEMENTS: dict[str, dict[str, Field]] = {
     "diode": {"model": Field("c", choices=("shockley", "constant-drop")), "forward_voltage": _q("V"),
               "at_current": _q("A"), "ideality": Field("n", cond="[0.5,10]"),
-              "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"), "temperature": _q("K", "T"),
+              "saturation_current": _q("A"), "series_resistance": _q("Ω", ">=0"),
+              "temperature": _q("K", "T", absent="not given: 25 °C"),
               "rated_reverse_voltage": _q("V"), "rated_surge_current": _q("A"), "rated_average_current": _q("A")},
     "zener": {**_BREAKDOWN, "voltage": _q("V", required=True), "impedance": _q("Ω", ">=0")},
     "tvs": {**_BREAKDOWN, **_TVS_DATASHEET, "bidirectional": _BOOL},
@@ -113,6 +119,9 @@ ANY_ELEMENT_KEY = {k for spec in ELEMENTS.values() for k in spec}
 
 #: field kinds that hold one number
 NUMERIC = ("q", "n", "f")
+#: field kinds that hold a list of numbers; a study varies one entry by its index
+#: (``switch.thermal_tau[1]``, ``drive.duties[0]``)
+NUMERIC_LISTS = ("l", "ln")
 
 
 def key_specs() -> tuple[dict, dict, dict]:
@@ -126,23 +135,26 @@ def key_specs() -> tuple[dict, dict, dict]:
 
 
 
-def numeric_keys() -> dict[str, str]:
+def numeric_keys(lists: bool = False) -> dict[str, str]:
     """Every numeric key of the case file → its unit ('' for a plain number).
 
     Table keys read ``table.key`` (``switch.gate_voltage``); element keys ``element:TYPE.key``
-    (``element:zener.voltage``).
+    (``element:zener.voltage``). With ``lists``, the keys holding a list of numbers
+    (:data:`NUMERIC_LISTS`: ``switch.thermal_tau``, ``drive.duties``) as well.
     """
+    kinds = NUMERIC + (NUMERIC_LISTS if lists else ())
     tables, elements, _ = key_specs()
-    out = {f"{t}.{k}": f.unit for t, spec in tables.items() for k, f in spec.items() if f.kind in NUMERIC}
+    out = {f"{t}.{k}": f.unit for t, spec in tables.items() for k, f in spec.items() if f.kind in kinds}
     out |= {f"element:{t}.{k}": f.unit for t, spec in elements.items() for k, f in spec.items()
-            if f.kind in NUMERIC}
+            if f.kind in kinds}
     return out
 
 
 def leaf_units() -> dict[str, str]:
-    """Numeric key name → unit, over every table and element type (a name has one unit)."""
+    """Numeric key name → unit, over every table and element type, lists included (a name has
+    one unit)."""
     out: dict[str, str] = {}
-    for key, unit in numeric_keys().items():
+    for key, unit in numeric_keys(lists=True).items():
         out[key.rsplit(".", 1)[1]] = unit
     return out
 

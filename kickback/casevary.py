@@ -1,6 +1,7 @@
 """Values a study varies (sweep, tolerance), checked by the case file's own rules.
 
-A varied value must pass exactly what the same value would have to pass in the case file: the
+A varied value — a numeric key, or one entry of a list by its index (``switch.thermal_tau[1]``,
+``drive.duties[0]``) — must pass exactly what the same value would have to pass in the case file: the
 key must exist for the case's structure (``switch.saturation_voltage`` applies to a BJT only,
 ``drive.duty`` needs a ``[drive]`` with one duty), the value its key's range, and the case with
 the value in place every rule across keys (a supply below the switch's breakdown voltage, a
@@ -20,36 +21,59 @@ import itertools
 import math
 
 from kickback.case import Case
+from kickback.casebounds import MAGNITUDE
 from kickback.casebuild import Context, build_case
-from kickback.casekeys import NUMERIC, did_you_mean, key_specs, leaf_units, numeric_keys
+from kickback.casekeys import (
+    CONDITIONS,
+    NUMERIC,
+    NUMERIC_LISTS,
+    Field,
+    did_you_mean,
+    key_specs,
+    leaf_units,
+    numeric_keys,
+)
 from kickback.errors import CaseError
 from kickback.keypath import split_path
 from kickback.units import format_quantity
 
 #: the key tables' own functions, kept here for callers
-__all__ = ["MAX_CORNER_KEYS", "case_doc", "check_ranges", "check_values", "leaf_units", "numeric_keys", "resolve",
-           "variable_paths"]
+__all__ = ["MAX_CORNER_KEYS", "case_doc", "check_each", "check_ranges", "check_values", "leaf_units", "numeric_keys",
+           "resolve", "variable_paths"]
+#: field kinds a study varies: one number, or one entry of a list
+_VARIABLE = NUMERIC + NUMERIC_LISTS
 #: at most this many varied keys are checked at every corner of their box (2^k loader runs);
 #: beyond it each key's ends are checked with the others at their nominal values
 MAX_CORNER_KEYS = 10
 
 
 def variable_paths(case: Case) -> list[str]:
-    """Every key path of ``case`` a study may vary (those :func:`resolve` accepts)."""
+    """Every key path of ``case`` a study may vary (those :func:`resolve` accepts): each numeric
+    key, and each entry of a list the case gives (``switch.thermal_tau[1]``, ``drive.duties[0]``)."""
     tables, elements, only = key_specs()
     out = []
     for t, spec in tables.items():
         for k, f in spec.items():
-            if f.kind in NUMERIC:
+            for path in _paths(f"{t}.{k}", f, getattr(case, t, None), k):
                 try:
-                    _resolve(case, f"{t}.{k}")
+                    _field(case, path)
                 except CaseError:
                     continue
-                out.append(f"{t}.{k}")
+                out.append(path)
     for i, cl in enumerate(case.clamps):
         for j, el in enumerate(cl.elements):
-            out += [f"clamp[{i}].element[{j}].{k}" for k, f in elements[el.type].items() if f.kind in NUMERIC]
+            for k, f in elements[el.type].items():
+                out += _paths(f"clamp[{i}].element[{j}].{k}", f, el, k)
     return out
+
+
+def _paths(path: str, field, obj, key: str) -> list[str]:
+    """``[path]`` for a numeric key, one path per entry for a list key, else none."""
+    if field.kind in NUMERIC:
+        return [path]
+    if field.kind in NUMERIC_LISTS:
+        return [f"{path}[{e}]" for e in range(len(getattr(obj, key, None) or ()))]
+    return []
 
 
 def resolve(case: Case, path: str) -> str:
@@ -62,16 +86,17 @@ def resolve(case: Case, path: str) -> str:
     a mistyped path gets the case loader's "did you mean" with the closest path this case can vary.
     """
     try:
-        return _resolve(case, path)
+        return _field(case, path).unit
     except CaseError as err:
         hint = did_you_mean(path.replace(" ", ""), variable_paths(case))
-        if not hint:
+        if not hint or "is a list" in err.message:  # (that message names the index to add)
             raise
         head, sep, tail = err.message.partition(" (expected")
         raise CaseError(head + hint + sep + tail, source=err.source, line=err.line, key=err.key) from None
 
 
-def _resolve(case: Case, path: str) -> str:
+def _field(case: Case, path: str) -> Field:
+    """The key table's field of the one value at ``path`` (a list's entry: its one-value field)."""
     tables, elements, only = key_specs()
     parts = split_path(path)
     name, index = parts[0]
@@ -85,26 +110,38 @@ def _resolve(case: Case, path: str) -> str:
         if parts[1][1] >= len(els):
             raise CaseError(f"index {parts[1][1]} out of range (clamp[{index}] has {len(els)} element entries)",
                             key=path)
-        kind, leaf = els[parts[1][1]].type, parts[2][0]
+        obj = els[parts[1][1]]
+        kind, (leaf, entry) = obj.type, parts[2]
         field = elements[kind].get(leaf)
         if field is None:
             raise CaseError(f"does not apply to a {kind} element (expected one of: "
-                            f"{', '.join(k for k, f in elements[kind].items() if f.kind in NUMERIC)})", key=path)
+                            f"{', '.join(k for k, f in elements[kind].items() if f.kind in _VARIABLE)})", key=path)
     else:
         if name == "title" and len(parts) == 1:
             raise CaseError("'title' is not a numeric value (expected a key holding one number)", key=path)
-        if name not in tables or len(parts) != 2 or index is not None or parts[1][1] is not None:
+        if name not in tables or len(parts) != 2 or index is not None:
             raise CaseError(f"no key {path!r} in the case file (expected TABLE.KEY with TABLE one of "
                             f"{', '.join(tables)}, or clamp[I].element[J].KEY)", key=path)
-        leaf = parts[1][0]
+        leaf, entry = parts[1]
         field = tables[name].get(leaf)
         if field is None:
             raise CaseError(f"unknown key in [{name}] (expected one of: "
-                            f"{', '.join(k for k, f in tables[name].items() if f.kind in NUMERIC)})", key=path)
+                            f"{', '.join(k for k, f in tables[name].items() if f.kind in _VARIABLE)})", key=path)
         _applies(case, name, leaf, only, path)
-    if field.kind not in NUMERIC:
+        obj = getattr(case, name)
+    if field.kind in NUMERIC_LISTS:
+        n = len(getattr(obj, leaf, None) or ())
+        if entry is None:
+            raise CaseError(f"{leaf!r} is a list (expected one entry by its index, e.g. {path.strip()}[0])",
+                            key=path)
+        if entry >= n:
+            raise CaseError(f"index {entry} out of range (the case gives {n} {leaf} entries)", key=path)
+        return dataclasses.replace(field, kind="q" if field.kind == "l" else "n")
+    elif field.kind not in NUMERIC:
         raise CaseError(f"{leaf!r} is not a numeric value (expected a key holding one number)", key=path)
-    return field.unit
+    elif entry is not None:
+        raise CaseError(f"{leaf!r} holds one value (expected no index: {leaf}, not {leaf}[{entry}])", key=path)
+    return field
 
 
 def _applies(case: Case, table: str, leaf: str, only: dict, path: str) -> None:
@@ -193,7 +230,13 @@ def _put(doc: dict, path: str, value: float, unit: str) -> None:
     node = doc
     for name, index in parts[:-1]:
         node = node[name] if index is None else node[name][index]
-    node[parts[-1][0]] = _number(value, unit)
+    leaf, entry = parts[-1]
+    if entry is None:
+        node[leaf] = _number(value, unit)
+        return
+    if leaf == "duties" and "duties" not in node:  # case_doc writes a lone duty as duty = x
+        node["duties"] = [node.pop("duty")]
+    node[leaf][entry] = _number(value, unit)
 
 
 # --------------------------------------------------------------------------- checks
@@ -245,3 +288,34 @@ def check_ranges(case: Case, ranges: dict, what: str = "--vary") -> None:
             check_values(case, {k: x}, what)
     for pick in (0, -1):
         check_values(case, {k: e[pick] for k, e in zip(keys, ends, strict=True)}, what)
+
+
+def check_each(case: Case, path: str, values, what: str = "variations") -> None:
+    """Every one of ``values`` at ``path`` passes its key's own rule — finite, its condition
+    (``> 0``, ``in (0, 1]``, …) and, for a quantity, the magnitude kickback computes with —
+    checked at once over the array; the first that does not is put through the loader
+    (:func:`check_values`) for the case file's own message. The rules across keys are left to
+    the caller (:func:`check_ranges` for a box of values).
+
+    Raises
+    ------
+    CaseError — ``key=what``: the value, the key and what was expected, on one line.
+    """
+    import numpy as np
+
+    field = _field(case, path)
+    a = np.asarray(values, float).ravel()
+    ok = np.isfinite(a)
+    with np.errstate(invalid="ignore"):
+        ok &= np.array([CONDITIONS[field.cond][0](x) for x in a], bool) if field.cond else True
+        if field.kind == "q":
+            ok &= (a == 0) | ((np.abs(a) >= MAGNITUDE[0]) & (np.abs(a) <= MAGNITUDE[1]))
+    if ok.all():
+        return
+    k = int(np.argmin(ok))
+    if not math.isfinite(a[k]):
+        raise CaseError(f"{path}: the values must be finite (got {a[k]:g} at index {k})", source=case.source,
+                        key=what)
+    check_values(case, {path: float(a[k])}, what)
+    raise CaseError(f"{path}: {_shown(float(a[k]), field.unit)} at index {k} (expected {field.expected()})",
+                    source=case.source, key=what)

@@ -153,8 +153,13 @@ def normalize_variations(case, variations) -> tuple[dict, int]:
 
     Raises
     ------
-    CaseError — an unknown key path, a value that is not numeric, or arrays of unequal length.
+    CaseError — an unknown key path, a value that is not numeric, a key that does not apply to
+    the case (:func:`kickback.casevary.resolve`: a BJT's key on a MOSFET, a resistor's key on a
+    Zener — a value no engine would read), a value its key's own rule refuses
+    (:func:`kickback.casevary.check_each`: a negative inductance, a derating above 1), or arrays
+    of unequal length.
     """
+    from kickback.casevary import check_each, resolve
     from kickback.errors import CaseError
     from kickback.keypath import get_value, set_value
 
@@ -163,9 +168,11 @@ def normalize_variations(case, variations) -> tuple[dict, int]:
     for key, values in variations.items():
         path = ".".join(p.strip() for p in str(key).split("."))
         get_value(case, path)  # raises CaseError for a path the case does not have
+        resolve(case, path)  # and for a key the case file would refuse for this case
         a = np.atleast_1d(np.asarray(values, dtype=float))
         if a.ndim != 1:
             raise CaseError(f"the values of {path!r} must be a 1-D sequence (got shape {a.shape})", key=path)
+        check_each(case, path, a)  # each value passes its key's own rule, as in the case file
         set_value(case, path, float(a[0]) if a.size else 0.0)  # raises for a non-numeric key
         if n is None:
             n = a.size

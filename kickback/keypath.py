@@ -10,12 +10,12 @@ import dataclasses
 import re
 
 from kickback.case import Case, Drive
-from kickback.casekeys import did_you_mean, leaf_units
+from kickback.casekeys import did_you_mean, key_specs, leaf_units
 from kickback.errors import CaseError
 
 _PART = re.compile(r"([a-z_]+)(?:\[(\d+)\])?$")
-_TABLES = {"supply": "supply", "coil": "coil", "switch": "switch", "checks": "checks", "drive": "drive",
-           "motor": "motor"}
+#: the case's tables, named as the case file names them (the key table's, :func:`kickback.casekeys.key_specs`)
+_TABLES = frozenset(key_specs()[0])
 
 
 #: unit of each numeric key name ('' for a plain number), from the case loader's key tables
@@ -68,7 +68,7 @@ def _field_name(obj, name: str) -> str:
         if name == "clamp":
             return "clamps"
         if name in _TABLES:
-            return _TABLES[name]
+            return name
     if name == "element":
         return "elements"
     return name

@@ -18,19 +18,6 @@ from kickback.units import format_quantity as q
 #: the ledger's residual above which the run is a defect (DESIGN.md §3)
 BALANCE_DEFECT = 1e-3
 
-# What a key's absence means, by case table, where that is worth a line in the inputs (other absent keys
-# are omitted).
-_ABSENT = {
-    "coil": {"release_current": "not given: no release time", "initial_current": "not given: the DC on-state",
-             "saturation_current": "not given: linear core"},
-    "switch": {"breakdown_voltage": "not given: never breaks down",
-               "rated_avalanche_energy": "not given: any avalanche fails",
-               "body_diode_voltage": "not given: 0.7 V + RDS(on)"},
-    "diode": {"temperature": "not given: 25 °C"},
-    "zener": {"forward_voltage": "not given: 0.7 V forward"},
-    "tvs": {"forward_voltage": "not given: 0.7 V forward"},
-    "checks": {"energy_derating": "not given: same as derating"},
-}
 _NOT_CHECKED = "not given: not checked"
 # defaults worth showing beside the given values (the rest of the dataclass defaults stay silent)
 _SHOWN_DEFAULTS = {"capacitance", "release_delay", "fall_time", "avalanche_resistance", "model", "series_resistance",
@@ -96,7 +83,7 @@ def _fmt(value, field) -> str:
     return num(value) if isinstance(value, int | float) else str(value)
 
 
-def _key_rows(obj, raw: dict | None, spec: dict, skip=(), table: str = "") -> list:
+def _key_rows(obj, raw: dict | None, spec: dict, skip=()) -> list:
     """(key, value, note) rows of one case table: every key the file gives (the value the model used),
     the defaults worth knowing, and the absences that change what is computed or checked."""
     rows = []
@@ -107,8 +94,9 @@ def _key_rows(obj, raw: dict | None, spec: dict, skip=(), table: str = "") -> li
         value = getattr(obj, key) if obj is not None and hasattr(obj, key) else (raw or {}).get(key)
         if value is None:
             single_pulse = not any(w in key for w in ("repetitive", "average", "pulse_width"))
-            note = _ABSENT.get(table, {}).get(key) or (_NOT_CHECKED if key.startswith("rated_") and single_pulse
-                                                       else None)
+            # what the key's absence means (the key table's own line, kickback.casekeys.Field.absent)
+            note = getattr(field, "absent", "") or (_NOT_CHECKED if key.startswith("rated_") and single_pulse
+                                                    else None)
             if note and not given:
                 rows.append([key, "—", note])
         elif given:
@@ -155,7 +143,7 @@ def inputs_table(case) -> str:
                 return {} if known else None
         return node if isinstance(node, dict) else ({} if known else None)
 
-    coil_rows = _key_rows(case.coil, g("coil"), specs["coil"], table="coil")
+    coil_rows = _key_rows(case.coil, g("coil"), specs["coil"])
     origin = initial_current_origin(case)
     if case.coil.initial_current is not None and origin != "given":
         coil_rows = [r for r in coil_rows if r[0] != "initial_current"]
@@ -166,7 +154,7 @@ def inputs_table(case) -> str:
     skip = [k for k, owner in switch_only.items() if s.type != owner]
     if s.breakdown_voltage is None:
         skip.append("avalanche_resistance")
-    cards.append(_card(f"[switch] {s.type}", [("", _key_rows(s, g("switch"), specs["switch"], skip, "switch"))]))
+    cards.append(_card(f"[switch] {s.type}", [("", _key_rows(s, g("switch"), specs["switch"], skip))]))
     for k, cl in enumerate(case.clamps):
         blocks = [("", [["across", cl.across, ""]])]
         for j, el in enumerate(cl.elements):
@@ -176,11 +164,11 @@ def inputs_table(case) -> str:
             elif el.type in ("resistor", "capacitor", "varistor") or (el.type == "tvs" and el.bidirectional):
                 skip = ("forward_voltage",)
             blocks.append((f"element {j + 1}: {el.name or el.type} ({el.type})",
-                           _key_rows(el, g("clamp", k, "element", j), elements.get(el.type, {}), skip, el.type)))
+                           _key_rows(el, g("clamp", k, "element", j), elements.get(el.type, {}), skip)))
         cards.append(_card(f"[[clamp]] {cl.name}", blocks))
     if not case.clamps:
         cards.append(_card("[[clamp]]", [("", [["—", "none", "the switch alone takes the coil current"]])]))
-    cards.append(_card("[checks]", [("", _key_rows(case.checks, g("checks"), specs["checks"], table="checks"))]))
+    cards.append(_card("[checks]", [("", _key_rows(case.checks, g("checks"), specs["checks"]))]))
     for name, table_raw in raw.items():  # tables for other studies ([drive], [tolerance], ...): as written
         if name in ("title", "supply", "coil", "switch", "clamp", "checks", "option"):
             continue
