@@ -19,8 +19,8 @@ from scipy.integrate import quad_vec
 from scipy.optimize import brentq
 
 from kickback.engine.batch import _modes_of
-from kickback.engine.pwl import quadrature_moments
 from kickback.engine.pwl_build import build_modal
+from kickback.engine.pwl_quadrature import quadrature_moments
 from kickback.engine.pwl_roots import Events, first_event
 
 L, R, VS, VCL, RD, C = 0.08, 30.0, 24.0, 24.7, 1.5, 300e-12

@@ -23,9 +23,10 @@ from kickback.conventions import RING_END_FRACTION
 from kickback.engine import batch_events as bev
 from kickback.engine.batch_modes import Mode, Modes
 from kickback.engine.batch_record import Record
-from kickback.engine.pwl import QUADRATURE_FAILURE, SegmentError
+from kickback.engine.pwl import SegmentError
 from kickback.engine.pwl_allroots import all_roots
 from kickback.engine.pwl_build import build_modal, build_scalar
+from kickback.engine.pwl_quadrature import QUADRATURE_FAILURE
 from kickback.engine.pwl_roots import Events, first_event
 
 #: a variant that needs more segments than this is stopped with a message (chatter)

@@ -24,8 +24,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kickback.engine.pwl import ModalSegment, ScalarSegment, SegmentError, mode_rates, quadrature_moments
+from kickback.engine.pwl import ModalSegment, ScalarSegment, SegmentError
 from kickback.engine.pwl_functions import cosh_sinhc, modal_integrals, psi01, slow_rate
+from kickback.engine.pwl_quadrature import mode_rates, quadrature_moments
 
 #: a triple (or nearly triple) eigenvalue of a 3-state segment is not handled
 _TRIPLE_GAP = 1e-7
