@@ -187,3 +187,126 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         return None
     return x, e_on, e_off, runner, resid, solves
 
+
+
+#: a residual that keeps its sign and shrinks by a ratio in this band per Newton step, in one
+#: state only, is read as an exponential top-up (:func:`topup_root`)
+TOPUP_RATIO = (0.15, 0.85)
+#: the probe past the fixed point: this many apparent e-folds of the top-up beyond the last cycle
+TOPUP_PROBE = 15.0
+TOPUP_MAX = 16
+
+
+def topup_state(history, scale: np.ndarray) -> int | None:
+    """The state ``k`` whose residual alone is left, kept its sign over the last two cycles and
+    shrank by a steady ratio in :data:`TOPUP_RATIO` while the state moved towards it: Newton's
+    method creeping up an exponential (a capacitor topped up through a Shockley diode each cycle:
+    the top-up falls e-fold per ``n·V_T`` of its start voltage, each step takes off a fixed
+    fraction). None otherwise."""
+    if len(history) < 2:
+        return None
+    (x0, f0), (x1, f1) = history[-2], history[-1]
+    r0, r1 = np.abs(f0) / scale, np.abs(f1) / scale
+    k = int(np.argmax(r1))
+    if int(np.argmax(r0)) != k or f0[k] * f1[k] <= 0 or (x1[k] - x0[k]) * f0[k] <= 0:
+        return None
+    others = np.arange(len(scale)) != k
+    if np.any(r0[others] > 1e-3 * r0[k]) or np.any(r1[others] > 1e-3 * r1[k]):
+        return None
+    ratio = r1[k] / r0[k]
+    return k if TOPUP_RATIO[0] < ratio < TOPUP_RATIO[1] else None
+
+
+def topup_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, history,
+               one_cycle, tol: float, final_from: float = 1e-6):
+    """The fixed point of a state topped up exponentially each cycle (:func:`topup_state`).
+
+    Its residual is ``F(s) = T(s) − D``: a top-up ``T`` falling as ``exp(−s/a)`` and a fixed drain
+    ``D`` (Newton's method takes off a fixed fraction of ``F`` per step). One cycle
+    :data:`TOPUP_PROBE` apparent e-folds past the last one, where the top-up is nil, gives ``D``
+    and the far end of a bracket; a safeguarded secant on ``g(s) = ln((F(s) + D)/D)``, which is
+    linear in ``s`` where ``T`` is exponential and has the same root as ``F``, closes it in a few
+    cycles; bisection wherever the secant leaves the bracket. The other states follow at each
+    cycle. Done when the distance to the root estimated from the secant's slope, or the bracket,
+    is below ``tol`` of the state's scale; a cycle after one whose residual is below
+    ``final_from`` is solved in full (energies, kept), as it is expected to be the last. Returns
+    as :func:`bracketed_root`, or None (no sign change at the probe, or not closed in
+    :data:`TOPUP_MAX` cycles): the shooting then goes on as before.
+
+    References
+    ----------
+    R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4
+    (a secant step kept inside a bracket, bisection otherwise).
+    """
+    k = topup_state(history, scale)
+    if k is None:
+        return None
+    n = c.ie
+    others = np.arange(n) != k
+    (xa, fa), (xb, fb) = history[-2], history[-1]
+    sign = 1.0 if fb[k] > 0 else -1.0
+    sa, sb = float(xa[k]), float(xb[k])
+    efold = (sb - sa) / math.log(fa[k] / fb[k])  # signed: the direction of the root
+    base = np.array(xb, dtype=float)
+    solves = 0
+    last = None
+
+    def cycle(s, full=False, follow=True):
+        nonlocal solves, last
+        xx = base.copy()
+        xx[k] = s
+        solves += 1
+        got = one_cycle(c, xx, duty, frequency, rtol, keep=full, energies=full)
+        x1 = got[0]
+        if follow:
+            base[others] = x1[others]  # the other states follow
+        last = (xx, got if full else None)
+        return sign * float(x1[k] - s), float(np.max(np.abs(x1 - xx) / scale))
+
+    try:
+        far = sb + TOPUP_PROBE * efold
+        f_far, _ = cycle(far, follow=False)
+        if not f_far < 0:
+            return None
+        drain = -f_far
+        near = sb  # the bracket: F > 0 at `near`, < 0 at `far`
+        pts = [(sa, math.log1p(sign * fa[k] / drain)), (sb, math.log1p(sign * fb[k] / drain))]
+        xtol = tol * scale[k]  # as the Newton step of the shooting
+        full = False  # the cycle is expected to be the last: solved in full (energies, kept)
+        for _ in range(TOPUP_MAX):
+            (s0, g0), (s1, g1) = pts[-2], pts[-1]
+            s = s1 - g1 * (s1 - s0) / (g1 - g0) if g1 != g0 else math.nan
+            lo, hi = min(near, far), max(near, far)
+            if not lo < s < hi:
+                s = 0.5 * (near + far)
+            f, resid = cycle(s, full)
+            if f > 0:
+                near = s
+            elif f < 0:
+                far = s
+            if f > -drain:
+                g = math.log1p(f / drain)
+                slope = (g - g1) / (s - s1) if s != s1 else math.nan
+                pts.append((s, g))
+                if resid <= tol and (abs(g / slope) <= xtol if slope == slope and slope != 0 else False):
+                    break
+            if f == 0.0 or abs(far - near) <= xtol:
+                break
+            full = resid <= final_from
+        else:
+            return None
+    except (ValueError, ZeroDivisionError, SolverError):
+        return None
+    x = last[0]
+    if last[1] is not None:
+        x1, e_on, e_off, runner = last[1]
+    else:
+        x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
+        solves += 1
+    r = np.abs(x1 - x) / scale
+    resid = float(np.max(r))
+    # the other states were only followed, not solved for: settled far below the tolerance, the
+    # distance to their fixed point stays within it even where the map contracts them slowly
+    if not (resid <= tol and float(np.max(r[others])) <= 1e-2 * tol):
+        return None
+    return x, e_on, e_off, runner, resid, solves
