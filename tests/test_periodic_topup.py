@@ -19,7 +19,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from kickback.engine.periodic_bracket import topup_root, topup_state
+from kickback.engine.periodic_bracket import log_secant, topup_root, topup_state
 
 TOL = 1e-9
 SCALE = np.array([10.0, 1.0])  # [V] the held capacitor, [A] a state the map forgets
@@ -120,3 +120,29 @@ def test_an_unsettled_other_state_gets_no_answer():
         hist.append((x, one_cycle(None, x, 0.5, 1e3, 1e-8)[0] - x))
     assert topup_state(hist, SCALE) == 0
     assert topup_root(SimpleNamespace(ie=2), 0.5, 1e3, 1e-8, SCALE, hist, one_cycle, TOL) is None
+
+
+@pytest.mark.parametrize("w,D", [(4e-4, 1e-6), (1e-3, 2.5e-6), (0.02, 1e-4)])
+def test_log_secant_meets_a_fill_to_level_knee(w, D):
+    """A capacitor charged to a level ``L`` each cycle when it starts below it, with a smooth
+    knee of width ``w`` (``T = w·ln(1 + exp((L − s)/w))``: linear ``L − s`` below, an exponential
+    tail above), drained by ``D``: the held-state bracket of the shooting (wide-range case 718's
+    shape). Fixed point in closed form: ``T(s*) = D`` ⇔ ``s* = L − w·ln(expm1(D/w))``."""
+    L = 1.37
+    s_star = L - w * math.log(math.expm1(D / w))
+    n, at = [0], []
+
+    def evaluate(s, full):
+        n[0] += 1
+        at.append(s)
+        f = w * float(np.logaddexp(0.0, (L - s) / w)) - D  # ln(1 + e^u) without overflow
+        return f, abs(f)
+
+    lo, hi = -0.3, 8.6  # a cycle far below (topped up to L) and one far above (drained)
+    pts = [(lo, evaluate(lo, False)[0]), (hi, evaluate(hi, False)[0])]
+    n[0] = 0
+    xtol = 1e-3 * TOL
+    assert log_secant(evaluate, pts, lo, hi, -pts[1][1], xtol, TOL, -1.0, 100)
+    # the last cycle evaluated is the root, to the bracket's tolerance (plus the rounding of s)
+    assert abs(at[-1] - s_star) <= xtol + 4e-16 * L
+    assert n[0] <= 15  # bisection alone: log2(8.9/1e-12) ≈ 43 cycles

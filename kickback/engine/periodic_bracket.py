@@ -140,7 +140,6 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     the best cycle's, then follow. The bracket, not a Newton step, bounds the distance to the
     fixed point. Returns as :func:`bracketed_root`, or None.
     """
-    from scipy.optimize import brentq
 
     k = held_state(jm, scale)
     if k is None or not history:
@@ -152,7 +151,8 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     neg = [p for p in pts if p[1] < 0]
     if not pos or not neg:
         return None
-    drain = max(-f for _, f in neg)
+    # the drain where the top-up is surely nil: the negative cycle farthest up
+    drain = -max(neg)[1]
     lo, hi = max(pos), min(neg)
     if not lo[0] < hi[0]:
         return None
@@ -167,13 +167,21 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         solves += 1
         return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
 
+    at = []
+
+    def evaluate(s, full):
+        f = residual(s)
+        at.append((abs(f), s))
+        return f, abs(f) / scale[k]
+
     try:
-        root = brentq(lambda s: math.log(max(residual(s) + drain, 1e-12 * drain) / drain), lo[0], hi[0],
-                      xtol=1e-3 * tol * scale[k], rtol=4 * np.finfo(float).eps, maxiter=100)
-    except (ValueError, RuntimeError, SolverError):
+        if not drain > 0 or not log_secant(evaluate, pts, lo[0], hi[0], drain, 1e-3 * tol * scale[k], tol,
+                                           -1.0, 100):
+            return None
+    except (ValueError, ZeroDivisionError, SolverError):
         return None
     x = base.copy()
-    x[k] = root
+    x[k] = min(at)[1]
     for _ in range(3):  # the other states follow the held one
         x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
         solves += 1
@@ -268,32 +276,8 @@ def topup_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np
         f_far, _ = cycle(far, follow=False)
         if not f_far < 0:
             return None
-        drain = -f_far
-        near = sb  # the bracket: F > 0 at `near`, < 0 at `far`
-        pts = [(sa, math.log1p(sign * fa[k] / drain)), (sb, math.log1p(sign * fb[k] / drain))]
-        xtol = tol * scale[k]  # as the Newton step of the shooting
-        full = False  # the cycle is expected to be the last: solved in full (energies, kept)
-        for _ in range(TOPUP_MAX):
-            (s0, g0), (s1, g1) = pts[-2], pts[-1]
-            s = s1 - g1 * (s1 - s0) / (g1 - g0) if g1 != g0 else math.nan
-            lo, hi = min(near, far), max(near, far)
-            if not lo < s < hi:
-                s = 0.5 * (near + far)
-            f, resid = cycle(s, full)
-            if f > 0:
-                near = s
-            elif f < 0:
-                far = s
-            if f > -drain:
-                g = math.log1p(f / drain)
-                slope = (g - g1) / (s - s1) if s != s1 else math.nan
-                pts.append((s, g))
-                if resid <= tol and (abs(g / slope) <= xtol if slope == slope and slope != 0 else False):
-                    break
-            if f == 0.0 or abs(far - near) <= xtol:
-                break
-            full = resid <= final_from
-        else:
+        pts = [(sa, sign * float(fa[k])), (sb, sign * float(fb[k])), (far, f_far)]
+        if not log_secant(cycle, pts, sb, far, -f_far, tol * scale[k], tol, final_from, TOPUP_MAX):
             return None
     except (ValueError, ZeroDivisionError, SolverError):
         return None
@@ -310,3 +294,70 @@ def topup_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np
     if not (resid <= tol and float(np.max(r[others])) <= 1e-2 * tol):
         return None
     return x, e_on, e_off, runner, resid, solves
+
+
+def log_secant(evaluate, pts, near: float, far: float, drain: float, xtol: float, tol: float,
+               final_from: float, max_cycles: int) -> bool:
+    """Root of a held state's residual ``F(s) = T(s) − D`` inside the bracket (``F > 0`` at
+    ``near``, ``< 0`` at ``far``): a secant on ``g(s) = ln((F(s) + D)/D)`` (linear in ``s`` where the
+    top-up ``T`` is exponential; ``g = 0`` exactly where ``F = 0``, whatever ``D``), kept inside the
+    bracket; a secant on ``F`` itself where that one leaves it (far above the drain a capacitor is
+    charged to a level, ``F`` linear), false position in ``g`` between the bracket's ends next, bisection where
+    ``g`` is not known at both ends (a top-up below ``1e-6·D``, lost in the cycle's noise) or where
+    the bracket did not halve over two cycles. ``evaluate(s, full)`` returns ``(F(s), relative
+    residual of the cycle)``; ``pts`` holds known ``(s, F)``. True when the last cycle evaluated
+    is the fixed point (its residual within ``tol``, its distance to the root by the secant's slope
+    or the bracket within ``xtol``); a cycle after one within ``final_from`` is evaluated in full.
+
+    References
+    ----------
+    R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4;
+    M. Dowell and P. Jarratt, "A modified regula falsi method", BIT 11, 1971.
+    """
+    floor = 1e-6 * drain
+
+    def g_of(f):
+        return math.log1p(f / drain) if f + drain > floor else None
+
+    known = {s: g_of(f) for s, f in pts}
+    finite = [(s, g) for s, g in known.items() if g is not None]
+    finite.sort(key=lambda sg: abs(sg[1]), reverse=True)  # the best last
+    above = sorted(((s, f) for s, f in pts if f > 0), key=lambda sf: -sf[1])  # the least last
+    full, slow = False, 0
+    for _ in range(max_cycles):
+        lo, hi = min(near, far), max(near, far)
+        s = math.nan
+        if len(finite) >= 2 and slow < 2:
+            (s0, g0), (s1, g1) = finite[-2], finite[-1]
+            if g1 != g0:
+                s = s1 - g1 * (s1 - s0) / (g1 - g0)
+            if not lo < s < hi and len(above) >= 2:
+                # far above the drain: a capacitor charged to a level (F = L − s), linear in F
+                (s0, f0), (s1, f1) = above[-2], above[-1]
+                s = s1 - f1 * (s1 - s0) / (f1 - f0) if f1 != f0 else math.nan
+            if not lo < s < hi and known.get(near) is not None and known.get(far) is not None:
+                gn, gf = known[near], known[far]
+                s = near - gn * (far - near) / (gf - gn)
+        if not lo < s < hi:
+            s, slow = 0.5 * (near + far), 0
+        width = hi - lo
+        f, resid = evaluate(s, full)
+        if f > 0:
+            near = s
+        elif f < 0:
+            far = s
+        slow = slow + 1 if abs(far - near) > 0.5 * width else 0
+        g = known[s] = g_of(f)
+        if f > 0:
+            above.append((s, f))
+        if g is not None:
+            prev = finite[-1] if finite else None
+            finite.append((s, g))
+            if prev is not None and prev[0] != s and resid <= tol:
+                slope = (g - prev[1]) / (s - prev[0])
+                if slope != 0 and abs(g / slope) <= xtol:
+                    return True
+        if f == 0.0 or abs(far - near) <= xtol:
+            return resid <= tol
+        full = resid <= final_from
+    return False
