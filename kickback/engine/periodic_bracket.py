@@ -136,11 +136,11 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     F is flat at −D and Newton's step is undefined) and a top-up ``T(s)`` that grows as the
     capacitor starts below the clamp's knee (exponentially for a Shockley diode). The root of
     ``ln(T(s)/D)``, bracketed by two cycles of the iteration with residuals of opposite signs, is
-    found by Brent's method (nearly linear for a Shockley diode); the other states are held at
-    the best cycle's, then follow. The bracket, not a Newton step, bounds the distance to the
-    fixed point. Returns as :func:`bracketed_root`, or None.
+    found by :func:`log_secant` (nearly linear for a Shockley diode; ``D`` read at the farthest
+    drained cycle); the other states are held at the best cycle's, then follow. The bracket, not
+    a Newton step, bounds the distance to the fixed point. Returns as :func:`bracketed_root`, or
+    None.
     """
-
     k = held_state(jm, scale)
     if k is None or not history:
         return None
@@ -194,7 +194,6 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     if not resid <= tol:
         return None
     return x, e_on, e_off, runner, resid, solves
-
 
 
 #: a residual that keeps its sign and shrinks by a ratio in this band per Newton step, in one
