@@ -36,6 +36,8 @@ from kickback.engine.periodic_bracket import (
     bracketed_root,
     held_root,
     held_state,
+    topup_root,
+    topup_state,
 )
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
@@ -209,6 +211,13 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
         merit = _merit(f, scale, jm_fd)
+        if resid > STEADY_TOL and topup_state(history, scale) is not None:
+            # one state left, Newton creeping up an exponential top-up: bracket and secant in its log
+            got = topup_root(c, duty, frequency, rtol, scale, history, one_cycle, STEADY_TOL, FINAL_FROM)
+            if got is not None:
+                x, e_on, e_off, runner, resid, more = got
+                solves += more
+                break
         if x_prev is not None and resid > STEADY_TOL and merit > 0.1 * resid_prev \
                 and _one_kept_flips(jm_fd, scale, f, f_prev):
             # one state carries the map, and a step that took off little of its residual
