@@ -3,6 +3,7 @@ folder, exiting with one line, writing an output set. No physics here."""
 
 from __future__ import annotations
 
+import contextlib
 import sys
 from pathlib import Path
 
@@ -25,6 +26,20 @@ def die(message: str) -> None:
     """Print one line on stderr and exit 2 (bad input, or work that cannot be done)."""
     note(message)
     sys.exit(2)
+
+
+@contextlib.contextmanager
+def study_errors(source: str):
+    """A study's stated failures as the one-line exit 2: a case error located in its file, an
+    engine's refusal named as the --engine choice's."""
+    from kickback.errors import CaseError, SolverError
+
+    try:
+        yield
+    except CaseError as err:
+        die(located(err, source))
+    except SolverError as err:
+        die(f"{source}: --engine: {err}")
 
 
 def fail(case, err) -> None:

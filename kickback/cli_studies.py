@@ -16,10 +16,10 @@ from kickback.cli_common import (
     die,
     load_or_exit,
     out_folder,
+    study_errors,
     write_study,
 )
 from kickback.cli_parallel import open_executor, scheduler_option
-from kickback.cliguard import located
 from kickback.progress import with_progress
 
 
@@ -48,14 +48,13 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
 
     import numpy as np
 
-    from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.sweeps import sweep_csv, sweep_table
     from kickback.studies.sweep import parse_vary, run_sweep
 
     c = load_or_exit(case)
     out = out_folder(out_dir)
-    try:
+    with study_errors(c.source):
         for v in varies:
             if any(ch.isdigit() and not ch.isascii() for ch in v):
                 die(f"{c.source}: --vary: {v!r} holds a digit other than 0-9 (expected ASCII digits)")
@@ -73,10 +72,6 @@ def sweep(case: str, varies, log: bool, workers, engine: str, as_json: bool, out
         executor = open_executor(scheduler)
         sw = with_progress("sweep", n, lambda progress: run_sweep(c, axes, workers=workers, progress=progress,
                                                                   engine=engine, executor=executor))
-    except CaseError as err:
-        die(located(err, c.source))
-    except SolverError as err:
-        die(f"{c.source}: --engine: {err}")
     payload = to_json(sw.to_dict())
     if out_dir is not None:
         from kickback.outputs.sweeps import sweep_figure
@@ -107,7 +102,6 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
     """
     import os
 
-    from kickback.errors import CaseError, SolverError
     from kickback.outputs.choice import choice_table
     from kickback.outputs.jsonout import to_json
     from kickback.studies.choose import choose as run_choose
@@ -116,12 +110,8 @@ def choose(case: str, workers, engine: str, as_json: bool, out_dir, no_plot: boo
     out = out_folder(out_dir)
     check_room_for_a_clamp(c)
     workers = workers or min(os.cpu_count() or 1, 8)
-    try:
+    with study_errors(c.source):
         ch = run_choose(c, workers=workers, engine=engine, executor=open_executor(scheduler))
-    except CaseError as err:
-        die(located(err, c.source))
-    except SolverError as err:
-        die(f"{c.source}: --engine: {err}")
     payload = to_json(ch.to_dict())
     if out_dir is not None:
         from kickback.outputs.choice import tradeoff_figure
@@ -156,7 +146,6 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
     """
     import os
 
-    from kickback.errors import CaseError, SolverError
     from kickback.outputs.jsonout import to_json
     from kickback.outputs.tolerances import SamplesCsv, tolerance_table
     from kickback.studies.tolerance import run_tolerance
@@ -176,15 +165,11 @@ def tolerance(case: str, samples: int, seed: int, workers, engine: str, recheck:
 
             fh, csv_path = stack.enter_context(streamed(out, "samples.csv"))
             sink = SamplesCsv(fh, tuple(t.path for t in c.tolerances), figure_list(c))
-        try:
+        with study_errors(c.source):
             tr = with_progress("samples", samples,
                                lambda progress: run_tolerance(c, samples, seed, workers=workers, progress=progress,
                                                               engine=engine, recheck=recheck, executor=executor,
                                                               sink=sink))
-        except CaseError as err:
-            die(located(err, c.source))
-        except SolverError as err:
-            die(f"{c.source}: --engine: {err}")
         payload = to_json(tr.to_dict())
         if out is not None:
             from kickback.outputs.tolerances import tolerance_figure
