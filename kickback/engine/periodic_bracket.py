@@ -54,6 +54,31 @@ def merit(f: np.ndarray, scale: np.ndarray, jm: np.ndarray | None) -> float:
     return float(np.max(r))
 
 
+def _state_residual(one_cycle, c: Circuit, base: np.ndarray, k: int, duty: float, frequency: float, rtol: float):
+    """The cycle map's residual in state ``k`` alone, the others held at ``base``:
+    s ↦ x_k(T) − s, and a one-element list counting the cycle solves it made."""
+    count = [0]
+
+    def residual(s):
+        xx = base.copy()
+        xx[k] = s
+        count[0] += 1
+        return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
+
+    return residual, count
+
+
+def _closed(one_cycle, c: Circuit, x, duty: float, frequency: float, rtol: float, scale: np.ndarray, tol: float,
+            solves: int):
+    """One full cycle from ``x`` (energies and the runner kept): the steady state's tuple if its
+    residual is within ``tol``, else None."""
+    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
+    resid = float(np.max(np.abs(x1 - x) / scale))
+    if not resid <= tol:
+        return None
+    return x, e_on, e_off, runner, resid, solves + 1
+
+
 def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, jm, history,
                    one_cycle, tol: float):
     """The fixed point by bracketing, where the cycle map depends on one state only (the coil
@@ -85,14 +110,7 @@ def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale
         return None
     a, b = min(((p, q) for p in pos for q in neg), key=lambda pq: abs(pq[0] - pq[1]))
     base = np.array(history[-1][0], dtype=float)
-    solves = 0
-
-    def g(s):
-        nonlocal solves
-        xx = base.copy()
-        xx[k] = s
-        solves += 1
-        return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
+    g, count = _state_residual(one_cycle, c, base, k, duty, frequency, rtol)
 
     try:
         root = brentq(g, min(a, b), max(a, b), xtol=1e-3 * tol * scale[k],
@@ -103,14 +121,9 @@ def bracketed_root(c: Circuit, duty: float, frequency: float, rtol: float, scale
     x[k] = root
     for _ in range(2):  # the forgotten states follow the kept one
         x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
-        solves += 1
+        count[0] += 1
         x[np.arange(n) != k] = x1[np.arange(n) != k]
-    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
-    solves += 1
-    resid = float(np.max(np.abs(x1 - x) / scale))
-    if not resid <= tol:
-        return None
-    return x, e_on, e_off, runner, resid, solves
+    return _closed(one_cycle, c, x, duty, frequency, rtol, scale, tol, count[0])
 
 
 def held_state(jm, scale: np.ndarray) -> int | None:
@@ -158,14 +171,7 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         return None
     # the cycle whose other states are best settled
     base = np.array(min(history, key=lambda xf: float(np.max(np.abs(xf[1][others]) / scale[others])))[0])
-    solves = 0
-
-    def residual(s):
-        nonlocal solves
-        xx = base.copy()
-        xx[k] = s
-        solves += 1
-        return float(one_cycle(c, xx, duty, frequency, rtol, energies=False)[0][k] - s)
+    residual, count = _state_residual(one_cycle, c, base, k, duty, frequency, rtol)
 
     at = []
 
@@ -184,16 +190,11 @@ def held_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     x[k] = min(at)[1]
     for _ in range(3):  # the other states follow the held one
         x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
-        solves += 1
+        count[0] += 1
         if float(np.max(np.abs(x1 - x)[others] / scale[others])) <= tol:
             break
         x[others] = x1[others]
-    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
-    solves += 1
-    resid = float(np.max(np.abs(x1 - x) / scale))
-    if not resid <= tol:
-        return None
-    return x, e_on, e_off, runner, resid, solves
+    return _closed(one_cycle, c, x, duty, frequency, rtol, scale, tol, count[0])
 
 
 #: a residual that keeps its sign and shrinks by a ratio in this band per Newton step, in one
