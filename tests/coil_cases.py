@@ -9,6 +9,8 @@ conducts (the flyback clamp of any power-electronics textbook, e.g. Mohan, Undel
 
 from __future__ import annotations
 
+from concurrent.futures import Executor, Future
+
 V_SUPPLY, V_Z, V_F = 24.0, 20.0, 0.7
 PEAK = V_SUPPLY + V_Z + V_F  # closed form, 44.7 V
 
@@ -52,3 +54,28 @@ def tolerance(path: str, **fields: str) -> str:
 TEMPERATURE = tolerance("coil_temperature", min="-20 °C", max="85 °C")
 #: the Zener voltage ±1 V
 ZENER_1V = tolerance("clamp[0].element[1].voltage", band="±1 V")
+
+
+def two_band_study(title: str) -> str:
+    """The diode + Zener case with L (10 %, uniform) and the supply (5 %, normal) toleranced, the
+    Zener's 1 V band and the coil temperature: a small tolerance study for executor tests."""
+    return (diode_zener_case(title, 45)
+            + tolerance("coil.inductance", band="10 %", distribution="uniform")
+            + tolerance("supply.voltage", band="5 %", distribution="normal") + ZENER_1V + TEMPERATURE)
+
+
+class InProcess(Executor):
+    """A concurrent.futures executor that runs each task at once in this thread (the Executor
+    interface of the Python documentation, nothing more)."""
+
+    def __init__(self):
+        self.tasks = 0
+
+    def submit(self, fn, /, *args, **kwargs):
+        fut = Future()
+        self.tasks += 1
+        try:
+            fut.set_result(fn(*args, **kwargs))
+        except BaseException as err:  # handed to the caller through the future
+            fut.set_exception(err)
+        return fut

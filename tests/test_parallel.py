@@ -5,35 +5,17 @@ SeedSequence.spawn."""
 from __future__ import annotations
 
 import os
-from concurrent.futures import Executor, Future, ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import pytest
-from coil_cases import TEMPERATURE, ZENER_1V, diode_zener_case, tolerance
+from coil_cases import InProcess, two_band_study
 
 from kickback import load_case, parallel
 from kickback.studies.tolerance import DRAW_BLOCK, draw, run_tolerance
 
-TOL = (diode_zener_case("parallel test", 45)
-       + tolerance("coil.inductance", band="10 %", distribution="uniform")
-       + tolerance("supply.voltage", band="5 %", distribution="normal") + ZENER_1V + TEMPERATURE)
+TOL = two_band_study("parallel test")
 
-
-class InProcess(Executor):
-    """A concurrent.futures executor that runs each task at once in this thread (the Executor
-    interface of the Python documentation, nothing more)."""
-
-    def __init__(self):
-        self.tasks = 0
-
-    def submit(self, fn, /, *args, **kwargs):
-        fut = Future()
-        self.tasks += 1
-        try:
-            fut.set_result(fn(*args, **kwargs))
-        except BaseException as err:  # handed to the caller through the future
-            fut.set_exception(err)
-        return fut
 
 
 def _numbers(tr) -> dict:

@@ -10,39 +10,20 @@ run here on the samples a gathered study keeps (numpy documentation).
 from __future__ import annotations
 
 import io
-from concurrent.futures import Executor, Future
 
 import numpy as np
 import pytest
-from coil_cases import TEMPERATURE, ZENER_1V, diode_zener_case, tolerance
+from coil_cases import InProcess, two_band_study
 
 from kickback import load_case
 from kickback.studies import tolstats
 from kickback.studies.tolerance import DRAW_BLOCK, PERCENTILES, draw, run_tolerance
 from kickback.studies.tolsample import draw_rows
 
-TOL = (diode_zener_case("merged statistics test", 45)
-       + tolerance("coil.inductance", band="10 %", distribution="uniform")
-       + tolerance("supply.voltage", band="5 %", distribution="normal") + ZENER_1V + TEMPERATURE)
+TOL = two_band_study("merged statistics test")
 N, CHUNK, SEED = 2300, 500, 9
 KW = dict(engine="batch", chunk=CHUNK, search_budget=4, recheck=3)
 
-
-class InProcess(Executor):
-    """A concurrent.futures executor that runs each task at once in this thread (the Executor
-    interface of the Python documentation, nothing more)."""
-
-    def __init__(self):
-        self.tasks = 0
-
-    def submit(self, fn, /, *args, **kwargs):
-        fut = Future()
-        self.tasks += 1
-        try:
-            fut.set_result(fn(*args, **kwargs))
-        except BaseException as err:  # handed to the caller through the future
-            fut.set_exception(err)
-        return fut
 
 
 class Rows:
