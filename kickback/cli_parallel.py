@@ -23,16 +23,15 @@ def open_executor(address: str | None):
     if address is None:
         return None
     from kickback.errors import KickbackError
-    from kickback.parallel import cluster_executor, worker_malloc_note
+    from kickback.parallel import cluster_executor, worker_notes
 
     try:
         executor = cluster_executor(address)
     except KickbackError as err:
         note(f"kickback: {err}")
         sys.exit(2)
-    slow = worker_malloc_note(executor)
-    if slow:
-        note(slow)
+    for line in worker_notes(executor):
+        note(line)
     return executor
 
 

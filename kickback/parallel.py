@@ -34,7 +34,7 @@ from concurrent.futures import Executor
 import numpy as np
 
 __all__ = ["chunk_seeds", "cluster_executor", "current", "groups", "imap_ordered", "local_pool", "map_ordered",
-           "shutdown", "submit", "using", "worker_malloc_note"]
+           "shutdown", "submit", "using", "worker_notes"]
 
 _EXECUTOR: contextvars.ContextVar = contextvars.ContextVar("kickback_executor", default=None)
 _INSIDE: contextvars.ContextVar = contextvars.ContextVar("kickback_inside_worker", default=False)
@@ -262,22 +262,41 @@ def cluster_executor(address: str) -> Executor:
 MALLOC_TRIM = "MALLOC_TRIM_THRESHOLD_"
 
 
-def _malloc_trim() -> str | None:
-    return os.environ.get(MALLOC_TRIM)
+def _worker_setup() -> tuple:
+    """What a worker runs with: its :data:`MALLOC_TRIM` value (None: unset) and whether Dask's
+    statistical profiler is on (``distributed.worker.profile.enabled``, Dask's default True)."""
+    try:
+        import dask
+
+        profiling = bool(dask.config.get("distributed.worker.profile.enabled", True))
+    except ImportError:
+        profiling = False
+    return os.environ.get(MALLOC_TRIM), profiling
 
 
-def worker_malloc_note(executor) -> str:
-    """A sentence when the Dask workers behind ``executor`` run with :data:`MALLOC_TRIM` set
-    (Dask's default), which slows the batch engine; "" otherwise or when they cannot be asked."""
+def worker_notes(executor) -> list[str]:
+    """Sentences about how the Dask workers behind ``executor`` are set up, when it costs the
+    studies: :data:`MALLOC_TRIM` set (Dask's nanny's default: the batch engine about 1.6x
+    slower) and the statistical profiler on (Dask's default: a worker running long studies
+    keeps growing). Empty when neither, or when the workers cannot be asked (not a Dask
+    executor)."""
     client = getattr(executor, "_client", executor)
     try:
-        found = client.run(_malloc_trim)
+        found = client.run(_worker_setup)
     except Exception:  # noqa: BLE001 - not a Dask client, or the workers do not answer: nothing to say
-        return ""
-    values = sorted({str(v) for v in found.values() if v is not None})
-    if not values:
-        return ""
-    return (f"note: {sum(v is not None for v in found.values())} of {len(found)} Dask worker(s) run with "
-            f"{MALLOC_TRIM}={', '.join(values)} (set by Dask's nanny by default), which makes the batch engine "
-            "about 1.6x slower; start them with distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_ "
-            "set to null in a Dask config file (see the README, \"On a cluster\")")
+        return []
+    n = len(found)
+    trims = [m for m, _ in found.values() if m is not None]
+    profiled = sum(1 for _, p in found.values() if p)
+    out = []
+    if trims:
+        out.append(f"note: {len(trims)} of {n} Dask worker(s) run with {MALLOC_TRIM}={', '.join(sorted(set(trims)))} "
+                   "(set by Dask's nanny by default), which makes the batch engine about 1.6x slower; start them "
+                   "with distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_ set to null in a Dask config "
+                   "file (see the README, \"On a cluster\")")
+    if profiled:
+        out.append(f"note: {profiled} of {n} Dask worker(s) run Dask's statistical profiler, whose records grow "
+                   "with the time a task runs (a worker running long studies keeps growing); set "
+                   "distributed.worker.profile.enabled to false in a Dask config file (see the README, "
+                   "\"On a cluster\")")
+    return out

@@ -106,14 +106,20 @@ def test_check_on_a_cluster(client, tmp_path):
     assert strip == [{k: v for k, v in c.to_dict().items() if k != "seconds"} for c in remote]
 
 
-def test_the_malloc_note_asks_the_dask_workers(client, monkeypatch):
-    # the in-process workers share this process's environment; Dask's nanny would set this variable
+def test_the_notes_ask_the_dask_workers(client, monkeypatch):
+    # the in-process workers share this process's environment and Dask configuration; Dask's
+    # nanny would set the malloc variable, Dask's default turns the profiler on
+    import dask
+
     from kickback import parallel
 
     monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
-    assert "2 of 2 Dask worker(s)" in parallel.worker_malloc_note(client.get_executor())
+    with dask.config.set({"distributed.worker.profile.enabled": True}):
+        notes = parallel.worker_notes(client.get_executor())
+    assert len(notes) == 2 and all("2 of 2 Dask worker(s)" in n for n in notes)
     monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_")
-    assert parallel.worker_malloc_note(client.get_executor()) == ""
+    with dask.config.set({"distributed.worker.profile.enabled": False}):
+        assert parallel.worker_notes(client.get_executor()) == []
 
 
 def test_the_scheduler_option_on_the_command_line(client, tmp_path, monkeypatch):

@@ -147,13 +147,30 @@ class _FakeClient:
 
 def test_a_note_when_dask_workers_trim_malloc(monkeypatch):
     # glibc malloc(3): MALLOC_TRIM_THRESHOLD_ set fixes the mmap threshold; Dask's nanny sets it
+    import dask
+
     monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
-    note = parallel.worker_malloc_note(_FakeClient())
-    assert "2 of 2 Dask worker(s)" in note and "MALLOC_TRIM_THRESHOLD_=65536" in note and "null" in note
-    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_")
-    assert parallel.worker_malloc_note(_FakeClient()) == ""
+    with dask.config.set({"distributed.worker.profile.enabled": False}):
+        notes = parallel.worker_notes(_FakeClient())
+        assert len(notes) == 1
+        assert "2 of 2 Dask worker(s)" in notes[0] and "MALLOC_TRIM_THRESHOLD_=65536" in notes[0]
+        assert "null" in notes[0]
+        monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_")
+        assert parallel.worker_notes(_FakeClient()) == []
     with ThreadPoolExecutor(1) as threads:
-        assert parallel.worker_malloc_note(threads) == ""  # not a Dask executor: nothing to say
+        assert parallel.worker_notes(threads) == []  # not a Dask executor: nothing to say
+
+
+def test_a_note_when_dask_workers_run_the_profiler(monkeypatch):
+    # Dask's statistical profiler is on by default (distributed.worker.profile.enabled, Dask's
+    # configuration reference); its records grow with the time a task runs (README, measured)
+    import dask
+
+    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_", raising=False)
+    with dask.config.set({"distributed.worker.profile.enabled": True}):
+        notes = parallel.worker_notes(_FakeClient())
+    assert len(notes) == 1 and "2 of 2 Dask worker(s)" in notes[0] and "profiler" in notes[0]
+    assert "distributed.worker.profile.enabled" in notes[0]
 
 
 def test_a_map_lets_each_future_go_once_read():
