@@ -16,8 +16,9 @@ For every drawn case (``tests/wide_range.py``, one per seed):
   batch engine uses its stated piecewise-linear fit of a Shockley diode or a varistor.
 
 The CI share is :data:`N_CI` cases (seeds 0 … N−1); ``KICKBACK_WIDE_CASES=5000`` runs more (the
-long run), ``KICKBACK_WIDE_START`` moves the first seed, ``KICKBACK_WIDE_LIMIT`` the seconds after
-which a case is killed (default 8). Each failing test's id names its seed: regenerate the case
+long run), ``KICKBACK_WIDE_START`` moves the first seed, ``KICKBACK_WIDE_LIMIT`` the CPU seconds
+after which a case is killed (default 8; CPU, not wall time, so that a loaded machine does not
+kill a case that an idle one finishes). Each failing test's id names its seed: regenerate the case
 with ``python -c "import sys; sys.path.insert(0, 'tests'); from wide_range import draw;
 print(draw(SEED).text)"``.
 
@@ -71,7 +72,7 @@ def problems(d: dict, b: dict) -> list[str]:
     for r in (d, b):
         name = r["engine"]
         if r["status"] == "timeout":
-            out.append(f"{name}: not finished within {LIMIT:g} s")
+            out.append(f"{name}: not finished within {LIMIT:g} s of CPU ({r['message']})")
         elif r["status"] == "crash":
             out.append(f"{name}: bare exception {r['message']}")
         elif r["status"] == "stated" and name == "detailed":

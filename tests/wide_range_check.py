@@ -10,14 +10,19 @@ Shared by ``tests/test_wide_range.py`` and ``benchmarks/reliability.py``:
   verdict flip (figures within :data:`EXACT_TOL` relative where both engines use the same
   piecewise-linear laws, :data:`FIT_TOL` where the batch engine uses its stated piecewise-linear
   fit of a Shockley diode or a varistor);
-* :func:`run_pool` — many (seed, engine) tasks in worker processes with a hard time limit per
-  task (a task over the limit is killed and counted, never waited for).
+* :func:`run_pool` — many (seed, engine) tasks in worker processes with a hard limit per task on
+  its CPU time (a task over the limit is killed and counted, never waited for).
+
+Times are CPU seconds of the worker process (``time.process_time``; the limit reads the worker's
+``/proc/PID/stat``): on a loaded machine a case's wall time measures the load, its CPU time the
+work, and on an idle machine the two are about equal. The wall time is kept beside it.
 """
 
 from __future__ import annotations
 
 import math
 import multiprocessing as mp
+import os
 import time
 import traceback
 import warnings
@@ -89,14 +94,14 @@ def solve(seed: int, engine: str, *, extras: bool = True) -> dict:
 
     d = draw(seed, extras=extras)
     rec = {"seed": seed, "engine": engine, "label": d.label, "fitted": d.fitted, "status": "ok", "seconds": 0.0,
-           "audit": [], "passed": None, "figures": {}, "checks": {}, "message": "", "warnings": []}
+           "wall_seconds": 0.0, "audit": [], "passed": None, "figures": {}, "checks": {}, "message": "", "warnings": []}
     case = load_case(d.text, source=f"wide-range case {seed}")
     if engine == "batch":
         why = batch_unsupported(case)
         if why is not None:
             rec.update(status="not covered", message=why)
             return rec
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
@@ -108,7 +113,8 @@ def solve(seed: int, engine: str, *, extras: bool = True) -> dict:
         except Exception as err:  # noqa: BLE001 - a bare exception is what this run counts
             tb = traceback.extract_tb(err.__traceback__)[-1]
             rec.update(status="crash", message=f"{type(err).__name__}: {err} ({tb.filename}:{tb.lineno})"[:400])
-    rec["seconds"] = time.perf_counter() - t0
+    rec["seconds"] = time.process_time() - c0
+    rec["wall_seconds"] = time.perf_counter() - t0
     rec["warnings"] = sorted({f"{w.category.__name__}: {w.message}"[:160] for w in caught})
     return rec
 
@@ -157,6 +163,14 @@ def compare(d: dict, b: dict) -> dict:
     return {"figures": diffs, "tol": tol, "worse": worse, "flip": flip}
 
 
+def _used(slot) -> tuple[float, float]:
+    """CPU and wall seconds the slot's worker has spent on its task (CPU: the wall time where
+    ``/proc`` cannot be read)."""
+    wall = time.perf_counter() - slot[3]
+    now = cpu_seconds(slot[0].pid)
+    return (wall if now is None or slot[4] is None else now - slot[4]), wall
+
+
 def _worker(conn):
     while True:
         task = conn.recv()
@@ -167,13 +181,31 @@ def _worker(conn):
             conn.send(solve(seed, engine, extras=extras))
         except Exception as err:  # noqa: BLE001 - reported as the task's crash
             conn.send({"seed": seed, "engine": engine, "status": "crash", "message": repr(err)[:300],
-                       "seconds": 0.0, "audit": [], "passed": None, "figures": {}, "checks": {}, "warnings": [],
-                       "label": "", "fitted": False})
+                       "seconds": 0.0, "wall_seconds": 0.0, "audit": [], "passed": None, "figures": {}, "checks": {},
+                       "warnings": [], "label": "", "fitted": False})
+
+
+#: a task is also killed after this many times its CPU limit in wall time (a worker that waits)
+WALL_FACTOR = 20.0
+_TICK = os.sysconf("SC_CLK_TCK") if hasattr(os, "sysconf") else 100
+
+
+def cpu_seconds(pid: int) -> float | None:
+    """CPU time (user + system) of process ``pid`` so far [s], from ``/proc/PID/stat`` (proc(5):
+    fields 14 and 15, utime and stime in clock ticks); None where it cannot be read."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii") as f:
+            fields = f.read().rsplit(")", 1)[1].split()
+    except (OSError, IndexError):
+        return None
+    return (int(fields[11]) + int(fields[12])) / _TICK
 
 
 def run_pool(tasks, *, workers: int = 2, limit: float = 60.0, on_record=None) -> list[dict]:
-    """Run (seed, engine, extras) tasks in ``workers`` processes; a task over ``limit`` seconds
-    is killed (its worker replaced) and recorded with status "timeout"."""
+    """Run (seed, engine, extras) tasks in ``workers`` processes; a task whose worker spends
+    over ``limit`` CPU seconds on it (or :data:`WALL_FACTOR` × ``limit`` wall seconds; wall
+    time alone where ``/proc`` cannot be read) is killed, its worker replaced, and it is
+    recorded with status "timeout"."""
     import kickback.audit  # noqa: F401 - imported once here, inherited by every forked worker
     import kickback.simulation  # noqa: F401
     import kickback.studies.many  # noqa: F401
@@ -187,7 +219,7 @@ def run_pool(tasks, *, workers: int = 2, limit: float = 60.0, on_record=None) ->
         a, b = ctx.Pipe()
         p = ctx.Process(target=_worker, args=(b,), daemon=True)
         p.start()
-        return [p, a, None, 0.0]
+        return [p, a, None, 0.0, 0.0]
 
     slots = [start() for _ in range(max(1, workers))]
     try:
@@ -196,6 +228,7 @@ def run_pool(tasks, *, workers: int = 2, limit: float = 60.0, on_record=None) ->
                 if s[2] is None and todo:
                     s[2] = todo.pop()
                     s[3] = time.perf_counter()
+                    s[4] = cpu_seconds(s[0].pid)
                     s[1].send(s[2])
             busy = [s[1] for s in slots if s[2] is not None]
             for conn in wait(busy, timeout=0.2):
@@ -204,8 +237,9 @@ def run_pool(tasks, *, workers: int = 2, limit: float = 60.0, on_record=None) ->
                     rec = conn.recv()
                 except EOFError:  # the worker died (e.g. out of memory)
                     seed, engine, _ = s[2]
+                    cpu, wall = _used(s)
                     rec = {"seed": seed, "engine": engine, "status": "crash", "message": "worker process died",
-                           "seconds": time.perf_counter() - s[3], "audit": [], "passed": None, "figures": {},
+                           "seconds": cpu, "wall_seconds": wall, "audit": [], "passed": None, "figures": {},
                            "checks": {}, "warnings": [], "label": "", "fitted": False}
                     s[:] = start()
                 else:
@@ -213,16 +247,19 @@ def run_pool(tasks, *, workers: int = 2, limit: float = 60.0, on_record=None) ->
                 out.append(rec)
                 if on_record:
                     on_record(rec)
-            now = time.perf_counter()
             for k, s in enumerate(slots):
-                if s[2] is not None and now - s[3] > limit:
+                if s[2] is None:
+                    continue
+                cpu, wall = _used(s)
+                if cpu > limit or wall > WALL_FACTOR * limit:
                     seed, engine, extras = s[2]
                     s[0].kill()
                     s[0].join()
                     d = draw(seed, extras=extras)
-                    rec = {"seed": seed, "engine": engine, "status": "timeout", "message": f"killed after {limit:g} s",
-                           "seconds": now - s[3], "audit": [], "passed": None, "figures": {}, "checks": {},
-                           "warnings": [], "label": d.label, "fitted": d.fitted}
+                    why = f"killed after {cpu:.3g} s of CPU" if cpu > limit else f"killed after {wall:.3g} s wall"
+                    rec = {"seed": seed, "engine": engine, "status": "timeout", "message": why,
+                           "seconds": cpu, "wall_seconds": wall, "audit": [], "passed": None, "figures": {},
+                           "checks": {}, "warnings": [], "label": d.label, "fitted": d.fitted}
                     out.append(rec)
                     if on_record:
                         on_record(rec)
