@@ -97,6 +97,10 @@ class CoilStates:
         """(di/dx0, dx0/dt per volt across the coil): (1, 1/L) linear; (1/L_inc, 1) in flux."""
         if not self.flux:
             return 1.0, 1.0 / self.L
+        if np.ndim(i) == 0:
+            # models.coil.incremental_inductance in plain floats (numpy squares a scalar by pow(),
+            # as Python does): the same bits
+            return 1.0 / (self.L / (1.0 + abs(float(i)) / self.i_sat) ** 2), 1.0
         from kickback.models.coil import incremental_inductance
 
         return 1.0 / float(incremental_inductance(i, self.L, self.i_sat)), 1.0

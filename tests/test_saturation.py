@@ -69,7 +69,7 @@ def test_scalar_coil_laws_match_the_array_laws_bit_for_bit():
     import numpy as np
 
     from kickback.circuit import Circuit
-    from kickback.models.coil import stored_energy
+    from kickback.models.coil import incremental_inductance, stored_energy
 
     L0, isat = 0.3, 0.05
     case = Case("sat (demo data)", Supply(24.0), Coil(L0, 10.0, initial_current=0.04, saturation_current=isat),
@@ -90,6 +90,9 @@ def test_scalar_coil_laws_match_the_array_laws_bit_for_bit():
     i = np.concatenate([rng.uniform(-3, 3, 2000) * isat, rng.uniform(-0.02, 0.02, 60000) * isat, [0.0, 0.01 * isat]])
     w = np.array([c.coil_energy(float(x)) for x in i])
     assert np.array_equal(w, stored_energy(i, L0, isat))
+    gain = np.array([c.state_gain(float(x))[0] for x in i])  # di/dλ = 1/L_inc = (1 + |i|/I_sat)²/L0
+    assert np.array_equal(gain, [1.0 / float(incremental_inductance(float(x), L0, isat)) for x in i])
+    np.testing.assert_allclose(gain, (1 + np.abs(i) / isat) ** 2 / L0, rtol=1e-14)
     u = 1 + np.abs(i) / isat
     big = np.abs(i) > 0.05 * isat  # the closed form cancels below; the series is checked against ½·L0·i²
     np.testing.assert_allclose(w[big], L0 * isat ** 2 * (np.log(u) + 1 / u - 1)[big], rtol=1e-12)
