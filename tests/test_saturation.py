@@ -59,3 +59,42 @@ def test_case_key(tmp_path):
     p.write_text(p.read_text().replace('"0.4 A"', '"0.4 V"'))
     with pytest.raises(ValueError, match="saturation_current"):
         load_case(p)
+
+
+def test_scalar_coil_laws_match_the_array_laws_bit_for_bit():
+    # the state equations read the coil current and energy of one state in plain float arithmetic
+    # (kickback.coilstate): against the closed forms written here, i = λ·I_sat/(L0·I_sat − |λ|)
+    # and W = L0·I_sat²·(ln U + 1/U − 1), U = 1 + |i|/I_sat (Frölich–Kennelly law, derived in
+    # kickback/models/coil.py), and bit for bit against the same circuit's array path
+    import numpy as np
+
+    from kickback.circuit import Circuit
+    from kickback.models.coil import incremental_inductance, stored_energy
+
+    L0, isat = 0.3, 0.05
+    case = Case("sat (demo data)", Supply(24.0), Coil(L0, 10.0, initial_current=0.04, saturation_current=isat),
+                Switch("ideal"), (Clamp("DZ", "coil", (D, Z)),))
+    c = Circuit(case)
+    rng = np.random.default_rng(3)
+    lam_max = L0 * isat
+    xs = np.concatenate([rng.uniform(-1.5, 1.5, 2000), rng.uniform(-1e-3, 1e-3, 500), [0.0, 0.999, -0.9991]]) * lam_max
+    cur = np.array([c.coil_current(float(x)) for x in xs])
+    assert np.array_equal(cur, c.coil_current(xs))
+    inside = np.abs(xs) < 0.999 * lam_max
+    ref = xs * isat / (L0 * isat - np.abs(xs))
+    np.testing.assert_allclose(cur[inside], ref[inside], rtol=1e-13, atol=0)
+    # continued linearly past 0.999·L0·I_sat (i = 999·I_sat there) with the slope there, L0/1000²
+    ax = np.abs(xs[~inside])
+    lin = 999 * isat + (ax - 0.999 * lam_max) / (L0 / 1000 ** 2)
+    np.testing.assert_allclose(np.abs(cur[~inside]), lin, rtol=1e-9)
+    i = np.concatenate([rng.uniform(-3, 3, 2000) * isat, rng.uniform(-0.02, 0.02, 60000) * isat, [0.0, 0.01 * isat]])
+    w = np.array([c.coil_energy(float(x)) for x in i])
+    assert np.array_equal(w, stored_energy(i, L0, isat))
+    gain = np.array([c.state_gain(float(x))[0] for x in i])  # di/dλ = 1/L_inc = (1 + |i|/I_sat)²/L0
+    assert np.array_equal(gain, [1.0 / float(incremental_inductance(float(x), L0, isat)) for x in i])
+    np.testing.assert_allclose(gain, (1 + np.abs(i) / isat) ** 2 / L0, rtol=1e-14)
+    u = 1 + np.abs(i) / isat
+    big = np.abs(i) > 0.05 * isat  # the closed form cancels below; the series is checked against ½·L0·i²
+    np.testing.assert_allclose(w[big], L0 * isat ** 2 * (np.log(u) + 1 / u - 1)[big], rtol=1e-12)
+    small = np.abs(i) < 1e-4 * isat
+    np.testing.assert_allclose(w[small], 0.5 * L0 * i[small] ** 2, rtol=2e-4)
