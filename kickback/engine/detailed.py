@@ -284,10 +284,14 @@ class PhaseRunner:
     def can_float(self) -> bool:
         """The algebraic node may float here (:meth:`Circuit.can_float`), and its voltage does
         not jump on entry: by at most 10·rtol·v_scale, unless the jump is an initial layer far
-        shorter than the fall (its time constant L·G/(1 + R·G) below ``FLOAT_LAYER`` × t_f;
-        outside a fall, × L·i0/v_scale). Entered inside a longer layer (the node rising after
-        t = 0 through a clamp's conductance), the floating voltage would be ahead of the node by
-        volts."""
+        shorter than the fall (the node's passage along it, :meth:`Circuit.layer_time`, below
+        ``FLOAT_LAYER`` × t_f; outside a fall, × L·i0/v_scale). Entered inside a longer layer
+        (the node rising after t = 0 through a clamp's conductance), the floating voltage would
+        be ahead of the node by volts. The passage is read along the path, not at the algebraic
+        voltage alone: that may sit on a kink whose far side is vertical or steep (an ideal
+        switch's on-state at 0 V; a diode + Zener chain's conduction edge), which the node
+        leaves at once (read there, it kept the node algebraic through a fall, where its
+        voltage is lost to rounding: tests/test_pin_rounding.py, tests/test_repro_detailed.py)."""
         c = self.c
         t, y = self.t, self.y
         self.layer = 0.0
@@ -298,19 +302,18 @@ class PhaseRunner:
         v_alg = c.node_voltage(t, y)
         if abs(c.forced_voltage(t, y) - v_alg) <= 10.0 * self.rtol * c.v_scale:
             return True
-        G = c.node_conductance(t, v_alg, y)
         g0, k0 = c.state_gain(float(c.coil_current(y[0])))
         span = c.switch.fall_time if c._in_fall(t) else c.i0 / (g0 * k0 * c.v_scale)
-        tau = G / (g0 * k0 * (1.0 + c.R * G)) if math.isfinite(G) else math.inf
+        tau = c.layer_time(t, y, v_alg, c.forced_voltage(t, y), 10.0 * self.rtol * c.v_scale)
         if tau <= FLOAT_LAYER * span:
             return True
-        #: [s] the layer's time constant: the entry event waits for it to pass
+        #: [s] the layer's passage: the entry event waits for it to pass
         self.layer = tau
         return False
 
     def _wait_layer(self) -> None:
-        """Refused inside an initial layer: the entry event is held off for 20 of its time
-        constants (the layer's conductance falls there so fast that the event, armed again at
+        """Refused inside an initial layer: the entry event is held off for 20 times its
+        passage (the layer's conductance falls there so fast that the event, armed again at
         a lower level, would fire again at the same instant)."""
         if math.isfinite(self.layer):
             self.float_gate = self.t + 20.0 * self.layer
