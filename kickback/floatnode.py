@@ -48,6 +48,11 @@ FLOAT_RESIDUAL = 1e-8
 FLOAT_ENTRY = 0.5
 #: a floating node lands where its conductance rises above this multiple of the limit
 FLOAT_LANDING = 4.0
+#: a conductance that falls below this fraction of itself between the quasi-static and the
+#: forced voltage marks a chain's conduction edge between them (:meth:`FloatingNode.float_rate`)
+EDGE_JUMP = 1e-3
+#: geometric points of :meth:`FloatingNode.layer_time` along the node's path
+LAYER_POINTS = 40
 
 
 class FloatingNode:
@@ -89,11 +94,58 @@ class FloatingNode:
         s = self.forced_slope(t)
         if not s:
             return 0.0
+        G, _, g1 = self._rate_conductances(t, y)
+        if g1 < EDGE_JUMP * G:
+            # the rate read past a chain's conduction edge would set the node below it, where
+            # the chain blocks (:meth:`edge_margin`): the node is at the edge, where the chain
+            # does not conduct yet; the edge event lands it (within the event's time tolerance)
+            return s
+        return s / (1.0 + self.R * G) if math.isfinite(G) else s
+
+    def _rate_conductances(self, t: float, y: np.ndarray) -> tuple[float, float, float]:
+        """(G_q [S], v_1 [V], G_1 [S]): the conductance at :meth:`quasi_static_voltage`, the
+        forced voltage its rate s/(1 + R·G_q) sets, and the conductance there (G_q where the
+        rate moves the node by less than 1e-9 of L·|s|: no edge can matter)."""
+        vq = self.quasi_static_voltage(t, y)
+        G = self.node_conductance(t, vq, y)
+        if not (math.isfinite(G) and self.R * G > 1e-9):
+            return G, vq, G
+        g0, k0 = self.state_gain(float(self.coil_current(y[0])))
+        s = self.forced_slope(t)
+        v1 = vq + s / (g0 * k0) * (1.0 - 1.0 / (1.0 + self.R * G))
+        return G, v1, self.node_conductance(t, v1, y)
+
+    def quasi_static_voltage(self, t: float, y: np.ndarray) -> float:
+        """[V] the node voltage with the coil current following the limited branches' rate s
+        itself, V_s − R·i − (back-EMF) − L·s: where :meth:`float_rate` reads the conductance."""
         i = float(self.coil_current(y[0]))
         g0, k0 = self.state_gain(i)
         emf = self.k_emf * self.speed_of(y) if self.motor else 0.0
-        G = self.node_conductance(t, self.Vs - self.R * i - emf - s / (g0 * k0), y)
-        return s / (1.0 + self.R * G) if math.isfinite(G) else s
+        return self.Vs - self.R * i - emf - self.forced_slope(t) / (g0 * k0)
+
+    def edge_margin(self, t: float, y: np.ndarray, di: float) -> float:
+        """During a current fall, > 0 where a chain's conduction edge lies between the forced
+        voltage and :meth:`quasi_static_voltage`: the conductance at the latter is at least
+        ``FLOAT_LANDING`` × :meth:`float_limit` while at the forced voltage it is below the
+        limit (each side as a normalised difference; −1 outside a fall).
+
+        There the floating mode contradicts itself: its rate s/(1 + R·G), with G read above
+        the edge (a diode + resistor chain conducting), sets the forced voltage below it,
+        where the chain blocks and the balance still holds, so that the node floated on with
+        the chain's current missing; and landed there, the node voltage solved from the
+        balance sat in the blocking band, where its conductance is the leakage's: the
+        Jacobian's dv/di of ~1e13 Ω froze the coil current for the rest of the fall (peaks off
+        by up to 0.4 % at any tolerance, tests/test_detailed_float_pwl.py). The node is then set onto
+        the edge's conducting side instead (:meth:`PhaseRunner.onto_edge`). The forced voltage
+        is the one the rate read at the quasi-static voltage sets (:meth:`_rate_conductances`)."""
+        if not self.forced_slope(t):
+            return -1.0
+        gq, v, gf = self._rate_conductances(t, y)
+        lim = self.float_limit(t, v, y, di)
+        if not (math.isfinite(gq) and math.isfinite(gf)):
+            return -1.0  # a vertical law: the balance's residual lands the node (a pin)
+        a = (gq - FLOAT_LANDING * lim) / (gq + FLOAT_LANDING * lim)
+        return min(a, (lim - gf) / (lim + gf))
 
     def float_limit(self, t: float, v: float, y: np.ndarray, di: float) -> float:
         """[S] node conductance below which the floating voltage is the more accurate one.
@@ -121,6 +173,34 @@ class FloatingNode:
         if a <= 0:
             return hi
         return min(hi, max(lo, (ALGEBRAIC_ERROR * di / a) ** (1.0 / 3.0)))
+
+    def layer_time(self, t: float, y: np.ndarray, v_from: float, v_to: float, u_min: float) -> float:
+        """[s] time an algebraic node takes to move from ``v_from`` to within ``u_min`` [V] of
+        the floating voltage ``v_to`` (the initial layer a floating entry would skip).
+
+        With the coil current's rate set by the limited branches, the node balance gives
+        G(v)·dv/dt = (v_to − v)·(1 + R·G)/L (the test module tests/test_detailed_float_fall.py
+        writes the same equation), so the passage takes ∫ τ(v) d ln|v_to − v|,
+        τ = L·G/(1 + R·G) the local time constant, read along the open path: at ``v_from``
+        itself the node may sit on a kink whose other side is vertical or steep (an ideal
+        switch's on-state at 0 V, a clamp chain's conduction edge), a conductance the node
+        leaves at once. Trapezoids in ln u, u = |v_to − v|, on ``LAYER_POINTS`` geometric points
+        and 9 more within 1e-9…1e-1 of the path's start; inf where a vertical law lies on it."""
+        u_max = abs(v_to - v_from)
+        if not u_max > u_min:
+            return 0.0
+        g0, k0 = self.state_gain(float(self.coil_current(y[0])))
+        near = u_max * (1.0 - np.logspace(-9.0, -1.0, 9))
+        u = np.unique(np.concatenate([np.geomspace(u_min, near[-1], LAYER_POINTS), near]))
+        side = 1.0 if v_from > v_to else -1.0
+        tau = np.empty(u.size)
+        for n, x in enumerate(u):
+            G = self.node_conductance(t, v_to + side * x, y)
+            if not math.isfinite(G):
+                return math.inf
+            tau[n] = G / (g0 * k0 * (1.0 + self.R * G))
+        w = np.diff(np.log(u))
+        return float(np.sum(0.5 * (tau[1:] + tau[:-1]) * w))
 
     def node_conductance(self, t: float, v: float, y: np.ndarray) -> float:
         """[S] total small-signal conductance of the node's branches at v (inf on a vertical law)."""
@@ -154,6 +234,8 @@ class FloatingNode:
             return False
         v = self.forced_voltage(t, y)
         if abs(self.float_residual(t, y)) > max(0.5 * FLOAT_RESIDUAL * self.i0, 2.0 * di):
+            return False
+        if self.forced_slope(t) and self.edge_margin(t, y, di) > 0:
             return False
         g_lim = 2.0 * self.float_limit(t, v, y, di) if self.forced_slope(t) else \
             FLOAT_CONDUCTANCE * self.i0 / self.v_scale

@@ -32,12 +32,6 @@ def test_diode_pinned_after_the_coil_followed_the_channel():
     assert not res.audit.findings
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "open (issue 14): the floating node's initial-layer wait (engine/detailed.py can_float, "
-    "FLOAT_LAYER) reads the ideal switch's on-slope at the kink as the node's conductance, so the node "
-    "stays algebraic through the fall and the first off sample is the on-state's 0 V: the diode's "
-    "peak reverse voltage reads V_s = 24 V instead of 21.6 V (its stand-off, which the rating check "
-    "uses, is 24 V either way)"))
 def test_diode_peak_reverse_voltage_just_after_turn_off():
     vs, lh, r, tf, vf = 24.0, 1.0, 1e7, 1e-6, 0.7
     d = Element("diode", model="constant-drop", forward_voltage=vf)

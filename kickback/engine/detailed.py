@@ -220,6 +220,8 @@ class PhaseRunner:
         self.float_gate = -math.inf
         #: [s] time constant of the initial layer that refused the last entry (0: none)
         self.layer = 0.0
+        #: the last entry was refused at a conduction edge (:meth:`Circuit.edge_margin`)
+        self.edge = False
         self.t = t0
         self.y = np.array(y0, dtype=float)
         self.phases: list[Phase] = []
@@ -284,33 +286,38 @@ class PhaseRunner:
     def can_float(self) -> bool:
         """The algebraic node may float here (:meth:`Circuit.can_float`), and its voltage does
         not jump on entry: by at most 10·rtol·v_scale, unless the jump is an initial layer far
-        shorter than the fall (its time constant L·G/(1 + R·G) below ``FLOAT_LAYER`` × t_f;
-        outside a fall, × L·i0/v_scale). Entered inside a longer layer (the node rising after
-        t = 0 through a clamp's conductance), the floating voltage would be ahead of the node by
-        volts."""
+        shorter than the fall (the node's passage along it, :meth:`Circuit.layer_time`, below
+        ``FLOAT_LAYER`` × t_f; outside a fall, × L·i0/v_scale). Entered inside a longer layer
+        (the node rising after t = 0 through a clamp's conductance), the floating voltage would
+        be ahead of the node by volts. The passage is read along the path, not at the algebraic
+        voltage alone: that may sit on a kink whose far side is vertical or steep (an ideal
+        switch's on-state at 0 V; a diode + Zener chain's conduction edge), which the node
+        leaves at once (read there, it kept the node algebraic through a fall, where its
+        voltage is lost to rounding: tests/test_pin_rounding.py, tests/test_repro_detailed.py)."""
         c = self.c
         t, y = self.t, self.y
         self.layer = 0.0
-        if not c.can_float(t, y, self.float_tolerance(t, y)):
+        self.edge = abs(float(c.coil_current(y[0]))) >= 1e-6 * c.i0 and \
+            c.edge_margin(t, y, self.float_tolerance(t, y)) > 0
+        if self.edge or not c.can_float(t, y, self.float_tolerance(t, y)):
             return False
         if not c.forced_slope(t):
             return True
         v_alg = c.node_voltage(t, y)
         if abs(c.forced_voltage(t, y) - v_alg) <= 10.0 * self.rtol * c.v_scale:
             return True
-        G = c.node_conductance(t, v_alg, y)
         g0, k0 = c.state_gain(float(c.coil_current(y[0])))
         span = c.switch.fall_time if c._in_fall(t) else c.i0 / (g0 * k0 * c.v_scale)
-        tau = G / (g0 * k0 * (1.0 + c.R * G)) if math.isfinite(G) else math.inf
+        tau = c.layer_time(t, y, v_alg, c.forced_voltage(t, y), 10.0 * self.rtol * c.v_scale)
         if tau <= FLOAT_LAYER * span:
             return True
-        #: [s] the layer's time constant: the entry event waits for it to pass
+        #: [s] the layer's passage: the entry event waits for it to pass
         self.layer = tau
         return False
 
     def _wait_layer(self) -> None:
-        """Refused inside an initial layer: the entry event is held off for 20 of its time
-        constants (the layer's conductance falls there so fast that the event, armed again at
+        """Refused inside an initial layer: the entry event is held off for 20 times its
+        passage (the layer's conductance falls there so fast that the event, armed again at
         a lower level, would fire again at the same instant)."""
         if math.isfinite(self.layer):
             self.float_gate = self.t + 20.0 * self.layer
@@ -348,6 +355,7 @@ class PhaseRunner:
             g.direction = 1
             g.terminal = True
             g.pin = None
+            g.drift = True
             out.append(g)
 
         def g_rise(t, y):
@@ -358,9 +366,28 @@ class PhaseRunner:
         g_rise.direction = 1
         g_rise.terminal = True
         g_rise.pin = None
+
+        def g_edge(t, y):
+            return c.edge_margin(t, y, self.float_tolerance(t, y))
+        g_edge.direction = 1
+        g_edge.terminal = True
+        g_edge.pin = None
+        g_edge.edge = True
         if c.forced_slope(self.t):
-            out.append(g_rise)
+            out += [g_rise, g_edge]
         return out
+
+    def onto_edge(self) -> None:
+        """Set the coil current onto the conducting side of the edge the node has reached
+        (:meth:`Circuit.edge_margin`): onto the balance at the forced voltage (below the edge,
+        where the chain blocks: the limited branches' current and the leakage's), plus
+        ``FLOAT_RESIDUAL`` × i0 (10⁴ × the leakage's current), so that the node voltage solved
+        from the balance is the edge's plus its chain's resistance × that current, not a point
+        of the blocking band (where the coil current, off the balance by its drift, had put it)."""
+        c = self.c
+        _, v_below, _ = c._rate_conductances(self.t, self.y)
+        i = sum(c.currents_at(self.t, v_below, self.y))
+        self.y[0] = c.coil_state(i + FLOAT_RESIDUAL * c.i0)
 
     def _refused_float(self) -> None:
         """The conductance event fired but the node may not float here. Too small a current
@@ -486,7 +513,10 @@ class PhaseRunner:
                     c.pin = FLOAT
                 elif self.layer:
                     self._wait_layer()
+                elif self.edge:
+                    self.onto_edge()
             landed = False
+            t_start = self.t
             sol, evs, pe = self._solve(name, t_end, events, kw)
             fired_pin = None
             for ev, times in zip(evs, sol.t_events, strict=True):
@@ -508,13 +538,29 @@ class PhaseRunner:
                 # the node starts to float (when it may), lands, or leaves a vertical law
                 self.no_float = False
                 self.float_entry = FLOAT_ENTRY
-                if c.pin is FLOAT:
+                if c.pin is FLOAT and getattr(fired_pin, "edge", False):
+                    self.onto_edge()
+                    c.pin = None
+                    landed = True
+                elif c.pin is FLOAT:
                     self._project()
                     c.pin = self.landing()
-                    landed = True
+                    # free after a residual event, and the node may float on at the projected
+                    # state (not at the phase's start: no progress there): the residual was
+                    # the coil current's drift from the limited branches (the integration's
+                    # error over a long float), not a branch starting to conduct; landed, the
+                    # node would sit algebraic where its conductance is the leakage's (the
+                    # Jacobian's dv/di of ~1e13 Ω froze the coil current for the rest of the
+                    # fall, tests/test_detailed_float_pwl.py) — the projection re-synced it
+                    if c.pin is None and getattr(fired_pin, "drift", False) and self.t > t_start \
+                            and self.can_float():
+                        c.pin = FLOAT
+                    landed = c.pin is not FLOAT
                 elif c.pin is None:
                     c.pin = FLOAT if self.can_float() else None
-                    if c.pin is None:
+                    if c.pin is None and self.edge:
+                        self.onto_edge()
+                    elif c.pin is None:
                         self._refused_float()
                 else:
                     c.pin = None
