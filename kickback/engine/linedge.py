@@ -112,7 +112,9 @@ def solve_ramp(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, ener
     if rel is None:
         return None
     edges = t0 + rel
-    fine = _panels(lam, vec, amp, scale, span, first=0.02, growth=0.05, live_level=1e-12, max_panels=EDGE_SAMPLES)
+    # (the fine grid is for the sampler, which takes only cycles solved with their energies)
+    fine = _panels(lam, vec, amp, scale, span, first=0.02, growth=0.05, live_level=1e-12,
+                   max_panels=EDGE_SAMPLES) if energies else None
     steps = edges if fine is None else np.union1d(edges, t0 + fine)
     steps = np.union1d(steps, np.linspace(t0, t_end, SAMPLE_SPLITS + 1))
     check_t = (edges[:-1, None] + np.diff(edges)[:, None] * _XI01[None, :]).ravel() if energies else edges
