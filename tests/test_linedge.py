@@ -93,6 +93,11 @@ def test_closed_form_edge_against_tight_solve_of_the_node_equations(with_motor):
     assert np.max(np.abs(got[1] - ref.y[1])) <= 1e-9 * sc[1], "node voltage"
     if c.mech:
         assert np.max(np.abs(got[c.iw] - ref.y[2])) <= 1e-9 * sc[c.iw], "motor speed"
+    # the grid offered to the sampler resolves the ring: 16 samples a period at least, the period
+    # 2π·√(L·C) (Thomson; the damping shifts it by < 1e-3 here)
+    steps = np.asarray(edge.t_steps)
+    assert steps[0] == pytest.approx(t_on) and steps[-1] == pytest.approx(t_on + TF)
+    assert np.max(np.diff(steps)) <= 2 * np.pi * np.sqrt(L * C) / 16
     # the switch's energy over the edge (the channel's share of the turn-off loss)
     e_ch = got[c.ie + 2, -1] - got[c.ie + 2, 0]
     assert abs(e_ch - ref.y[3, -1]) <= 1e-8 * abs(ref.y[3, -1]), "channel energy over the edge"

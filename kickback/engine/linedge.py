@@ -33,7 +33,7 @@ from kickback.engine.linmodes import DENSE_TOL, expm_extended
 from kickback.engine.linphase import _XI01, GL_NODES, SAMPLE_SPLITS, AffineModel, LinearSolution, _panels
 
 #: the most steps offered to the sampler over a closed-form edge: its fast modes are resolved to
-#: 1/50 of a time constant up to this many steps
+#: 1/50 of a time constant up to this many steps (else this many uniform steps)
 EDGE_SAMPLES = 20_000
 #: panels of the verification and the energy quadrature allowed over an edge
 EDGE_PANELS = 40_000
@@ -112,10 +112,13 @@ def solve_ramp(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, ener
     if rel is None:
         return None
     edges = t0 + rel
-    # (the fine grid is for the sampler, which takes only cycles solved with their energies)
+    # (the fine grid is for the sampler, which takes only cycles solved with their energies; a
+    # ring too long for it is sampled uniformly at EDGE_SAMPLES points, no coarser)
     fine = _panels(lam, vec, amp, scale, span, first=0.02, growth=0.05, live_level=1e-12,
                    max_panels=EDGE_SAMPLES) if energies else None
-    steps = edges if fine is None else np.union1d(edges, t0 + fine)
+    if fine is None and energies:
+        fine = np.linspace(0.0, span, EDGE_SAMPLES + 1)
+    steps = edges if fine is None else np.union1d(edges, np.minimum(t0 + fine, t_end))
     steps = np.union1d(steps, np.linspace(t0, t_end, SAMPLE_SPLITS + 1))
     check_t = (edges[:-1, None] + np.diff(edges)[:, None] * _XI01[None, :]).ravel() if energies else edges
     sol = RampSolution(t0, sol.y0, ie, lam, V, c0, beta, gamma, edges, ref, steps=steps)
