@@ -71,13 +71,22 @@ def settled_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
 
 
 class AffineModel:
-    """``dx/dt = A·x + b`` of the dynamic states, linearised at a probe state; its defect."""
+    """``dx/dt = A·x + b (+ g·(t − t_ref))`` of the dynamic states, linearised at a probe state;
+    its defect.
 
-    def __init__(self, c: Circuit, t: float, y_probe: np.ndarray, scale: np.ndarray, span: float):
+    ``ramp``: the rates also depend linearly on time (the channel current falling over the
+    switch's fall time); ``g`` is their change at the probe state from ``t`` to the middle of
+    the span, per second (else None).
+    """
+
+    def __init__(self, c: Circuit, t: float, y_probe: np.ndarray, scale: np.ndarray, span: float,
+                 ramp: bool = False):
         ie = c.ie
-        self.c, self.ie, self.scale, self.span = c, ie, scale, span
+        self.c, self.ie, self.scale, self.span, self.t_ref = c, ie, scale, span, t
         self.A = c.jacobian(t, y_probe)[:ie, :ie]
-        self.b = c.rhs(t, y_probe)[:ie] - self.A @ y_probe[:ie]
+        f = c.rhs(t, y_probe)[:ie]
+        self.b = f - self.A @ y_probe[:ie]
+        self.g = (c.rhs(t + 0.5 * span, y_probe)[:ie] - f) / (0.5 * span) if ramp else None
         self._abs_a = np.abs(self.A)
         #: [s] where the last closed-form path checked left the model (None: not known)
         self.left_at = None
@@ -91,18 +100,20 @@ class AffineModel:
         """
         f = self.c.rhs(t, y)
         x = y[: self.ie]
-        d = np.abs(f[: self.ie] - self.A @ x - self.b)
-        allow = LIN_TOL * self.scale / self.span + ROUNDING * (self._abs_a @ np.abs(x) + np.abs(self.b))
+        ramp = 0.0 if self.g is None else self.g * (t - self.t_ref)
+        d = np.abs(f[: self.ie] - self.A @ x - self.b - ramp)
+        allow = LIN_TOL * self.scale / self.span + ROUNDING * (self._abs_a @ np.abs(x) + np.abs(self.b) + np.abs(ramp))
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = np.where(d == 0.0, 0.0, d / allow)  # nothing allowed: any departure is infinite
         return float(np.max(ratio)), f
 
-    def defects(self, Y: np.ndarray, F: np.ndarray) -> np.ndarray:
-        """:meth:`defect` at many states ``Y`` (n_states × N) with their rates ``F``."""
+    def defects(self, Y: np.ndarray, F: np.ndarray, t: np.ndarray) -> np.ndarray:
+        """:meth:`defect` at many states ``Y`` (n_states × N) at times ``t`` with their rates ``F``."""
         X = Y[: self.ie]
-        d = np.abs(F[: self.ie] - self.A @ X - self.b[:, None])
-        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * (self._abs_a @ np.abs(X)
-                                                                          + np.abs(self.b)[:, None])
+        ramp = 0.0 if self.g is None else self.g[:, None] * (t - self.t_ref)[None, :]
+        d = np.abs(F[: self.ie] - self.A @ X - self.b[:, None] - ramp)
+        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * (
+            self._abs_a @ np.abs(X) + np.abs(self.b)[:, None] + np.abs(ramp))
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = np.where(d == 0.0, 0.0, d / allow)
         return np.max(ratio, axis=0)
@@ -237,7 +248,7 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     Y[:ie], Y[ie:] = ys, np.asarray(y0, dtype=float)[ie:, None]
     F = vector_rates(c, check_t, Y) if vectorised else None
     if F is not None:
-        bad = np.flatnonzero(~(model.defects(Y, F) <= 1.0))
+        bad = np.flatnonzero(~(model.defects(Y, F, check_t) <= 1.0))
         if bad.size:
             model.left_at = float(check_t[bad[0]])
             return None

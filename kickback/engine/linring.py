@@ -151,6 +151,10 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     y_inf[:ie] = x_inf
     nv_grad, nv_inf = _node_affine(c, t0, y_inf, amp)
     retry = 20 * 2 * math.pi / w_fast if w_fast > 0 else None
+    if curved_retry(c, curved) is not None:
+        # a Shockley diode conducting at the start slows the linearisation's fastest mode (200 Hz
+        # beside a 52 kHz node ring, wide-range case 939): no longer than the node ring's stride
+        retry = min(retry or math.inf, curved_retry(c, curved))
     if w_fast <= 0 or not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, 0.0):
         return False, False, retry
     horizon = t_bound - t0

@@ -30,6 +30,7 @@ import numpy as np
 
 from kickback.circuit import Circuit
 from kickback.engine.detailed import DEFAULT_RTOL, EDGE_STEPS, Phase, PhaseRunner, Waveforms
+from kickback.engine.linedge import run_edge_phase
 from kickback.engine.linphase import run_affine_phase
 from kickback.engine.periodic_bracket import (
     FORGOTTEN,  # noqa: F401  (its former home)
@@ -135,7 +136,11 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
         runner.t, c.t_turnoff = 0.0, 0.0
         t_off = period - t_on
         tf = c.switch.fall_time
-        if tf > 0:
+        if tf > 0 and fast:
+            # a long fall rings the coil with the node capacitance: closed form where it is affine
+            run_edge_phase(runner, min(tf, t_off), scales(c), energies, first_step=tf / 1000,
+                           max_step=tf / EDGE_STEPS)
+        elif tf > 0:
             runner.run("edge", min(tf, t_off), [], first_step=tf / 1000, max_step=tf / EDGE_STEPS)
         if runner.t < t_off:
             first = max(tf, period * 1e-9) / 1000
