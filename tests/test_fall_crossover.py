@@ -99,3 +99,19 @@ def test_crossover_may_exceed_the_stored_energy():
     stored = 0.5 * L * (vs / R) ** 2
     assert cross > 3 * stored
     assert cross <= stored + sup
+
+
+def test_detailed_ring_that_begins_during_the_fall():
+    """1 H, 1.12 Ω, a 10 pF node, a 52.9 µs fall (issue 14's lc-ring family, the draw with 56 J stored):
+    the coil current reverses at 51.3 µs, before the fall ends. The detailed engine stepped the whole
+    2.1 s ring (a Q of 2.8e5) by Radau and stopped at its evaluation budget (SolverError), because
+    the closed-form ring is refused during the fall; it now steps to the fall's end and solves the
+    ring from there. Crossover to 1e-6 of the reference (the detailed engine's rtol)."""
+    vs, L, R, C, tf = 11.88943831441377, 1.0, 1.1220184543019633, 1e-11, 5.2876274012494945e-05
+    cross = fall_reference(vs, L, R, C, tf)[0]
+    case = Case("ring from the fall (demo)", Supply(vs), Coil(L, R, release_current=3.0),
+                Switch("ideal", capacitance=C, fall_time=tf), ())
+    f = simulate(case, engine="detailed").figures
+    assert f.crossover_energy_J == pytest.approx(cross, rel=1e-6)
+    assert abs(f.energy_balance_error) <= 1e-6
+    assert not f.bound_hit

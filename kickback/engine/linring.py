@@ -103,8 +103,10 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
 
     c = runner.c
     t0, y0 = runner.t, np.array(runner.y, dtype=float)
-    if c.pin is not None or c.flux or c.motor or c.conducting or c._in_fall(t0):
+    if c.pin is not None or c.flux or c.motor or c.conducting:
         return False, False, None
+    if c._in_fall(t0):  # the current reversed during the fall: step to its end (a hair past), then try again
+        return False, False, (c.t_turnoff + c.switch.fall_time - t0) + 1e-9 * c.switch.fall_time
     curved = [k for k in c.active_chains if c.chains[k].pieces is None]
     if not all(shockley(c.chains[k]) for k in curved):
         return False, False, None
