@@ -338,26 +338,8 @@ FAMILIES = ["diode", "diode-zener", "tvs", "avalanche", "rc-snubber", "parallel"
 
 #: families whose 150-example run finds a disagreement still open (issue 14), found when the
 #: widened generators met the reworked detailed engine; each names the draw and what differs
-KNOWN_DISAGREEMENTS = {
-    ("tvs", True): "ideal bidirectional TVS across the switch (9 V, 19.6 mH, 0.79 nF): the detailed engine "
-                   "reads the stand-off at the knee as the clamp stops (18.5639 V), the batch engine the next "
-                   "ring peak (17.45 V); open",
-    ("avalanche-clamp", True): "BJT with a 212 pF node, avalanche beside a clamp: avalanche energy 1.09× the "
-                               "tolerance apart; open",
-    ("lc-ring", False): "the detailed engine (hashed, open) reads the release time of a long closed-form ring off "
-                        "samples a half period or more apart (~400 half periods at 3 s below) and misses the last peak "
-                        "of |i| above "
-                        "I_rel: BJT, 0.1 H, 3.24 Ω, 324 pF: release 0.024331 s (detailed) against 0.0245628198 s "
-                        "(batch; the RLC closed form from the first current zero gives 0.0245628198062 s). "
-                        "The batch engine's quadrature raise (a ring segment whose three size samples fell on "
-                        "current zeros, taken for a cancellation) is fixed at its root (tests/test_pwl_segments.py); "
-                        "this entry stays until the detailed engine is fixed",
-    ("lc-ring", True): "the detailed engine's release on a long ring (hashed, open; as for the algebraic node): BJT, "
-                       "1 H, 1 Ω, 18.6 pF: release 3.06822 s (detailed) against 3.0708194339 s (batch; closed form "
-                       "3.070819433943 s); both end the ring at 6.6024 s, where the oscillating energy meets "
-                       "the rest level (not early); the first draw at 10 examples, ideal, 6.19 mH, 7.0 Ω, 32.9 pF: "
-                       "0.50704 ms (detailed) against 0.51410419113 ms (batch; closed form 0.51410419113 ms)",
-}
+#: (none open: the last four passed at 150 (lc-ring) and 60 (tvs, avalanche-clamp) examples)
+KNOWN_DISAGREEMENTS: dict[tuple[str, bool], str] = {}
 
 
 @pytest.mark.parametrize(("family", "capacitive"), [

@@ -113,17 +113,16 @@ def test_unclamped_ring_closed_form(vs, L, R, C, rel_frac):
     assert abs(f.energy_balance_error) <= 1e-9
 
 
-@pytest.mark.xfail(strict=True, reason="detailed engine (hashed module, left for the coordinator): its ring is "
-                   "sampled ~1 point per many periods (kickback.engine.sampling / linring) and the release "
-                   "time is read off those samples (figures.first_crossing_below), so the last peak of |i| "
-                   "above I_rel is missed: 1.2-1.6 % early here, 3.068 s against 3.0708 s on issue 14's "
-                   "1 H / 1 Ω / 18.6 pF draw")
 @pytest.mark.parametrize(("vs", "L", "R", "C", "rel_frac"), [
     pytest.param(24.0, 0.1, 10.0, 1e-9, 0.2, id="Q1000-release"),
     pytest.param(12.0, 0.05, 2.0, 470e-12, 0.5, id="Q5000-release"),
+    pytest.param(24.0, 1.0, 1.0, 18.6e-12, 0.3, id="Q2e5-release"),  # issue 14's 1 H / 1 Ω / 18.6 pF draw
 ])
 def test_detailed_release_on_a_long_ring(vs, L, R, C, rel_frac):
-    """Detailed engine: the release time of the same rings to 1e-6 of the closed form."""
+    """Detailed engine: the release time of the same rings to 1e-6 of the closed form (issue 14: its
+    closed-form ring was sampled ever more sparsely and the release read off the samples missed the
+    last peak of |i| above I_rel, 1.2-1.6 % early; kickback.engine.linring_samples now adds that
+    peak and its crossing as samples)."""
     rel = rel_frac * vs / R
     case = Case("ring (demo)", Supply(vs), Coil(L, R, release_current=rel), Switch("ideal", capacitance=C), ())
     f = simulate(case, engine="detailed").figures

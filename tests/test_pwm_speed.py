@@ -168,14 +168,16 @@ def test_ring_sampling_grid_stays_inside_the_phase():
     # a sample past the closed-form ring's end lies in no phase and was left uninitialised
     # (np.empty): the final turn-off of a [drive] case then booked garbage energies (ledger
     # residual 0.999). Property: every grid point in [t0, t_end] (definition of the phase).
-    from kickback.engine.linring import _steps
+    # The added times (the release peak and its crossing, kickback.engine.linring_samples) too.
+    from kickback.engine.linring_samples import steps
 
     rng = np.random.default_rng(14)
     for _ in range(2000):
         t0 = float(10 ** rng.uniform(-7, -3))
         t_end = t0 * (1.0 + float(10 ** rng.uniform(-1, 2)))
         period = (t_end - t0) / float(10 ** rng.uniform(1.4, 4))
-        g = _steps(t0, t_end, period)
+        extra = [t0 + (t_end - t0) * float(rng.uniform()), t_end * (1 + 1e-16), t_end]
+        g = steps(t0, t_end, period, extra)
         assert g[0] == t0 and g[-1] == t_end and np.all(np.diff(g) > 0), (t0, t_end, period)
 
 

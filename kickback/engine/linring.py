@@ -27,10 +27,10 @@ import numpy as np
 from scipy.optimize import brentq
 
 from kickback.engine.linring_held import CURVED_TOL, curved_departure, curved_retry, held_states, shockley
+from kickback.engine.linring_samples import GRID, node_peaks, release_times, steps
 
 #: a ring is solved in closed form only when it would last at least this many periods
 MIN_PERIODS = 50
-GRID = 16  # grid points per fastest period
 CHUNK = 200_000
 
 
@@ -103,8 +103,10 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
 
     c = runner.c
     t0, y0 = runner.t, np.array(runner.y, dtype=float)
-    if c.pin is not None or c.flux or c.motor or c.conducting or c._in_fall(t0):
+    if c.pin is not None or c.flux or c.motor or c.conducting:
         return False, False, None
+    if c._in_fall(t0):  # the current reversed during the fall: step to its end (a hair past), then try again
+        return False, False, (c.t_turnoff + c.switch.fall_time - t0) + 1e-9 * c.switch.fall_time
     curved = [k for k in c.active_chains if c.chains[k].pieces is None]
     if not all(shockley(c.chains[k]) for k in curved):
         return False, False, None
@@ -186,10 +188,14 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     for key, frac in (("10%", 0.1), ("1%", 0.01)):
         if ev_times[key] is None:
             ev_times[key] = _first_down(sol, t0, t_end, dt, frac * c.i0)
-    steps = _steps(t0, t_end, period)
-    peaks = _peaks(sol, c, steps)
+    # the figures read off the samples are decided where the sparse grid may miss them: the node
+    # voltage's maxima, and the last maximum of |i| at or above the release current
+    peaks = node_peaks(sol, (nv_grad, nv_inf), t0, t_end, dt)
+    rel = c.case.coil.release_current
+    marks = release_times(sol, t0, t_end, dt, rel) if rel is not None and rel > 0 else []
     runner.peaks.extend(peaks)
-    runner.phases.append(Phase("ring", t0, t_end, sol, steps, None, c.conducting, c.t_turnoff))
+    runner.phases.append(Phase("ring", t0, t_end, sol, steps(t0, t_end, period, marks), None, c.conducting,
+                               c.t_turnoff))
     runner.t, runner.y = t_end, sol(t_end)
     if partial:  # on from t_lim: a period step by step, then in closed form again
         return False, False, period
@@ -345,31 +351,3 @@ def _first_down(sol, t0, t1, dt, level):
         return None
     k = int(k[0])
     return brentq(lambda s: float(sol.dynamic(s)[0, 0]) - level, ts[k], ts[k + 1], xtol=1e-15 * ts[k + 1])
-
-
-def _steps(t0, t_end, period):
-    """Sampling grid: 1/16 of a period over the first 20 periods, then growing geometrically (the
-    ring's amplitude only decays), ~1500 points at most."""
-    fine = np.arange(t0, min(t_end, t0 + 20 * period), period / GRID)
-    rest = np.geomspace(max(fine[-1] - t0, period), t_end - t0, 600) + t0 if t_end > fine[-1] else np.array([])
-    # (t_end − t0) + t0 may round an ulp past t_end: a sample there lies in no phase
-    return np.unique(np.concatenate([fine, np.minimum(rest, t_end), [t0, t_end]]))
-
-
-def _peaks(sol, c, steps):
-    """Local maxima of the node voltage (capacitive node) on the first part of the grid, refined."""
-    if not c.capacitive:
-        return []
-    ts = steps[: 20 * GRID]
-    v = sol.dynamic(ts)[1]
-    out = []
-    for k in np.flatnonzero((v[1:-1] >= v[:-2]) & (v[1:-1] > v[2:])) + 1:
-        a, b = ts[k - 1], ts[k + 1]
-        for _ in range(60):  # golden-section search for the maximum of v
-            m1, m2 = b - 0.618 * (b - a), a + 0.618 * (b - a)
-            if sol.dynamic(m1)[1, 0] < sol.dynamic(m2)[1, 0]:
-                a = m1
-            else:
-                b = m2
-        out.append(0.5 * (a + b))
-    return out
