@@ -42,6 +42,7 @@ from kickback.engine.periodic_bracket import (
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
 from kickback.engine.periodic_bracket import one_kept_flips as _one_kept_flips
+from kickback.engine.periodic_settle import accepted, slow_root, slow_state
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
@@ -200,6 +201,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     lam = 1.0  # fraction of the Newton step taken
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
+    slow_tried = False
     for _ in range(MAX_NEWTON):
         if known is not None and not full:
             x1, e_on, e_off, runner = known, None, None, None
@@ -236,6 +238,19 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             if got is not None:
                 x, e_on, e_off, runner, resid, more = got
                 solves += more
+                break
+        if x_prev is not None and not slow_tried and resid > 10.0 * float(np.max(np.abs(f_prev) / scale)) \
+                and slow_state(c, jm_fd) is not None:
+            # a wild step (the residual up tenfold) with a slow motor speed: the Jacobian, taken
+            # where the fast states are far from settled, says nothing of the speed's fixed point;
+            # a secant on the speed's drift per cycle, the fast states settled at each trial
+            got = slow_root(c, duty, frequency, rtol, scale, slow_state(c, jm_fd), x_prev, one_cycle, STEADY_TOL,
+                            x_prev + f_prev)
+            slow_tried = True
+            if got is not None:
+                x, e_on, e_off, runner, resid, more, jm = got
+                solves += more
+                jm_fd = None  # the contraction is taken at the fixed point found
                 break
         if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev:
             # the step did not reduce the residual: the map has a kink between (the coil current
@@ -274,7 +289,10 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         # distance to the fixed point: the Newton step (the residual alone understates it by
         # 1/(1 − ρ) when the map contracts slowly)
         step = float(np.max(np.abs(dx_next) / scale))
-        if resid <= STEADY_TOL and step <= STEADY_TOL:
+        # met: the residual of the states the map depends on within the tolerance, the distance
+        # to the fixed point within it or within the cycle integration's own accuracy; a state
+        # the map forgets within that accuracy (periodic_settle.accepted)
+        if accepted(f, dx_next, x, scale, jm_fd, rtol, STEADY_TOL):
             if full:
                 break
             full = True  # met: solve this cycle again in full, to report it
