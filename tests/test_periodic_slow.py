@@ -100,8 +100,11 @@ def test_accepted_rule():
     dx = np.array([1e-10, 3e-9 * 10.0, 4e-9 * 100.0])
     # the forgotten node at 3e-9 < rtol·|x|/scale = 7e-9, the slow state's step 4e-9 < 5e-9
     assert accepted(f, dx, x, scale, jm, rtol, tol)
-    # a kept state's residual is never loosened: 2e-9 of its scale fails
+    # a kept state's residual is not loosened to rtol·|x|: 2e-9 of its scale fails (rtol·|x| = 5e-9)
     assert not accepted(f + np.array([2e-9, 0.0, 0.0]), dx, x, scale, jm, rtol, tol)
+    # only to a noise the iteration has shown in it, and never past the cap
+    assert accepted(f + np.array([2e-9, 0.0, 0.0]), dx, x, scale, jm, rtol, tol, np.array([3e-9, 0.0, 0.0]))
+    assert not accepted(f + np.array([2e-5, 0.0, 0.0]), dx, x, scale, jm, rtol, tol, np.array([1.0, 0.0, 0.0]))
     # nor its step past the integration's accuracy (6e-9 > rtol·|x|/scale = 5e-9)
     assert not accepted(f, dx * np.array([1.0, 1.0, 1.5]), x, scale, jm, rtol, tol)
     # the forgotten state past rtol·|x|: only with noise shown, and never past the cap

@@ -6,14 +6,19 @@ The cycle map is integrated at a relative tolerance ``rtol`` (``CYCLE_RTOL``): a
 the end of the cycle is known to about ``rtol·|x|``, never better than the integration delivers.
 The acceptance rule (:func:`accepted`) asks, per state:
 
-- of a state the map depends on (*kept*): the residual ``|Φ_k(x) − x_k|`` within the tolerance
-  (unchanged), and the distance to the fixed point (the Newton or secant step) within the
-  tolerance or within the noise the cycle integration leaves in that state — never more than
-  :data:`NOISE_CAP` of its scale;
+- of a state the map depends on (*kept*): the residual ``|Φ_k(x) − x_k|`` within the tolerance,
+  or within the noise the iteration has *shown* in that state (two cycles, the state plain-iterated
+  between them, whose residual did not halve: it no longer contracts, what is left is the
+  integration's noise); the distance to the fixed point (the Newton or secant step) within the
+  tolerance, the integration's ``rtol·|x|`` or that shown noise;
 - of a state the map forgets (its Jacobian column nil: a node discharged through the switch at
-  turn-on): the residual within the tolerance or within that noise. Such a state is set each cycle
-  to the plain iterate, so its residual is the change of ``Φ_k`` between two cycles that agree in
-  the states the map depends on: the integration's noise in it, shown by the iteration itself.
+  turn-on): the residual within the tolerance, ``rtol·|x|`` or the shown noise. Such a state is
+  set each cycle to the plain iterate, so its residual is the change of ``Φ_k`` between two cycles
+  that agree in the states the map depends on: the integration's noise in it.
+
+No allowance goes past :data:`NOISE_CAP` of a state's scale. The Newton iteration passes no
+shown noise (a kept state's residual stays within the tolerance there); the slow state's secant
+(:func:`slow_root`) passes what its plain iterations showed.
 
 The residual reported (``SteadyState.residual``) stays the largest of every state's, forgotten
 ones included: an acceptance at the noise shows there, never hidden.
@@ -68,16 +73,15 @@ def accepted(f: np.ndarray, dx: np.ndarray, x: np.ndarray, scale: np.ndarray, jm
     jm : ndarray or None — the map's difference Jacobian (None: every state kept)
     rtol : float — the cycle integration's relative tolerance
     tol : float — the fixed point's relative tolerance (``STEADY_TOL``)
-    noise : ndarray or None — noise shown by the iteration in each state (relative to its scale),
-        beside the integration's own ``rtol·|x|``
+    noise : ndarray or None — noise the iteration has shown in each state (relative to its scale):
+        allowed in every state's residual and distance; None: none shown
     """
     r, d = np.abs(f) / scale, np.abs(dx) / scale
-    floor = np.maximum(tol, rtol * np.abs(x) / scale)
-    if noise is not None:
-        floor = np.maximum(floor, noise)
-    floor = np.minimum(floor, max(tol, NOISE_CAP))
+    shown = np.full(len(x), tol) if noise is None else np.clip(noise, tol, max(tol, NOISE_CAP))
+    floor = np.minimum(np.maximum(shown, rtol * np.abs(x) / scale), max(tol, NOISE_CAP))
     kept = ~forgotten(jm, scale) if jm is not None else np.ones(len(x), dtype=bool)
-    return bool(np.all(r[kept] <= tol) and np.all(d[kept] <= floor[kept]) and np.all(r[~kept] <= floor[~kept]))
+    return bool(np.all(r[kept] <= shown[kept]) and np.all(d[kept] <= floor[kept])
+                and np.all(r[~kept] <= floor[~kept]))
 
 
 def slow_state(c: Circuit, jm) -> int | None:
@@ -116,7 +120,7 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     n = c.ie
     others = np.arange(n) != k
     solves = 0
-    trials = []  # [s, G, x settled at s, last fast residual, settled fully, stall level]
+    trials = []  # [s, G, x settled at s, last fast residual, settled fully, noise per state, last cycle]
     noise = [0.0]
 
     def settle(s, start, full, known=None):
@@ -126,7 +130,8 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         prev = g_prev = math.inf
         gs = []
         g = rf = math.nan
-        stall, done = 0.0, False
+        stall, done = np.zeros(n), False
+        r_prev = None
         base = None  # (x, Φ(x)) of the last cycle
         for _ in range(SETTLE_CYCLES):
             if known is not None:
@@ -145,10 +150,13 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
                 done = True
                 break
             if rf <= NOISE_CAP and rf > 0.5 * prev:
-                stall, done = rf, True  # the plain iteration no longer contracts: at its noise
+                # the plain iteration no longer contracts: each state's residual over these two
+                # cycles is its noise
+                stall, done = np.maximum(r, r_prev), True
                 break
-            if not full and rf <= SETTLE_G and abs(g - g_prev) <= SETTLE_G * abs(g):
-                break  # G stopped moving in its third digit: enough away from the root
+            r_prev = r
+            if not full and rf <= SETTLE_G and abs(g - g_prev) <= max(SETTLE_G * abs(g), noise[0], SETTLE_G * tol):
+                break  # G stopped moving in its third digit (or within its noise): enough for a trial
             prev, g_prev = rf, g
         if len(gs) >= 2:
             noise[0] = max(noise[0], max(gs) - min(gs))
@@ -199,8 +207,9 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x1) / (SLOW_H * scale[j])
         solves += n
         x[others] = x1[others]
-        stall = np.full(n, max(trials[-1][5], tol))
+        stall = trials[-1][5].copy()
         stall[k] = 2.0 * noise[0] / abs(slope)
+        r_prev = None
         for _ in range(FINAL_TRIES):
             x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
             solves += 1
@@ -209,11 +218,18 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             # (they contract many-fold per cycle); the slow state's is the secant's
             dx = f.copy()
             dx[k] = dist * scale[k]
+            r = np.abs(f) / scale
+            if r_prev is not None and np.max(r[others]) > 0.5 * np.max(r_prev[others]):
+                # two full cycles, the fast states plain-iterated between, and their residual
+                # did not halve: the iteration's noise in them (the full cycle's steps differ
+                # from the settling cycles', its noise with them)
+                stall[others] = np.maximum(stall[others], np.maximum(r, r_prev)[others])
             if accepted(f, dx, x, scale, jm, rtol, tol, stall):
-                return x, e_on, e_off, runner, float(np.max(np.abs(f) / scale)), solves, jm
+                return x, e_on, e_off, runner, float(np.max(r)), solves, jm
             # a fast state off by its noise (a ring's phase at the end of the period taking
             # another path of the integration): one more plain iterate of the fast states
             x[others] = x1[others]
+            r_prev = r
     except SolverError:
         return None
     return None
