@@ -202,6 +202,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
     slow_tried = False
+    rho_slow = None  # the contraction, where the slow speed's secant found the fixed point
     for _ in range(MAX_NEWTON):
         if known is not None and not full:
             x1, e_on, e_off, runner = known, None, None, None
@@ -248,9 +249,8 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                             x_prev + f_prev)
             slow_tried = True
             if got is not None:
-                x, e_on, e_off, runner, resid, more, jm = got
+                x, e_on, e_off, runner, resid, more, rho_slow = got
                 solves += more
-                jm_fd = None  # the contraction is taken at the fixed point found
                 break
         if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev:
             # the step did not reduce the residual: the map has a kink between (the coil current
@@ -311,14 +311,17 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                               f"Newton steps)")
         x, e_on, e_off, runner, resid, more = got
         solves += more
-    if jm is None:  # converged at the first guess: estimate the map's Jacobian for the contraction
+    if rho_slow is not None:
+        rho, brute = brute_force_estimate(c, x, None, rho_slow)
+    elif jm is None:  # converged at the first guess: estimate the map's Jacobian for the contraction
         jm = np.empty((n, n))
         for j in range(n):
             xp = x.copy()
             xp[j] += 1e-6 * scale[j]
             jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x) / (1e-6 * scale[j])
             solves += 1
-    rho, brute = brute_force_estimate(c, x, jm_fd if jm_fd is not None else jm)
+    if rho_slow is None:
+        rho, brute = brute_force_estimate(c, x, jm_fd if jm_fd is not None else jm)
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
@@ -360,10 +363,13 @@ def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: 
     return (x, solves, None) if best is None else (best[1], solves, best[2])
 
 
-def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
-    """(Contraction ρ = largest |eigenvalue| of the map's Jacobian, cycles plain repetition from
-    zero current and discharged capacitors needs to come within :data:`STEADY_TOL`)."""
-    rho = float(np.max(np.abs(np.linalg.eigvals(jm))))
+def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray | None,
+                         rho: float | None = None) -> tuple[float, int | None]:
+    """(Contraction ρ = largest |eigenvalue| of the map's Jacobian — or ``rho`` where given —,
+    cycles plain repetition from zero current and discharged capacitors needs to come within
+    :data:`STEADY_TOL`)."""
+    if rho is None:
+        rho = float(np.max(np.abs(np.linalg.eigvals(jm))))
     start_err = float(np.max(np.abs(x) / scales(c)))
     brute = None
     if 0 < rho < 1 and start_err > STEADY_TOL:

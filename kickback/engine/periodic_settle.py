@@ -8,8 +8,9 @@ The acceptance rule (:func:`accepted`) asks, per state:
 
 - of a state the map depends on (*kept*): the residual ``|Φ_k(x) − x_k|`` within the tolerance,
   or within the noise the iteration has *shown* in that state (two cycles, the state plain-iterated
-  between them, whose residual did not halve: it no longer contracts, what is left is the
-  integration's noise); the distance to the fixed point (the Newton or secant step) within the
+  between them, whose residual did not halve after the iteration had contracted it by
+  :data:`FAST_RATIO` or more per cycle: it no longer contracts, what is left is the integration's
+  noise; a state contracting slowly throughout never shows one); the distance to the fixed point (the Newton or secant step) within the
   tolerance, the integration's ``rtol·|x|`` or that shown noise;
 - of a state the map forgets (its Jacobian column nil: a node discharged through the switch at
   turn-on): the residual within the tolerance, ``rtol·|x|`` or the shown noise. Such a state is
@@ -53,18 +54,18 @@ SLOW_SPACING = 0.05
 SLOW_TRIALS = 12
 #: plain-iteration cycles of the fast states at one trial value at most
 SETTLE_CYCLES = 10
+#: a plain iteration whose residual fell by this ratio over a cycle contracts fast: its later
+#: failure to halve is noise, not a slow contraction
+FAST_RATIO = 0.2
 #: full cycles tried at the secant's root
 FINAL_TRIES = 4
 #: away from the root, a trial's fast states are settled until G moves by less than this part of
 #: itself over a cycle (and they are within it of their scale)
 SETTLE_G = 1e-3
-#: the difference of the Jacobian taken at the slow state's root, relative to each scale: far
-#: above the cycle's noise in a forgotten state (~1e-6), so that its column shows nil
-SLOW_H = 1e-3
 
 
 def accepted(f: np.ndarray, dx: np.ndarray, x: np.ndarray, scale: np.ndarray, jm, rtol: float, tol: float,
-             noise: np.ndarray | None = None) -> bool:
+             noise: np.ndarray | None = None, reach: np.ndarray | None = None) -> bool:
     """The acceptance rule (module docstring): residual ``f`` and step ``dx`` at ``x``.
 
     Parameters
@@ -75,10 +76,15 @@ def accepted(f: np.ndarray, dx: np.ndarray, x: np.ndarray, scale: np.ndarray, jm
     tol : float — the fixed point's relative tolerance (``STEADY_TOL``)
     noise : ndarray or None — noise the iteration has shown in each state (relative to its scale):
         allowed in every state's residual and distance; None: none shown
+    reach : ndarray or None — a distance to the fixed point the iteration cannot resolve, shown
+        per state (relative): the slow state's noise in its drift over the drift's slope
     """
     r, d = np.abs(f) / scale, np.abs(dx) / scale
     shown = np.full(len(x), tol) if noise is None else np.clip(noise, tol, max(tol, NOISE_CAP))
-    floor = np.minimum(np.maximum(shown, rtol * np.abs(x) / scale), max(tol, NOISE_CAP))
+    floor = np.maximum(shown, rtol * np.abs(x) / scale)
+    if reach is not None:
+        floor = np.maximum(floor, reach)
+    floor = np.minimum(floor, max(tol, NOISE_CAP))
     kept = ~forgotten(jm, scale) if jm is not None else np.ones(len(x), dtype=bool)
     return bool(np.all(r[kept] <= shown[kept]) and np.all(d[kept] <= floor[kept])
                 and np.all(r[~kept] <= floor[~kept]))
@@ -109,18 +115,20 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     is shown by the cycles at one trial value whose fast states are settled within
     :data:`NOISE_CAP`; the root is accepted when ``|G|`` is within ``tol`` and its distance
     ``|G/G'|`` within ``tol`` or twice the noise over the slope (Brent 1973, §4.2: no secant places a
-    root closer than its function's noise over its slope), capped at :data:`NOISE_CAP`. The map's
-    Jacobian there is taken by differences of :data:`SLOW_H` of each scale (wide enough to see a
-    forgotten state's column over the cycle's noise), and up to :data:`FINAL_TRIES` full cycles
-    are checked by :func:`accepted`, the fast states' noise being the stall the plain iteration
-    showed. Returns ``(x, E_on, E_off, runner, residual, cycle solves, Jacobian)`` or None (not
+    root closer than its function's noise over its slope), capped at :data:`NOISE_CAP`. Up to
+    :data:`FINAL_TRIES` full cycles there are checked by :func:`accepted` with every state kept,
+    a fast state's residual allowed at the noise the plain iteration showed in it (at the trial,
+    or between two full cycles). The contraction is the slow eigenvalue ``1 + dG/ds``. Returns
+    ``(x, E_on, E_off, runner, residual, cycle solves, contraction)`` or None (not
     settled in :data:`SLOW_TRIALS` trials: the shooting then goes on as before). ``known``:
     ``Φ(x0)``, where the shooting already solved that cycle.
     """
     n = c.ie
     others = np.arange(n) != k
     solves = 0
-    trials = []  # [s, G, x settled at s, last fast residual, settled fully, noise per state, last cycle]
+    # [s, G, x settled at s, last fast residual, settled fully, noise per state, last cycle,
+    #  whether the fast states were seen contracting fast]
+    trials = []
     noise = [0.0]
 
     def settle(s, start, full, known=None):
@@ -130,7 +138,7 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         prev = g_prev = math.inf
         gs = []
         g = rf = math.nan
-        stall, done = np.zeros(n), False
+        stall, done, fast_seen = np.zeros(n), False, False
         r_prev = None
         base = None  # (x, Φ(x)) of the last cycle
         for _ in range(SETTLE_CYCLES):
@@ -149,18 +157,20 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             if rf <= tol:
                 done = True
                 break
-            if rf <= NOISE_CAP and rf > 0.5 * prev:
-                # the plain iteration no longer contracts: each state's residual over these two
-                # cycles is its noise
+            if rf <= NOISE_CAP and rf > 0.5 * prev and fast_seen:
+                # the plain iteration, having contracted many-fold per cycle, no longer does:
+                # each state's residual over these two cycles is its noise (a state contracting
+                # slowly throughout never shows it)
                 stall, done = np.maximum(r, r_prev), True
                 break
+            fast_seen = fast_seen or rf <= FAST_RATIO * prev
             r_prev = r
             if not full and rf <= SETTLE_G and abs(g - g_prev) <= max(SETTLE_G * abs(g), noise[0], SETTLE_G * tol):
                 break  # G stopped moving in its third digit (or within its noise): enough for a trial
             prev, g_prev = rf, g
         if len(gs) >= 2:
             noise[0] = max(noise[0], max(gs) - min(gs))
-        return [s, g, x.copy(), rf, done, stall, base]
+        return [s, g, x.copy(), rf, done, stall, base, fast_seen]
 
     def start_at(s):
         """The fast states at ``s`` from the two nearest trials (linear in s), or the nearest."""
@@ -199,16 +209,11 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             trials.append(settle(s, start_at(s), False))
         else:
             return None
-        x, x1 = (v.copy() for v in trials[-1][6])  # the last cycle solved: the differences' base
-        jm = np.empty((n, n))
-        for j in range(n):
-            xp = x.copy()
-            xp[j] += SLOW_H * scale[j]
-            jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x1) / (SLOW_H * scale[j])
-        solves += n
-        x[others] = x1[others]
+        x = trials[-1][2].copy()
         stall = trials[-1][5].copy()
-        stall[k] = 2.0 * noise[0] / abs(slope)
+        stall[k] = noise[0]  # the drift's own noise: its residual stays within the tolerance
+        reach = np.zeros(n)
+        reach[k] = 2.0 * noise[0] / abs(slope)
         r_prev = None
         for _ in range(FINAL_TRIES):
             x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
@@ -219,13 +224,17 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             dx = f.copy()
             dx[k] = dist * scale[k]
             r = np.abs(f) / scale
-            if r_prev is not None and np.max(r[others]) > 0.5 * np.max(r_prev[others]):
+            if r_prev is not None and trials[-1][7] and np.max(r[others]) > 0.5 * np.max(r_prev[others]):
                 # two full cycles, the fast states plain-iterated between, and their residual
                 # did not halve: the iteration's noise in them (the full cycle's steps differ
                 # from the settling cycles', its noise with them)
                 stall[others] = np.maximum(stall[others], np.maximum(r, r_prev)[others])
-            if accepted(f, dx, x, scale, jm, rtol, tol, stall):
-                return x, e_on, e_off, runner, float(np.max(r)), solves, jm
+            # every state kept (no Jacobian): a fast state's residual past the tolerance only
+            # at the noise shown in it
+            if accepted(f, dx, x, scale, None, rtol, tol, stall, reach):
+                # the map's largest eigenvalue: the slow one, 1 + dG/ds along the settled fast
+                # states (they contract many-fold per cycle, shown by the settling)
+                return x, e_on, e_off, runner, float(np.max(r)), solves, 1.0 + slope
             # a fast state off by its noise (a ring's phase at the end of the period taking
             # another path of the integration): one more plain iterate of the fast states
             x[others] = x1[others]
