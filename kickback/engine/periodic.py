@@ -202,7 +202,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
     slow_tried = False
-    rho_slow = None  # the contraction, where the slow speed's secant found the fixed point
+    rho_slow = None  # the contraction, where the slow speed's chord iteration found the fixed point
     for _ in range(MAX_NEWTON):
         if known is not None and not full:
             x1, e_on, e_off, runner = known, None, None, None
@@ -244,7 +244,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                 and slow_state(c, jm_fd) is not None:
             # a wild step (the residual up tenfold) with a slow motor speed: the Jacobian, taken
             # where the fast states are far from settled, says nothing of the speed's fixed point;
-            # a secant on the speed's drift per cycle, the fast states settled at each trial
+            # a chord iteration on the speed's drift per cycle, the fast states plain-iterated
             got = slow_root(c, duty, frequency, rtol, scale, slow_state(c, jm_fd), x_prev, one_cycle, STEADY_TOL,
                             x_prev + f_prev)
             slow_tried = True

@@ -1,6 +1,6 @@
 """The shooting's acceptance of a fixed point at the cycle integration's noise, and the fixed point
 of a slow state (a motor's speed, its electromechanical time constant thousands of periods) by a
-secant on its drift per cycle, the fast states settled by plain iteration at each trial value.
+chord iteration on its drift per cycle, the fast states plain-iterated alongside.
 
 The cycle map is integrated at a relative tolerance ``rtol`` (``CYCLE_RTOL``): a state's value at
 the end of the cycle is known to about ``rtol·|x|``, never better than the integration delivers.
@@ -10,15 +10,16 @@ The acceptance rule (:func:`accepted`) asks, per state:
   or within the noise the iteration has *shown* in that state (two cycles, the state plain-iterated
   between them, whose residual did not halve after the iteration had contracted it by
   :data:`FAST_RATIO` or more per cycle: it no longer contracts, what is left is the integration's
-  noise; a state contracting slowly throughout never shows one); the distance to the fixed point (the Newton or secant step) within the
-  tolerance, the integration's ``rtol·|x|`` or that shown noise;
+  noise; a state contracting slowly throughout never shows one); the distance to the fixed point
+  (the Newton or chord step) within the tolerance, the integration's ``rtol·|x|`` or that shown
+  noise;
 - of a state the map forgets (its Jacobian column nil: a node discharged through the switch at
   turn-on): the residual within the tolerance, ``rtol·|x|`` or the shown noise. Such a state is
   set each cycle to the plain iterate, so its residual is the change of ``Φ_k`` between two cycles
   that agree in the states the map depends on: the integration's noise in it.
 
 No allowance goes past :data:`NOISE_CAP` of a state's scale. The Newton iteration passes no
-shown noise (a kept state's residual stays within the tolerance there); the slow state's secant
+shown noise (a kept state's residual stays within the tolerance there); the slow state's chord
 (:func:`slow_root`) passes what its plain iterations showed.
 
 The residual reported (``SteadyState.residual``) stays the largest of every state's, forgotten
@@ -48,19 +49,20 @@ NOISE_CAP = 1e-5
 #: a motor's speed is *slow* where its own slope in the cycle map is within this of 1 (a
 #: per-cycle contraction ``exp(−T/τ_em)``, τ_em above 100 periods)
 SLOW_SLOPE = 1e-2
-#: the secant's first spacing in the slow state, relative to its scale: wide, so that the slope it
+#: the chord's first spacing in the slow state, relative to its scale: wide, so that the slope it
 #: measures is the drift's, not its noise (the drift is smooth and nearly linear in the speed)
 SLOW_SPACING = 0.05
-SLOW_TRIALS = 12
-#: plain-iteration cycles of the fast states at one trial value at most
-SETTLE_CYCLES = 10
 #: a plain iteration whose residual fell by this ratio over a cycle contracts fast: its later
 #: failure to halve is noise, not a slow contraction
 FAST_RATIO = 0.2
-#: full cycles tried at the secant's root
+#: cycles of the chord iteration at most
+CHORD_CYCLES = 30
+#: a chord step below this (relative to the slow state's scale) is followed by a hold cycle
+HOLD_STEP = 1e-6
+#: full cycles tried at the chord's root
 FINAL_TRIES = 4
-#: away from the root, a trial's fast states are settled until G moves by less than this part of
-#: itself over a cycle (and they are within it of their scale)
+#: the slope is measured again over a chord step where the fast states were within this of
+#: their scale
 SETTLE_G = 1e-3
 
 
@@ -102,129 +104,112 @@ def slow_state(c: Circuit, jm) -> int | None:
 
 def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, k: int, x0: np.ndarray,
               one_cycle, tol: float, known: np.ndarray | None = None):
-    """The fixed point in a slow state ``k`` (:func:`slow_state`) by a secant on its drift per cycle.
+    """The fixed point in a slow state ``k`` (:func:`slow_state`) by a chord iteration on its drift
+    per cycle, the fast states plain-iterated.
 
-    ``G(s) = (Φ_k(x) − s)/scale_k`` with ``x_k = s·scale_k`` and the other (fast) states settled at
-    ``s`` by plain iteration (they contract many-fold per cycle; Newton on all states at once fails
-    where the map has kinks in the fast states, e.g. a coil current reaching zero each cycle). The
-    first two trials are :data:`SLOW_SPACING` apart, so that the secant measures the drift's slope,
-    not its noise; then inverse quadratic interpolation through the last three trials where it
-    stays within the secant's step (Brent 1973, ch. 4). Away from the root the fast states are
-    settled only until ``G`` stops moving in its third digit; the fast states at a new trial value
-    start from the two nearest trials' settled states, interpolated linearly. The noise of ``G``
-    is shown by the cycles at one trial value whose fast states are settled within
-    :data:`NOISE_CAP`; the root is accepted when ``|G|`` is within ``tol`` and its distance
-    ``|G/G'|`` within ``tol`` or twice the noise over the slope (Brent 1973, §4.2: no secant places a
-    root closer than its function's noise over its slope), capped at :data:`NOISE_CAP`. Up to
-    :data:`FINAL_TRIES` full cycles there are checked by :func:`accepted` with every state kept,
-    a fast state's residual allowed at the noise the plain iteration showed in it (at the trial,
-    or between two full cycles). The contraction is the slow eigenvalue ``1 + dG/ds``. Returns
-    ``(x, E_on, E_off, runner, residual, cycle solves, contraction)`` or None (not
-    settled in :data:`SLOW_TRIALS` trials: the shooting then goes on as before). ``known``:
+    ``G(s) = (Φ_k(x) − s)/scale_k`` with ``x_k = s·scale_k``: the slow state's drift per cycle, smooth
+    in ``s`` once the other (fast) states have followed it (they contract many-fold per cycle;
+    Newton on all states at once fails where the map has kinks in the fast states, e.g. a coil
+    current reaching zero each cycle). Two first cycles :data:`SLOW_SPACING` apart measure the
+    drift's slope, not its noise; then on every cycle the fast states take the plain iterate and
+    the slow state the chord step ``−G/G'``, the slope measured again over steps of 1e-3 of scale or
+    more (a chord method: Dennis & Schnabel 1983, §5.4; the fast states' errors, shrinking
+    many-fold per cycle, enter ``G`` as a perturbation). Once the step is below :data:`HOLD_STEP` a
+    cycle with the slow state held shows ``G``'s noise (the change of ``G`` between two cycles at
+    the same ``s``, the fast states settled within :data:`NOISE_CAP`); the root is accepted when
+    ``|G|`` is within ``tol`` and its distance ``|G/G'|`` within ``tol`` or twice that noise over the
+    slope (no secant places a root closer than its function's noise over its slope: Brent 1973,
+    §4.2), capped at :data:`NOISE_CAP`, and the fast states are settled (within ``tol``, or at a
+    noise shown: see :func:`accepted`). Then up to :data:`FINAL_TRIES` full cycles are checked by
+    :func:`accepted`, every state kept. The contraction is the slow eigenvalue ``1 + dG/ds``.
+
+    Returns ``(x, E_on, E_off, runner, residual, cycle solves, contraction)`` or None (not
+    settled in :data:`CHORD_CYCLES` cycles: the shooting then goes on as before). ``known``:
     ``Φ(x0)``, where the shooting already solved that cycle.
+
+    References
+    ----------
+    J. E. Dennis and R. B. Schnabel, Numerical Methods for Unconstrained Optimization and
+    Nonlinear Equations, Prentice-Hall 1983, §5.4 (the chord method).
     """
     n = c.ie
     others = np.arange(n) != k
     solves = 0
-    # [s, G, x settled at s, last fast residual, settled fully, noise per state, last cycle,
-    #  whether the fast states were seen contracting fast]
-    trials = []
-    noise = [0.0]
+    x = np.array(x0, dtype=float)
+    noise_g = 0.0  # G's noise shown by a hold cycle
+    shown = np.zeros(n)  # each state's noise shown by the plain iteration
 
-    def settle(s, start, full, known=None):
+    def cycle():
+        """One cycle from ``x``: (G, the residual per state); the fast states take the iterate."""
         nonlocal solves
-        x = np.array(start, dtype=float)
-        x[k] = s * scale[k]
-        prev = g_prev = math.inf
-        gs = []
-        g = rf = math.nan
-        stall, done, fast_seen = np.zeros(n), False, False
-        r_prev = None
-        base = None  # (x, Φ(x)) of the last cycle
-        for _ in range(SETTLE_CYCLES):
-            if known is not None:
-                x1, known = known, None
-            else:
-                x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
-                solves += 1
-            base = (x.copy(), x1)
-            r = np.abs(x1 - x) / scale
-            rf = float(np.max(r[others]))
-            g = float((x1[k] - x[k]) / scale[k])
-            x[others] = x1[others]
-            if rf <= NOISE_CAP:
-                gs.append(g)
-            if rf <= tol:
-                done = True
-                break
-            if rf <= NOISE_CAP and rf > 0.5 * prev and fast_seen:
+        x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
+        solves += 1
+        r = np.abs(x1 - x) / scale
+        g = float((x1[k] - x[k]) / scale[k])
+        x[others] = x1[others]
+        return g, r
+
+    try:
+        if known is not None:
+            x[others] = known[others]  # Φ(x0): the first plain iterate, solved already
+        # the first two points: G far above what the fast states' errors move it by after a plain
+        # iterate (975: 3e-5 against ~1e-9)
+        sa = float(x[k] / scale[k])
+        ga, r = cycle()
+        if not math.isfinite(ga) or ga == 0.0:
+            return None
+        rf = float(np.max(r[others]))
+        sb = sa + math.copysign(SLOW_SPACING, ga)
+        x[k] = sb * scale[k]
+        gb, r_prev = cycle()
+        slope = (gb - ga) / (sb - sa)
+        if not slope < 0:
+            return None  # the drift does not fall with the speed: no stable fixed point to find
+        rf, fast_seen = float(np.max(r_prev[others])), False
+        held_at = None
+        for _ in range(CHORD_CYCLES):
+            step = -gb / slope
+            hold = abs(step) <= HOLD_STEP and rf <= NOISE_CAP and held_at != sb
+            s = sb if hold else sb + step
+            x[k] = s * scale[k]
+            g, r = cycle()
+            rf_new = float(np.max(r[others]))
+            if hold:
+                held_at = sb
+                if rf_new <= NOISE_CAP and rf <= NOISE_CAP:
+                    noise_g = max(noise_g, abs(g - gb))
+            elif abs(s - sb) >= 1e-3 and rf <= SETTLE_G:
+                cand = (g - gb) / (s - sb)
+                if 1.0 / 3.0 <= cand / slope <= 3.0:
+                    slope = cand
+            if fast_seen and rf_new <= NOISE_CAP and rf_new > 0.5 * rf:
                 # the plain iteration, having contracted many-fold per cycle, no longer does:
                 # each state's residual over these two cycles is its noise (a state contracting
                 # slowly throughout never shows it)
-                stall, done = np.maximum(r, r_prev), True
-                break
-            fast_seen = fast_seen or rf <= FAST_RATIO * prev
-            r_prev = r
-            if not full and rf <= SETTLE_G and abs(g - g_prev) <= max(SETTLE_G * abs(g), noise[0], SETTLE_G * tol):
-                break  # G stopped moving in its third digit (or within its noise): enough for a trial
-            prev, g_prev = rf, g
-        if len(gs) >= 2:
-            noise[0] = max(noise[0], max(gs) - min(gs))
-        return [s, g, x.copy(), rf, done, stall, base, fast_seen]
-
-    def start_at(s):
-        """The fast states at ``s`` from the two nearest trials (linear in s), or the nearest."""
-        near = sorted(trials, key=lambda t: abs(t[0] - s))
-        x = near[0][2].copy()
-        if len(near) >= 2 and near[1][0] != near[0][0]:
-            w = (s - near[0][0]) / (near[1][0] - near[0][0])
-            x[others] += w * (near[1][2][others] - near[0][2][others])
-        return x
-
-    try:
-        s0 = float(x0[k] / scale[k])
-        trials.append(settle(s0, x0, False, known))
-        g0 = trials[0][1]
-        if not math.isfinite(g0) or g0 == 0.0:
-            return None
-        trials.append(settle(s0 + math.copysign(SLOW_SPACING, g0), trials[0][2], False))
-        wide = (trials[1][1] - trials[0][1]) / (trials[1][0] - trials[0][0])
-        for _ in range(SLOW_TRIALS - 2):
-            ta, tb = trials[-2], trials[-1]
-            (sa, ga), (sb, gb) = ta[:2], tb[:2]
-            slope = (gb - ga) / (sb - sa) if sb != sa else 0.0
-            if abs(gb - ga) < 10.0 * noise[0] or not slope < 0:
-                slope = wide  # two trials too close for their difference to be above the noise
-            if not slope < 0:
-                return None  # the drift does not fall with the speed: no stable fixed point to find
+                shown[others] = np.maximum(shown[others], np.maximum(r, r_prev)[others])
+            fast_seen = fast_seen or rf_new <= FAST_RATIO * rf
+            sb, gb, rf, r_prev = s, g, rf_new, r
             dist = abs(gb / slope)
-            if abs(gb) <= tol and dist <= min(max(tol, 2.0 * noise[0] / abs(slope)), NOISE_CAP):
-                if tb[4]:
-                    break
-                trials[-1] = settle(sb, tb[2], True)  # at the root: settle the fast states fully
-                continue
-            s = sb - gb / slope
-            if len(trials) >= 3:
-                s = _inverse_quadratic(trials[-3:], s)
-            trials.append(settle(s, start_at(s), False))
+            if abs(gb) <= tol and dist <= min(max(tol, 2.0 * noise_g / abs(slope)), NOISE_CAP) \
+                    and (rf <= tol or rf <= float(np.max(shown[others]))):
+                break
         else:
             return None
-        x = trials[-1][2].copy()
-        stall = trials[-1][5].copy()
-        stall[k] = noise[0]  # the drift's own noise: its residual stays within the tolerance
+        stall = shown.copy()
+        stall[k] = noise_g  # the drift's own noise: its residual stays within the tolerance
         reach = np.zeros(n)
-        reach[k] = 2.0 * noise[0] / abs(slope)
+        reach[k] = 2.0 * noise_g / abs(slope)
         r_prev = None
         for _ in range(FINAL_TRIES):
             x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
             solves += 1
             f = x1 - x
             # the fast states settled by plain iteration: each one's distance is its residual
-            # (they contract many-fold per cycle); the slow state's is the secant's
+            # (they contract many-fold per cycle); the slow state's is the chord's
             dx = f.copy()
             dx[k] = dist * scale[k]
             r = np.abs(f) / scale
-            if r_prev is not None and trials[-1][7] and np.max(r[others]) > 0.5 * np.max(r_prev[others]):
+            if r_prev is not None and fast_seen and np.max(r[others]) > 0.5 * np.max(r_prev[others]):
                 # two full cycles, the fast states plain-iterated between, and their residual
                 # did not halve: the iteration's noise in them (the full cycle's steps differ
                 # from the settling cycles', its noise with them)
@@ -242,15 +227,3 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     except SolverError:
         return None
     return None
-
-
-def _inverse_quadratic(three, fallback: float) -> float:
-    """Root by inverse quadratic interpolation through three trials ``(s, G, ...)``; ``fallback``
-    (the secant's) where the three are not distinct in G or the result lies farther from the last
-    trial than the secant's step (Brent 1973, ch. 4)."""
-    (a, fa), (b, fb), (c, fc) = (t[:2] for t in three)
-    if len({fa, fb, fc}) < 3:
-        return fallback
-    s = (a * fb * fc / ((fa - fb) * (fa - fc)) + b * fa * fc / ((fb - fa) * (fb - fc))
-         + c * fa * fb / ((fc - fa) * (fc - fb)))
-    return s if math.isfinite(s) and abs(s - c) <= abs(fallback - c) else fallback
