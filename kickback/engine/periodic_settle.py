@@ -139,10 +139,13 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     noise_g = 0.0  # G's noise shown by a hold cycle
     shown = np.zeros(n)  # each state's noise shown by the plain iteration
 
+    last = [None, None]  # the last cycle solved: (its start, its end)
+
     def cycle():
         """One cycle from ``x``: (G, the residual per state); the fast states take the iterate."""
         nonlocal solves
         x1 = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
+        last[:] = x.copy(), x1
         solves += 1
         r = np.abs(x1 - x) / scale
         g = float((x1[k] - x[k]) / scale[k])
@@ -198,12 +201,19 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         stall = shown.copy()
         stall[k] = noise_g  # the drift's own noise: its residual stays within the tolerance
         reach = np.zeros(n)
-        reach[k] = 2.0 * noise_g / abs(slope)
         r_prev = None
+        # the full cycle from the start of the last one solved: the same cycle integrated twice,
+        # on other steps (the energies join the step-size control), shows the integration's noise
+        # in each state directly
+        x, cheap = last
         for _ in range(FINAL_TRIES):
             x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
             solves += 1
             f = x1 - x
+            if cheap is not None:
+                stall = np.maximum(stall, np.abs(x1 - cheap) / scale)
+                cheap = None
+            reach[k] = 2.0 * stall[k] / abs(slope)
             # the fast states settled by plain iteration: each one's distance is its residual
             # (they contract many-fold per cycle); the slow state's is the chord's
             dx = f.copy()
