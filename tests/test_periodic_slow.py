@@ -1,4 +1,4 @@
-"""The shooting's acceptance at the cycle integration's noise and the slow motor speed's secant
+"""The shooting's acceptance at the cycle integration's noise and the slow motor speed's chord iteration
 (kickback.engine.periodic_settle), against closed forms written here.
 
 The slow case is a random valid case of the wide-range generator (demo data): a DC motor winding
