@@ -240,6 +240,8 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     steps = edges if fine is None else np.union1d(edges, t0 + fine)
     # and the slow remainder no coarser than the Radau steps it replaces would sample it
     steps = np.union1d(steps, np.linspace(t0, t_end, SAMPLE_SPLITS + 1))
+    # t0 + the fine grid may round an ulp past the phase's end: a sample there lies in no phase
+    steps = np.unique(np.clip(steps, t0, t_end))
     sol = LinearSolution(t0, np.array(y0, dtype=float), ie, lam, vec, coef, edges, x_end, steps=steps, held=held)
     check_t = np.concatenate([edges[:-1, None] + np.diff(edges)[:, None] * _XI01[None, :]]).ravel() \
         if energies else edges

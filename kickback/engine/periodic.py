@@ -43,6 +43,7 @@ from kickback.engine.periodic_bracket import (
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
 from kickback.engine.periodic_bracket import one_kept_flips as _one_kept_flips
+from kickback.engine.periodic_settle import accepted, slow_root, slow_state
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
@@ -205,6 +206,8 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     lam = 1.0  # fraction of the Newton step taken
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
+    slow_tried = False
+    rho_slow = None  # the contraction, where the slow speed's chord iteration found the fixed point
     for _ in range(MAX_NEWTON):
         if known is not None and not full:
             x1, e_on, e_off, runner = known, None, None, None
@@ -240,6 +243,18 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             got = held_root(c, duty, frequency, rtol, scale, jm_fd, history, one_cycle, STEADY_TOL)
             if got is not None:
                 x, e_on, e_off, runner, resid, more = got
+                solves += more
+                break
+        if x_prev is not None and not slow_tried and resid > 10.0 * float(np.max(np.abs(f_prev) / scale)) \
+                and slow_state(c, jm_fd) is not None:
+            # a wild step (the residual up tenfold) with a slow motor speed: the Jacobian, taken
+            # where the fast states are far from settled, says nothing of the speed's fixed point;
+            # a chord iteration on the speed's drift per cycle, the fast states plain-iterated
+            got = slow_root(c, duty, frequency, rtol, scale, slow_state(c, jm_fd), x_prev, one_cycle, STEADY_TOL,
+                            x_prev + f_prev)
+            slow_tried = True
+            if got is not None:
+                x, e_on, e_off, runner, resid, more, rho_slow = got
                 solves += more
                 break
         if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev:
@@ -279,7 +294,10 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         # distance to the fixed point: the Newton step (the residual alone understates it by
         # 1/(1 − ρ) when the map contracts slowly)
         step = float(np.max(np.abs(dx_next) / scale))
-        if resid <= STEADY_TOL and step <= STEADY_TOL:
+        # met: the residual of the states the map depends on within the tolerance, the distance
+        # to the fixed point within it or within the cycle integration's own accuracy; a state
+        # the map forgets within that accuracy (periodic_settle.accepted)
+        if accepted(f, dx_next, x, scale, jm_fd, rtol, STEADY_TOL):
             if full:
                 break
             full = True  # met: solve this cycle again in full, to report it
@@ -298,14 +316,17 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                               f"Newton steps)")
         x, e_on, e_off, runner, resid, more = got
         solves += more
-    if jm is None:  # converged at the first guess: estimate the map's Jacobian for the contraction
+    if rho_slow is not None:
+        rho, brute = brute_force_estimate(c, x, None, rho_slow)
+    elif jm is None:  # converged at the first guess: estimate the map's Jacobian for the contraction
         jm = np.empty((n, n))
         for j in range(n):
             xp = x.copy()
             xp[j] += 1e-6 * scale[j]
             jm[:, j] = (one_cycle(c, xp, duty, frequency, rtol, energies=False)[0] - x) / (1e-6 * scale[j])
             solves += 1
-    rho, brute = brute_force_estimate(c, x, jm_fd if jm_fd is not None else jm)
+    if rho_slow is None:
+        rho, brute = brute_force_estimate(c, x, jm_fd if jm_fd is not None else jm)
     w = steady_waveforms(c, runner, rtol, "detailed, periodic steady state")
     return SteadyState(duty, frequency, x, w, e_on, e_off, solves, rho, brute, resid, runner.x_turnoff,
                        runner.i_turnoff)
@@ -347,10 +368,13 @@ def _first_guess(c: Circuit, duty: float, frequency: float, rtol: float, scale: 
     return (x, solves, None) if best is None else (best[1], solves, best[2])
 
 
-def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray) -> tuple[float, int | None]:
-    """(Contraction ρ = largest |eigenvalue| of the map's Jacobian, cycles plain repetition from
-    zero current and discharged capacitors needs to come within :data:`STEADY_TOL`)."""
-    rho = float(np.max(np.abs(np.linalg.eigvals(jm))))
+def brute_force_estimate(c: Circuit, x: np.ndarray, jm: np.ndarray | None,
+                         rho: float | None = None) -> tuple[float, int | None]:
+    """(Contraction ρ = largest |eigenvalue| of the map's Jacobian — or ``rho`` where given —,
+    cycles plain repetition from zero current and discharged capacitors needs to come within
+    :data:`STEADY_TOL`)."""
+    if rho is None:
+        rho = float(np.max(np.abs(np.linalg.eigvals(jm))))
     start_err = float(np.max(np.abs(x) / scales(c)))
     brute = None
     if 0 < rho < 1 and start_err > STEADY_TOL:
