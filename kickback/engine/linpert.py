@@ -61,12 +61,16 @@ _INTEG = np.array([legendre.legint(_FIT[:, m], lbnd=-1.0) for m in range(_N)]).T
 _BLOCK_EXP = 200.0
 
 
-def refine(edges: np.ndarray, lam: np.ndarray) -> np.ndarray | None:
-    """Panel edges [s] (absolute) split so that no panel exceeds :data:`PANEL_RAD` / max|λ|;
-    None beyond :data:`MAX_PANELS`."""
+def refine(edges: np.ndarray, lam: np.ndarray, until: float) -> np.ndarray | None:
+    """Panel edges [s] (absolute) split so that no panel starting before ``until`` exceeds
+    :data:`PANEL_RAD` / max|λ| (where the departure from the model lives) and none after it
+    exceeds :data:`PANEL_RAD` / max|Re λ| (the forcing is within ``LIN_TOL`` there: the correction
+    is carried by the modes); None beyond :data:`MAX_PANELS`."""
     fast = float(np.max(np.abs(lam))) if lam.size else 0.0
+    damp = float(np.max(np.abs(lam.real))) if lam.size else 0.0
     h = np.diff(edges)
-    k = np.maximum(1, np.ceil(h * fast / PANEL_RAD)).astype(int)
+    rate = np.where(edges[:-1] < until, fast, damp)
+    k = np.maximum(1, np.ceil(h * rate / PANEL_RAD)).astype(int)
     if int(np.sum(k)) > MAX_PANELS:
         return None
     first = np.cumsum(k) - k
@@ -143,11 +147,13 @@ class Correction:
         return np.real(self.V @ z)
 
 
-def correct(model, dynamic, t0: float, y0: np.ndarray, edges: np.ndarray, rates):
+def correct(model, dynamic, t0: float, y0: np.ndarray, edges: np.ndarray, rates, until: float = np.inf):
     """The corrected path of an affine phase whose rates depart from the model.
 
     ``dynamic``: the affine solution's states at given times; ``edges``: its panel edges [s];
-    ``rates``: the vectorised true rates ``(c, t, Y) → F`` (or None). Returns (correction, panel
+    ``rates``: the vectorised true rates ``(c, t, Y) → F`` (or None); ``until`` [s]: where the
+    departure has fallen within what ``LIN_TOL`` allows for good (the panels are fine up to
+    there). Returns (correction, panel
     edges, nodes, true rates along the corrected path) or None where the correction's error bound
     exceeds :data:`PERT_TOL` (or it cannot be formed); ``model.pert_excess`` is then by how much
     (inf: cannot be formed).
@@ -160,7 +166,7 @@ def correct(model, dynamic, t0: float, y0: np.ndarray, edges: np.ndarray, rates)
     lam, V = lam.astype(complex), V.astype(complex)
     if not np.all(np.isfinite(lam)) or np.linalg.cond(V) > 1e8:
         return None
-    edges = refine(edges, lam)
+    edges = refine(edges, lam, until)
     if edges is None:
         return None
     if edges.size > 2 * PREFIX and _attempt(model, dynamic, y0, edges[:PREFIX + 1], rates, lam, V) is None:

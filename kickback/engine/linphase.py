@@ -199,7 +199,11 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
             if far.size:
                 model.left_at = float(check_t[far[0]])
                 return None
-            got = correct(model, sol.dynamic, t0, y0, edges, vector_rates)
+            # past the last node departing beyond LIN_TOL (and the panel holding it) the path
+            # holds the affine model as it is: the correction only rides on its modes there
+            k = int(np.searchsorted(edges, check_t[bad[-1]], side="right"))
+            until = float(edges[min(k + 1, edges.size - 1)])
+            got = correct(model, sol.dynamic, t0, y0, edges, vector_rates, until)
             if got is None:
                 model.pert_failed = True
                 if not math.isfinite(model.pert_excess):
