@@ -86,3 +86,26 @@ def test_correction_refused_when_its_bound_fails(monkeypatch):
     monkeypatch.setattr(linpert, "PERT_TOL", 1e-30)
     assert solve_affine(model, 0.0, y0, SPAN, True, perturb=True) is None
     assert model.pert_failed and 1.0 < model.pert_excess < np.inf
+
+
+def test_sampling_grid_holds_the_ring_trough():
+    # the lowest coil current of the ring, from the closed form's own sampling grid, against the
+    # first trough of the tight solve (located as the event di/dt = 0 going up: Vs − v − R·i = 0)
+    c = _circuit()
+    y0 = np.zeros(c.n_states)
+    y0[0], y0[1] = I0, VS + DV0
+    model = AffineModel(c, 0.0, rest_probe(c, 0.0, y0), scales(c), SPAN)
+    sol = solve_affine(model, 0.0, y0, SPAN, True, perturb=True)
+    cn = C_COIL + C_SW
+
+    def f(t, y):
+        return [(VS - y[1] - R * y[0]) / L, (y[0] - I1 * np.sign(y[1]) * abs(y[1] / V1) ** ALPHA) / cn]
+
+    def trough(t, y):
+        return VS - y[1] - R * y[0]
+    trough.direction = 1.0
+    ref = solve_ivp(f, (0.0, 2e-5), [I0, VS + DV0], method="Radau", rtol=1e-12, atol=[1e-16, 1e-13],
+                    events=trough)
+    i_min = float(np.min(ref.y_events[0][:, 0]))
+    got = float(np.min(sol(np.asarray(sol.steps))[0]))
+    assert got == pytest.approx(i_min, rel=1e-9, abs=1e-12 * I0)
