@@ -246,15 +246,17 @@ def with_extrema(steps: np.ndarray, dynamic, model) -> np.ndarray:
     current added (a ring's troughs and crests fall between the grid's points: the sampled
     minimum current would be off by ~(ω·Δt)²/8 of the swing).
 
-    Each turning point is found by Newton's method on the model's rate of the current, bracketed
-    by the grid's neighbours of a sampled turning point."""
-    i = dynamic(steps)[0]
-    d = np.diff(i)
-    k = np.flatnonzero(d[:-1] * d[1:] < 0) + 1
+    A turning point lies between two grid points where the model's rate of the current changes
+    sign (the phase's first and last intervals included); it is found by Newton's method on that
+    rate, kept inside the interval."""
+    A, b = model.A, model.b[:, None]
+    rate = (_mul(A[:1], dynamic(steps)) + b[:1])[0]
+    k = np.flatnonzero(rate[:-1] * rate[1:] < 0)
     if not k.size:
         return steps
-    t, lo, hi = steps[k], steps[k - 1], steps[k + 1]
-    A, b = model.A, model.b[:, None]
+    lo, hi = steps[k], steps[k + 1]
+    # first guess: where the rate's chord crosses zero
+    t = lo + (hi - lo) * rate[k] / (rate[k] - rate[k + 1])
     for _ in range(3):
         r1 = _mul(A, dynamic(t)) + b
         with np.errstate(all="ignore"):
