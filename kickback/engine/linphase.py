@@ -99,9 +99,10 @@ class AffineModel:
     def defects(self, Y: np.ndarray, F: np.ndarray) -> np.ndarray:
         """:meth:`defect` at many states ``Y`` (n_states × N) with their rates ``F``."""
         X = Y[: self.ie]
-        d = np.abs(F[: self.ie] - self.A @ X - self.b[:, None])
-        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * (self._abs_a @ np.abs(X)
-                                                                          + np.abs(self.b)[:, None])
+        # (einsum: BLAS threads spin on a small matrix times many columns)
+        d = np.abs(F[: self.ie] - np.einsum("ij,jn->in", self.A, X) - self.b[:, None])
+        terms = np.einsum("ij,jn->in", self._abs_a, np.abs(X)) + np.abs(self.b)[:, None]
+        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * terms
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = np.where(d == 0.0, 0.0, d / allow)
         return np.max(ratio, axis=0)
