@@ -10,7 +10,9 @@ Here the affine model is taken from the circuit's analytic Jacobian at the settl
 the phase is solved through the eigen-decomposition of the augmented matrix
 ``[[A, b], [0, 0]]`` (its end state by an extended-precision exponential), and the model is *verified* along the
 solution: wherever the true right-hand side departs from it by more than :data:`LIN_TOL`
-(integrated over the phase, relative to each state's scale) the caller integrates as before.
+(integrated over the phase, relative to each state's scale) the caller integrates as before —
+unless the departure is small enough to be corrected to first order with a bounded error
+(:mod:`kickback.engine.linpert`: a ring with a varistor far below its knee).
 The energies (powers carried as states) are integrated by Gauss–Legendre quadrature of the
 true power laws along the exact trajectory, on panels graded to every mode's time constant.
 
@@ -26,20 +28,19 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numpy.polynomial import legendre
 
 from kickback.circuit import Circuit
 from kickback.engine.linmodes import (
     decompose_held,
     expm_extended,  # noqa: F401  (former home)
 )
+from kickback.engine.linpert import PERT_RATIO, correct, next_try, with_extrema
+from kickback.engine.linsolution import _XI01, GL_NODES, LinearSolution
 from kickback.nodebalance import solve_monotone
 
 #: allowed departure of the true right-hand side from the affine model, integrated over the
 #: phase and relative to each dynamic state's scale
 LIN_TOL = 1e-12
-#: Gauss–Legendre nodes per panel
-GL_NODES = 10
 MAX_PANELS = 400
 #: panels allowed when the rates along the path are evaluated all at once (:mod:`linrates`): a
 #: phase ringing for thousands of LC periods
@@ -48,11 +49,6 @@ MAX_PANELS_VECTOR = 40_000
 SAMPLE_SPLITS = 64
 #: rounding allowance of a rate, relative to the sum of the magnitudes of its terms
 ROUNDING = 64 * np.finfo(float).eps
-_XI, _WI = legendre.leggauss(GL_NODES)
-_XI01, _WI01 = 0.5 * (_XI + 1.0), 0.5 * _WI
-#: node values → Legendre coefficients of the interpolant's integral from −1 (one column per node)
-_INTEG = np.array([legendre.legint(legendre.legfit(_XI, np.eye(GL_NODES)[m], GL_NODES - 1), lbnd=-1.0)
-                   for m in range(GL_NODES)]).T
 
 
 def settled_probe(c: Circuit, t: float, y: np.ndarray) -> np.ndarray:
@@ -90,6 +86,9 @@ class AffineModel:
         self._abs_a = np.abs(self.A)
         #: [s] where the last closed-form path checked left the model (None: not known)
         self.left_at = None
+        #: the last closed-form path tried departed from the model, and its correction was refused:
+        #: by how much its error bound was exceeded (inf: the correction could not be formed)
+        self.pert_failed, self.pert_excess = False, None
 
     def defect(self, t: float, y: np.ndarray) -> tuple[float, np.ndarray]:
         """(Departure of the true dynamic rates from the model, relative to what :data:`LIN_TOL`
@@ -111,62 +110,13 @@ class AffineModel:
         """:meth:`defect` at many states ``Y`` (n_states × N) at times ``t`` with their rates ``F``."""
         X = Y[: self.ie]
         ramp = 0.0 if self.g is None else self.g[:, None] * (t - self.t_ref)[None, :]
-        d = np.abs(F[: self.ie] - self.A @ X - self.b[:, None] - ramp)
-        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * (
-            self._abs_a @ np.abs(X) + np.abs(self.b)[:, None] + np.abs(ramp))
+        # (einsum: BLAS threads spin on a small matrix times many columns)
+        d = np.abs(F[: self.ie] - np.einsum("ij,jn->in", self.A, X) - self.b[:, None] - ramp)
+        terms = np.einsum("ij,jn->in", self._abs_a, np.abs(X)) + np.abs(self.b)[:, None] + np.abs(ramp)
+        allow = (LIN_TOL * self.scale / self.span)[:, None] + ROUNDING * terms
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = np.where(d == 0.0, 0.0, d / allow)
         return np.max(ratio, axis=0)
-
-
-class LinearSolution:
-    """Dense closed-form solution of an affine phase: callable like scipy's OdeSolution."""
-
-    def __init__(self, t0, y0, ie, lam, vec, coef, edges, x_end, nodes=None, rates=None, steps=None, held=None):
-        self.t0, self.y0, self.ie, self.x_end = t0, y0, ie, x_end
-        #: (indices, rates) of held states: x = x0 + rate·(t − t0), outside the modes
-        self.held = held
-        self.steps = edges if steps is None else steps  # [s] sampling grid offered to the sampler
-        self.lam, self.vec, self.coef = lam, vec, coef
-        self.edges = edges  # [s] absolute panel edges
-        self.nodes, self.rates = nodes, rates  # GL nodes [s] per panel, power rates there
-        if rates is not None:
-            h = np.diff(edges)
-            panel = np.einsum("j,pjk->pk", _WI01, rates) * h[:, None]
-            self.cum = np.vstack([np.zeros(rates.shape[2]), np.cumsum(panel, axis=0)])
-
-    def dynamic(self, t) -> np.ndarray:
-        s = np.atleast_1d(np.asarray(t, dtype=float)) - self.t0
-        z = np.real(self.vec @ (self.coef[:, None] * np.exp(self.lam[:, None] * s[None, :])))[: self.ie]
-        if self.held is not None:
-            idx, rate = self.held
-            z[idx] = self.y0[idx, None] + rate[:, None] * s[None, :]
-        z[:, s >= self.edges[-1] - self.t0] = self.x_end[:, None]
-        return z
-
-    def __call__(self, t):
-        scalar = np.ndim(t) == 0
-        ts = np.atleast_1d(np.asarray(t, dtype=float))
-        out = np.empty((self.y0.size, ts.size))
-        out[: self.ie] = self.dynamic(ts)
-        if self.rates is None:
-            out[self.ie:] = self.y0[self.ie:, None]
-        else:
-            out[self.ie:] = (self.y0[self.ie:, None] + self._energy(ts).T)
-        return out[:, 0] if scalar else out
-
-    def _energy(self, ts: np.ndarray) -> np.ndarray:
-        """Cumulative energies at ``ts``: whole panels plus the interpolating polynomial of the
-        power at the panel's Gauss nodes, integrated to the sample."""
-        k = np.clip(np.searchsorted(self.edges, ts, side="right") - 1, 0, len(self.edges) - 2)
-        h = self.edges[k + 1] - self.edges[k]
-        frac = np.clip((ts - self.edges[k]) / h, 0.0, 1.0)
-        out = self.cum[k].copy()
-        # the interpolating polynomial through the panel's Gauss nodes, integrated from the panel
-        # start: a fixed linear map of the node values (weights per sample)
-        w = legendre.legvander(2.0 * frac - 1.0, GL_NODES) @ _INTEG
-        out += 0.5 * h[:, None] * np.einsum("nm,nms->ns", w, self.rates[k])
-        return out
 
 
 def _panels(lam, vec, coef, scale, span, first=2.0, growth=0.5, live_level=1e-17,
@@ -217,10 +167,16 @@ def _panels(lam, vec, coef, scale, span, first=2.0, growth=0.5, live_level=1e-17
     return np.unique(np.concatenate(chunks))
 
 
-def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, energies: bool):
+def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, energies: bool,
+                 perturb: bool = False):
     """Closed-form solution of ``model`` from ``(t0, y0)`` to ``t_end``, verified against the
     true right-hand side; None when the model does not hold along the way (or cannot be solved
-    reliably) — the caller then integrates step by step."""
+    reliably) — the caller then integrates step by step.
+
+    ``perturb``: where the rates depart from the model by more than :data:`LIN_TOL` allows but
+    by less than ``linpert.PERT_RATIO`` times that, the path is corrected to first order and
+    accepted if the correction's error bound holds (:func:`linpert.correct`); ``model.pert_failed``
+    tells the caller when it did not."""
     c, ie, scale = model.c, model.ie, model.scale
     span = t_end - t0
     dec = decompose_held(model.A, model.b, y0[:ie], span, scale, LIN_TOL)
@@ -250,7 +206,29 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
     Y[:ie], Y[ie:] = ys, np.asarray(y0, dtype=float)[ie:, None]
     F = vector_rates(c, check_t, Y) if vectorised else None
     if F is not None:
-        bad = np.flatnonzero(~(model.defects(Y, F, check_t) <= 1.0))
+        ratio = model.defects(Y, F, check_t)
+        bad = np.flatnonzero(~(ratio <= 1.0))
+        if bad.size and perturb and held is None and model.g is None:
+            far = np.flatnonzero(~(ratio <= PERT_RATIO))
+            if far.size:
+                model.left_at = float(check_t[far[0]])
+                return None
+            # past the last node departing beyond LIN_TOL (and the panel holding it) the path
+            # holds the affine model as it is: the correction only rides on its modes there
+            k = int(np.searchsorted(edges, check_t[bad[-1]], side="right"))
+            until = float(edges[min(k + 1, edges.size - 1)])
+            got = correct(model, sol.dynamic, t0, y0, edges, vector_rates, until)
+            if got is None:
+                model.pert_failed = True
+                if not math.isfinite(model.pert_excess):
+                    model.pert_failed, model.left_at = False, float(check_t[bad[0]])
+                return None
+            corr, edges_c, t_c, F_c = got
+            out = LinearSolution(t0, sol.y0, ie, lam, vec, coef, edges_c, x_end + corr.end,
+                                 t_c.reshape(-1, GL_NODES), F_c[ie:].T.reshape(len(edges_c) - 1, GL_NODES, -1),
+                                 steps, held, corr)
+            out.steps = with_extrema(steps, out.dynamic, model)
+            return out
         if bad.size:
             model.left_at = float(check_t[bad[0]])
             return None
@@ -267,18 +245,19 @@ def solve_affine(model: AffineModel, t0: float, y0: np.ndarray, t_end: float, en
                 model.left_at = float(tn)
                 return None
             rates[n] = f[ie:]
+    sol.steps = with_extrema(steps, sol.dynamic, model)
     if not energies:
         return sol
     return LinearSolution(t0, sol.y0, ie, lam, vec, coef, edges, x_end, check_t.reshape(-1, GL_NODES),
-                          rates.reshape(len(edges) - 1, GL_NODES, -1), steps, held)
+                          rates.reshape(len(edges) - 1, GL_NODES, -1), sol.steps, held)
 
 
-def linear_event(model: AffineModel):
-    """Terminal event: the circuit's rates have come within half of what :data:`LIN_TOL` allows
-    of ``model`` (half: the event's root is located only approximately)."""
+def linear_event(model: AffineModel, level: float = 1.0):
+    """Terminal event: the circuit's rates have come within half of ``level`` × what
+    :data:`LIN_TOL` allows of ``model`` (half: the event's root is located only approximately)."""
     def g(t, y):
         d = model.defect(t, y)[0]
-        return math.log10(max(2.0 * d, 1e-300))
+        return math.log10(max(2.0 * d / level, 1e-300))
     g.terminal = True
     g.direction = -1
     return g
@@ -345,6 +324,9 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
     # only at that voltage), and in an on phase (a probe settled on a law's kink — the node at
     # 0 V with no coil current, where an ideal channel's law bends — linearises the wrong side)
     again = c.cap_chains if rest else True
+    # a path departing from the model by little is tried with its first-order correction
+    perturb = True
+    tries = []  # (time, excess of the bound) of each corrected closed form refused
     for _ in range(MAX_ATTEMPTS):
         if again and runner.t > t0:
             probe = rest_probe(c, runner.t, runner.y) if rest else settled_probe(c, runner.t, runner.y)
@@ -366,14 +348,24 @@ def run_affine_phase(runner, name: str, t_end: float, scale: np.ndarray, energie
             if not model.defect(runner.t, runner.y)[0] <= 1.0:
                 continue
         t_try = runner.t
-        model.left_at = None
-        sol = solve_affine(model, t_try, runner.y, t_end, energies)
+        model.left_at, model.pert_failed = None, False
+        sol = solve_affine(model, t_try, runner.y, t_end, energies, perturb=perturb)
         if sol is not None:
             runner.phases.append(Phase(name, runner.t, t_end, sol, sol.steps, None, c.conducting, c.t_turnoff))
             runner.y = sol(t_end)
             runner.t = t_end
             return
-        if model.left_at is not None and model.left_at > t_try:
+        if model.pert_excess is not None and not math.isfinite(model.pert_excess):
+            perturb = False  # the correction cannot be formed here: the model must hold as it is
+        if model.pert_failed:
+            # the correction's error bound is not met yet (a ring still too large): step on for
+            # about the time its envelope takes to bring it down, and try again
+            tries.append((t_try, model.pert_excess))
+            runner.run(name, t_try + next_try(model, t_end - t_try, tries), [], **kw)
+            kw.pop("first_step", None)
+            if not _run_pinned(runner, name, t_end, kw):
+                return
+        elif model.left_at is not None and model.left_at > t_try:
             # holds here but the path leaves the model at left_at (a ring swinging out of a
             # clamp's blocking band): step on past it, each time twice as far, and try again
             leave = max(2.0 * (model.left_at - t_try), 2.0 * leave)
