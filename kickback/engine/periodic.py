@@ -49,6 +49,8 @@ from kickback.errors import SolverError
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
 MAX_NEWTON = 40
 CYCLE_RTOL = 1e-8
+#: chord iterations on a slow speed at most (periodic_settle.slow_root; a second from the first's best)
+SLOW_TRIES = 2
 #: residual below which the next cycle is solved in full (energies, kept for the figures): it is
 #: then expected to be the verifying one
 FINAL_FROM = 1e-6
@@ -206,7 +208,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     lam = 1.0  # fraction of the Newton step taken
     full = False  # solve the cycle in full (energies, kept): once it is expected to be the last
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
-    slow_tried = False
+    slow_tries = 0  # chord iterations on a slow speed tried (at most SLOW_TRIES)
     rho_slow = None  # the contraction, where the slow speed's chord iteration found the fixed point
     for _ in range(MAX_NEWTON):
         if known is not None and not full:
@@ -245,18 +247,24 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
                 x, e_on, e_off, runner, resid, more = got
                 solves += more
                 break
-        if x_prev is not None and not slow_tried and resid > 10.0 * float(np.max(np.abs(f_prev) / scale)) \
+        if x_prev is not None and slow_tries < SLOW_TRIES and resid > 10.0 * float(np.max(np.abs(f_prev) / scale)) \
                 and slow_state(c, jm_fd) is not None:
             # a wild step (the residual up tenfold) with a slow motor speed: the Jacobian, taken
             # where the fast states are far from settled, says nothing of the speed's fixed point;
             # a chord iteration on the speed's drift per cycle, the fast states plain-iterated
             got = slow_root(c, duty, frequency, rtol, scale, slow_state(c, jm_fd), x_prev, one_cycle, STEADY_TOL,
-                            x_prev + f_prev)
-            slow_tried = True
+                            x_prev + f_prev, best := [])
+            slow_tries += 1
             if got is not None:
                 x, e_on, e_off, runner, resid, more, rho_slow = got
                 solves += more
                 break
+            solves += best[2] if best else 0
+            if best and best[0] < float(np.max(np.abs(f_prev) / scale)):
+                # not settled, nearer than the shooting was: on from its best plain iterate, not the far step
+                x, resid_prev, lam, jm, full = best[1], math.inf, 1.0, None, False
+                x_prev = f_prev = dx_prev = None
+                continue
         if x_prev is not None and resid > STEADY_TOL and not merit < (1.0 - 1e-4 * lam) * resid_prev:
             # the step did not reduce the residual: the map has a kink between (the coil current
             # reaching zero in the off phase or not, a clamp conducting or not) and its slope on

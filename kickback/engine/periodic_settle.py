@@ -103,7 +103,7 @@ def slow_state(c: Circuit, jm) -> int | None:
 
 
 def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.ndarray, k: int, x0: np.ndarray,
-              one_cycle, tol: float, known: np.ndarray | None = None):
+              one_cycle, tol: float, known: np.ndarray | None = None, best: list | None = None):
     """The fixed point in a slow state ``k`` (:func:`slow_state`) by a chord iteration on its drift
     per cycle, the fast states plain-iterated.
 
@@ -125,7 +125,9 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
 
     Returns ``(x, E_on, E_off, runner, residual, cycle solves, contraction)`` or None (not
     settled in :data:`CHORD_CYCLES` cycles: the shooting then goes on as before). ``known``:
-    ``Φ(x0)``, where the shooting already solved that cycle.
+    ``Φ(x0)``, where the shooting already solved that cycle. ``best``: a list, set on None to
+    ``[residual, Φ(x), cycle solves]`` of the cycle solved here with the least residual (relative,
+    every state): the shooting goes on from that plain iterate, not from a step of larger residual.
 
     References
     ----------
@@ -140,6 +142,12 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
     shown = np.zeros(n)  # each state's noise shown by the plain iteration
 
     last = [None, None]  # the last cycle solved: (its start, its end)
+
+    def give_up():
+        """None, the cycle solves spent noted in ``best``."""
+        if best:
+            best[2] = solves
+        return None
 
     def cycle():
         """One cycle from ``x``: (G, the residual per state); the fast states take the iterate."""
@@ -156,6 +164,8 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             x1 = one_cycle(c, x, duty, frequency, rtol)[0]
         last[:] = x.copy(), x1
         r = np.abs(x1 - x) / scale
+        if best is not None and (not best or float(np.max(r)) < best[0]):
+            best[:] = [float(np.max(r)), x1.copy(), 0]
         g = float((x1[k] - x[k]) / scale[k])
         x[others] = x1[others]
         return g, r
@@ -168,14 +178,14 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
         sa = float(x[k] / scale[k])
         ga, r = cycle()
         if not math.isfinite(ga) or ga == 0.0:
-            return None
+            return give_up()
         rf = float(np.max(r[others]))
         sb = sa + math.copysign(SLOW_SPACING, ga)
         x[k] = sb * scale[k]
         gb, r_prev = cycle()
         slope = (gb - ga) / (sb - sa)
         if not slope < 0:
-            return None  # the drift does not fall with the speed: no stable fixed point to find
+            return give_up()  # the drift does not fall with the speed: no stable fixed point to find
         rf, fast_seen = float(np.max(r_prev[others])), False
         held_at = None
         for _ in range(CHORD_CYCLES):
@@ -205,7 +215,7 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
                     and (rf <= tol or rf <= float(np.max(shown[others]))):
                 break
         else:
-            return None
+            return give_up()
         stall = shown.copy()
         stall[k] = noise_g  # the drift's own noise: its residual stays within the tolerance
         reach = np.zeros(n)
@@ -243,5 +253,5 @@ def slow_root(c: Circuit, duty: float, frequency: float, rtol: float, scale: np.
             x[others] = x1[others]
             r_prev = r
     except SolverError:
-        return None
-    return None
+        pass
+    return give_up()
