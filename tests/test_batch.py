@@ -339,7 +339,15 @@ FAMILIES = ["diode", "diode-zener", "tvs", "avalanche", "rc-snubber", "parallel"
 #: families whose 150-example run finds a disagreement still open (issue 14), found when the
 #: widened generators met the reworked detailed engine; each names the draw and what differs
 #: (none open: the last four passed at 150 (lc-ring) and 60 (tvs, avalanche-clamp) examples)
-KNOWN_DISAGREEMENTS: dict[tuple[str, bool], str] = {}
+KNOWN_DISAGREEMENTS: dict[tuple[str, bool], str] = {
+    ("avalanche-clamp", True): "open (found by the reference refresh of session 8, after 60 examples had passed): "
+                               "ideal switch, 57.4 pF, 8.56 V breakdown, 5.38 V, 3.56 mH, 192 Ω, constant-drop "
+                               "diode + 2.23 V Zener across the coil: supply energy 2.92681e-9 J (detailed, rtol "
+                               "1e-10) against 2.92676e-9 J (batch), 16.7x the tolerance apart (4.9e-14 J, 3.5e-8 "
+                               "of the stored energy); the detailed engine at rtol 1e-5 gives the batch figure. "
+                               "Which one is off is not established: the figure follows the phase at which the "
+                               "node's lightly damped ring (Q ~ 41) is cut at the rest level",
+}
 
 
 @pytest.mark.parametrize(("family", "capacitive"), [
