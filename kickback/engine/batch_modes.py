@@ -83,18 +83,24 @@ class Modes:
         if not self.bc.capacitive:
             limits = [lim] + [None] * (self.B - 1)
             active = [in_fall] + [None] * (self.B - 1)
-            v, ok, pin, _cur = solve_node(self.laws, offs, ip, 0.0, limits, active)
+            # the states are read inside the interval between knots that holds v: v itself may
+            # round onto a knot (and a tie there reads the lower, blocking state)
+            v, ok, pin, _cur, u_in = solve_node(self.laws, offs, ip, 0.0, limits, active, inside=True)
         else:
             v = Xp[:, 1]
+            u_in = v
             ok = np.ones(G, bool)
         # channel
         st0, vert0 = locate(self.laws[0], v)
-        on_cur = law_current(self.laws[0], v, 1)
+        if not self.bc.capacitive:
+            st0 = locate(self.laws[0], u_in)[0]
+        on_cur = law_current(self.laws[0], u_in, 1)
         states[:, 0] = np.where(in_fall, np.where(on_cur < lim, st0, self.LIM), self.OFF)
         if not self.bc.capacitive:
             states[:, 0] = np.where(in_fall & (pin == 0), np.maximum(vert0, 0), states[:, 0])
             for b in range(1, self.B):
-                st, vert = locate(self.laws[b], v - offs[b])
+                vert = locate(self.laws[b], v - offs[b])[1]
+                st = locate(self.laws[b], u_in - offs[b])[0]
                 states[:, b] = np.where(pin == b, np.maximum(vert, 0), st)
             return Mode(states, pin), Xs, ok
         # capacitive: other branches first at v, then vertical candidates by their pinned current

@@ -57,17 +57,19 @@ def law_voltage_at(law, current):
     return out
 
 
-def _residual(laws, offs, v, target, g_extra, side, limits, active):
+def _residual(laws, offs, v, target, g_extra, side, limits, active, exact=None):
+    """Σ I_b(v − off_b) + g·v − target; ``exact`` (branch (G,), u (G,)): that branch at u itself."""
     res = g_extra * v - target
     for b, law in enumerate(laws):
         if law is None:
             continue
-        cur = law_current(law, v - offs[b], side, limits[b])
+        u = v - offs[b] if exact is None else np.where(exact[0] == b, exact[1], v - offs[b])
+        cur = law_current(law, u, side, limits[b])
         res = res + (cur if active[b] is None else np.where(active[b], cur, 0.0))
     return res
 
 
-def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
+def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None, inside=False):
     """Node voltage balancing the branch currents.
 
     Parameters
@@ -78,6 +80,7 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
     g_extra : (G,) or float — [S] an extra linear conductance to ground (the coil in the on-state)
     limits : list of (G,) or None — current caps per branch (None: no cap)
     active : list of (G,) bool or None — where a branch is present (None: everywhere)
+    inside : bool — also return ``u_in``
 
     Returns
     -------
@@ -85,32 +88,46 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
     ok : (G,) bool — a solution exists (something takes the current)
     pin : (G,) int — branch whose vertical law holds the node at v (−1: none)
     currents : list of (G,) — [A] branch currents at v (the pinned branch takes the remainder)
+    u_in : (G,) — [V] (with ``inside``) a voltage inside the open interval between knots that holds
+        ``v`` (``v`` itself where it sits on a knot): every branch's state there is the state at
+        ``v``, whereas ``v`` may round onto the interval's end knot (a current of 1e-13 A into a
+        0.05 Ω avalanche piece moves the node by less than one unit in the last place at 260 V)
     """
     G = target.shape[0]
     g_extra = np.broadcast_to(np.asarray(g_extra, float), (G,))
     limits = limits if limits is not None else [None] * len(laws)
     active = active if active is not None else [None] * len(laws)
-    knots = []
+    knots, owner, own_u = [], [], []
     for b, law in enumerate(laws):
         if law is None:
             continue
         here = []
         for k in range(law.n_states):
-            here += [law.ulo[:, k] + offs[b], law.uhi[:, k] + offs[b]]
+            here += [law.ulo[:, k], law.uhi[:, k]]
         if limits[b] is not None:
-            here.append(law_voltage_at(law, limits[b]) + offs[b])
+            here.append(law_voltage_at(law, limits[b]))
         if active[b] is not None:
             here = [np.where(active[b], x, np.nan) for x in here]
-        knots += here
+        knots += [u + offs[b] for u in here]
+        own_u += here
+        owner += [b] * len(here)
     kn = np.stack(knots, axis=1) if knots else np.zeros((G, 0))
     kn = np.where(np.isfinite(kn), kn, np.nan)
-    kn = np.sort(kn, axis=1)
+    order = np.argsort(kn, axis=1, kind="stable")
+    kn = np.take_along_axis(kn, order, axis=1)
+    # each knot remembers its branch and its voltage in that branch's own frame: at a knot the branch
+    # is evaluated there exactly, since (u + off) − off may miss u by an ulp, which a 1 mΩ piece turns
+    # into 1e-12 A — more than a root a few attoseconds into the fall asks for
+    own_b = np.take_along_axis(np.broadcast_to(np.array(owner, int), kn.shape), order, axis=1) if knots else \
+        np.zeros((G, 0), int)
+    own_u = np.take_along_axis(np.stack(own_u, axis=1), order, axis=1) if knots else np.zeros((G, 0))
     nk = kn.shape[1]
     big = np.nanmax(np.abs(np.concatenate([kn, np.ones((G, 1))], axis=1)), axis=1)
     D = np.maximum(big, 1.0)
     valid = np.isfinite(kn)
     safe = np.where(valid, kn, 0.0)
     v = np.full(G, np.nan)
+    u_in = np.full(G, np.nan)
     nvalid = valid.sum(axis=1)
     rows = np.arange(G)
 
@@ -118,7 +135,8 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
         # the residual at knot j of every row (+inf past the valid knots, which sort last)
         jj = np.minimum(j, max(nk - 1, 0))
         ok_j = (j < nvalid) & valid[rows, jj]
-        r = _residual(laws, offs, np.where(ok_j, safe[rows, jj], 0.0), target, g_extra, side, limits, active)
+        r = _residual(laws, offs, np.where(ok_j, safe[rows, jj], 0.0), target, g_extra, side, limits, active,
+                      exact=(own_b[rows, jj], own_u[rows, jj]))
         return np.where(ok_j, r, np.inf)
 
     if nk:
@@ -144,6 +162,7 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
         with np.errstate(invalid="ignore", divide="ignore"):
             vi = kn[rows, jm] - rrm * (kn[rows, j] - kn[rows, jm]) / (rlj - rrm)
         v = np.where(inter, vi, v)
+        u_in = np.where(inter, 0.5 * (kn[rows, jm] + kn[rows, j]), u_in)
         below = has & ~at & (j == 0)
         k0 = np.where(below, kn[:, 0], 0.0)
         r0 = _residual(laws, offs, k0 - D, target, g_extra, 1, limits, active)
@@ -152,6 +171,7 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
             slope = (rl0 - r0) / D
             vb = k0 - rl0 / slope
         v = np.where(below & (slope > 0), vb, v)
+        u_in = np.where(below, k0 - 0.5 * D, u_in)
         above = ~has & (nvalid > 0)
         last = np.maximum(nvalid - 1, 0)
         kl = np.where(above, kn[rows, last], 0.0)
@@ -161,6 +181,7 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
             slope = (r1 - rl) / D
             va = kl - rl / slope
         v = np.where(above & (slope > 0) & np.isfinite(rl), va, v)
+        u_in = np.where(above, kl + 0.5 * D, u_in)
         jump = at & (rlj < res_at(j, 1))
     else:
         jump = np.zeros(G, bool)
@@ -174,6 +195,7 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
         v = np.where(none & (slope > 0), vn, v)
     ok = np.isfinite(v)
     v = np.where(ok, v, 0.0)
+    u_in = np.where(np.isfinite(u_in), u_in, v)
     pin = np.full(G, -1)
     for b, law in enumerate(laws):
         if law is None:
@@ -195,4 +217,4 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
     rest = target - g_extra * v - sum(currents)
     for b in range(len(laws)):
         currents[b] = np.where(pin == b, rest, currents[b])
-    return v, ok, pin, currents
+    return (v, ok, pin, currents, u_in) if inside else (v, ok, pin, currents)
