@@ -33,6 +33,8 @@ import os
 import pytest
 from wide_range_check import compare, run_pool
 
+from kickback.engine.pwl import DECLINED
+
 N_CI = 200
 N = int(os.environ.get("KICKBACK_WIDE_CASES", N_CI))
 START = int(os.environ.get("KICKBACK_WIDE_START", 0))
@@ -77,6 +79,10 @@ def problems(d: dict, b: dict) -> list[str]:
             out.append(f"{name}: bare exception {r['message']}")
         elif r["status"] == "stated" and name == "detailed":
             out.append(f"detailed: solver failure on a valid case: {r['message']}")
+        elif r["status"] == "stated" and DECLINED not in r["message"]:
+            # the batch engine may decline a regime it does not cover, saying so; any other stated
+            # failure (e.g. "no conducting path" where the detailed engine finds one) is a defect
+            out.append(f"batch: stated failure that is not a decline: {r['message']}")
         if r["status"] == "ok" and r["audit"]:
             out.append(f"{name}: audit failed: " + "; ".join(r["audit"]))
         if r.get("warnings"):

@@ -19,6 +19,7 @@ from kickback.case import Case
 from kickback.engine.batch_fit import FIT_ABS
 from kickback.engine.batch_laws import ChainLaw, chain_law, element_piece, make_law
 from kickback.engine.batch_node import solve_node
+from kickback.engine.pwl import DECLINED
 from kickback.keypath import value_getter  # noqa: F401 - the engine's getter (one definition, in keypath)
 from kickback.models.switch import DEFAULT_BODY_DIODE_DROP
 
@@ -184,7 +185,7 @@ class BatchCircuit:
                 blocked &= (u > law.ulo[:, b]) & (u < law.uhi[:, b])
         self.fail(blocked, "the coil current would follow the switch's falling current (no node capacitance, "
                            "and no path conducts at V_s − R·i0 + L·i0/t_f): a regime the batch engine does "
-                           "not cover (the detailed engine solves it)")
+                           f"not cover ({DECLINED})")
 
     def _build_chains(self, get, i0) -> None:
         n = self.n
@@ -215,7 +216,7 @@ class BatchCircuit:
                     self.fail(p.leak > FIT_ABS * i0,
                               f"{cl.name}: {el.name or el.type}: a reverse saturation current above {FIT_ABS:g}·i0, "
                               "which the batch engine's fit leaves out (its reverse-biased diode blocks) while a "
-                              "capacitor can drive it: outside the fit's stated error (the detailed engine solves it)")
+                              f"capacitor can drive it: outside the fit's stated error ({DECLINED})")
                 pieces.append(p)
             try:
                 law, els, notes = chain_law(pieces, n)

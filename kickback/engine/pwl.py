@@ -50,6 +50,11 @@ _TRIPLE_GAP = 1e-7
 _CANCEL = 300.0
 
 
+#: the words that end a batch engine's stated refusal of a regime it does not cover (a decline, which
+#: a study answers by running the variant on the detailed engine; any other stated failure is a defect)
+DECLINED = "the detailed engine solves it"
+
+
 class SegmentError(KickbackError, ArithmeticError):
     """A segment the closed forms do not cover (singular or triply degenerate state matrix).
 

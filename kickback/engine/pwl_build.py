@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kickback.engine.pwl import ModalSegment, ScalarSegment, SegmentError
+from kickback.engine.pwl import DECLINED, ModalSegment, ScalarSegment, SegmentError
 from kickback.engine.pwl_functions import cosh_sinhc, modal_integrals, psi01, slow_rate
 from kickback.engine.pwl_quadrature import mode_rates, quadrature_moments
 
@@ -71,7 +71,7 @@ def spectral(Ad):
         w2 = (0.5 * (Ad[:, 0, 0] - Ad[:, 1, 1])) ** 2 + Ad[:, 0, 1] * Ad[:, 1, 0]
         return dict(mu=mu, w2=w2, rp=slow_rate(mu, w2, det), N=Ad - mu[:, None, None] * eye, l1=None, P1=None)
     if n != 3:
-        raise SegmentError(f"{n} dynamic states on one segment (the batch engine handles up to 3)")
+        raise SegmentError(f"{n} dynamic states on one segment (the batch engine handles up to 3; {DECLINED})")
     c1 = np.trace(Ad, axis1=1, axis2=2)
     c2 = (Ad[:, 0, 0] * Ad[:, 1, 1] - Ad[:, 0, 1] * Ad[:, 1, 0] + Ad[:, 0, 0] * Ad[:, 2, 2]
           - Ad[:, 0, 2] * Ad[:, 2, 0] + Ad[:, 1, 1] * Ad[:, 2, 2] - Ad[:, 1, 2] * Ad[:, 2, 1])
@@ -93,7 +93,8 @@ def spectral(Ad):
     w2 = mu * mu - prod
     denom = (l1 - mu) ** 2 - w2
     if np.any(~(np.abs(denom) > _TRIPLE_GAP * np.abs(lam).max(axis=1) ** 2)):
-        raise SegmentError("three nearly equal eigenvalues on one segment (not handled by the batch engine)")
+        raise SegmentError("three nearly equal eigenvalues on one segment (not handled by the batch engine; "
+                           f"{DECLINED})")
     A2 = np.einsum("gij,gjk->gik", Ad, Ad)
     P1 = (A2 - 2 * mu[:, None, None] * Ad + prod[:, None, None] * eye) / denom[:, None, None]
     return dict(mu=mu, w2=w2, rp=slow_rate(mu, w2, prod), N=Ad - mu[:, None, None] * eye, l1=l1, P1=P1)
