@@ -103,7 +103,7 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
 
     c = runner.c
     t0, y0 = runner.t, np.array(runner.y, dtype=float)
-    if c.pin is not None or c.flux or c.motor or c.conducting:
+    if c.pin is not None or c.flux or c.conducting:
         return False, False, None
     if c._in_fall(t0):  # the current reversed during the fall: step to its end (a hair past), then try again
         return False, False, (c.t_turnoff + c.switch.fall_time - t0) + 1e-9 * c.switch.fall_time
@@ -131,7 +131,7 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
         x_inf[keep] = np.linalg.solve(A[np.ix_(keep, keep)], -b[keep])
         lam, vk = np.linalg.eig(A[np.ix_(keep, keep)])
         if np.linalg.cond(vk) > 1e8 or not np.all(lam.real < 0):
-            return False, False, curved_retry(c, curved)
+            return False, False, _retry(c, curved, t0, y0, lam, ev_times)
         vec = np.zeros((ie, keep.size), dtype=complex)
         vec[keep] = vk
         coef = np.linalg.solve(vk, (y0[keep] - x_inf[keep]).astype(complex))
@@ -145,7 +145,7 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
         return False, False, None
     t_est = math.log(max(e_now / rest_level, 1.0)) / (2 * sigma) if w_fast > 0 else 0.0
     if t_est * w_fast / (2 * math.pi) < MIN_PERIODS and not held:
-        return False, False, curved_retry(c, curved)
+        return False, False, _retry(c, curved, t0, y0, lam, ev_times)
     # every branch stays on its piece for t0 ≤ t ≤ t0 + H: |u(t) − u_∞| ≤ Σ|w·a_k| plus the held
     # capacitors' ramps over H; H is the span to t_bound, or less where a ramp would carry a
     # diode out of its flat reverse (the ring is then continued from there)
@@ -157,7 +157,9 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
         # a Shockley diode conducting at the start slows the linearisation's fastest mode (200 Hz
         # beside a 52 kHz node ring, wide-range case 939): no longer than the node ring's stride
         retry = min(retry or math.inf, curved_retry(c, curved))
-    if w_fast <= 0 or not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, 0.0):
+    if w_fast <= 0:
+        return False, False, _retry(c, curved, t0, y0, lam, ev_times)
+    if not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, 0.0):
         return False, False, retry
     horizon = t_bound - t0
     while not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, horizon):
@@ -200,6 +202,40 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     if partial:  # on from t_lim: a period step by step, then in closed form again
         return False, False, period
     return True, bound_hit, None
+
+
+def _retry(c, curved, t0, y0, lam, ev_times):
+    """[s] how long to step before trying the closed form again when the model at t0 has no long
+    ring, or None (step the rest of the ring).
+
+    A Shockley diode still conducting: :func:`curved_retry`. A piecewise-linear branch still on a
+    conducting piece (the ring starts where the coil current's first zero leaves the node at a
+    TVS's or Zener's voltage; its current stops within a few of the node's time constants, and the
+    ring the model then sees is the long one): twenty of the fastest mode's time constants, or the
+    time since the coil current's first zero if longer — so the tries are spaced geometrically and
+    cost a few eigenvalue problems, never more than twice the stepping they replace."""
+    out = curved_retry(c, curved)
+    if _on_conducting_piece(c, t0, y0):
+        fast = 20.0 / float(np.max(np.abs(lam))) if lam.size and np.max(np.abs(lam)) > 0 else math.inf
+        since = t0 - ev_times["zero"] if ev_times.get("zero") is not None else 0.0
+        knee = max(fast, since)
+        if math.isfinite(knee) and knee > 0:
+            out = knee if out is None else min(out, knee)
+    return out
+
+
+def _on_conducting_piece(c, t0, y0) -> bool:
+    """Some branch with a kink (the switch's off-state law, a piecewise-linear chain) sits beyond
+    its forward or reverse threshold at the state ``y0`` (within 1e-9 of the voltage scale)."""
+    v = c.node_voltage(t0, y0)
+    tol = 1e-9 * c.v_scale
+    for icap, ref, th in _branch_pieces(c):
+        u = v - ref - (float(y0[icap]) if icap is not None else 0.0)
+        hi = [x for x in th if x >= 0]
+        lo = [x for x in th if x < 0]
+        if (hi and u >= min(hi) - tol) or (lo and u <= max(lo) + tol):
+            return True
+    return False
 
 
 def _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, horizon) -> bool:

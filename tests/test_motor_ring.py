@@ -1,0 +1,144 @@
+"""A motor's long node ring after turn-off, solved in closed form (issue 14, wide-range case 1044).
+
+A DC motor near its no-load speed draws little current, so the energy its switch-node capacitance
+takes at the clamp's voltage is large against the stored energy, and the node rings about the
+supply less the back-EMF for hundreds of periods. The closed-form ring (kickback.engine.linring)
+left motors out and stepped such rings: case 1044 (Q ≈ 5·10⁴) failed after 400 000 evaluations.
+With the motor's speed a linear state (J dω/dt = k·i − b·ω) the ring is still affine, so the
+closed form now takes it.
+
+Reference: the node equations written out here (DESIGN §3 with the motor of DESIGN §4),
+    L di/dt = V_s − v − R·i − k·ω,   C dv/dt = i − i_ch(t) − i_T(v − V_s),   J dω/dt = k·i − b·ω,
+the channel's current falling linearly over t_f, the bidirectional TVS i_T(u) = (|u| − V_T)/r_T
+beyond ±V_T, solved with scipy at rtol 1e-11 in pieces between the law's kinks (Radau while the TVS
+conducts, DOP853 on the blocked ring), with the energies as states; the ring's end by the rule of
+DESIGN §3 (oscillating energy below the rest level, then the next zero of the coil current). The
+release time is the last time |i| falls below the release current, each late maximum refined
+with Brent's method (scipy). Demo data.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+from scipy.optimize import brentq, minimize_scalar
+
+from kickback.case import Case, Checks, Clamp, Coil, Element, Motor, Supply, Switch
+from kickback.engine.linring import RingSolution
+from kickback.simulation import simulate
+
+# demo data (invented): a small conveyor motor on a BJT with a bidirectional TVS across it
+VS, L, R, C = 12.0, 0.2, 40.0, 4.7e-9
+VSAT, TF = 0.2, 1e-6
+VT, RT = 18.0, 0.5
+K, J, B = 0.05, 1e-4, 2e-5
+I_REL = 2e-4
+RING_END = 1e-3  # DESIGN §3: a ring is over below 0.1 % of the stored energy (common practice, no source)
+
+
+def _case():
+    sw = Switch("bjt", saturation_voltage=VSAT, fall_time=TF, capacitance=C, rated_voltage=60.0)
+    tvs = Clamp("T1", "coil", (Element("tvs", name="T1", voltage=VT, dynamic_resistance=RT, bidirectional=True),))
+    return Case("conveyor motor ring (demo data)", Supply(VS), Coil(L, R, release_current=I_REL), sw, (tvs,),
+                Checks(derating=1.0), motor=Motor(back_emf_constant=K, inertia=J, viscous_friction=B))
+
+
+def _reference():
+    i0 = (VS - VSAT) / (R + K * K / B)  # on-state: V_s − V_sat = R·i0 + k·ω0, ω0 = k·i0/b
+    w0 = K * i0 / B
+    v_fin = VS - K * w0  # the node at rest with the motor still at speed (DESIGN §3)
+    e0 = 0.5 * L * i0 ** 2 + 0.5 * C * VSAT ** 2
+    rest = min(RING_END * e0, 0.5 * L * (0.5 * I_REL) ** 2)
+
+    def tvs(u):
+        return (u - VT) / RT if u > VT else (u + VT) / RT if u < -VT else 0.0
+
+    def rhs(t, y):
+        i, v, w = y[:3]
+        ich = i0 * (1.0 - t / TF) if t < TF else 0.0
+        it = tvs(v - VS)
+        return [(VS - v - R * i - K * w) / L, (i - ich - it) / C, (K * i - B * w) / J,
+                R * i * i, K * w * i, (v - VS) * it]
+
+    def kink(t, y):  # the TVS's two knees
+        u = y[1] - VS
+        return (abs(u) - VT) if abs(u) > 1e-12 else -VT
+
+    def zero(t, y):
+        return y[0]
+
+    def below(t, y):
+        return 0.5 * L * y[0] ** 2 + 0.5 * C * (y[1] - v_fin) ** 2 - rest
+
+    kink.terminal = True
+    zero.terminal, zero.direction = True, -1
+    below.terminal, below.direction = True, -1
+    y = np.array([i0, VSAT, w0, 0.0, 0.0, 0.0])
+    t, pieces, stage = 0.0, [], "decay"
+    opts = dict(rtol=1e-11, atol=[1e-14, 1e-10, 1e-10, 1e-16, 1e-16, 1e-16], dense_output=True)
+    while True:
+        t_stop = TF if t < TF else 1.0
+        events = [kink] + ([zero] if stage in ("decay", "last zero") else [below] if stage == "ring" else [])
+        # stiff while the TVS conducts (r_T·C = 2.35 ns): Radau; the blocked ring is not: DOP853
+        stiff = t < TF or abs(y[1] - VS) > VT
+        sol = solve_ivp(rhs, (t, t_stop), y, events=events, method="Radau" if stiff else "DOP853", **opts)
+        assert sol.status >= 0
+        pieces.append(sol)
+        t, y = float(sol.t[-1]), sol.y[:, -1].copy()
+        hit = [k for k, te in enumerate(sol.t_events) if te.size and te[-1] == t]
+        if not hit:
+            continue  # the end of the fall
+        if hit[0] == 0:
+            y[1] += 1e-9 * math.copysign(1.0, rhs(t, y)[1])  # just past the knee it crossed
+            continue
+        if stage == "decay":
+            stage = "ring"
+        elif stage == "ring":
+            if abs(y[0]) <= RING_END * i0:
+                break
+            stage = "last zero"
+            zero.direction = 0
+        else:
+            break
+    ring_t0 = next(p.t[0] for p in pieces if p.t[0] > TF and p.y[0, 0] <= 0)
+
+    def i_at(s):
+        return float(next(p for p in pieces if p.t[0] <= s <= p.t[-1]).sol(s)[0])
+
+    # release: the last maximum of |i| at or above I_REL, then its crossing
+    ring = [p for p in pieces if p.t[0] >= ring_t0]
+    ts = np.concatenate([np.linspace(p.t[0], p.t[-1], 40 * len(p.t)) for p in ring])
+    ai = np.abs(np.concatenate([p.sol(np.linspace(p.t[0], p.t[-1], 40 * len(p.t)))[0] for p in ring]))
+    last_max = None
+    for k in np.flatnonzero((ai[1:-1] >= ai[:-2]) & (ai[1:-1] >= ai[2:]))[::-1] + 1:
+        r = minimize_scalar(lambda s: -abs(i_at(s)), bounds=(ts[k - 1], ts[k + 1]), method="bounded",
+                            options={"xatol": 1e-15})
+        if -r.fun >= I_REL:
+            last_max = float(r.x)
+            break
+    nxt = ts[ts > last_max]
+    t_cross = next(s for s in nxt if abs(i_at(s)) < I_REL)
+    t_rel = brentq(lambda s: abs(i_at(s)) - I_REL, last_max, t_cross, xtol=1e-16)
+    return dict(e0=e0, end=t, rel=t_rel, res=float(y[3]), motor=float(y[4]), clamp=float(y[5]),
+                periods=(t - ring_t0) * math.sqrt(1.0 / (L * C)) / (2 * math.pi))
+
+
+def test_motor_ring_in_closed_form_matches_the_node_equations():
+    ref = _reference()
+    assert ref["periods"] > 100  # a long ring: the closed form's ground (at least 50 periods)
+    r = simulate(_case())
+    f = r.figures
+    # the ring is taken in closed form once the TVS stops conducting and the ring's amplitude stays
+    # clear of its knee (twenty periods): most of the ring, not stepped
+    closed = [p for p in r.waveforms.phases if isinstance(p.sol, RingSolution)]
+    assert closed and sum(p.t1 - p.t0 for p in closed) > 0.5 * (ref["end"] - TF)
+    assert f.end_time_s == pytest.approx(ref["end"], rel=1e-6)
+    assert f.release_s == pytest.approx(ref["rel"], rel=1e-6)
+    floor = 1e-9 * ref["e0"]
+    assert f.resistance_energy_J == pytest.approx(ref["res"], rel=1e-7, abs=floor)
+    assert f.motor_energy_J == pytest.approx(ref["motor"], rel=1e-7, abs=floor)
+    assert f.clamps[0].energy_J == pytest.approx(ref["clamp"], rel=1e-7, abs=floor)
+    assert abs(f.energy_balance_error) <= 1e-6
