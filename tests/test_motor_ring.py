@@ -12,7 +12,8 @@ Reference: the node equations written out here (DESIGN §3 with the motor of DES
 the channel's current falling linearly over t_f, the bidirectional TVS i_T(u) = (|u| − V_T)/r_T
 beyond ±V_T, solved with scipy at rtol 1e-11 in pieces between the law's kinks (Radau while the TVS
 conducts, DOP853 on the blocked ring), with the energies as states; the ring's end by the rule of
-DESIGN §3 (oscillating energy below the rest level, then the next zero of the coil current). The
+DESIGN §3 (oscillating energy below the rest level, then the next zero of the coil current), the
+node's rest V_s − k·ω at the motor's present speed. The
 release time is the last time |i| falls below the release current, each late maximum refined
 with Brent's method (scipy). Demo data.
 """
@@ -49,7 +50,6 @@ def _case():
 def _reference():
     i0 = (VS - VSAT) / (R + K * K / B)  # on-state: V_s − V_sat = R·i0 + k·ω0, ω0 = k·i0/b
     w0 = K * i0 / B
-    v_fin = VS - K * w0  # the node at rest with the motor still at speed (DESIGN §3)
     e0 = 0.5 * L * i0 ** 2 + 0.5 * C * VSAT ** 2
     rest = min(RING_END * e0, 0.5 * L * (0.5 * I_REL) ** 2)
 
@@ -70,8 +70,8 @@ def _reference():
     def zero(t, y):
         return y[0]
 
-    def below(t, y):
-        return 0.5 * L * y[0] ** 2 + 0.5 * C * (y[1] - v_fin) ** 2 - rest
+    def below(t, y):  # the rest follows the motor's present speed: V_s − k·ω
+        return 0.5 * L * y[0] ** 2 + 0.5 * C * (y[1] - (VS - K * y[2])) ** 2 - rest
 
     kink.terminal = True
     zero.terminal, zero.direction = True, -1
@@ -142,3 +142,82 @@ def test_motor_ring_in_closed_form_matches_the_node_equations():
     assert f.motor_energy_J == pytest.approx(ref["motor"], rel=1e-7, abs=floor)
     assert f.clamps[0].energy_J == pytest.approx(ref["clamp"], rel=1e-7, abs=floor)
     assert abs(f.energy_balance_error) <= 1e-6
+
+
+# ---------------------------------------------------------------------------------------------
+# A motor braked through the clamps: the rest the ring decays to is V_s − k·ω at the motor's
+# present speed. With the rest fixed at the on-state speed (as before), a motor brought to a stop
+# by a resistor across its winding leaves a snubber capacitor "away from rest" for ever, and the
+# run went on to its time bound (60 L/R) and reported that the transient had not ended (wide-range
+# case 982: 8.9 s, with everything at rest). Demo data (invented): a fan motor with an RC snubber
+# and a braking resistor across it, an ideal switch opening at once, no node capacitance.
+BV, BL, BR = 18.0, 0.38, 2.6
+BR0, BC0, BR1 = 0.38, 1e-4, 0.81
+BK, BJ, BB = 0.13, 1.2e-6, 8e-7
+BRON = 0.02
+
+
+def _braked_case():
+    sw = Switch("mosfet", on_resistance=BRON, fall_time=0.0, rated_voltage=60.0)
+    rc = Clamp("S1", "coil", (Element("resistor", name="RS", resistance=BR0),
+                              Element("capacitor", name="CS", capacitance=BC0)))
+    rb = Clamp("B1", "coil", (Element("resistor", name="RB", resistance=BR1),))
+    return Case("fan motor braked by its clamps (demo data)", Supply(BV), Coil(BL, BR), sw, (rc, rb),
+                Checks(derating=1.0), motor=Motor(back_emf_constant=BK, inertia=BJ, viscous_friction=BB))
+
+
+def _braked_reference():
+    """The node equations of :func:`_braked_case` (algebraic node, linear laws) by scipy's Radau
+    at rtol 1e-11, ended by DESIGN §3's rule with the rest at the motor's present speed."""
+    g_m = 1.0 / (BR + BK * BK / BB)  # on-state: the coil and motor as one conductance, ω = k·i/b
+    v_on = BV * (1 / BR1 + g_m) / (1 / BRON + 1 / BR1 + g_m)  # the channel takes coil + clamp current
+    i0 = (BV - v_on) * g_m
+    w0 = BK * i0 / BB
+    vc0 = v_on - BV  # the snubber capacitor at the on-state's clamp voltage
+    e0 = 0.5 * BL * i0 ** 2 + 0.5 * BC0 * vc0 ** 2
+    rest = RING_END * e0
+
+    def node(y):
+        i, vc = y[0], y[1]
+        return BV + (i + vc / BR0) / (1 / BR0 + 1 / BR1)
+
+    def rhs(t, y):
+        i, vc, w = y[:3]
+        v = node(y)
+        i0c, i1c = (v - BV - vc) / BR0, (v - BV) / BR1
+        return [(BV - v - BR * i - BK * w) / BL, i0c / BC0, (BK * i - BB * w) / BJ,
+                BR * i * i, BK * w * i, BR0 * i0c * i0c, BR1 * i1c * i1c]
+
+    def zero(t, y):
+        return y[0]
+
+    def below(t, y):
+        return 0.5 * BL * y[0] ** 2 + 0.5 * BC0 * (y[1] + BK * y[2]) ** 2 - rest
+
+    zero.terminal, zero.direction = True, -1
+    below.terminal, below.direction = True, -1
+    y = np.array([i0, vc0, w0, 0.0, 0.0, 0.0, 0.0])
+    opts = dict(method="Radau", rtol=1e-11, atol=[1e-12, 1e-10, 1e-9, 1e-14, 1e-14, 1e-14, 1e-14])
+    t = 0.0
+    for ev in (zero, below, "cross"):
+        if ev == "cross":
+            if abs(y[0]) <= RING_END * i0:
+                break
+            zero.direction = 0
+            ev = zero
+        sol = solve_ivp(rhs, (t, 60 * BL / BR), y, events=[ev], **opts)
+        assert sol.status == 1  # the event came before the time bound
+        t, y = float(sol.t[-1]), sol.y[:, -1].copy()
+    return dict(e0=e0, end=t, res=float(y[3]), motor=float(y[4]), c0=float(y[5]), c1=float(y[6]))
+
+
+def test_a_motor_braked_by_its_clamps_comes_to_rest():
+    ref = _braked_reference()
+    f = simulate(_braked_case()).figures
+    assert not f.bound_hit
+    assert f.end_time_s == pytest.approx(ref["end"], rel=1e-6)
+    floor = 1e-9 * ref["e0"]
+    assert f.resistance_energy_J == pytest.approx(ref["res"], rel=1e-6, abs=floor)
+    assert f.motor_energy_J == pytest.approx(ref["motor"], rel=1e-6, abs=floor)
+    assert f.clamps[0].energy_J == pytest.approx(ref["c0"], rel=1e-6, abs=floor)
+    assert f.clamps[1].energy_J == pytest.approx(ref["c1"], rel=1e-6, abs=floor)

@@ -649,11 +649,14 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
 
     def dyn_energy(y, t=None):
         """Energy still moving [J]: the coil's, the node's and each snubber capacitor's above its
-        rest; with the time ``t`` [s], less the capacitors that are *held*."""
-        v = y[1] if c.capacitive else v_fin
-        w = c.coil_energy(c.coil_current(y[0])) + 0.5 * c.C_node * (v - v_fin) ** 2
+        rest; with the time ``t`` [s], less the capacitors that are *held*. The rest follows a
+        motor's present speed (the node at V_s − k·ω once no current flows): a motor braked or
+        slowing down is no ring (wide-range case 982 ran to its time bound at rest)."""
+        vf = v_fin if not c.mech else c.Vs - c.k_emf * c.speed_of(y)
+        v = y[1] if c.capacitive else vf
+        w = c.coil_energy(c.coil_current(y[0])) + 0.5 * c.C_node * (v - vf) ** 2
         for k in dyn_caps:
-            target = v_fin - c.Vs * c.chains[k].reference
+            target = vf - c.Vs * c.chains[k].reference
             dv = y[c.icap[k]] - target
             if t is not None and _held(k, t, y, dv):
                 continue

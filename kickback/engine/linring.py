@@ -159,10 +159,10 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
         retry = min(retry or math.inf, curved_retry(c, curved))
     if w_fast <= 0:
         return False, False, _retry(c, curved, t0, y0, lam, ev_times)
-    if not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, 0.0):
+    if not _fits(c, curved, t0, y0, x_inf, lam, amp, ramp, nv_grad, nv_inf, 0.0):
         return False, False, retry
     horizon = t_bound - t0
-    while not _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, horizon):
+    while not _fits(c, curved, t0, y0, x_inf, lam, amp, ramp, nv_grad, nv_inf, horizon):
         horizon *= 0.5
         if horizon < retry:
             return False, False, retry
@@ -225,29 +225,43 @@ def _retry(c, curved, t0, y0, lam, ev_times):
 
 
 def _on_conducting_piece(c, t0, y0) -> bool:
-    """Some branch with a kink (the switch's off-state law, a piecewise-linear chain) sits beyond
-    its forward or reverse threshold at the state ``y0`` (within 1e-9 of the voltage scale)."""
+    """Some branch with a blocking band between two thresholds (the switch's off-state law with a
+    breakdown and a body diode, a TVS, a diode + Zener chain) sits beyond its forward or reverse
+    threshold at the state ``y0`` (within 1e-9 of the voltage scale)."""
     v = c.node_voltage(t0, y0)
     tol = 1e-9 * c.v_scale
     for icap, ref, th in _branch_pieces(c):
+        if len(th) < 2 or max(th) <= min(th):  # no blocking band (a resistor's law): no knee to leave
+            continue
         u = v - ref - (float(y0[icap]) if icap is not None else 0.0)
-        hi = [x for x in th if x >= 0]
-        lo = [x for x in th if x < 0]
-        if (hi and u >= min(hi) - tol) or (lo and u <= max(lo) + tol):
+        if u >= max(th) - tol or u <= min(th) + tol:
             return True
     return False
 
 
-def _fits(c, curved, t0, y0, x_inf, amp, ramp, nv_grad, nv_inf, horizon) -> bool:
-    """Every branch stays on its piece, and every Shockley diode flat, over ``horizon`` [s]."""
+def _fits(c, curved, t0, y0, x_inf, lam, amp, ramp, nv_grad, nv_inf, horizon) -> bool:
+    """Every branch stays on its piece, and every Shockley diode flat, over ``horizon`` [s].
+
+    A branch voltage is u(t) = u_∞ + Σ_k c_k e^{λ_k t} + ρ·t: an oscillating mode stays within
+    ±|c_k|, a real mode (λ_k < 0) moves monotonically from c_k to c_k e^{λ_k H} — a motor's speed
+    or a large snubber capacitor, decaying over seconds, stays near its start over a ring of
+    milliseconds and is bounded by where it is, not by ±|c_k| (wide-range case 5800)."""
+    real = lam.imag == 0
+    decay = np.exp(np.where(real, lam.real, 0.0) * horizon)
     for icap, ref, th in _branch_pieces(c):
         w = nv_grad.copy()
         u_inf = nv_inf - ref
         if icap is not None:
             w[icap] -= 1.0
             u_inf -= x_inf[icap]
-        bound = float(np.sum(np.abs(w @ amp))) + abs(float(w @ ramp)) * horizon
-        if any(abs(u_inf - x) <= bound * (1 + 1e-6) + 1e-9 * c.v_scale for x in th):
+        ck = w @ amp
+        osc = float(np.sum(np.abs(ck[~real]))) + float(np.sum(np.abs(ck[real].imag)))
+        start, end = ck[real].real, ck[real].real * decay[real]
+        drift = abs(float(w @ ramp)) * horizon
+        lo = u_inf - osc - drift + float(np.sum(np.minimum(start, end)))
+        hi = u_inf + osc + drift + float(np.sum(np.maximum(start, end)))
+        tol = (hi - lo) * 1e-6 + 1e-9 * c.v_scale
+        if any(lo - tol <= x <= hi + tol for x in th):
             return False
     for k in curved:
         # a Shockley diode's chain: its law is curved everywhere, but far enough in reverse it
@@ -319,6 +333,8 @@ def _dyn_energy(c, x, v_fin, dyn_caps, ts=None, held_level=0.0, drains=None):
     current ``drains[k]`` [A] counts only while it is not *held* — while the energy it drains
     over a span as long as the run so far exceeds ``held_level`` [J] (the detailed engine's
     rule, :func:`kickback.engine.detailed.integrate`)."""
+    if c.mech:  # the rest follows the motor's present speed (kickback.engine.detailed.integrate)
+        v_fin = c.Vs - c.k_emf * x[c.iw]
     v = x[1] if c.capacitive else v_fin
     w = 0.5 * c.L * x[0] ** 2 + 0.5 * c.C_node * (v - v_fin) ** 2
     for k in dyn_caps:
