@@ -290,7 +290,7 @@ def grid_step(tau, exps, oscs, H):
 #: grid points per case in one round where the spacing has stopped growing (a long, lightly damped
 #: ring scanned at 0.6/ω: tens of thousands of points), bounded so that the round's values stay
 #: ~a few thousand per event however many cases are live
-BULK_ROUND = 256
+BULK_ROUND = 2048
 _BULK_BUDGET = 3072
 
 
