@@ -42,7 +42,7 @@ def test_refused_entry_at_the_start_of_the_fall_moves_on():
 def test_entry_after_the_initial_layer_is_not_held_off():
     # 35.3 V, 32 mH, 3042 Ω coil (L/R = 1.3 × the fall), 63.46 V varistor (α 13) across it,
     # MOSFET 1.51 Ω, 8.04 µs fall (one of wide-range case 7489's two varistors): before, the
-    # run was killed after 8 s of CPU unfinished (1e-13 s steps); now ~1 700 evaluations
+    # run was killed after 8 s of CPU unfinished; now ~1 700 evaluations
     args = (35.3, 0.032, 3042.0, 1.51, 8.04e-6, 63.46, 13.0, "coil")
     res = simulate(load_case(CASE.format(vs=args[0], L=args[1], R=args[2], ron=args[3], tf=args[4],
                                          v1=args[5], alpha=args[6], across=args[7])))
