@@ -26,7 +26,14 @@ import math
 import numpy as np
 from scipy.optimize import brentq
 
-from kickback.engine.linring_held import CURVED_TOL, curved_departure, curved_retry, held_states, shockley
+from kickback.engine.linring_held import (
+    CURVED_TOL,
+    curved_departure,
+    curved_retry,
+    held_states,
+    monotone_departure,
+    shockley,
+)
 from kickback.engine.linring_samples import GRID, node_peaks, release_times, steps
 
 #: a ring is solved in closed form only when it would last at least this many periods
@@ -108,7 +115,10 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
     if c._in_fall(t0):  # the current reversed during the fall: step to its end (a hair past), then try again
         return False, False, (c.t_turnoff + c.switch.fall_time - t0) + 1e-9 * c.switch.fall_time
     curved = [k for k in c.active_chains if c.chains[k].pieces is None]
-    if not all(shockley(c.chains[k]) for k in curved):
+    # a curved chain is either a lone Shockley diode's (its convex law bounds its departure from
+    # the tangent exactly), or one with no capacitor whose law is only known to be monotone (a
+    # varistor far below its knee: :func:`monotone_departure`)
+    if not all(shockley(c.chains[k]) or c.icap.get(k) is None for k in curved):
         return False, False, None
     ie = c.ie
     A = c.jacobian(t0, y0)[:ie, :ie]
@@ -274,7 +284,8 @@ def _fits(c, curved, t0, y0, x_inf, lam, amp, ramp, nv_grad, nv_inf, horizon) ->
             w[icap] -= 1.0
             u_inf -= x_inf[icap]
         bound = float(np.sum(np.abs(w @ amp))) + abs(float(w @ ramp)) * horizon
-        if not curved_departure(c, k, t0, y0, u_inf, bound) <= CURVED_TOL * abs(c.i0):
+        departure = curved_departure if shockley(c.chains[k]) else monotone_departure
+        if not departure(c, k, t0, y0, u_inf, bound) <= CURVED_TOL * abs(c.i0):
             return False
     return True
 

@@ -68,3 +68,25 @@ def curved_departure(c, k, t0, y0, u_inf, bound) -> float:
     if not (math.isfinite(lo) and math.isfinite(hi)):
         return math.inf
     return max(abs(ch.current_at(u) - i0 - g0 * (u - u0)) for u in (lo, hi))
+
+
+def monotone_departure(c, k, t0, y0, u_inf, bound) -> float:
+    """Bound [A] on the departure of chain ``k``'s current from its tangent at the state ``y0``
+    over the chain voltages ``u_inf ± bound`` [V] (widened to take in the tangent point), for a
+    curved chain with no capacitor that is not a lone Shockley diode (a varistor, a diode in
+    series with a varistor): its law i(u) is only known to be non-decreasing (a passive chain),
+    so on [lo, hi] i(lo) ≤ i(u) ≤ i(hi) and
+
+        |i(u) − i(u₀) − g₀·(u − u₀)| ≤ max(i(hi) − i(u₀), i(u₀) − i(lo)) + g₀·max(hi − u₀, u₀ − lo).
+
+    Far below its knee a varistor's current over a whole ring is ~1e-11 A, which this keeps
+    below :data:`CURVED_TOL` of the start current."""
+    ch = c.chains[k]
+    u0 = c.node_voltage(t0, y0) - c.Vs * ch.reference
+    i0, g0 = ch.current_at(u0), ch.conductance_at(u0)
+    lo, hi = min(u_inf - bound, u0), max(u_inf + bound, u0)
+    if not (math.isfinite(lo) and math.isfinite(hi) and math.isfinite(g0)):
+        return math.inf
+    i_lo, i_hi = ch.current_at(lo), ch.current_at(hi)
+    d = max(i_hi - i0, i0 - i_lo) + abs(g0) * max(hi - u0, u0 - lo)
+    return d if math.isfinite(d) else math.inf
