@@ -536,7 +536,8 @@ class PhaseRunner:
             # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
             with np.errstate(divide="ignore"):
                 sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
-                                jac=self.jac, dense_output=True, events=evs, rtol_vector=self.rtol_vector, **kw)
+                                jac=self.jac, dense_output=True, events=evs, rtol_vector=self.rtol_vector,
+                                fresh_rows=slice(self.c.ie, None), **kw)
         except SolverError:
             raise
         except (ValueError, ArithmeticError, FloatingPointError) as exc:
