@@ -50,6 +50,15 @@ KNOWN = {
     25: (SLOW_DRIVE,), 39: (SLOW_DRIVE,), 124: (SLOW_DRIVE,), 185: (FAILS_DRIVE,),
 }
 
+# cases of the 10^4-case reliability run that failed their audit, each fixed at its root (run with
+# the CI share whatever N and START): a node landing on a knee's blocking side (2041, 5996, 9505),
+# an edge correction that took a leaking chain's current out of the coil (7426; 837, a [motor]
+# case that spent > 20 s of CPU on those corrections), a step across a Zener letting go, taken
+# with the step start's Jacobian unchecked (4313), the avalanche's energy booked by its current's
+# sign past its release (7181, 9839)
+FIXED = (837, 2041, 4313, 5996, 7181, 7426, 9505, 9839)
+SEEDS = list(range(START, START + N)) + [s for s in FIXED if not START <= s < START + N]
+
 
 def _param(seed):
     if seed in KNOWN:
@@ -61,7 +70,7 @@ def _param(seed):
 @pytest.fixture(scope="module")
 def solved():
     """Every case on both engines, in two worker processes (a case over LIMIT s is killed)."""
-    tasks = [(s, e, True) for s in range(START, START + N) for e in ("detailed", "batch")]
+    tasks = [(s, e, True) for s in SEEDS for e in ("detailed", "batch")]
     out: dict = {}
     for rec in run_pool(tasks, workers=2, limit=LIMIT):
         out.setdefault(rec["seed"], {})[rec["engine"]] = rec
@@ -97,7 +106,7 @@ def problems(d: dict, b: dict) -> list[str]:
     return out
 
 
-@pytest.mark.parametrize("seed", [_param(s) for s in range(START, START + N)])
+@pytest.mark.parametrize("seed", [_param(s) for s in SEEDS])
 def test_wide_range_case(solved, seed):
     recs = solved[seed]
     found = problems(recs["detailed"], recs["batch"])

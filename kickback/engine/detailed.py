@@ -18,7 +18,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.integrate import Radau, solve_ivp
+from scipy.integrate import OdeSolution, Radau, solve_ivp
 from scipy.linalg import lapack
 
 from kickback.circuit import FLOAT, FLOAT_ENTRY, FLOAT_LANDING, FLOAT_RESIDUAL, Circuit
@@ -384,6 +384,7 @@ class PhaseRunner:
         g_rise.direction = 1
         g_rise.terminal = True
         g_rise.pin = None
+        g_rise.rise = True
 
         def g_edge(t, y):
             return c.edge_margin(t, y, self.float_tolerance(t, y))
@@ -404,6 +405,14 @@ class PhaseRunner:
         of the blocking band (where the coil current, off the balance by its drift, had put it).
         A move beyond ``EDGE_DRIFT`` × i0 is not a drift: the coil current is left as it is."""
         c = self.c
+        if c.pin is None:
+            # an algebraic node: the balance holds at its own voltage, which lies in the band
+            # below the edge or past it. The balance at the voltage the rate sets may lie below
+            # that band, where another chain conducts (a leaky Shockley diode's −I_s across the
+            # coil: wide-range case 7426, where each refused entry took I_s = 2.1e-5 A out of the
+            # coil current, 11 times in 7 ns, ledger residual 3.9e-3)
+            self.y[0] = c.coil_state(float(c.coil_current(self.y[0])) + FLOAT_RESIDUAL * c.i0)
+            return
         _, v_below, _ = c._rate_conductances(self.t, self.y)
         i = sum(c.currents_at(self.t, v_below, self.y)) + FLOAT_RESIDUAL * c.i0
         # a correction of the coil current's drift only: a balance far from the coil current
@@ -411,6 +420,40 @@ class PhaseRunner:
         # the coil's energy out of the ledger (wide-range case 503: 17.8 A set to ~0 at t = 0)
         if abs(i - float(c.coil_current(self.y[0]))) <= EDGE_DRIFT * abs(c.i0):
             self.y[0] = c.coil_state(i)
+
+    def onto_knee(self, before: np.ndarray) -> None:
+        """Landed free by the conductance event (:data:`FLOAT_LANDING`) at a piecewise-linear
+        law's knee: the event's root lies within rounding of the jump in conductance, on
+        either side of it. On the blocking side, the coil current projected onto the balance
+        at the floating voltage leaves the algebraic node on the leakage alone, where one
+        rounding unit of the current moves it by volts and the Jacobian's dv/di of ~1e13 Ω
+        froze the coil current for a whole step (the first Radau step of the phase, taken with
+        that Jacobian fresh, is not re-checked: wide-range case 2041, an avalanche of 2 mΩ
+        reached during the fall, ledger residual −3.5 %). The coil current is set past the
+        balance at the floating voltage by ``FLOAT_RESIDUAL`` × i0 in the direction the
+        floating voltage moved (``before``: the state one step earlier), so the law reached
+        takes that current and the node sits on its conducting side; a move beyond
+        ``EDGE_DRIFT`` × i0, or one that leaves the node's conductance still below the limit
+        (the node is not at a knee), is not made."""
+        c = self.c
+        t, y = self.t, self.y
+        pin, c.pin = c.pin, None
+        try:
+            v = c.forced_voltage(t, y)
+            v_prev = c.forced_voltage(t, before)
+            di = self.float_tolerance(t, y)
+            lim = c.float_limit(t, v, y, di)
+            if c.node_conductance(t, c.node_voltage(t, y), y) >= lim or v == v_prev:
+                return
+            i_old = float(c.coil_current(y[0]))
+            i = sum(c.currents_at(t, v, y)) + math.copysign(FLOAT_RESIDUAL * c.i0, v - v_prev)
+            if not (math.isfinite(i) and abs(i - i_old) <= EDGE_DRIFT * abs(c.i0)):
+                return
+            y[0] = c.coil_state(i)
+            if not c.node_conductance(t, c.node_voltage(t, y), y) >= lim:
+                y[0] = c.coil_state(i_old)
+        finally:
+            c.pin = pin
 
     def _refused_float(self) -> None:
         """The conductance event fired but the node may not float here. Too small a current
@@ -506,16 +549,42 @@ class PhaseRunner:
             # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
             with np.errstate(divide="ignore"):
                 sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
-                                jac=self.jac, dense_output=True, events=evs, rtol_vector=self.rtol_vector, **kw)
+                                jac=self.jac, dense_output=True, events=evs, rtol_vector=self.rtol_vector,
+                                fresh_rows=slice(self.c.ie, None), **kw)
         except SolverError:
             raise
         except (ValueError, ArithmeticError, FloatingPointError) as exc:
             raise SolverError(f"the solver failed in the {name} phase at t ≈ {self.t:.3g} s: {exc}") from exc
         if sol.status < 0:
             raise SolverError(f"the solver failed in the {name} phase at t = {sol.t[-1]:.3g} s: {sol.message}")
+        if sol.status == 1 and len(sol.t) > 1 and self.c.pin is not None and self.c.pin is not FLOAT:
+            self._step_to_event(sol, kw)
         if not np.all(np.isfinite(sol.y)):
             raise SolverError(f"the solution became non-finite in the {name} phase")
         return sol, evs, pe
+
+    def _step_to_event(self, sol, kw) -> None:
+        """A terminal event ends the phase inside a step: its state there is the step's
+        continuous output (stage order 3), fitted to stages past the event, where a law held
+        at its voltage carries its current on through zero and an energy's rate has a kink
+        (the avalanche's at its release: 1.9e-5 of its energy, or a negative body-diode energy,
+        wide-range cases 7181 and 9839). The last stretch, from the last step's start to the
+        event, is integrated again in the same mode, so the event's state is a step's end.
+        Done where the node is held at a law (every other event leaves the rates smooth across
+        it; done there too, a [drive] case's cycles took twice the time, case 11)."""
+        t_a, t_b = float(sol.t[-2]), float(sol.t[-1])
+        if not t_b > t_a:
+            return
+        kw = {k: v for k, v in kw.items() if k != "first_step"}
+        with np.errstate(divide="ignore"):
+            re = solve_ivp(self.rhs, (t_a, t_b), sol.y[:, -2], method=_Radau, rtol=self.rtol, atol=self.atol,
+                           jac=self.jac, dense_output=True, rtol_vector=self.rtol_vector,
+                           fresh_rows=slice(self.c.ie, None), first_step=t_b - t_a, **kw)
+        if re.status != 0 or not np.all(np.isfinite(re.y)):
+            return  # the continuous output stands
+        ts = list(sol.sol.ts[:-2]) + list(re.sol.ts)
+        sol.sol = OdeSolution(ts, list(sol.sol.interpolants[:-1]) + list(re.sol.interpolants))
+        sol.y[:, -1] = re.y[:, -1]
 
     def run(self, name, t_end, events, record=None, until_free=False, **kw):
         """Integrate to ``t_end`` or a terminal event of ``events``, switching pin modes on the way.
@@ -578,6 +647,8 @@ class PhaseRunner:
                     if c.pin is None and getattr(fired_pin, "drift", False) and self.t > t_start \
                             and self.can_float():
                         c.pin = FLOAT
+                    if c.pin is None and getattr(fired_pin, "rise", False) and len(sol.t) > 1:
+                        self.onto_knee(sol.y[:, -2])
                     landed = c.pin is not FLOAT
                 elif c.pin is None:
                     c.pin = FLOAT if self.can_float() else None
