@@ -24,6 +24,7 @@ from scipy.linalg import lapack
 from kickback.circuit import FLOAT, FLOAT_ENTRY, FLOAT_LANDING, FLOAT_RESIDUAL, Circuit
 from kickback.conventions import RING_END_FRACTION, ZERO_FRACTION
 from kickback.engine.radau_check import CheckedNewton
+from kickback.engine.step_events import bracketed
 from kickback.errors import SolverError
 
 #: a snubber capacitor is held (its charge left in it at the run's end) when the energy its chain
@@ -493,7 +494,8 @@ class PhaseRunner:
             # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
             with np.errstate(divide="ignore"):
                 sol = solve_ivp(self.rhs, (self.t, t_end), self.y, method=_Radau, rtol=self.rtol, atol=self.atol,
-                                jac=self.jac, dense_output=True, events=evs, rtol_vector=self.rtol_vector, **kw)
+                                jac=self.jac, dense_output=True, events=bracketed(evs), rtol_vector=self.rtol_vector,
+                                **kw)
         except SolverError:
             raise
         except (ValueError, ArithmeticError, FloatingPointError) as exc:
