@@ -3,11 +3,12 @@
 Draws N cases with ``tests/wide_range.py`` (seeds START … START+N−1; the same seed gives the
 same case), runs each on the detailed engine and, where it covers the case, on the batch engine,
 in worker processes, and prints per engine: crashes (a bare exception), stated failures (a
-KickbackError saying why), cases over 2 s, cases killed at the time limit, audits failed, and
-between the engines: verdict flips and the worst disagreement per headline figure — each with the
-seeds of the worst offenders. Not a timed test: a script. Times are CPU seconds of the worker
-process (the limit too: a loaded machine does not kill a case an idle one finishes); the wall
-times are printed beside them.
+KickbackError saying why), cases with no answer (a case error whose physics has none, with its
+reason: ``NO_ANSWER_KEYS`` in tests/wide_range_check.py), cases over 2 s, cases killed at the
+time limit, audits failed, and between the engines: verdict flips and the worst disagreement per
+headline figure — each with the seeds of the worst offenders. Not a timed test: a script. Times
+are CPU seconds of the worker process (the limit too: a loaded machine does not kill a case an
+idle one finishes); the wall times are printed beside them.
 
     python benchmarks/reliability.py --cases 10000 --log reliability.jsonl
 
@@ -49,6 +50,7 @@ def summarize(records: list[dict], n_cases: int) -> str:
                      (f" ({len(recs) - len(run)} not covered)" if engine == "batch" else ""))
         cats = [("crashes (bare exceptions)", [r for r in run if r["status"] == "crash"]),
                 ("stated failures", [r for r in run if r["status"] == "stated"]),
+                ("no answer (stated reason)", [r for r in run if r["status"] == "no answer"]),
                 ("killed at the time limit", [r for r in run if r["status"] == "timeout"]),
                 (f"over {SLOW:g} s of CPU", sorted([r for r in run if r["seconds"] > SLOW],
                                                    key=lambda r: -r["seconds"])),
@@ -58,7 +60,7 @@ def summarize(records: list[dict], n_cases: int) -> str:
             lines.append(f"  {name:28s} {len(hit):6d}" + (f"   seeds {_seeds(hit)}" if hit else ""))
         kinds = defaultdict(list)
         for r in run:
-            if r["status"] in ("crash", "stated"):
+            if r["status"] in ("crash", "stated", "no answer"):
                 kinds[_kind(r["message"])].append(r)
             for f in r["audit"] if r["status"] == "ok" else []:
                 kinds["audit: " + _kind(f)].append(r)
