@@ -5,7 +5,7 @@ current (DESIGN.md §3), so every energy figure counts the ring up to that zero.
 run's plain rtol (1e-5) over ten periods of a 98 µs ring that meets the avalanche's and the body
 diode's knees, the detailed engine's ring drifted in phase: the rest level was passed one swing
 late, and the energy in the coil resistance came out 1.6e-3 high (the batch engine, exact,
-agreed with a tight solve). The ring is now stepped at a tenth of the rtol
+agreed with a tight solve). The ring is now stepped at 0.1 × the rtol
 (``RING_RTOL_FACTOR``, kickback/engine/detailed.py).
 
 Reference written here: the node equations with the exact piecewise-linear laws, scipy Radau at
@@ -94,5 +94,6 @@ def test_case_3386_ring_ends_on_the_right_swing():
     res = simulate(load_case(CASE_3386, source="case 3386"))
     f = res.figures
     assert float(res.waveforms.t[-1]) == pytest.approx(t_end, rel=1e-6)  # was one swing late
-    assert f.resistance_energy_J == pytest.approx(e_r, rel=1e-5)  # was 1.6e-3 high
+    # well within issue 14's agreement between exact engines, 1e-4 (was 1.6e-3 high)
+    assert f.resistance_energy_J == pytest.approx(e_r, rel=1e-5)
     assert f.avalanche_energy_J == pytest.approx(e_av, rel=1e-5)
