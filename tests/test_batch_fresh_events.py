@@ -122,6 +122,6 @@ def test_case_4680_chain_blocks_after_the_avalanche_releases(engine):
     assert f.avalanche_energy_J == pytest.approx(ref["e_avalanche"], rel=1e-6)
     # after the transient the chain capacitor keeps +3.85 V, which the diode blocks (batch: 0 V)
     assert ref["v_c"] > 1.0
-    assert diode.standoff_voltage_V == pytest.approx(ref["v_c"], rel=1e-6)
+    assert diode.standoff_voltage_V == pytest.approx(ref["v_c"], rel=1e-5)  # a state at rtol 1e-5
     # the chain never conducts backwards (what the batch engine did for 4 µs)
     assert np.min(np.asarray(res.waveforms.i_chains)[0]) >= -1e-9 * VS / R
