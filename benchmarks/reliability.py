@@ -4,11 +4,13 @@ Draws N cases with ``tests/wide_range.py`` (seeds START … START+N−1; the sam
 same case), runs each on the detailed engine and, where it covers the case, on the batch engine,
 in worker processes, and prints per engine: crashes (a bare exception), stated failures (a
 KickbackError saying why; for the batch engine, a regime it declines with a stated reason is
-counted apart: studies run those variants on the detailed engine), cases over 2 s, cases killed
-at the time limit, audits failed, and between the engines: verdict flips and the worst
-disagreement per headline figure — each with the seeds of the worst offenders. Not a timed test:
-a script. Times are CPU seconds of the worker process (the limit too: a loaded machine does not
-kill a case an idle one finishes); the wall times are printed beside them.
+counted apart: studies run those variants on the detailed engine), cases with no answer (a case
+error whose physics has none, with its reason: ``NO_ANSWER_KEYS`` in tests/wide_range_check.py),
+cases over 2 s, cases killed at the time limit, audits failed, and between the engines: verdict
+flips and the worst disagreement per headline figure — each with the seeds of the worst
+offenders. Not a timed test: a script. Times are CPU seconds of the worker process (the limit
+too: a loaded machine does not kill a case an idle one finishes); the wall times are printed
+beside them.
 
     python benchmarks/reliability.py --cases 10000 --log reliability.jsonl
 
@@ -53,6 +55,7 @@ def summarize(records: list[dict], n_cases: int) -> str:
         declined = [r for r in run if r["status"] == "stated" and DECLINED in r["message"]]
         cats = [("crashes (bare exceptions)", [r for r in run if r["status"] == "crash"]),
                 ("stated failures", [r for r in run if r["status"] == "stated" and r not in declined]),
+                ("no answer (stated reason)", [r for r in run if r["status"] == "no answer"]),
                 ("killed at the time limit", [r for r in run if r["status"] == "timeout"]),
                 (f"over {SLOW:g} s of CPU", sorted([r for r in run if r["seconds"] > SLOW],
                                                    key=lambda r: -r["seconds"])),
@@ -65,7 +68,7 @@ def summarize(records: list[dict], n_cases: int) -> str:
             lines.append(f"  {name:28s} {len(hit):6d}" + (f"   seeds {_seeds(hit)}" if hit else ""))
         kinds = defaultdict(list)
         for r in run:
-            if r["status"] in ("crash", "stated"):
+            if r["status"] in ("crash", "stated", "no answer"):
                 kinds[_kind(r["message"])].append(r)
             for f in r["audit"] if r["status"] == "ok" else []:
                 kinds["audit: " + _kind(f)].append(r)

@@ -4,7 +4,9 @@ use, through both engines.
 For every drawn case (``tests/wide_range.py``, one per seed):
 
 * the detailed engine solves it — no exception, no stated solver failure, no warning, finished
-  within the time limit — and its result passes the audit (:mod:`kickback.audit`);
+  within the time limit — and its result passes the audit (:mod:`kickback.audit`); or it says,
+  with the reason, that the physics has no answer for the case (a case error of
+  :data:`wide_range_check.NO_ANSWER_KEYS`, each checked against an independent solve);
 * the batch engine, where it covers the case, does not crash (a stated "cannot take this case"
   is allowed: the studies then fall back to the detailed engine), emits no warning, and its
   result passes the audit;

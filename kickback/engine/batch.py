@@ -250,14 +250,23 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
 
 def _fresh(st, gi, mode, meta, ne):
     """(G, ne) bool: the mode events of branches whose state did not change at this segment's
-    start (the node pin neither): they did not fire there, so one at zero within rounding and
-    moving out of its range fires now (a current that leaves its piece at once), instead of being
-    taken for an event that just fired."""
+    start and that neither held the node nor hold it now: they did not fire there, so one at zero
+    within rounding and moving out of its range fires now (a current that leaves its piece at
+    once), instead of being taken for an event that just fired.
+
+    A pin that moves between *other* branches leaves such a branch's events fresh: the switch's
+    avalanche releasing the node while a diode + RC chain's current has decayed to rounding on
+    its conducting piece (wide-range case 4680) — taken for just fired, the chain's exit event
+    never fired, and the chain conducted backwards through its diode for the rest of the run
+    (clamp energy 6.6 % low, the diode's stand-off after the transient lost).
+    """
     out = np.zeros((gi.size, ne), bool)
     prev = st.prev_states[gi]
-    same = (prev[:, 0] >= 0) & (st.prev_pin[gi] == mode.pin)
+    known = prev[:, 0] >= 0
+    prev_pin = st.prev_pin[gi]
     for e, (b, _d) in enumerate(meta):
-        out[:, e] = same & (prev[:, b] == mode.states[:, b])
+        apart = (prev_pin == mode.pin) | ((prev_pin != b) & (mode.pin != b))
+        out[:, e] = known & apart & (prev[:, b] == mode.states[:, b])
     return out
 
 
