@@ -40,12 +40,9 @@ import math
 import numpy as np
 
 from kickback.circuit import Circuit
-from kickback.engine.periodic_bracket import forgotten
+from kickback.engine.periodic_bracket import NOISE_CAP, forgotten
 from kickback.errors import SolverError
 
-#: the largest noise (relative to the state's scale) an acceptance at the noise may take: a
-#: residual above it is a state still moving, not noise
-NOISE_CAP = 1e-5
 #: a motor's speed is *slow* where its own slope in the cycle map is within this of 1 (a
 #: per-cycle contraction ``exp(−T/τ_em)``, τ_em above 100 periods)
 SLOW_SLOPE = 1e-2
