@@ -99,22 +99,42 @@ X = np.array([0.6, 29.3])
 
 
 def test_full_cycle_at_the_noise_is_accepted():
-    """Cheap cycle at 1e-12, full cycle 3e-9 of the node's scale: the difference is the noise, the
-    full cycle within the tolerance plus twice it."""
+    """Cheap cycle at 1e-12, full cycle 3e-9 of the node's scale from every state (followed once,
+    still 3e-9): the difference of the two integrations is the noise, the full cycle within the
+    tolerance plus twice it."""
     one_cycle, calls = _cycle(np.array([1e-13, 3e-9]) * SCALE, np.array([1e-13, 1e-12]) * SCALE)
     got = _closed(one_cycle, SimpleNamespace(), X, 0.5, 1e3, 1e-8, SCALE, TOL, 7)
     assert got is not None
     x, e_on, e_off, runner, resid, solves = got
-    assert runner == "kept" and np.array_equal(x, X)
+    assert runner == "kept"
+    np.testing.assert_allclose(x, X + np.array([1e-13, 3e-9]) * SCALE, rtol=0, atol=1e-15)  # followed once
     assert resid == pytest.approx(3e-9, rel=1e-6)  # the reported residual is the full cycle's
-    assert calls == ["full", "cheap"] and solves == 9
+    assert calls == ["full", "full", "cheap"] and solves == 10
+
+
+def test_full_cycle_followed_once_settles():
+    """A state the map forgets, set by the full integration to 2e-8 off the cheap one's value:
+    the full cycle from the full cycle's own end state is the fixed point (residual nil), reported
+    without any allowance."""
+    p_full = np.array([0.6, 29.3 + 2e-8 * SCALE[1]])
+    calls = []
+
+    def one_cycle(c, x, duty, frequency, rtol, keep=False, energies=True):
+        calls.append("full" if energies else "cheap")
+        x1 = np.array([x[0], p_full[1] if energies else 29.3])
+        e = np.zeros(1) if energies else None
+        return x1, e, e, ("kept" if keep else None)
+
+    got = _closed(one_cycle, SimpleNamespace(), X, 0.5, 1e3, 1e-8, SCALE, TOL, 0)
+    assert got is not None
+    assert np.array_equal(got[0], p_full) and got[4] == 0.0 and calls == ["full", "full"]
 
 
 def test_full_cycle_off_in_both_integrations_is_refused():
     """Both integrations agree at 3e-9: a residual, not noise — refused."""
     one_cycle, calls = _cycle(np.array([0.0, 3e-9]) * SCALE, np.array([0.0, 3e-9]) * SCALE)
     assert _closed(one_cycle, SimpleNamespace(), X, 0.5, 1e3, 1e-8, SCALE, TOL, 0) is None
-    assert calls == ["full", "cheap"]
+    assert calls == ["full", "full", "cheap"]
 
 
 def test_full_cycle_past_the_noise_cap_is_refused_at_once():

@@ -221,6 +221,16 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         f = x1 - x
         history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
+        if full and cheap is not None and cheap[0] is x and resid > STEADY_TOL:
+            # the cheap cycle from this very state met the tolerance, the full one (the energies in
+            # the step-size control: other steps) did not: the two integrations of one cycle from
+            # one state differ by the integration's noise alone, shown here per state; the full
+            # cycle is judged again at the tolerance plus twice that noise (capped at
+            # periodic_bracket.NOISE_CAP), its distance by the same Jacobian
+            shown = STEADY_TOL + 2.0 * np.abs(x1 - cheap[1]) / scale
+            dx_full = -np.linalg.solve(jm - np.eye(n), f) if jm is not None else np.zeros(n)
+            if accepted(f, dx_full, x, scale, jm_fd, rtol, STEADY_TOL, noise=shown):
+                break
         merit = _merit(f, scale, jm_fd)
         if resid > STEADY_TOL and topup_state(history, scale) is not None:
             # one state left, Newton creeping up an exponential top-up: bracket and secant in its log
@@ -312,15 +322,6 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             full = True  # met: solve this cycle again in full, to report it
             cheap = (x, x1)
             continue
-        if full and cheap is not None and cheap[0] is x:
-            # the cheap cycle from this very state met the tolerance, the full one (the energies in
-            # the step-size control: other steps) did not: the two integrations of one cycle from
-            # one state differ by the integration's noise alone, shown here per state; the full
-            # cycle is judged again at the tolerance plus twice that noise (capped at
-            # periodic_bracket.NOISE_CAP)
-            shown = STEADY_TOL + 2.0 * np.abs(x1 - cheap[1]) / scale
-            if accepted(f, dx_next, x, scale, jm_fd, rtol, STEADY_TOL, noise=shown):
-                break
         cheap = None
         x_prev, f_prev, dx_prev, resid_prev, lam = x, f, dx_next, _merit(f, scale, jm_fd), 1.0
         x = x + dx_next

@@ -77,18 +77,28 @@ def _closed(one_cycle, c: Circuit, x, duty: float, frequency: float, rtol: float
     """One full cycle from ``x`` (energies and the runner kept): the steady state's tuple if its
     residual is within ``tol``, else None.
 
-    A full cycle whose residual is off by no more than :data:`NOISE_CAP` is integrated once more
-    without the energies (other steps): the two integrations of one cycle from one state differ by
-    the integration's noise alone, and the full cycle is accepted where each state's residual is
-    within ``tol`` plus twice that noise (never past :data:`NOISE_CAP`). The bracket or secant
-    that found ``x`` bounds its distance to the fixed point."""
+    A full cycle whose residual is off by no more than :data:`NOISE_CAP` (``x`` was found with
+    cheap cycles, whose steps differ: the energies join the step-size control in a full one) is
+    followed once: the full cycle from its own end state, accepted within ``tol``. Failing that,
+    that state's cycle is integrated once more without the energies: the two integrations of one
+    cycle from one state differ by the integration's noise alone, and the full cycle is accepted
+    where each state's residual is within ``tol`` plus twice that noise (never past
+    :data:`NOISE_CAP`). The bracket or secant that found ``x`` bounds its distance to the fixed
+    point."""
+    x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
+    solves += 1
+    r = np.abs(x1 - x) / scale
+    resid = float(np.max(r))
+    if resid <= tol:
+        return x, e_on, e_off, runner, resid, solves
+    if not resid <= NOISE_CAP:
+        return None
+    x = x1
     x1, e_on, e_off, runner = one_cycle(c, x, duty, frequency, rtol, keep=True)
     solves += 1
     r = np.abs(x1 - x) / scale
     resid = float(np.max(r))
     if not resid <= tol:
-        if not resid <= NOISE_CAP:
-            return None
         x1c = one_cycle(c, x, duty, frequency, rtol, energies=False)[0]
         solves += 1
         allow = np.minimum(tol + 2.0 * np.abs(x1 - x1c) / scale, NOISE_CAP)
