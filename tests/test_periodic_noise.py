@@ -23,6 +23,7 @@ import numpy as np
 import pytest
 
 from kickback.engine.periodic_bracket import NOISE_CAP, ROUNDING, TOPUP_MAX, _closed, log_secant
+from kickback.engine.periodic_settle import full_at_noise
 
 TOL = 1e-9
 EPS = np.finfo(float).eps
@@ -148,3 +149,17 @@ def test_full_cycle_within_the_tolerance_needs_no_second_cycle():
     one_cycle, calls = _cycle(np.array([1e-10, 5e-10]) * SCALE, np.zeros(2))
     got = _closed(one_cycle, SimpleNamespace(), X, 0.5, 1e3, 1e-8, SCALE, TOL, 2)
     assert got is not None and got[5] == 3 and calls == ["full"]
+
+
+def test_newton_full_cycle_at_the_noise():
+    """steady_state's rule (periodic_settle.full_at_noise): the cheap cycle from x ends 1e-12 off,
+    the full one 3e-9 off in the node — accepted at the noise; both 3e-9 off — refused; the
+    distance by the Newton step of a map contracting 0.5 per cycle (twice the residual) counts."""
+    jm = np.diag([0.5, 0.5])  # Φ's Jacobian (demo): Newton's step is 2·f
+    x1_full = X + np.array([0.0, 3e-9]) * SCALE
+    x1_cheap = X + np.array([0.0, 1e-12]) * SCALE
+    assert full_at_noise(X, x1_full, x1_cheap, SCALE, jm, jm, 1e-8, TOL)
+    assert not full_at_noise(X, x1_full, x1_full, SCALE, jm, jm, 1e-8, TOL)
+    # a map contracting 0.999 per cycle: the fixed point 1000 residuals away, 3e-6 > the noise
+    slow = np.diag([0.999, 0.999])
+    assert not full_at_noise(X, x1_full, x1_cheap, SCALE, slow, slow, 1e-8, TOL)

@@ -43,7 +43,7 @@ from kickback.engine.periodic_bracket import (
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
 from kickback.engine.periodic_bracket import one_kept_flips as _one_kept_flips
-from kickback.engine.periodic_settle import accepted, slow_root, slow_state
+from kickback.engine.periodic_settle import accepted, full_at_noise, slow_root, slow_state
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
@@ -221,16 +221,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         f = x1 - x
         history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
-        if full and cheap is not None and cheap[0] is x and resid > STEADY_TOL:
-            # the cheap cycle from this very state met the tolerance, the full one (the energies in
-            # the step-size control: other steps) did not: the two integrations of one cycle from
-            # one state differ by the integration's noise alone, shown here per state; the full
-            # cycle is judged again at the tolerance plus twice that noise (capped at
-            # periodic_bracket.NOISE_CAP), its distance by the same Jacobian
-            shown = STEADY_TOL + 2.0 * np.abs(x1 - cheap[1]) / scale
-            dx_full = -np.linalg.solve(jm - np.eye(n), f) if jm is not None else np.zeros(n)
-            if accepted(f, dx_full, x, scale, jm_fd, rtol, STEADY_TOL, noise=shown):
-                break
+        if full and cheap is not None and cheap[0] is x and resid > STEADY_TOL \
+                and full_at_noise(x, x1, cheap[1], scale, jm, jm_fd, rtol, STEADY_TOL):
+            break  # the cheap cycle from this state met the tolerance, the full one at the noise
         merit = _merit(f, scale, jm_fd)
         if resid > STEADY_TOL and topup_state(history, scale) is not None:
             # one state left, Newton creeping up an exponential top-up: bracket and secant in its log
