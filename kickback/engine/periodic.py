@@ -43,7 +43,7 @@ from kickback.engine.periodic_bracket import (
 from kickback.engine.periodic_bracket import forgotten as _forgotten
 from kickback.engine.periodic_bracket import merit as _merit
 from kickback.engine.periodic_bracket import one_kept_flips as _one_kept_flips
-from kickback.engine.periodic_settle import accepted, slow_root, slow_state
+from kickback.engine.periodic_settle import accepted, full_at_noise, slow_root, slow_state
 from kickback.errors import SolverError
 
 STEADY_TOL = 1e-9  # relative change of the cycle-start state at the fixed point
@@ -210,6 +210,7 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
     history = []  # (x, Φ(x) − x) of every cycle the iteration solved
     slow_tries = 0  # chord iterations on a slow speed tried (at most SLOW_TRIES)
     rho_slow = None  # the contraction, where the slow speed's chord iteration found the fixed point
+    cheap = None  # (x, Φ(x)) of a cheap cycle that met the tolerance, its full cycle next
     for _ in range(MAX_NEWTON):
         if known is not None and not full:
             x1, e_on, e_off, runner = known, None, None, None
@@ -220,6 +221,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
         f = x1 - x
         history.append((x, f))
         resid = float(np.max(np.abs(f) / scale))
+        if full and cheap is not None and cheap[0] is x and resid > STEADY_TOL \
+                and full_at_noise(x, x1, cheap[1], scale, jm, jm_fd, rtol, STEADY_TOL):
+            break  # the cheap cycle from this state met the tolerance, the full one at the noise
         merit = _merit(f, scale, jm_fd)
         if resid > STEADY_TOL and topup_state(history, scale) is not None:
             # one state left, Newton creeping up an exponential top-up: bracket and secant in its log
@@ -309,7 +313,9 @@ def steady_state(c: Circuit, duty: float, frequency: float, *, rtol: float | Non
             if full:
                 break
             full = True  # met: solve this cycle again in full, to report it
+            cheap = (x, x1)
             continue
+        cheap = None
         x_prev, f_prev, dx_prev, resid_prev, lam = x, f, dx_next, _merit(f, scale, jm_fd), 1.0
         x = x + dx_next
         # every cycle after an accepted step is solved in full: on an affine map the first

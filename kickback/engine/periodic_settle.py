@@ -40,12 +40,9 @@ import math
 import numpy as np
 
 from kickback.circuit import Circuit
-from kickback.engine.periodic_bracket import forgotten
+from kickback.engine.periodic_bracket import NOISE_CAP, forgotten
 from kickback.errors import SolverError
 
-#: the largest noise (relative to the state's scale) an acceptance at the noise may take: a
-#: residual above it is a state still moving, not noise
-NOISE_CAP = 1e-5
 #: a motor's speed is *slow* where its own slope in the cycle map is within this of 1 (a
 #: per-cycle contraction ``exp(−T/τ_em)``, τ_em above 100 periods)
 SLOW_SLOPE = 1e-2
@@ -90,6 +87,20 @@ def accepted(f: np.ndarray, dx: np.ndarray, x: np.ndarray, scale: np.ndarray, jm
     kept = ~forgotten(jm, scale) if jm is not None else np.ones(len(x), dtype=bool)
     return bool(np.all(r[kept] <= shown[kept]) and np.all(d[kept] <= floor[kept])
                 and np.all(r[~kept] <= floor[~kept]))
+
+
+def full_at_noise(x: np.ndarray, x1: np.ndarray, x1_cheap: np.ndarray, scale: np.ndarray, jm, jm_fd,
+                  rtol: float, tol: float) -> bool:
+    """The full cycle from ``x`` (end state ``x1``; the energies in the step-size control: other
+    steps) is accepted at the noise, where the cheap cycle from the same state (end state
+    ``x1_cheap``) met the tolerance: the two integrations of one cycle from one state differ by the
+    integration's noise alone, shown per state; the full cycle is judged by :func:`accepted` at the
+    tolerance plus twice that noise (never past :data:`NOISE_CAP`), its distance to the fixed point
+    by the Newton step with ``jm`` (none: nil)."""
+    f = x1 - x
+    shown = tol + 2.0 * np.abs(x1 - x1_cheap) / scale
+    dx = -np.linalg.solve(jm - np.eye(len(x)), f) if jm is not None else np.zeros(len(x))
+    return accepted(f, dx, x, scale, jm_fd, rtol, tol, noise=shown)
 
 
 def slow_state(c: Circuit, jm) -> int | None:
