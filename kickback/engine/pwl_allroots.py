@@ -14,6 +14,7 @@ import numpy as np
 
 from kickback.engine.pwl import ScalarSegment
 from kickback.engine.pwl_roots import (
+    ROUND,
     Events,
     _bilinear,
     _extremum,
@@ -92,6 +93,7 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
     rows = np.arange(G)  # the cases still scanned (the working set shrinks as cases finish)
     start = np.zeros(G)
     ga, gpa = g0, gp0
+    bulk = 0
     out_g, out_e, out_lo, out_hi, out_ga, out_gb = [], [], [], [], [], []
     bound = []  # per crossing bracket: an upper bound of s inside it (peak events; −inf: keep)
     if pk is not None:
@@ -110,7 +112,8 @@ def _scan_all(ev, H, exps, oscs, g0, gp0, pk=None):
             exps, oscs = modes_take(exps, oscs, k)
             if pk is not None:
                 pk, sa = _PeakForms(ev, pk.mask[k]), sa[k]
-        pts = grid_round(start, live, exps, oscs, H)
+        pts = grid_round(start, live, exps, oscs, H, bulk)
+        bulk = bulk + 1 if pts.shape[1] > ROUND else 0
         xs = _xis(ev.seg, pts, ev.kmax)
         g, gp = ev.values(pts, xs)
         if pk is not None:

@@ -288,26 +288,31 @@ def grid_step(tau, exps, oscs, H):
 
 
 #: grid points per case in one round where the spacing has stopped growing (a long, lightly damped
-#: ring scanned at 0.6/ω: millions of points; 2048 a round: a Q = 2.6e5 ring 9.4 → 2.8 s of CPU),
+#: ring scanned at 0.6/ω: millions of points): the first such round has BULK_FIRST, each further
+#: one in a row twice the last, up to BULK_ROUND (a Q = 2.6e5 ring: 9.4 → 2.8 s of CPU against a
+#: fixed 256; a fixed 2048 wasted most of a short scan's last round: multi-clamp cases 2–4× slower),
 #: bounded so that the round's values stay ~2·10⁴ per event however many cases are live. Up to 12
 #: live cases get the same number, so that chunks of a few variants give the same grid, bit for bit,
 #: as all of them at once (tests/test_batch_robust.py)
+BULK_FIRST = 256
 BULK_ROUND = 2048
 _BULK_BUDGET = 12 * BULK_ROUND
 
 
-def grid_round(start, live, exps, oscs, H):
+def grid_round(start, live, exps, oscs, H, bulk: int = 0):
     """The next :data:`ROUND` grid points after ``start`` (G, ROUND), fewer once every live case
     has reached its horizon; cases not ``live`` stay put.
 
     Where the spacing no longer grows (every live mode's step saturated: two consecutive steps
     equal), up to :data:`BULK_ROUND` points at that spacing are placed at once. The spacing is
     non-decreasing in τ apart from the horizon (modes die, geometric growth behind decaying
-    modes), so a constant step from the round's start is never coarser than the graded grid."""
+    modes), so a constant step from the round's start is never coarser than the graded grid.
+    ``bulk``: how many rounds in a row before this one were bulk (each places twice the last's
+    points, from :data:`BULK_FIRST` up to :data:`BULK_ROUND`)."""
     G = start.shape[0]
     h1 = np.where(live, np.maximum(grid_step(start, exps, oscs, H), 0.0), 0.0)
     h2 = np.where(live, np.maximum(grid_step(start + h1, exps, oscs, H), 0.0), 0.0)
-    K = min(BULK_ROUND, max(ROUND, _BULK_BUDGET // max(int(np.count_nonzero(live)), 1)))
+    K = min(BULK_FIRST << min(bulk, 8), BULK_ROUND, max(ROUND, _BULK_BUDGET // max(int(np.count_nonzero(live)), 1)))
     if K > ROUND and np.all(~live | (h2 == h1) | (start + h1 >= H)):
         k = np.arange(1, K + 1)
         pts = np.minimum(start[:, None] + h1[:, None] * k[None, :], np.where(live, H, start)[:, None])
@@ -400,6 +405,7 @@ def _scan(ev, H, exps, oscs, g0, gp0):
     found = np.zeros(G, bool)
     start = np.zeros(G)
     ga, gpa = g0, gp0
+    bulk = 0
     for _ in range(1_000_000):
         live = ~found & (start < H)
         if not np.any(live):
@@ -409,7 +415,8 @@ def _scan(ev, H, exps, oscs, g0, gp0):
             rows, ev, found, start = rows[k], ev.take(k), found[k], start[k]
             ga, gpa, H, live = ga[k], gpa[k], H[k], live[k]
             exps, oscs = modes_take(exps, oscs, k)
-        pts = grid_round(start, live, exps, oscs, H)
+        pts = grid_round(start, live, exps, oscs, H, bulk)
+        bulk = bulk + 1 if pts.shape[1] > ROUND else 0
         g, gp = ev.values(pts)
         left_t = np.concatenate([start[:, None], pts[:, :-1]], axis=1)
         gl = np.concatenate([ga[:, None, :], g[:, :-1]], axis=1)
