@@ -85,7 +85,7 @@ class Modes:
             active = [in_fall] + [None] * (self.B - 1)
             # the states are read inside the interval between knots that holds v: v itself may
             # round onto a knot (and a tie there reads the lower, blocking state)
-            v, ok, pin, _cur, u_in = solve_node(self.laws, offs, ip, 0.0, limits, active, inside=True)
+            v, ok, pin, _cur, u_in = solve_node(self.laws, offs, ip, 0.0, limits, active)
         else:
             v = Xp[:, 1]
             u_in = v

@@ -69,7 +69,7 @@ def _residual(laws, offs, v, target, g_extra, side, limits, active, exact=None):
     return res
 
 
-def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None, inside=False):
+def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None):
     """Node voltage balancing the branch currents.
 
     Parameters
@@ -80,7 +80,6 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None, inside
     g_extra : (G,) or float — [S] an extra linear conductance to ground (the coil in the on-state)
     limits : list of (G,) or None — current caps per branch (None: no cap)
     active : list of (G,) bool or None — where a branch is present (None: everywhere)
-    inside : bool — also return ``u_in``
 
     Returns
     -------
@@ -88,7 +87,7 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None, inside
     ok : (G,) bool — a solution exists (something takes the current)
     pin : (G,) int — branch whose vertical law holds the node at v (−1: none)
     currents : list of (G,) — [A] branch currents at v (the pinned branch takes the remainder)
-    u_in : (G,) — [V] (with ``inside``) a voltage inside the open interval between knots that holds
+    u_in : (G,) — [V] a voltage inside the open interval between knots that holds
         ``v`` (``v`` itself where it sits on a knot): every branch's state there is the state at
         ``v``, whereas ``v`` may round onto the interval's end knot (a current of 1e-13 A into a
         0.05 Ω avalanche piece moves the node by less than one unit in the last place at 260 V)
@@ -217,4 +216,4 @@ def solve_node(laws, offs, target, g_extra=0.0, limits=None, active=None, inside
     rest = target - g_extra * v - sum(currents)
     for b in range(len(laws)):
         currents[b] = np.where(pin == b, rest, currents[b])
-    return (v, ok, pin, currents, u_in) if inside else (v, ok, pin, currents)
+    return v, ok, pin, currents, u_in

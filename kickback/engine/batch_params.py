@@ -271,7 +271,7 @@ class BatchCircuit:
         given = np.isfinite(self.i_given)
         g_x = np.where(given, 0.0, 1.0 / np.where(self.R > 0, self.R, 1.0))
         target = np.where(given, self.i_given, self.Vs * g_x)
-        v, ok, _pin, cur = solve_node(laws, offs, target, g_extra=g_x)
+        v, ok, _pin, cur, _u = solve_node(laws, offs, target, g_extra=g_x)
         self.fail(~ok, "no DC on-state (nothing conducts the coil current with the switch on)")
         v = np.where(ok, v, 0.0)
         self.v_on = v
