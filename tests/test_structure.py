@@ -44,7 +44,7 @@ KNOWN_LAZY_CYCLES = {
     frozenset({"kickback.engine.averaged", "kickback.engine.periodic"}):
         "averaged borrows periodic.scales while periodic starts its shooting from averaged_guess",
     frozenset({"kickback.outputs.report", "kickback.outputs.reportstudies"}):
-        "reportstudies borrows report's Section and private _figure while report places its sections",
+        "reportstudies borrows report's Section and figure_html while report places its sections",
 }
 
 
@@ -289,3 +289,47 @@ def test_conventions_are_defined_once():
     assert where["kickback.conventions"] == set(CONVENTIONS)
     stray = {name: found for name, found in where.items() if found and name != "kickback.conventions"}
     assert not stray, f"conventions defined outside kickback/conventions.py: {stray}"
+
+
+# --------------------------------------------------------------------------- no private names across modules
+#: (importing module, imported module, name) of private names still imported across modules, each group
+#: with its reason (issue 17: "no private names imported across modules"); drop an entry once it is gone
+KNOWN_PRIVATE = {
+    ("kickback.coilstate", "kickback.models.coil", "_SERIES_LIMIT"): "the saturating coil's series cut-off",
+    ("kickback.engine.linedge", "kickback.engine.linphase", "_XI01"): "quadrature nodes of the affine phases",
+    ("kickback.engine.linedge", "kickback.engine.linphase", "_panels"): "quadrature panels of the affine phases",
+    ("kickback.engine.linphase", "kickback.engine.linsolution", "_XI01"): "quadrature nodes of the affine phases",
+    **{("kickback.engine.pwl_scalar_roots", "kickback.engine.pwl_roots", n): "the batch engine's segment "
+       "mathematics (issue 17 moves them to a folder of their own)" for n in ("_Pairs", "_refine")},
+    **{("kickback.engine.pwl_allroots", "kickback.engine.pwl_roots", n): "the batch engine's segment "
+       "mathematics (issue 17)" for n in ("_bilinear", "_extremum", "_never", "_Pairs", "_refine", "_xis")},
+    ("kickback.engine.pwl_roots", "kickback.engine.pwl_refine", "_refine"): "the batch engine's segment "
+                                                                           "mathematics (issue 17)",
+}
+
+
+def private_imports(source: str, module: str) -> set[tuple[str, str, str]]:
+    """(module, imported module, name) for every ``from kickback… import _name`` in ``source``
+    (module level or inside a function; dunder names do not count)."""
+    out = set()
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.ImportFrom) and node.module and node.module.split(".")[0] == "kickback":
+            out |= {(module, node.module, a.name) for a in node.names
+                    if a.name.startswith("_") and not a.name.startswith("__")}
+    return out
+
+
+def test_the_private_import_scan_sees_one():
+    src = "from kickback.models.coil import _x, y\ndef f():\n    from kickback.units import _z\n"
+    assert private_imports(src, "m") == {("m", "kickback.models.coil", "_x"), ("m", "kickback.units", "_z")}
+    assert private_imports("from kickback import __version__\nfrom os import _exit\n", "m") == set()
+
+
+def test_no_private_name_is_imported_across_modules():
+    found = set()
+    for name, (path, _) in MODULES.items():
+        found |= private_imports(path.read_text(encoding="utf-8"), name)
+    new = sorted(found - set(KNOWN_PRIVATE))
+    assert not new, f"private names imported across modules (make them public or move them): {new}"
+    gone = sorted(set(KNOWN_PRIVATE) - found)
+    assert not gone, f"entries of KNOWN_PRIVATE no longer imported (drop them): {gone}"

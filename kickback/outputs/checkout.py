@@ -15,7 +15,7 @@ import math
 import xml.etree.ElementTree as ET
 
 from kickback.outputs.jsonout import to_json
-from kickback.outputs.table import _pct, check_value
+from kickback.outputs.table import check_value, percent_text
 from kickback.units import format_quantity as q
 
 
@@ -23,7 +23,7 @@ def _low(cc) -> tuple[str, str]:
     low = cc.smallest()
     if low is None:
         return "—", ""
-    margin = "fails" if low["margin"] is None else _pct(low["margin"])
+    margin = "fails" if low["margin"] is None else percent_text(low["margin"])
     return margin, f"{low['part']} {low['quantity']}"
 
 
@@ -60,7 +60,7 @@ def summary_table(results, skipped=()) -> str:
             table = [["part", "quantity", "value", "limit", "margin", "how the limit was formed"]]
             for c in cc.failing():
                 table.append([c["part"], c["quantity"], check_value(c["value"], c["unit"]),
-                              check_value(c["limit"], c["unit"]), _pct(c["margin"]), c["note"] or ""])
+                              check_value(c["limit"], c["unit"]), percent_text(c["margin"]), c["note"] or ""])
             lines += _grid_left(table, "    ")
     bad = [cc for cc in results if cc.status not in ("pass", "fail")]
     if bad:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from kickback.outputs.sweeps import engine_footnote, engine_lines, engine_words
-from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.outputs.table import CAUTIONS, grid_lines, wrap_text
 from kickback.studies.choose import RELEASE_TIE
 from kickback.units import format_quantity as q
 
@@ -19,7 +19,7 @@ def choice_table(ch, n_show: int = 12) -> str:
         f = c.figures
         rows.append([str(k + 1), c.option.name, q(f["peak_voltage_V"], "V"), f"{100 * c.margin:.1f} %",
                      q(c.release, "s"), q(f["clamp_energy_J"], "J"), str(c.parts)])
-    lines += _grid(rows)
+    lines += grid_lines(rows)
     if len(ch.ranked) > n_show:
         lines.append(f"  … {len(ch.ranked) - n_show} more feasible (see --json)")
     lines += ["", "how the candidates were screened:"]
@@ -53,7 +53,7 @@ def choice_table(ch, n_show: int = 12) -> str:
               "and whose stand-off voltage V_WM is at least the supply. Give a part as its datasheet does",
               "(standoff_voltage, breakdown_voltage at test_current, clamping_voltage at peak_pulse_current) and",
               "check it with `kickback run`.",
-              "", _wrap(CAUTIONS)]
+              "", wrap_text(CAUTIONS)]
     return "\n".join(lines) + "\n"
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from kickback.outputs.table import CAUTIONS, _grid, _wrap
+from kickback.outputs.table import CAUTIONS, grid_lines, wrap_text
 from kickback.units import format_quantity as q
 
 
@@ -27,7 +27,7 @@ def comparison_table(cmp) -> str:
                      q(d["clamp_peak_current_A"], "A"), q(d["to_10_percent_s"], "s"), q(d["to_zero_s"], "s"),
                      q(d["release_s"], "s"), verdict])
     lines = [cmp.case.title, ""]
-    table = _grid([r[:-1] for r in rows])
+    table = grid_lines([r[:-1] for r in rows])
     lines += [f"{t}  {r[-1]}" for t, r in zip(table, rows, strict=True)]
     lines += ["", "* the case's own clamp set (sets the exit status)"]
     lines += _part_lines(cmp)
@@ -37,8 +37,8 @@ def comparison_table(cmp) -> str:
                 "(generic diode 0.9 V at 1 A; ideal Zener/TVS: a built-in TVS clamps at its breakdown voltage, "
                 "V_C = V_BR, and needs a part with stand-off V_WM at least the supply); give your own parts as "
                 "[[option]] in the case")
-        lines.append("  " + _wrap(note).replace("\n", "\n  "))
-    lines += ["", _wrap(CAUTIONS)]
+        lines.append("  " + wrap_text(note).replace("\n", "\n  "))
+    lines += ["", wrap_text(CAUTIONS)]
     return "\n".join(lines) + "\n"
 
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from kickback.outputs.table import _grid
+from kickback.outputs.table import grid_lines
 from kickback.units import format_quantity as q
 
 
@@ -48,7 +48,7 @@ def fit_table(fit) -> str:
         label = e.name + (" (derived)" if e.derived else "") + (" [at bound]" if e.at_bound else "")
         rows.append([label, q(e.value, e.unit, d), q(e.half_width, e.unit, 2), rel,
                      f"{q(lo, e.unit, d)} … {q(hi, e.unit, d)}"])
-    lines += _grid(rows)
+    lines += grid_lines(rows)
     span = fit.span
     lines += ["", f"  residual RMS {q(fit.residual_rms, 'A')} "
                   f"({100 * fit.residual_rms / span:.2g} % of the {q(span, 'A')} span), "
@@ -66,6 +66,6 @@ def comparison_text(cmp) -> str:
         rows.append([r.quantity, q(r.simulated, r.unit), q(r.measured, r.unit),
                      "—" if d is None else ("+" if d > 0 else "") + q(d, r.unit),
                      "" if rel is None else f"{100 * rel:+.1f} %"])
-    lines += _grid(rows)
+    lines += grid_lines(rows)
     lines += [f"  note: {n}" for n in cmp.notes]
     return "\n".join(lines) + "\n"

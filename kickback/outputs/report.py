@@ -115,7 +115,7 @@ def inline_svg(svg: bytes | str, prefix: str) -> str:
     return text.strip()
 
 
-def _figure(fig, prefix: str, caption: str, extra_class: str = "") -> str:
+def figure_html(fig, prefix: str, caption: str, extra_class: str = "") -> str:
     from kickback.outputs.plots import figure_bytes
 
     classes = f"{prefix} {extra_class}".strip()
@@ -150,7 +150,7 @@ def _waveform_section(result) -> Section:
            + ("The left column zooms on the turn-off edge." if zoom else
               "The edge is not much faster than the decay, so there is no separate zoom.")
            + f" The run ends at {q(result.figures.end_time_s, 's')}.")
-    return Section("waveforms", "Waveforms", _figure(fig, "wave", cap, "" if zoom else "single"))
+    return Section("waveforms", "Waveforms", figure_html(fig, "wave", cap, "" if zoom else "single"))
 
 
 def comparison_section(cmp) -> Section:
@@ -179,7 +179,7 @@ def comparison_section(cmp) -> Section:
              if cmp.builtin else "Alternatives: the case's own [[option]] sets.")
     body += f'<p class="note">{escape(where)} Each option is checked against the same ratings and limits.</p>'
     fig = comparison_figure(cmp)  # its legends sit beside the plots already, clear of every curve
-    body += _figure(fig, "cmp", "Switch-node voltage and coil current of every option "
+    body += figure_html(fig, "cmp", "Switch-node voltage and coil current of every option "
                     "(logarithmic time axis); the thick line is this case.")
     return Section("comparison", "Clamp comparison", body)
 
@@ -200,7 +200,7 @@ def measured_section(measured=None) -> Section | None:
             "simulated waveform (time zero at the turn-off).</p>")
     body += parts.table(["figure", "simulated", "measured", "difference"], rows)
     body += "".join(f'<p class="note">{escape(n)}</p>' for n in cmp.notes)
-    body += _figure(measured_figure(result, trace, cmp), "meas", "The measured trace over the simulation.")
+    body += figure_html(measured_figure(result, trace, cmp), "meas", "The measured trace over the simulation.")
     return Section("measured", "Measured against simulated", body)
 
 
@@ -355,7 +355,7 @@ def report_html(result, *, comparison=None, command: str = "", date: str = "", v
                 + "<h3>On-state before turn-off (computed)</h3>" + parts.onstate_table(result)),
         Section("checks", "Checks", parts.check_table(result) + "<h3>Turn-off figures</h3>"
                 + parts.figures_table(result) + "<h3>Clamp duty</h3>" + parts.clamp_table(result)),
-        Section("ledger", "Energy ledger", _figure(figs.ledger_figure(result), "ledger",
+        Section("ledger", "Energy ledger", figure_html(figs.ledger_figure(result), "ledger",
                 "Where the energy went: inputs (blue), dissipation (orange), left over (grey, hatched); "
                 "shares of the total input.") + parts.ledger_table(result)),
         _waveform_section(result),

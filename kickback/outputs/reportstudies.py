@@ -17,8 +17,8 @@ def _section(*args):
     return Section(*args)
 
 
-def _figure(*args):
-    from kickback.outputs.report import _figure as fig
+def figure_html(*args):
+    from kickback.outputs.report import figure_html as fig
 
     return fig(*args)
 
@@ -29,7 +29,7 @@ def tolerance_section(study=None):
     at random, and histograms; a :class:`~kickback.outputs.report.Section`, None without a study."""
     if study is None:
         return None
-    from kickback.outputs.tolerances import _label, _params, tolerance_figure
+    from kickback.outputs.tolerances import figure_label, params_text, tolerance_figure
     from kickback.studies.tolerance import PERCENTILES
 
     lo, hi = study.yield_ci
@@ -42,7 +42,7 @@ def tolerance_section(study=None):
         d = study.percentiles.get(f, {})
         if all(v is None for v in d.values()):
             continue
-        rows.append([_label(study, f)] + [q(d[p], unit) for p in PERCENTILES])
+        rows.append([figure_label(study, f)] + [q(d[p], unit) for p in PERCENTILES])
     body += parts.table(head, rows)
     body += _engine_note(study, "Samples run by the")
     worst = []
@@ -51,18 +51,19 @@ def tolerance_section(study=None):
         if c is None or srch is None:
             continue
         note = " (inside the bands: the corners miss it)" if srch["interior"] else ""
-        worst.append([_label(study, f), q(c["max"], unit), q(srch["max"], unit) + note, _params(srch["params"])])
+        worst.append([figure_label(study, f), q(c["max"], unit), q(srch["max"], unit) + note,
+                      params_text(srch["params"])])
     if worst:
         body += "<h3>Worst cases</h3>" + parts.table(["figure", "worst corner", "search inside the bands", "at"],
                                                        worst, "worst")
     if study.recheck:
         from kickback.outputs.tolerances import recheck_rows, recheck_title
 
-        rows = [[_label(study, f), text] for f, text in recheck_rows(study)]
+        rows = [[figure_label(study, f), text] for f, text in recheck_rows(study)]
         rows.append(["verdicts that differ", f"{study.recheck['verdicts_differ']} of {study.recheck['samples']}"])
         body += f"<h3>Checked against the detailed engine</h3><p>{escape(recheck_title(study))}</p>"
         body += parts.table(["figure", "largest difference"], rows)
-    body += _figure(tolerance_figure(study), "tol", "Histograms of the figures over the samples, limits dashed, "
+    body += figure_html(tolerance_figure(study), "tol", "Histograms of the figures over the samples, limits dashed, "
                     "worst corner dotted.")
     return _section("tolerance", "Tolerances", body)
 
@@ -94,7 +95,7 @@ def tradeoff_section(choice=None):
                  f"{escape(', '.join(choice.confirmed))}.</p>")
     body += parts.table(["rank", "clamp", "peak switch V", "margin", "release / decay", "clamp energy", "parts"],
                         rows)
-    body += _figure(tradeoff_figure(choice), "trade", "Release time against peak switch voltage per family; "
+    body += figure_html(tradeoff_figure(choice), "trade", "Release time against peak switch voltage per family; "
                     "filled markers pass, open ones fail or are not offered (`kickback choose` says why); "
                     "marker size is the clamp energy.")
     return _section("tradeoff", "Clamp trade-off", body)

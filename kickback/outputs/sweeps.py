@@ -8,7 +8,7 @@ import io
 import numpy as np
 
 from kickback.outputs import style
-from kickback.outputs.table import _grid
+from kickback.outputs.table import grid_lines
 from kickback.studies.sweep import COLUMNS
 from kickback.units import format_quantity as q
 
@@ -27,7 +27,7 @@ def sweep_table(sw) -> str:
         cells += [q(sw.figures[c][k], u) for c, u in COLUMNS]
         cells.append("pass" if sw.passed[k] else "FAIL: " + ", ".join(sw.failing[k]))
         rows.append(cells)
-    table = _grid([r[:-1] for r in rows])
+    table = grid_lines([r[:-1] for r in rows])
     lines = [f"{sw.case.title} — sweep ({engine_words(sw)}, {len(sw.points)} points)"]
     lines += [f"  {x}" for x in engine_lines(sw)]
     lines.append("")

@@ -28,11 +28,11 @@ MARGIN_NOTE = ("margin: (limit − value)/limit, the limit derated; a junction t
                "the allowed rise above ambient left, (T_max − T_j)/(T_max − T_ambient) ‡")
 
 
-def _pct(x: float | None) -> str:
+def percent_text(x: float | None) -> str:
     return "—" if x is None else f"{100 * x:+.1f} %"
 
 
-def _grid(rows: list[list[str]], indent: str = "  ") -> list[str]:
+def grid_lines(rows: list[list[str]], indent: str = "  ") -> list[str]:
     widths = [max(len(r[k]) for r in rows) for k in range(len(rows[0]))]
     out = []
     for r in rows:
@@ -53,7 +53,7 @@ def check_rows(checks) -> list[list[str]]:
     for ck in checks:
         mark = " ‡" if ck.unit == "K" else ""
         rows.append([ck.part, ck.quantity, check_value(ck.value, ck.unit), check_value(ck.limit, ck.unit),
-                     _pct(ck.margin) + mark, "pass" if ck.passed else "FAIL"])
+                     percent_text(ck.margin) + mark, "pass" if ck.passed else "FAIL"])
     return rows
 
 
@@ -62,7 +62,7 @@ def result_table(result) -> str:
     f = result.figures
     c = result.waveforms.circuit
     lines = [f"{result.case.title}", ""]
-    lines += _grid([
+    lines += grid_lines([
         ["on-state", "coil current", q(f.initial_current_A, "A"), "switch node", q(c.on.node_voltage, "V")],
         ["", "stored in coil", q(f.stored_energy_J, "J"), "supply", q(c.Vs, "V")],
         ["switch node", "peak", q(f.peak_voltage_V, "V"), "at", q(f.peak_time_s, "s")],
@@ -80,21 +80,21 @@ def result_table(result) -> str:
         pct = "" if term.side == "in" else f"{100 * term.energy_J / total:.1f} %"
         ledger.append([label, q(term.energy_J, "J"), pct])
     ledger.append(["balance residual", f"{f.energy_balance_error:.1e}", ""])
-    lines += _grid(ledger)
+    lines += grid_lines(ledger)
     if f.clamps:
         lines += ["", "clamps"]
         rows = [["name", "across", "energy", "peak current", "conduction time", "current while on"]]
         for cl in f.clamps:
             rows.append([cl.name, cl.across, q(cl.energy_J, "J"), q(cl.peak_current_A, "A"), q(cl.conduction_s, "s"),
                          q(cl.on_state_current_A, "A")])
-        lines += _grid(rows)
+        lines += grid_lines(rows)
         lines += ["", "clamp elements"]
         rows = [["clamp", "element", "type", "energy", "peak current", "peak voltage ¹", "stand-off ²"]]
         for cl in f.clamps:
             for el in cl.elements:
                 rows.append([cl.name, el.name, el.type, q(el.energy_J, "J"), q(el.peak_current_A, "A"),
                              q(el.peak_voltage_V, "V"), q(el.standoff_voltage_V, "V")])
-        lines += _grid(rows)
+        lines += grid_lines(rows)
         lines += [f"  {x}" for x in ELEMENT_NOTES]
     else:
         lines += ["", "clamps: none"]
@@ -102,9 +102,9 @@ def result_table(result) -> str:
         lines += ["", pwm_section(result)]
     lines += ["", "checks"]
     if result.checks:
-        lines += _grid(check_rows(result.checks))
+        lines += grid_lines(check_rows(result.checks))
         if any(ck.unit == "K" for ck in result.checks):
-            lines += ["  " + _wrap(MARGIN_NOTE, 98).replace("\n", "\n  ")]
+            lines += ["  " + wrap_text(MARGIN_NOTE, 98).replace("\n", "\n  ")]
     else:
         lines.append("  no ratings given: nothing to check")
     n_fail = sum(not ck.passed for ck in result.checks)
@@ -117,11 +117,11 @@ def result_table(result) -> str:
     if f.findings:
         lines += ["", "findings"] + [f"  - {x}" for x in f.findings]
     lines += ["", "models"] + [f"  - {x}" for x in f.models]
-    lines += ["", _wrap(CAUTIONS)]
+    lines += ["", wrap_text(CAUTIONS)]
     return "\n".join(lines) + "\n"
 
 
-def _wrap(text: str, width: int = 100) -> str:
+def wrap_text(text: str, width: int = 100) -> str:
     import textwrap
 
     return "\n".join(textwrap.wrap(text, width))
@@ -143,7 +143,7 @@ def pwm_section(result) -> str:
                      q(p.conduction_loss_W, "W"), q(p.turn_on_discharge_loss_W, "W"), q(p.crossover_loss_W, "W"),
                      q(clamp_w, "W"),
                      q(p.avalanche_energy_J, "J"), _tj(p.switch_junction_peak_K)])
-    lines += _grid(rows)
+    lines += grid_lines(rows)
     lines += ["  ³ the switch's on-state loss (I²·R_on, V_sat·I) while it conducts",
               "  ⁴ the node capacitance (output and winding capacitance, lone capacitors across the switch or coil)",
               "    discharged through the switch at each turn-on: ½·C·ΔV²·f, ΔV the node's fall from the periodic",

@@ -8,7 +8,7 @@ import io
 import numpy as np
 
 from kickback.outputs.sweeps import engine_footnote, engine_lines, engine_words
-from kickback.outputs.table import CAUTIONS, _grid, _wrap, check_value
+from kickback.outputs.table import CAUTIONS, check_value, grid_lines, wrap_text
 from kickback.studies.tolerance import PERCENTILES
 from kickback.units import format_quantity as q
 
@@ -16,7 +16,7 @@ LABELS = {"peak_voltage_V": "peak switch V", "clamp_energy_J": "clamp energy",
           "avalanche_energy_J": "avalanche energy", "to_zero_s": "decay to zero", "release_s": "release"}
 
 
-def _label(tr, f: str) -> str:
+def figure_label(tr, f: str) -> str:
     if f.startswith("clamp["):
         k = int(f[6:f.index("]")])
         return f"clamp '{tr.case.clamps[k].name}' energy"
@@ -31,7 +31,7 @@ def _unit(path: str) -> str:
     return unit_of(path)
 
 
-def _params(d: dict) -> str:
+def params_text(d: dict) -> str:
     parts = []
     for k, v in d.items():
         if k == "coil_temperature":
@@ -63,8 +63,8 @@ def tolerance_table(tr) -> str:
         d = tr.percentiles.get(f, {})
         if all(v is None for v in d.values()):
             continue
-        rows.append([_label(tr, f)] + [q(d[p], unit) for p in PERCENTILES])
-    lines += _grid(rows)
+        rows.append([figure_label(tr, f)] + [q(d[p], unit) for p in PERCENTILES])
+    lines += grid_lines(rows)
     if tr.worst_per_check:
         lines += ["", "worst sample per check"]
         for name, w in tr.worst_per_check.items():
@@ -72,7 +72,7 @@ def tolerance_table(tr) -> str:
             unit = w.get("unit", "")
             lim = "no limit" if w["limit"] is None else f"limit {check_value(w['limit'], unit)}"
             lines.append(f"  {name}: {check_value(w['value'], unit)} ({lim}, margin {m})")
-            lines.append(f"      at {_params(w['params'])}")
+            lines.append(f"      at {params_text(w['params'])}")
     if tr.corners:
         lines += ["", "worst case: band corners and a search inside the bands"]
         for f, unit, _ in tr.figure_list:
@@ -80,11 +80,12 @@ def tolerance_table(tr) -> str:
             if c is None or s is None:
                 continue
             note = "  (inside the bands: the corners miss it)" if s["interior"] else ""
-            lines.append(f"  {_label(tr, f)}: corners up to {q(c['max'], unit)}, search {q(s['max'], unit)}{note}")
-            lines.append(f"      at {_params(s['params'])}")
+            lines.append(f"  {figure_label(tr, f)}: corners up to {q(c['max'], unit)}, "
+                         f"search {q(s['max'], unit)}{note}")
+            lines.append(f"      at {params_text(s['params'])}")
     if tr.recheck:
         lines += ["", recheck_title(tr)]
-        lines += [f"  {_label(tr, f)}: {text}" for f, text in recheck_rows(tr)]
+        lines += [f"  {figure_label(tr, f)}: {text}" for f, text in recheck_rows(tr)]
         lines.append(f"  verdicts that differ: {tr.recheck['verdicts_differ']} of {tr.recheck['samples']}")
     lines += ["", "sensitivity (change of each figure as one value runs over its band, the others nominal)"]
     for f, unit, _ in tr.figure_list:
@@ -92,8 +93,8 @@ def tolerance_table(tr) -> str:
         if not sw or all(abs(x) == 0 for _, x in sw):
             continue
         top = ", ".join(f"{n} {q(x, unit)}" for n, x in sw[:4])
-        lines.append(f"  {_label(tr, f)}: {top}")
-    lines += ["", _wrap(CAUTIONS)]
+        lines.append(f"  {figure_label(tr, f)}: {top}")
+    lines += ["", wrap_text(CAUTIONS)]
     return "\n".join(lines) + "\n"
 
 
@@ -193,7 +194,7 @@ def tolerance_figure(tr):
             ax.axvline(c["max"], label=f"worst band corner {q(c['max'], u)}", **style.WORST)
         ax.legend(fontsize=7.5, loc="lower left", bbox_to_anchor=(0.0, 1.0), borderaxespad=0.2, ncols=3,
                   frameon=False, handlelength=1.8, columnspacing=1.0)
-        ax.set_title(_label(tr, f), fontsize=9.5, loc="left", pad=20)
+        ax.set_title(figure_label(tr, f), fontsize=9.5, loc="left", pad=20)
         ax.xaxis.set_major_formatter(EngFormatter(unit=u))
         ax.xaxis.get_major_locator().set_params(nbins=6)
         ax.set_ylabel("samples")
