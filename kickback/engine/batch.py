@@ -21,6 +21,7 @@ import numpy as np
 
 from kickback.conventions import RING_END_FRACTION
 from kickback.engine import batch_events as bev
+from kickback.engine import batch_fitcheck
 from kickback.engine.batch_modes import Mode, Modes
 from kickback.engine.batch_record import Record
 from kickback.engine.pwl import SegmentError
@@ -58,6 +59,9 @@ class State:
                                    self.rest_level)
         self.E = {k: np.zeros(n) for k in ("R", "sup", "ch", "av", "bd")}
         self.E_el = [[np.zeros(n) for _ in ch.elements] for ch in bc.chains]
+        #: the fit's estimated energy error per chain [J] (:mod:`kickback.engine.batch_fitcheck`)
+        self.fit_err = np.zeros((n, len(bc.chains)))
+        self.fit_chains = batch_fitcheck.fitted_chains(bc)
         self.rec = Record(bc)
         self.rings = bc.capacitive or any(bc.chains[m].law.block is None for m in bc.cap_chains)
         scale = [bc.L * bc.i0 / bc.v_scale]
@@ -86,6 +90,7 @@ def run(bc) -> State:
         if live.size == 0:
             break
         _step(bc, st, live)
+    batch_fitcheck.decline(bc, st)
     st.rec.rest_states(np.nonzero(bc.ok)[0], st.X[bc.ok])
     return st
 
@@ -229,6 +234,8 @@ def _segment(bc, st, md, idx, g, forms, mode, X, t0):
     Xd = seg.deriv(tau)
     dv = Xe[:, 1] - Xg[:, 1] if bc.capacitive else None
     _energies(bc, st, gi, fs, M2, dv)
+    if st.fit_chains:
+        batch_fitcheck.accumulate(bc, st, gi, fs, seg, tau, mg)
     if st.trace is not None:
         st.trace.append((tg[0], tau[0], seg, fs, mg))
     st.rec.boundary(gi, fs, Xg, np.zeros(G), tg, np.ones(G, bool), seg.deriv(np.zeros(G)),

@@ -230,6 +230,8 @@ class BatchCircuit:
                 # variants are failed above with the reason, the others of the batch go on)
                 full.append(None if el.type == "capacitor" else next(it, els[0]))
             ch = ChainLaw(law, full, caps, notes)
+            it = iter(pieces)
+            ch.currents = [None if el.type == "capacitor" else next(it).current for el in cl.elements]
             sat = [j for j, el in enumerate(cl.elements) if el.type == "diode" and el.model != "constant-drop"]
             if len(sat) == 1:
                 ch.saturating = sat[0]
