@@ -344,8 +344,7 @@ def _dyn_energy(c, x, v_fin, dyn_caps, ts=None, held_level=0.0, drains=None):
     current ``drains[k]`` [A] counts only while it is not *held* — while the energy it drains
     over a span as long as the run so far exceeds ``held_level`` [J] (the detailed engine's
     rule, :func:`kickback.engine.detailed.integrate`)."""
-    if c.mech:  # the rest follows the motor's present speed (kickback.engine.detailed.integrate)
-        v_fin = c.Vs - c.k_emf * x[c.iw]
+    v_fin = c.ring_rest(x, v_fin)
     v = x[1] if c.capacitive else v_fin
     w = 0.5 * c.L * x[0] ** 2 + 0.5 * c.C_node * (v - v_fin) ** 2
     for k in dyn_caps:
