@@ -173,8 +173,9 @@ class Chain(SeriesSolve):
         # built a vectorised wrapper: a quarter of a ring's CPU, wide-range case 9779)
         return self._solve_numeric(float(vx))
 
-    def conductance_at(self, voltage: float, v_cap: float = 0.0) -> float:
-        """Incremental conductance di/dV [S] of the chain at chain voltage [V]."""
+    def conductance_at(self, voltage: float, v_cap: float = 0.0, current: float | None = None) -> float:
+        """Incremental conductance di/dV [S] of the chain at chain voltage [V] (``current``: the
+        chain's current there, when known)."""
         vx = voltage - v_cap
         if self.pieces is not None:
             return self.pieces.slope_at(vx)
@@ -186,14 +187,14 @@ class Chain(SeriesSolve):
                 d = self._rev
             else:
                 return 0.0
-            i = self.current_at(voltage, v_cap)
+            i = self.current_at(voltage, v_cap) if current is None else current
             # an overflowing current (a voltage far past the knee, no series resistance): vertical
             den = d.a / max(d.i_s + i, 1e-300) + d.r_s
             return 1.0 / den if den > 0 else math.inf
         if self._smooth is None and self.active:
             # several nonlinear laws in series: the exact derivative at the solved current,
             # 1 / Σ dv_k/di (one chain solve instead of two for a difference quotient)
-            i = self.current_at(voltage, v_cap)
+            i = self.current_at(voltage, v_cap) if current is None else current
             if i == 0.0 or not math.isfinite(i):
                 return 0.0 if i == 0.0 else math.inf
             r = sum(self._law_slope(k, i) for k in self._active_idx)
