@@ -95,6 +95,8 @@ def _newton(with_slope, a: float, b: float, ra: float, rb: float, xtol: float) -
     without capacitance is solved at every evaluation of the rates: wide-range cases 6079,
     9182). None after 100 iterates (the caller falls back on Brent's method)."""
     x = a - ra * (b - a) / (rb - ra)
+    if not a < x < b:  # an end's residual overflowed (a law without series resistance far up)
+        x = 0.5 * (a + b)
     step_before = step = b - a
     for _ in range(100):
         r, g = with_slope(x)

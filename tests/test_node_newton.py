@@ -76,3 +76,16 @@ def test_kink_and_flat_stretch():
         return resid(v), (10.0 if v > 5.0 else 1e-12)
 
     assert solve_monotone(resid, [], 10.0, with_slope) == pytest.approx(5.03, rel=1e-13)
+
+
+def test_an_overflowing_end_of_the_bracket():
+    # a residual that is +inf at the bracket's upper end (an exponential law overflowing): the
+    # chord has no root inside, Newton's method starts from the middle and still meets the root
+    def resid(v):
+        return math.inf if v > 50.0 else IS * math.expm1(v / NVT) - 1e-3
+
+    def with_slope(v):
+        return resid(v), (math.inf if v > 50.0 else IS * math.exp(v / NVT) / NVT)
+
+    ref = NVT * math.log1p(1e-3 / IS)  # the diode alone at 1 mA (Shockley's law inverted)
+    assert solve_monotone(resid, [], 60.0, with_slope) == pytest.approx(ref, rel=1e-13)
