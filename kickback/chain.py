@@ -9,7 +9,7 @@ import numpy as np
 
 from kickback.case import Clamp
 from kickback.chainsolve import SeriesSolve
-from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, element_law
+from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, Varistor, element_law
 from kickback.models.base import PiecewiseLinearLaw
 
 _NO_REST = LinearPieces(0.0, 0.0, 0.0, 0.0)
@@ -147,6 +147,8 @@ class Chain(SeriesSolve):
                 return np.where(vx > rest.v_fwd, fwd, np.where(vx < rest.v_rev, rev, 0.0))
             if rest == LinearPieces(0.0, 0.0, 0.0, 0.0):
                 return law.current(vx)
+            if isinstance(law, Varistor):
+                return np.vectorize(self._solve_varistor_rest, otypes=[float])(vx)
         return np.vectorize(self._solve_numeric, otypes=[float])(vx)
 
     def current_at(self, voltage: float, v_cap: float = 0.0) -> float:
@@ -171,6 +173,8 @@ class Chain(SeriesSolve):
         # a curved law beside piecewise-linear ones (a diode + varistor): the series solve, called
         # directly (through np.vectorize, as :meth:`current` does for arrays, each scalar call
         # built a vectorised wrapper: a quarter of a ring's CPU, wide-range case 9779)
+        if isinstance(law, Varistor):
+            return self._solve_varistor_rest(float(vx))
         return self._solve_numeric(float(vx))
 
     def conductance_at(self, voltage: float, v_cap: float = 0.0, current: float | None = None) -> float:
