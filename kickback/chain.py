@@ -9,7 +9,7 @@ import numpy as np
 
 from kickback.case import Clamp
 from kickback.chainsolve import SeriesSolve
-from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, element_law
+from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, Varistor, element_law
 from kickback.models.base import PiecewiseLinearLaw
 
 _NO_REST = LinearPieces(0.0, 0.0, 0.0, 0.0)
@@ -147,6 +147,8 @@ class Chain(SeriesSolve):
                 return np.where(vx > rest.v_fwd, fwd, np.where(vx < rest.v_rev, rev, 0.0))
             if rest == LinearPieces(0.0, 0.0, 0.0, 0.0):
                 return law.current(vx)
+            if isinstance(law, Varistor):
+                return np.vectorize(self._solve_varistor_rest, otypes=[float])(vx)
         return np.vectorize(self._solve_numeric, otypes=[float])(vx)
 
     def current_at(self, voltage: float, v_cap: float = 0.0) -> float:
@@ -164,12 +166,20 @@ class Chain(SeriesSolve):
         if self._smooth is None:
             return self._solve_numeric(float(vx))
         law, rest = self._smooth
-        if rest == _NO_REST and hasattr(law, "current_at"):  # a lone varistor: its scalar law
-            return law.current_at(float(vx))
-        return float(self.current(vx))
+        if rest == _NO_REST:
+            if hasattr(law, "current_at"):  # a lone varistor: its scalar law
+                return law.current_at(float(vx))
+            return float(law.current(vx))
+        # a curved law beside piecewise-linear ones (a diode + varistor): the series solve, called
+        # directly (through np.vectorize, as :meth:`current` does for arrays, each scalar call
+        # built a vectorised wrapper: a quarter of a ring's CPU, wide-range case 9779)
+        if isinstance(law, Varistor):
+            return self._solve_varistor_rest(float(vx))
+        return self._solve_numeric(float(vx))
 
-    def conductance_at(self, voltage: float, v_cap: float = 0.0) -> float:
-        """Incremental conductance di/dV [S] of the chain at chain voltage [V]."""
+    def conductance_at(self, voltage: float, v_cap: float = 0.0, current: float | None = None) -> float:
+        """Incremental conductance di/dV [S] of the chain at chain voltage [V] (``current``: the
+        chain's current there, when known)."""
         vx = voltage - v_cap
         if self.pieces is not None:
             return self.pieces.slope_at(vx)
@@ -181,14 +191,14 @@ class Chain(SeriesSolve):
                 d = self._rev
             else:
                 return 0.0
-            i = self.current_at(voltage, v_cap)
+            i = self.current_at(voltage, v_cap) if current is None else current
             # an overflowing current (a voltage far past the knee, no series resistance): vertical
             den = d.a / max(d.i_s + i, 1e-300) + d.r_s
             return 1.0 / den if den > 0 else math.inf
         if self._smooth is None and self.active:
             # several nonlinear laws in series: the exact derivative at the solved current,
             # 1 / Σ dv_k/di (one chain solve instead of two for a difference quotient)
-            i = self.current_at(voltage, v_cap)
+            i = self.current_at(voltage, v_cap) if current is None else current
             if i == 0.0 or not math.isfinite(i):
                 return 0.0 if i == 0.0 else math.inf
             r = sum(self._law_slope(k, i) for k in self._active_idx)

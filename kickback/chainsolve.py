@@ -174,6 +174,41 @@ class SeriesSolve:
             w = wn
         return current(w)
 
+    def _solve_varistor_rest(self, vx: float) -> float:
+        """Current of a chain of one varistor and piecewise-linear laws summed in ``_smooth[1]``
+        (v_fwd + r_fwd·i forward, v_rev + r_rev·i in reverse, no current between) at chain
+        voltage ``vx`` [V]: Newton's method in s = ln|i| on |V(i)| + r·|i| = |w|, w the voltage
+        past the linear laws' offset. Both terms are convex and increasing in s (the power law
+        e^{s/α}, its tangent continuation and r·e^s alike), so from the smaller of the currents
+        each term alone would carry at |w| — at or past the root — the iterates fall
+        monotonically onto it, without the bracket of the general solve (a diode + varistor
+        stepped through its knee for 150 node periods, wide-range case 5804); to 1e-14
+        relative in the current."""
+        law, rest = self._smooth
+        vx = float(vx)
+        if rest.v_rev <= vx <= rest.v_fwd:
+            return 0.0
+        w, r = (vx - rest.v_fwd, rest.r_fwd) if vx > rest.v_fwd else (vx - rest.v_rev, rest.r_rev)
+        sign, aw = math.copysign(1.0, w), abs(w)
+        hi = abs(law.current_at(w))
+        if r > 0:
+            hi = min(hi, aw / r)
+        if not 0.0 < hi < math.inf:
+            return self._solve_numeric(vx)
+        k = self.laws.index(law)
+        v_round = 4e-16 * abs(vx)
+        s = math.log(hi)
+        for _ in range(100):
+            i = sign * math.exp(s)
+            g = abs(law.voltage_at(i)) + r * abs(i) - aw
+            if g <= v_round:
+                return i
+            ds = g / (abs(self._law_log_slope(k, i)) + r * abs(i))
+            s -= ds
+            if ds <= 1e-14:
+                return sign * math.exp(s)
+        return self._solve_numeric(vx)
+
     def _total_voltage(self, i: float) -> float:
         return sum(self._law_voltage(k, i) for k in self._active_idx)
 

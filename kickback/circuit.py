@@ -187,8 +187,12 @@ class Circuit(CoilStates, FloatingNode):
         def resid(v):
             return sum(self.currents_at(t, v, y)) - i
 
+        def with_slope(v):
+            vals = self.currents_at(t, v, y)
+            return sum(vals) - i, sum(self._conductances(t, v, y, vals))
+
         in_fall = self.conducting or self._in_fall(t)
-        return _solve_monotone(resid, self._thresholds[in_fall], self.v_scale)
+        return _solve_monotone(resid, self._thresholds[in_fall], self.v_scale, with_slope)
 
     def _node_thresholds(self) -> dict[bool, list[float]]:
         """Node voltages [V] of vertical laws, after the fall (False) and during it (True)."""
@@ -392,17 +396,19 @@ class Circuit(CoilStates, FloatingNode):
                 jm[self.icap[k], self.icap[m]] = gk * (dv_dcap[m] - (1.0 if m == k else 0.0)) / ck
         return jm
 
-    def _conductances(self, t: float, v: float, y) -> list[float]:
+    def _conductances(self, t: float, v: float, y, currents=None) -> list[float]:
         """Small-signal conductance [S] of each branch at node voltage v: channel (with the
-        leakage), off-state, then each active chain."""
+        leakage), off-state, then each active chain (``currents``: the branches' currents there,
+        from :meth:`currents_at`, so that a chain is not solved again)."""
         sw = self.switch
         g_ch = self.g_leak
         if self.conducting or (self._in_fall(t) and sw.on_state.current_at(v) < self._limit(t)):
             g_ch += sw.on_state.slope_at(v)
         g = [g_ch, sw.off_state.slope_at(v)]
-        for k in self.active_chains:
+        for j, k in enumerate(self.active_chains):
             ch = self.chains[k]
-            g.append(ch.conductance_at(v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0))
+            g.append(ch.conductance_at(v - self.Vs * ch.reference, y[self.icap[k]] if k in self.icap else 0.0,
+                                       None if currents is None else currents[2 + j]))
         return g
 
     def capacitor_energy(self, v, y) -> float:

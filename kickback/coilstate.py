@@ -19,7 +19,7 @@ class CoilStates:
     """Mixin of :class:`kickback.circuit.Circuit`: the coil in current or flux, the motor speed.
 
     Reads the circuit's ``L``, ``R``, ``Vs``, ``i_sat``, ``flux``, ``motor``, ``mech``, ``iw``,
-    ``on`` and ``i0``.
+    ``k_emf``, ``on`` and ``i0``.
     """
 
     def coil_current(self, x0):
@@ -110,6 +110,15 @@ class CoilStates:
         if self.motor is None:
             return 0.0
         return float(y[self.iw]) if self.mech else self.motor.speed
+
+    def ring_rest(self, y, v_fin):
+        """Node voltage [V] a ring settles to from state ``y`` (one state, or states as columns).
+
+        ``v_fin`` [V], the rest at the on-state speed; with a mechanical motor the rest follows
+        its present speed ω instead (V_s − k·ω: the node's voltage once no current flows), so a
+        motor braked or slowing down is no ring (wide-range case 982 ran to its time bound at rest).
+        """
+        return self.Vs - self.k_emf * y[self.iw] if self.mech else v_fin
 
     def on_speed(self) -> float:
         """Motor speed [rad/s] in the on-state."""

@@ -194,6 +194,30 @@ def test_varistor_resistor_chain_vs_brentq(r, v):
     _close(ch.current_at(v), want, 1e-9, f"scalar current at {v} V", atol=1e-15)
 
 
+@pytest.mark.parametrize("rs", [0.0, 0.05], ids=lambda r: f"Rs{r:g}ohm")
+@pytest.mark.parametrize("v", [0.70001, 0.8, 20.0, 39.7, 41.0, 60.0, 0.5, -30.0], ids=lambda v: f"{v:g}V")
+def test_diode_varistor_chain_vs_brentq(rs, v):
+    """A constant-drop diode (0.7 V, R_s) in series with the varistor: past the diode's drop the
+    varistor and R_s share u = v − 0.7 V, u_var + R_s·I1·|u_var/V1|^α = u, solved here by brentq in
+    the varistor's voltage (KVL; scipy) — currents from ~1e-150 A just past the drop up to amperes;
+    below the drop, and in reverse (the diode blocks), none. The chain's own solve runs Newton's
+    method in ln i from the smaller current either law alone would carry (wide-range case 5804)."""
+    ch = _chain(_cd_diode(0.7, rs), VARISTOR, across="switch")
+    u = v - 0.7
+    if u <= 0:
+        assert ch.current_at(v) == 0.0 and float(ch.current(v)) == 0.0
+        return
+    if rs > 0:
+        def resid(x):
+            return x + rs * I1 * (x / V1) ** ALPHA - u
+        x = optimize.brentq(resid, 0.0, u, xtol=1e-300, rtol=1e-15)
+    else:
+        x = u
+    want = I1 * (x / V1) ** ALPHA
+    _close(ch.current_at(v), want, 1e-12, f"scalar current at {v} V")
+    _close(ch.current(v), want, 1e-12, f"array current at {v} V")
+
+
 def test_lone_varistor_chain_is_the_power_law():
     """One varistor alone: i = I1·(v/V1)^α exactly (Levinson & Philipp)."""
     ch = _chain(VARISTOR, across="switch")

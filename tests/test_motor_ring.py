@@ -24,6 +24,7 @@ import math
 
 import numpy as np
 import pytest
+from ring_stages import assert_energies, solve_in_stages
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq, minimize_scalar
 
@@ -67,42 +68,15 @@ def _reference():
         u = y[1] - VS
         return (abs(u) - VT) if abs(u) > 1e-12 else -VT
 
-    def zero(t, y):
-        return y[0]
-
     def below(t, y):  # the rest follows the motor's present speed: V_s − k·ω
         return 0.5 * L * y[0] ** 2 + 0.5 * C * (y[1] - (VS - K * y[2])) ** 2 - rest
 
-    kink.terminal = True
-    zero.terminal, zero.direction = True, -1
-    below.terminal, below.direction = True, -1
-    y = np.array([i0, VSAT, w0, 0.0, 0.0, 0.0])
-    t, pieces, stage = 0.0, [], "decay"
-    opts = dict(rtol=1e-11, atol=[1e-14, 1e-10, 1e-10, 1e-16, 1e-16, 1e-16], dense_output=True)
-    while True:
-        t_stop = TF if t < TF else 1.0
-        events = [kink] + ([zero] if stage in ("decay", "last zero") else [below] if stage == "ring" else [])
-        # stiff while the TVS conducts (r_T·C = 2.35 ns): Radau; the blocked ring is not: DOP853
-        stiff = t < TF or abs(y[1] - VS) > VT
-        sol = solve_ivp(rhs, (t, t_stop), y, events=events, method="Radau" if stiff else "DOP853", **opts)
-        assert sol.status >= 0
-        pieces.append(sol)
-        t, y = float(sol.t[-1]), sol.y[:, -1].copy()
-        hit = [k for k, te in enumerate(sol.t_events) if te.size and te[-1] == t]
-        if not hit:
-            continue  # the end of the fall
-        if hit[0] == 0:
-            y[1] += 1e-9 * math.copysign(1.0, rhs(t, y)[1])  # just past the knee it crossed
-            continue
-        if stage == "decay":
-            stage = "ring"
-        elif stage == "ring":
-            if abs(y[0]) <= RING_END * i0:
-                break
-            stage = "last zero"
-            zero.direction = 0
-        else:
-            break
+    def stiff(t, y):  # while the TVS conducts (r_T·C = 2.35 ns): Radau; the blocked ring is not: DOP853
+        return t < TF or abs(y[1] - VS) > VT
+
+    opts = dict(rtol=1e-11, atol=[1e-14, 1e-10, 1e-10, 1e-16, 1e-16, 1e-16])
+    pieces, _ = solve_in_stages(rhs, [i0, VSAT, w0, 0.0, 0.0, 0.0], TF, [kink], below, stiff, opts, RING_END)
+    t, y = float(pieces[-1].t[-1]), pieces[-1].y[:, -1]
     ring_t0 = next(p.t[0] for p in pieces if p.t[0] > TF and p.y[0, 0] <= 0)
 
     def i_at(s):
@@ -137,11 +111,7 @@ def test_motor_ring_in_closed_form_matches_the_node_equations():
     assert closed and sum(p.t1 - p.t0 for p in closed) > 0.5 * (ref["end"] - TF)
     assert f.end_time_s == pytest.approx(ref["end"], rel=1e-6)
     assert f.release_s == pytest.approx(ref["rel"], rel=1e-6)
-    floor = 1e-9 * ref["e0"]
-    assert f.resistance_energy_J == pytest.approx(ref["res"], rel=1e-7, abs=floor)
-    assert f.motor_energy_J == pytest.approx(ref["motor"], rel=1e-7, abs=floor)
-    assert f.clamps[0].energy_J == pytest.approx(ref["clamp"], rel=1e-7, abs=floor)
-    assert abs(f.energy_balance_error) <= 1e-6
+    assert_energies(f, ref, rel=1e-7)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -113,3 +113,37 @@ def test_draining_snubber_is_stepped_in_growing_strides():
     assert w.y_end[1] == pytest.approx(float(sol.y[1, -1]), rel=1e-5)
     # the capacitor really drains over the run (the stretches past the ring matter)
     assert abs(float(sol.y[2, -1]) - float(np.max(sol.y[2]))) > 0.1
+
+
+class _FakeRunner:
+    """A runner whose every stretch reaches its end in one step (no ring left to resolve)."""
+
+    def __init__(self):
+        self.t, self.phases, self.stretches = 0.0, [], []
+
+    def run(self, name, t_stop, events, record):
+        from types import SimpleNamespace
+
+        self.stretches.append(t_stop - self.t)
+        self.phases.append(SimpleNamespace(t_steps=[self.t, t_stop]))
+        self.t = t_stop
+        return SimpleNamespace(status=0)
+
+
+def test_stride_doubles_the_last_stretch_not_the_attempts_length():
+    # the attempts first ask for a few picoseconds (the node leaving a knee), then for twenty ring
+    # periods: the first long stretch is the twenty periods, not 2⁸ times them (wide-range case
+    # 5834 stepped 0.06 s of a 12 kHz ring in one go and ran out of evaluations); from there a
+    # stretch of few steps doubles the next (the rule above)
+    from kickback.engine.ringsteps import stepped_ring
+
+    asks = [1.8e-11] * 8 + [1.6e-3] * 4
+    runner = _FakeRunner()
+    it = iter(asks)
+    stepped_ring(runner, lambda: (False, False, next(it)), [], None, t_bound=1.0,
+                 ended=lambda: len(runner.stretches) == len(asks))
+    got = runner.stretches
+    for k in range(1, 8):  # the short ones double among themselves
+        assert got[k] == pytest.approx(max(1.8e-11, 2.0 * got[k - 1]), rel=1e-12)
+    assert got[8] == pytest.approx(1.6e-3, rel=1e-12)
+    assert got[9:] == pytest.approx([3.2e-3, 6.4e-3, 1.28e-2], rel=1e-12)

@@ -24,6 +24,7 @@ from scipy.linalg import lapack
 from kickback.circuit import FLOAT, FLOAT_ENTRY, FLOAT_LANDING, FLOAT_RESIDUAL, Circuit
 from kickback.conventions import RING_END_FRACTION, ZERO_FRACTION
 from kickback.engine.radau_check import CheckedNewton
+from kickback.engine.ringsteps import stepped_ring
 from kickback.engine.step_events import bracketed
 from kickback.errors import SolverError
 
@@ -44,11 +45,6 @@ STEEP_FLOOR = 1e-6
 STEEP_RTOL_FLOOR = 1e-12
 #: the edge phase takes at least this many steps over the fall time
 EDGE_STEPS = 20
-
-
-#: a stretch of a ring stepped between two closed-form attempts in fewer steps than this doubles
-#: the next stretch
-FEW_STEPS = 16
 
 #: the ring's relative tolerance, as a share of the run's: stepped over tens to hundreds of
 #: periods, the ring's phase drifts by ~rtol per period, and the run ends at the coil current's
@@ -831,10 +827,9 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
 
     def dyn_energy(y, t=None):
         """Energy still moving [J]: the coil's, the node's and each snubber capacitor's above its
-        rest; with the time ``t`` [s], less the capacitors that are *held*. The rest follows a
-        motor's present speed (the node at V_s − k·ω once no current flows): a motor braked or
-        slowing down is no ring (wide-range case 982 ran to its time bound at rest)."""
-        vf = v_fin if not c.mech else c.Vs - c.k_emf * c.speed_of(y)
+        rest (:meth:`~kickback.coilstate.CoilStates.ring_rest`); with the time ``t`` [s], less the
+        capacitors that are *held*."""
+        vf = c.ring_rest(y, v_fin)
         v = y[1] if c.capacitive else vf
         w = c.coil_energy(c.coil_current(y[0])) + 0.5 * c.C_node * (v - vf) ** 2
         for k in dyn_caps:
@@ -912,24 +907,11 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         runner.rtol, runner.atol = ring_rtol, tolerances(c, ring_rtol)
         from kickback.engine.linring import try_linear_ring
 
-        grow = 1.0
-        while True:
-            done, bound_hit, retry = try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps,
-                                                     RING_END_FRACTION)
-            if done:
-                break
-            # step by step: to the end, or (the ring still reaches a law's kink) for a while
-            t_stop = t_bound if retry is None else min(t_bound, runner.t + retry * grow)
-            n_steps = len(runner.phases)
-            sol = runner.run("ring", t_stop, [ev10, ev1, ev_rest], record)
-            # a stretch that took few steps (no ring left to resolve: a snubber capacitor draining
-            # slowly) costs less than the closed-form attempt after it: the next is twice as long
-            # (wide-range case 2352: 2 145 attempts 17 µs apart over 35 ms)
-            steps = sum(len(p.t_steps) - 1 for p in runner.phases[n_steps:])
-            grow = 2.0 * grow if steps < FEW_STEPS else 1.0
-            bound_hit = not (dyn_energy(runner.y, runner.t) <= rest_level * 1.0001)
-            if sol.status == 1 or runner.t >= t_bound or not bound_hit:
-                break
+        def attempt():
+            return try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, RING_END_FRACTION)
+
+        done, bound_hit = stepped_ring(runner, attempt, [ev10, ev1, ev_rest], record, t_bound,
+                                       lambda: dyn_energy(runner.y, runner.t) <= rest_level * 1.0001)
         if not done and not bound_hit and abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0 \
                 and runner.t < t_bound:
             # end on a zero of the coil current, so that it too is below 0.1 % of the start: in
@@ -937,19 +919,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
             # the closed form looks for the zero alone), else step by step as in the ring above
             # (wide-range case 5834: a capacitor draining at a leaky diode's I_s through the
             # coil for 0.1 s, stepped through a 12 kHz node ring: 19 000 steps)
-            grow = 1.0
-            while True:
-                done, _, retry = try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps,
-                                                 RING_END_FRACTION)
-                if done:
-                    break
-                t_stop = t_bound if retry is None else min(t_bound, runner.t + retry * grow)
-                n_steps = len(runner.phases)
-                sol = runner.run("ring", t_stop, [ev_cross], record)
-                if sol.status == 1 or runner.t >= t_bound:
-                    break
-                steps = sum(len(p.t_steps) - 1 for p in runner.phases[n_steps:])
-                grow = 2.0 * grow if steps < FEW_STEPS else 1.0
+            stepped_ring(runner, attempt, [ev_cross], record, t_bound)
             bound_hit = abs(c.coil_current(runner.y[0])) > RING_END_FRACTION * i0
     c.pin = None
     from kickback.engine.sampling import sample_run

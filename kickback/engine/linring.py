@@ -177,13 +177,21 @@ def try_linear_ring(runner, t_bound, rest_level, ev_times, v_fin, dyn_caps, ring
         if horizon < retry:
             return False, False, retry
     t_lim = t0 + horizon
-    # the model must reproduce the true rates (its pieces) at x_∞ and at the extreme states
+    # the model must reproduce the true rates (its pieces) at the start and where the ring is
+    # centred at the horizon: x_∞ once the real modes have decayed, else short of it (a motor's
+    # slow speed: x_∞, reached in seconds, lies on other pieces, wide-range case 5995); the
+    # energy rates are expanded there too
+    real = lam.imag == 0
+    y_c = y_inf.copy()
+    y_c[:ie] += np.real(amp[:, real] @ np.exp(lam[real] * horizon))
     size = np.abs(A) @ np.maximum(np.abs(y0[:ie]), np.abs(x_inf)) + np.abs(b) + np.abs(ramp) + 1e-300
-    for probe in (y_inf, y0):
+    for probe in (y_c, y0):
         d = c.rhs(t0, probe)[:ie] - (A @ probe[:ie] + b + ramp)
         if np.any(np.abs(d) > 1e-9 * size):
             return False, False, None
-    r0, grad, quad = _energy_quadratic(c, t0, y_inf, np.sum(np.abs(amp), axis=1))
+    r0, grad, quad = _energy_quadratic(c, t0, y_c, np.sum(np.abs(amp), axis=1))
+    d = y_c[:ie] - x_inf  # the rates about y_c, re-expanded about x_∞ (exact for a quadratic)
+    r0, grad = r0 - grad @ d + np.einsum("mij,i,j->m", quad, d, d), grad - 2.0 * np.einsum("mij,j->mi", quad, d)
     sol = RingSolution(t0, y0, ie, x_inf, lam, amp, r0, grad, quad, ramp)
     # the end: oscillating energy below its level, then a zero of the coil current
     period = 2 * math.pi / w_fast
@@ -258,7 +266,9 @@ def _fits(c, curved, t0, y0, x_inf, lam, amp, ramp, nv_grad, nv_inf, horizon) ->
     milliseconds and is bounded by where it is, not by ±|c_k| (wide-range case 5800)."""
     real = lam.imag == 0
     decay = np.exp(np.where(real, lam.real, 0.0) * horizon)
-    for icap, ref, th in _branch_pieces(c):
+
+    def interval(icap, ref):
+        # [lo, hi] of the branch voltage nv − ref (− its capacitor's voltage) over the horizon
         w = nv_grad.copy()
         u_inf = nv_inf - ref
         if icap is not None:
@@ -268,24 +278,23 @@ def _fits(c, curved, t0, y0, x_inf, lam, amp, ramp, nv_grad, nv_inf, horizon) ->
         osc = float(np.sum(np.abs(ck[~real]))) + float(np.sum(np.abs(ck[real].imag)))
         start, end = ck[real].real, ck[real].real * decay[real]
         drift = abs(float(w @ ramp)) * horizon
-        lo = u_inf - osc - drift + float(np.sum(np.minimum(start, end)))
-        hi = u_inf + osc + drift + float(np.sum(np.maximum(start, end)))
+        return (u_inf - osc - drift + float(np.sum(np.minimum(start, end))),
+                u_inf + osc + drift + float(np.sum(np.maximum(start, end))))
+
+    for icap, ref, th in _branch_pieces(c):
+        lo, hi = interval(icap, ref)
         tol = (hi - lo) * 1e-6 + 1e-9 * c.v_scale
         if any(lo - tol <= x <= hi + tol for x in th):
             return False
     for k in curved:
         # a Shockley diode's chain: its law is curved everywhere, but far enough in reverse it
         # is flat (−I_s): its departure from the tangent the model took, over the whole interval
-        # the chain voltage can reach, must stay below :data:`CURVED_TOL` of the start current
-        w = nv_grad.copy()
-        u_inf = nv_inf - c.Vs * c.chains[k].reference
-        icap = c.icap.get(k)
-        if icap is not None:
-            w[icap] -= 1.0
-            u_inf -= x_inf[icap]
-        bound = float(np.sum(np.abs(w @ amp))) + abs(float(w @ ramp)) * horizon
+        # the chain voltage can reach (a motor's slow speed mode bounded by where it is, as
+        # above: wide-range cases 4684, 5700, 5995), must stay below :data:`CURVED_TOL` of the
+        # start current
+        lo, hi = interval(c.icap.get(k), c.Vs * c.chains[k].reference)
         departure = curved_departure if shockley(c.chains[k]) else monotone_departure
-        if not departure(c, k, t0, y0, u_inf, bound) <= CURVED_TOL * abs(c.i0):
+        if not departure(c, k, t0, y0, 0.5 * (lo + hi), 0.5 * (hi - lo)) <= CURVED_TOL * abs(c.i0):
             return False
     return True
 
@@ -344,8 +353,7 @@ def _dyn_energy(c, x, v_fin, dyn_caps, ts=None, held_level=0.0, drains=None):
     current ``drains[k]`` [A] counts only while it is not *held* — while the energy it drains
     over a span as long as the run so far exceeds ``held_level`` [J] (the detailed engine's
     rule, :func:`kickback.engine.detailed.integrate`)."""
-    if c.mech:  # the rest follows the motor's present speed (kickback.engine.detailed.integrate)
-        v_fin = c.Vs - c.k_emf * x[c.iw]
+    v_fin = c.ring_rest(x, v_fin)
     v = x[1] if c.capacitive else v_fin
     w = 0.5 * c.L * x[0] ** 2 + 0.5 * c.C_node * (v - v_fin) ** 2
     for k in dyn_caps:
