@@ -97,13 +97,24 @@ class CoilStates:
         """(di/dx0, dx0/dt per volt across the coil): (1, 1/L) linear; (1/L_inc, 1) in flux."""
         if not self.flux:
             return 1.0, 1.0 / self.L
+        # past the law's end (|λ| > 0.999·L0·I_sat, trial states only) :meth:`coil_current` is
+        # continued linearly with the slope at the end: di/dλ is that slope there, not the one
+        # at the continued current (90× too large once, wide-range case 197)
+        i_end = self._end_current()
         if np.ndim(i) == 0:
             # models.coil.incremental_inductance in plain floats (numpy squares a scalar by pow(),
             # as Python does): the same bits
-            return 1.0 / (self.L / (1.0 + abs(float(i)) / self.i_sat) ** 2), 1.0
+            return 1.0 / (self.L / (1.0 + min(abs(float(i)), i_end) / self.i_sat) ** 2), 1.0
         from kickback.models.coil import incremental_inductance
 
+        i = np.clip(i, -i_end, i_end)
         return 1.0 / float(incremental_inductance(i, self.L, self.i_sat)), 1.0
+
+    def _end_current(self) -> float:
+        """[A] the coil current at the end of the flux law's range, |λ| = 0.999·L0·I_sat (the
+        scalar path of :meth:`coil_current` at the clip)."""
+        lam_max = 0.999 * self.L * self.i_sat
+        return lam_max * self.i_sat / (self.L * self.i_sat - lam_max)
 
     def speed_of(self, y) -> float:
         """Motor speed [rad/s] in state ``y`` (the fixed speed, or the state)."""
