@@ -18,6 +18,7 @@ from __future__ import annotations
 import math
 
 from kickback.chain import _NO_REST, Chain
+from kickback.engine import kcache
 from kickback.engine.klaws import (
     LAW_WIDTH,
     law_current,
@@ -34,6 +35,8 @@ from kickback.engine.klaws import (
 )
 from kickback.engine.radau5_jit import jit
 from kickback.models import ShockleyDiode
+
+kcache.register()  # the cache of these functions follows klaws.py too
 
 #: chain kinds: piecewise-linear total; one Shockley diode with a linear rest; a lone varistor;
 #: the numeric series solve (several nonlinear laws); one varistor with a linear rest (numeric

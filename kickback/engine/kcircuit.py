@@ -21,11 +21,13 @@ import math
 
 import numpy as np
 
-from kickback.engine import radau5
+from kickback.engine import kcache, radau5
 from kickback.engine.kchain import chain_conductance, chain_current, chain_powers, chain_record
 from kickback.engine.klaws import pieces_record, pwl_current, pwl_slope
 from kickback.engine.radau5_jit import jit
 from kickback.models import ShockleyDiode, Varistor
+
+kcache.register()  # the cache of these functions follows kchain.py and klaws.py too
 
 # header slots of the parameter array
 N_STATES, L_, R_, VS, FLUX, I_SAT, MOTOR, K_EMF, MECH, SPEED, VISC, LOAD, INERTIA = range(13)
