@@ -31,6 +31,8 @@ from kickback.engine.klaws import (
     pwl_current,
     pwl_slope,
     pwl_voltage,
+    pymax,
+    pymin,
     shockley_current,
 )
 from kickback.engine.radau5_jit import jit
@@ -131,7 +133,7 @@ def newton(p, o, vx, v_round, lo, hi, g_lo, has_glo, g_hi, has_ghi, start, has_s
     if same_side and has_glo and has_ghi and g_lo < 0 < g_hi:
         s_lo, s_hi = math.log(abs(lo)), math.log(abs(hi))
         s = s_lo + (s_hi - s_lo) * (-g_lo) / (g_hi - g_lo)
-        if min(s_lo, s_hi) < s < max(s_lo, s_hi):
+        if pymin(s_lo, s_hi) < s < pymax(s_lo, s_hi):
             x = sign * math.exp(s)
     if has_start and lo <= start <= hi:
         x = start
@@ -275,7 +277,7 @@ def solve_numeric(p, o, vx):
     while abs(b) < 1e300:
         gb = total_voltage(p, o, b) - vx
         if gb * sign >= 0:
-            return newton(p, o, vx, v_round, min(a, b), max(a, b), 0.0, False, 0.0, False, 0.0, False)
+            return newton(p, o, vx, v_round, pymin(a, b), pymax(a, b), 0.0, False, 0.0, False, 0.0, False)
         if math.isnan(gb):
             break
         a, b = b, b * 4.0
@@ -323,7 +325,7 @@ def chain_conductance(p, o, voltage, v_cap):
         if d < 0:
             return 0.0
         i = chain_current(p, o, voltage, v_cap)
-        den = p[d] / max(p[d + 1] + i, 1e-300) + p[d + 2]
+        den = p[d] / pymax(p[d + 1] + i, 1e-300) + p[d + 2]
         return 1.0 / den if den > 0 else math.inf
     if kind == CH_NUMERIC and int(p[o + 20]) > 0:
         i = chain_current(p, o, voltage, v_cap)
@@ -331,7 +333,7 @@ def chain_conductance(p, o, voltage, v_cap):
             return 0.0 if i == 0.0 else math.inf
         r = _sum_slope(p, o, i)
         return 1.0 / r if r > 0 else math.inf
-    h = 1e-6 * max(abs(vx), 1.0)
+    h = 1e-6 * pymax(abs(vx), 1.0)
     return (chain_current(p, o, vx + h, 0.0) - chain_current(p, o, vx - h, 0.0)) / (2 * h)
 
 

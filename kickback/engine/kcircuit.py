@@ -23,7 +23,7 @@ import numpy as np
 
 from kickback.engine import kcache, radau5
 from kickback.engine.kchain import chain_conductance, chain_current, chain_powers, chain_record
-from kickback.engine.klaws import pieces_record, pwl_current, pwl_slope
+from kickback.engine.klaws import pieces_record, pwl_current, pwl_slope, pymax
 from kickback.engine.radau5_jit import jit
 from kickback.models import ShockleyDiode, Varistor
 
@@ -316,7 +316,7 @@ def jac_core(t, y, p):
     f0 = rhs_core(t, y, p)
     s0 = int(p[SCALE])
     for j in range(n_dyn):
-        h = 1e-8 * max(abs(y[j]), p[s0 + j])
+        h = 1e-8 * pymax(abs(y[j]), p[s0 + j])
         yp = y.copy()
         yp[j] += h
         f1 = rhs_core(t, yp, p)

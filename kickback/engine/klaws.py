@@ -54,6 +54,19 @@ def pieces_record(p: LinearPieces) -> list[float]:
     return [p.v_fwd, p.r_fwd, p.v_rev, p.r_rev]
 
 
+# --------------------------------------------------------------------------- Python's min/max
+@jit
+def pymax(a, b):
+    """Python's ``max(a, b)`` of two floats (``a`` unless ``b > a``: the same result for a NaN)."""
+    return b if b > a else a
+
+
+@jit
+def pymin(a, b):
+    """Python's ``min(a, b)`` of two floats (``a`` unless ``b < a``)."""
+    return b if b < a else a
+
+
 # --------------------------------------------------------------------------- piecewise linear
 @jit
 def pwl_current(vf, rf, vr, rr, v):
@@ -82,7 +95,7 @@ def pwl_voltage(vf, rf, vr, rr, i):
         return vf + rf * i
     if i < 0:
         return vr + rr * i
-    return min(max(0.0, vr), vf)
+    return pymin(pymax(0.0, vr), vf)
 
 
 # --------------------------------------------------------------------------- Shockley diode
@@ -136,7 +149,7 @@ def shockley_current(a, i_s, r_s, log_k, v):
 @jit
 def shockley_voltage(a, i_s, r_s, i):
     """ShockleyDiode.voltage_at [V], the law's floor −I_s clipped at −I_s·(1 − 1e-16)."""
-    return a * math.log1p(max(i / i_s, -1.0 + 1e-16)) + r_s * i
+    return a * math.log1p(pymax(i / i_s, -1.0 + 1e-16)) + r_s * i
 
 
 # --------------------------------------------------------------------------- varistor
@@ -210,7 +223,7 @@ def law_slope(p, o, i):
     if code == LAW_PWL:
         return p[o + 3] if i > 0 else p[o + 5]
     if code == LAW_SHOCKLEY:
-        return p[o + 2] / max(p[o + 3] + i, 1e-300) + p[o + 4]
+        return p[o + 2] / pymax(p[o + 3] + i, 1e-300) + p[o + 4]
     return varistor_resistance(p[o + 2], p[o + 3], p[o + 4], p[o + 5], i)
 
 
