@@ -54,7 +54,15 @@ def test_wright_omega_against_mpmath(z):
         else:
             want = mpmath.lambertw(mpmath.exp(z))
         want = float(mpmath.re(want))
-    assert klaws.wright_omega(z) == pytest.approx(want, rel=4e-16, abs=1e-320)
+    assert klaws.wright_omega(z) == pytest.approx(want, rel=5e-16, abs=1e-320)
+
+
+def test_wright_omega_sweep_against_mpmath():
+    # ω(z) = W₀(e^z) (Corless & Jeffrey 2002), mpmath at 30 digits, 400 points over −50…60
+    with mpmath.workdps(30):
+        for z in np.linspace(-50.0, 60.0, 400):
+            want = float(mpmath.re(mpmath.lambertw(mpmath.exp(mpmath.mpf(float(z))))))
+            assert klaws.wright_omega(z) == pytest.approx(want, rel=5e-16), z
 
 
 def _diode_current_brentq(v, n_vt, i_s, r_s):

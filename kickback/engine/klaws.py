@@ -102,9 +102,16 @@ def pwl_voltage(vf, rf, vr, rr, i):
 @jit
 def wright_omega(z):
     """Real Wright ω: the root ω > 0 of ω + ln ω = z (nan for nan, inf for inf, 0 where e^z
-    underflows). Start e^z (z < −2, where ω = e^z·(1 − e^z + …)), 1 + (z − 1)/2 near z = 1, or
-    z − ln z (z > 1); then Newton's method on f(ω) = ω + ln ω − z, ω ← ω·(1 + r/(1 + ω)) with
-    r = z − ω − ln ω, until the correction is below rounding."""
+    underflows), i.e. ω·e^ω = e^z.
+
+    z < 0: Halley's method on f(ω) = ω·e^ω − x, x = e^z (every term relative to x: the residual
+    z − ω − ln ω would lose |z|·ε to cancellation), from ω = x·(1 − x) (the series
+    ω = x − x² + 3x³/2 − …, Corless et al. 1996) or 1 + (z − 1)/2 + (z − 1)²/16; z ≥ 0: from
+    z − ln z (or the same quadratic), the fourth-order iteration of Fritsch, Shafer and Crowley
+    (Comm. ACM 16(2), 1973; from memory) on r = z − ω − ln ω:
+    ω ← ω·(1 + r/(1 + ω)·(q − r/2)/(q − r)), q = (1 + ω)(1 + ω + 2r/3), Newton's step beyond
+    ω = 1e100 (q would overflow). Both stop after a correction below 1e-6 relative (the next
+    one is below rounding)."""
     if z != z:
         return z
     if z == math.inf:
@@ -112,25 +119,33 @@ def wright_omega(z):
     if z < -50.0:
         # ω = e^z·(1 − e^z + …): the correction is below 2e-22 relative
         return math.exp(z)
-    if z < -2.0:
-        w = math.exp(z)
-        w = w * (1.0 - w)
-    elif z < 1.0:
-        w = 1.0 + 0.5 * (z - 1.0) + (z - 1.0) * (z - 1.0) / 16.0
-        if w < 0.1:
-            w = 0.1
-    else:
-        w = z - math.log(z)
-    for _ in range(60):
+    if z < 0.0:
+        x = math.exp(z)
+        w = x * (1.0 - x) if z < -2.0 else 1.0 + 0.5 * (z - 1.0) + (z - 1.0) * (z - 1.0) / 16.0
+        for _ in range(20):
+            ew = math.exp(w)
+            f = w * ew - x
+            d1 = ew * (1.0 + w)
+            wn = w - f / (d1 - 0.5 * f * (2.0 + w) / (1.0 + w))
+            if not wn > 0.0:
+                wn = 0.5 * w
+            if abs(wn - w) <= 1e-6 * wn:
+                return wn
+            w = wn
+        return w
+    w = z - math.log(z) if z >= 1.0 else 1.0 + 0.5 * (z - 1.0) + (z - 1.0) * (z - 1.0) / 16.0
+    for _ in range(20):
         r = z - w - math.log(w)
-        step = r / (1.0 + w)
-        wn = w * (1.0 + step)
-        if wn <= 0.0:
+        wp = 1.0 + w
+        if w < 1e100:
+            q = wp * (wp + 2.0 * r / 3.0)
+            wn = w * (1.0 + r / wp * (q - 0.5 * r) / (q - r))
+        else:
+            wn = w * (1.0 + r / wp)
+        if not wn > 0.0:
             wn = 0.5 * w
-        if abs(wn - w) <= 1e-16 * wn:
-            # one more correction settles the last bit (Newton's convergence is quadratic)
-            r = z - wn - math.log(wn)
-            return wn * (1.0 + r / (1.0 + wn))
+        if abs(wn - w) <= 1e-6 * wn:
+            return wn
         w = wn
     return w
 
