@@ -391,3 +391,37 @@ def test_cache_follows_the_called_modules():
             h.update(f.read())
     assert K.RHS._cache._impl._locator.get_source_stamp() == h.digest()
     assert kcache.REGISTERED
+
+
+def test_radau5_integrates_the_compiled_circuit():
+    # the compiled functions plug into kickback's radau5 (fixed signatures, an event calling
+    # NODE_BALANCE) and give the trajectory scipy's Radau gives on Circuit.rhs at a tighter
+    # tolerance (scipy as the reference solver of the same equations)
+    from scipy.integrate import solve_ivp
+
+    from kickback.engine import radau5
+    from kickback.engine.detailed import tolerances
+
+    @radau5.njit_events
+    def ev(t, y, p):
+        out = np.empty(1)
+        out[0] = K.NODE_BALANCE(t, y, p)
+        return out
+
+    for s in (46, 117, 322):
+        c = Circuit(load_case(draw(s).text, source=f"wide-range case {s}"))
+        rtol = 1e-8
+        atol = tolerances(c, rtol)
+        pr = PhaseRunner(c, rtol, c.initial_state())
+        p = K.pack(c, pr.scale)
+        y0 = c.initial_state()
+        t_end = 0.05 * c.L / c.R + 5 * c.switch.fall_time
+        r = radau5.solve(K.RHS, K.JAC, (0.0, t_end), y0, p, rtol=rtol, atol=atol, events=ev,
+                         directions=np.array([-1]), terminal=np.array([0]))
+        assert r.status == 0, r.message
+        ref = solve_ivp(c.rhs, (0.0, t_end), y0, method="Radau", rtol=1e-11, atol=atol * 1e-3, jac=pr.jac)
+        assert ref.status == 0
+        np.testing.assert_array_less(np.abs(r.y[:, -1] - ref.y[:, -1]), 100 * (rtol * np.abs(ref.y[:, -1]) + atol))
+        # the node balance's falling zero is the node voltage's peak (dv/dt = balance/C)
+        for t_peak in r.t_events[0]:
+            assert abs(K.NODE_BALANCE(t_peak, r.sol(t_peak), p)) <= 1e-6 * c.i0
