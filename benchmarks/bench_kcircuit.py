@@ -29,7 +29,7 @@ from wide_range import draw
 from kickback.caseio import load_case
 from kickback.circuit import Circuit
 from kickback.engine import kcircuit as K
-c = Circuit(load_case(draw(46).text, source='case 46')); p = K.pack(c); y = c.initial_state()
+c = Circuit(load_case(draw(46).text, source='case 46')); p = K.pack(c, np.ones(c.n_states)); y = c.initial_state()
 K.RHS(0.0, y, p); K.JAC(0.0, y, p); K.NODE_BALANCE(0.0, y, p); K.PIN_RELEASE(0.0, y, p)
 print('%.2f s wall, %.2f s CPU' % (time.perf_counter() - t0, time.process_time() - c0))
 """

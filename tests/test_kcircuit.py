@@ -168,7 +168,7 @@ def _series_voltage(i, w=None):
 
 def test_series_chain_against_brentq():
     c = Circuit(load_case(_CHAIN_CASE, source="chain test"))
-    p = K.pack(c)
+    p = K.pack(c, np.ones(c.n_states))  # no JAC here: any scales
     o = int(p[K.HEAD])
     assert int(p[o]) == kchain.CH_NUMERIC
     i_s = 3e-9
@@ -237,7 +237,7 @@ def _cases():
     out = []
     for s in SEEDS:
         c = Circuit(load_case(draw(s).text, source=f"wide-range case {s}"))
-        if K.supported(c) is None:
+        if c.capacitive and K.supported(c) is None:  # the algebraic node: tests/test_knode.py
             out.append((s, c))
     return out
 
@@ -367,18 +367,27 @@ def test_jac_against_central_difference(drawn):
 
 
 def test_supported_names_what_is_not_covered():
+    from kickback.circuit import FLOAT
+
+    # an algebraic node (no node capacitance) is covered (tests/test_knode.py), free, held or
+    # floating; a capacitive node has no floating mode
     text = _CHAIN_CASE.replace('capacitance = "100 pF"\n', "")
     c = Circuit(load_case(text, source="no node capacitance"))
-    assert K.supported(c) == "no node capacitance (algebraic node)"
-    with pytest.raises(ValueError, match="algebraic node"):
-        K.pack(c)
+    assert not c.capacitive and K.supported(c) is None
+    c = Circuit(load_case(_CHAIN_CASE, source="capacitive"))
+    c.pin = FLOAT
+    assert K.supported(c) == "floating mode of a capacitive node"
+    with pytest.raises(ValueError, match="floating mode"):
+        K.pack(c, np.ones(c.n_states))
 
 
 def test_cache_follows_the_called_modules():
     # numba keys a cached function by its own file only; the compiled circuit's cache must also
-    # follow the files it calls into (an edit of kchain.py or klaws.py recompiles RHS)
+    # follow the files it calls into (an edit of kchain.py, klaws.py, kbase.py, knode.py or
+    # kfloat.py recompiles RHS)
     from kickback.engine import kcache
 
+    assert set(kcache.DEPENDS["kcircuit.py"]) == {"kbase.py", "knode.py", "kfloat.py", "kchain.py", "klaws.py"}
     for fn in (K.RHS, K.JAC, kchain.chain_current):
         locator = fn._cache._impl._locator
         assert type(locator).__name__ in ("TreeLocator", "UserDirLocator")
@@ -386,7 +395,7 @@ def test_cache_follows_the_called_modules():
     import os
 
     h = hashlib.sha256()
-    for name in ("kcircuit.py", "kchain.py", "klaws.py"):
+    for name in ("kcircuit.py", *kcache.DEPENDS["kcircuit.py"]):
         with open(os.path.join(os.path.dirname(K.__file__), name), "rb") as f:
             h.update(f.read())
     assert K.RHS._cache._impl._locator.get_source_stamp() == h.digest()

@@ -19,7 +19,10 @@ import os
 _HERE = os.path.dirname(os.path.abspath(__file__))
 #: file -> the files (same folder) whose compiled functions it calls
 DEPENDS = {
-    "kcircuit.py": ("kchain.py", "klaws.py"),
+    "kcircuit.py": ("kbase.py", "knode.py", "kfloat.py", "kchain.py", "klaws.py"),
+    "knode.py": ("kbase.py", "kfloat.py", "kchain.py", "klaws.py"),
+    "kfloat.py": ("kbase.py", "kchain.py", "klaws.py"),
+    "kbase.py": ("kchain.py", "klaws.py"),
     "kchain.py": ("klaws.py",),
 }
 REGISTERED = False

@@ -11,8 +11,11 @@ current at turn-off — lives in slots written by :func:`set_mode` before each p
 :meth:`Circuit.jacobian` and the energy rows by the same forward differences, with the runner's
 state scales); :func:`NODE_BALANCE` and :func:`PIN_RELEASE` are the node-balance event
 (``PhaseRunner.ev_peak``) and the pin's release event (``PhaseRunner._release_events``).
-Scope: a capacitive node (``C_node > 0``); :func:`supported` names what is not covered.
-The element laws are :mod:`kickback.engine.klaws`, the chains :mod:`kickback.engine.kchain`.
+Scope: a capacitive node (``C_node > 0``) free or pinned, and an algebraic one (no node
+capacitance: :mod:`kickback.engine.knode`) free, pinned or floating (:mod:`kickback.engine.kfloat`);
+:func:`supported` names what is not covered. The layout and shared functions are
+:mod:`kickback.engine.kbase`, the element laws :mod:`kickback.engine.klaws`, the chains
+:mod:`kickback.engine.kchain`.
 """
 
 from __future__ import annotations
@@ -21,64 +24,102 @@ import math
 
 import numpy as np
 
-from kickback.engine import kcache, radau5
-from kickback.engine.kchain import chain_conductance, chain_current, chain_powers, chain_record
-from kickback.engine.klaws import pieces_record, pwl_current, pwl_slope, pymax
+from kickback.engine import kbase, kcache, kfloat, knode, radau5
+from kickback.engine.kbase import (  # noqa: F401 - the layout's names, re-exported
+    C_GND,
+    C_NODE,
+    C_PLUS,
+    CAPACITIVE,
+    CONDUCTING,
+    FALL,
+    FLUX,
+    G_LEAK,
+    HEAD,
+    I0,
+    I_ON,
+    I_SAT,
+    IE,
+    INERTIA,
+    IW,
+    K_EMF,
+    L_,
+    LOAD,
+    MAGIC,
+    MAGIC_VALUE,
+    MECH,
+    MOTOR,
+    N_AFTER,
+    N_CHAINS,
+    N_DURING,
+    N_ENERGY_FIXED,
+    N_SLOTS,
+    N_STATES,
+    OFF,
+    ON,
+    PIN_ACTIVE,
+    PIN_FLOAT,
+    PIN_N,
+    PIN_SIDE,
+    PIN_V,
+    R_,
+    SCALE,
+    SPEED,
+    T_TURNOFF,
+    THR_AFTER,
+    THR_DURING,
+    V_SCALE,
+    VISC,
+    VS,
+    _chain_off,
+    _in_fall,
+    _limit,
+    _sum,
+    _vcap,
+    coil_current,
+    conductances,
+    currents_at,
+    emf_of,
+    state_gain,
+)
+from kickback.engine.kchain import chain_powers, chain_record
+from kickback.engine.klaws import pieces_record, pymax
 from kickback.engine.radau5_jit import jit
 from kickback.models import ShockleyDiode, Varistor
 
-kcache.register()  # the cache of these functions follows kchain.py and klaws.py too
-
-# header slots of the parameter array
-N_STATES, L_, R_, VS, FLUX, I_SAT, MOTOR, K_EMF, MECH, SPEED, VISC, LOAD, INERTIA = range(13)
-C_PLUS, C_GND, C_NODE, IW, IE = range(13, 18)
-ON, OFF = 18, 22  # four floats each: v_fwd, r_fwd, v_rev, r_rev
-FALL, G_LEAK, N_CHAINS, N_SLOTS = 26, 27, 28, 29
-#: mode slots (set_mode)
-CONDUCTING, T_TURNOFF, I_ON, PIN_ACTIVE, PIN_V, PIN_N, PIN_SIDE = 30, 31, 32, 33, 34, 35, 36
-SCALE, CAPACITIVE, MAGIC = 37, 38, 39
-#: header length; the chain offsets follow it, then the chain records, then the state scales
-HEAD = 40
-MAGIC_VALUE = 18.1  # issue 18, step 1: layout version
-N_ENERGY_FIXED = 5
+kcache.register()  # the cache of these functions follows the modules they call into
 
 
 def supported(circuit) -> str | None:
     """None when the compiled equations cover ``circuit``, else the reason why not."""
     from kickback.floatnode import FLOAT
 
-    if not circuit.capacitive:
-        return "no node capacitance (algebraic node)"
-    if circuit.pin is FLOAT or circuit.floating:
-        return "floating node mode"
+    if circuit.capacitive and circuit.pin is FLOAT:
+        return "floating mode of a capacitive node"
     for k in circuit.active_chains:
         for law in circuit.chains[k].laws:
             if law is not None and law.pieces() is None and not isinstance(law, ShockleyDiode | Varistor):
                 return f"element law {type(law).__name__} has no compiled form"
-    if circuit.pin is not None and not 0 <= circuit.pin[1] < 2 + len(circuit.active_chains):
+    pin = circuit.pin
+    if pin is not None and pin is not FLOAT and not 0 <= pin[1] < 2 + len(circuit.active_chains):
         return "pin on an unknown branch"
     return None
 
 
-def pack(circuit, scale=None) -> np.ndarray:
+def pack(circuit, scale) -> np.ndarray:
     """Every constant of the state equations of ``circuit`` as a float64 array (mode slots set
     from the circuit's present mode).
 
     Parameters
     ----------
     circuit : kickback.circuit.Circuit
-    scale : array_like, optional
+    scale : array_like
         ``PhaseRunner.scale`` (the states' scales, max(atol/rtol, 1e-300)) for the forward
-        differences of JAC's energy rows; default the runner's at rtol = 1e-8.
+        differences of JAC's energy rows.
     """
     why = supported(circuit)
     if why is not None:
         raise ValueError(f"the compiled circuit does not cover this case: {why}")
     c = circuit
-    if scale is None:
-        from kickback.engine.detailed import tolerances
-
-        scale = np.maximum(tolerances(c, 1e-8) / 1e-8, 1e-300)
     scale = np.asarray(scale, dtype=float)
     m = c.motor
     head = np.zeros(HEAD)
@@ -97,7 +138,8 @@ def pack(circuit, scale=None) -> np.ndarray:
     head[OFF:OFF + 4] = pieces_record(c.switch.off_state)
     head[FALL], head[G_LEAK] = c.switch.fall_time, c.g_leak
     head[N_CHAINS], head[N_SLOTS] = len(c.active_chains), len(c.energy_slots)
-    head[CAPACITIVE], head[MAGIC] = 1.0, MAGIC_VALUE
+    head[CAPACITIVE], head[MAGIC] = float(c.capacitive), MAGIC_VALUE
+    head[I0], head[V_SCALE] = c.i0, c.v_scale
     records = []
     offsets = []
     pos = HEAD + len(c.active_chains)
@@ -107,8 +149,16 @@ def pack(circuit, scale=None) -> np.ndarray:
         offsets.append(float(pos))
         records += rec
         pos += len(rec)
+    # the algebraic node's vertical voltages as nodebalance.solve_monotone sorts them
+    thr = []
+    for key, (o_slot, n_slot) in ((False, (THR_AFTER, N_AFTER)), (True, (THR_DURING, N_DURING))):
+        xs = sorted({float(x) for x in c._thresholds[key] if math.isfinite(x)})
+        head[o_slot], head[n_slot] = pos, len(xs)
+        thr += xs
+        pos += len(xs)
     head[SCALE] = pos
-    p = np.concatenate([head, np.array(offsets), np.array(records, dtype=float), scale[:c.ie]])
+    p = np.concatenate([head, np.array(offsets), np.array(records, dtype=float), np.array(thr, dtype=float),
+                        scale[:c.ie]])
     set_mode(p, c)
     return p
 
@@ -122,118 +172,43 @@ def set_mode(p: np.ndarray, circuit) -> None:
     p[T_TURNOFF] = c.t_turnoff
     p[I_ON] = c.i_on
     if c.pin is FLOAT:
-        raise ValueError("the compiled circuit does not cover the floating node mode")
-    if c.pin is None:
+        if c.capacitive:
+            raise ValueError("the compiled circuit does not cover the floating mode of a capacitive node")
+        p[PIN_ACTIVE], p[PIN_V], p[PIN_N], p[PIN_SIDE] = PIN_FLOAT, 0.0, 0.0, 0.0
+    elif c.pin is None:
         p[PIN_ACTIVE], p[PIN_V], p[PIN_N], p[PIN_SIDE] = 0.0, 0.0, -1.0, 0.0
     else:
         p[PIN_ACTIVE], p[PIN_V], p[PIN_N], p[PIN_SIDE] = 1.0, c.pin[0], float(c.pin[1]), float(c.pin[2])
 
 
-# --------------------------------------------------------------------------- coil and switch
-@jit
-def coil_current(p, x):
-    """CoilStates.coil_current of the first state [A] (the current, or from the flux linkage,
-    continued linearly past 0.999·L·I_sat)."""
-    if p[FLUX] == 0.0:
-        return x
-    if math.isnan(x):
-        return math.nan
-    L, i_sat = p[L_], p[I_SAT]
-    lam_max = 0.999 * L * i_sat
-    xc = x
-    if -lam_max > xc:
-        xc = -lam_max
-    if xc > lam_max:
-        xc = lam_max
-    den = L * i_sat - abs(xc)
-    ic = xc * i_sat / den if den > 0 else math.copysign(math.inf, xc)
-    if x == xc:
-        return ic
-    return ic + (x - xc) / (L / (1.0 + abs(ic) / i_sat) ** 2)
-
-
-@jit
-def state_gain(p, i):
-    """CoilStates.state_gain: (di/dx0, dx0/dt per volt)."""
-    if p[FLUX] == 0.0:
-        return 1.0, 1.0 / p[L_]
-    return 1.0 / (p[L_] / (1.0 + abs(i) / p[I_SAT]) ** 2), 1.0
-
-
-@jit
-def _in_fall(p, t):
-    tf = p[FALL]
-    return 0 < tf and 0 <= t - p[T_TURNOFF] < tf
-
-
-@jit
-def _limit(p, t):
-    return p[I_ON] * (1.0 - (t - p[T_TURNOFF]) / p[FALL])
-
-
-@jit
-def _chain_off(p, n):
-    return int(p[HEAD + n])
-
-
-@jit
-def _vcap(p, o, y):
-    ic = int(p[o + 2])
-    return y[ic] if ic >= 0 else 0.0
-
-
-@jit
-def currents_at(p, t, v, y):
-    """Circuit.currents_at: channel (with leakage), off-state, then each active chain [A]."""
-    nc = int(p[N_CHAINS])
-    vals = np.empty(2 + nc)
-    on = pwl_current(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
-    if p[CONDUCTING] != 0.0:
-        ich = on
-    elif _in_fall(p, t):
-        lim = _limit(p, t)
-        ich = lim if lim < on else on
-    else:
-        ich = 0.0
-    vals[0] = ich + p[G_LEAK] * v
-    vals[1] = pwl_current(p[OFF], p[OFF + 1], p[OFF + 2], p[OFF + 3], v)
-    for n in range(nc):
-        o = _chain_off(p, n)
-        vals[2 + n] = chain_current(p, o, v - p[VS] * p[o + 1], _vcap(p, o, y))
-    return vals
-
-
-@jit
-def _sum(vals):
-    s = 0.0
-    for x in vals:
-        s += x
-    return s
-
-
 # --------------------------------------------------------------------------- equations
 @jit
 def rhs_core(t, y, p):
-    """Circuit.rhs of a capacitive node."""
+    """Circuit.rhs: a capacitive node (v = y[1]) or an algebraic one (v solved, pinned or
+    floating: :mod:`kickback.engine.knode`)."""
     i = coil_current(p, y[0])
-    v = y[1]
-    vals = currents_at(p, t, v, y)
+    capacitive = p[CAPACITIVE] != 0.0
     pinned = int(p[PIN_N]) if p[PIN_ACTIVE] != 0.0 else -1
-    if pinned >= 0:
-        vals[pinned] = 0.0
-        vals[pinned] = i - _sum(vals)
+    if capacitive:
+        v = y[1]
+        vals = currents_at(p, t, v, y)
+        if pinned >= 0:
+            vals[pinned] = 0.0
+            vals[pinned] = i - _sum(vals)
+    else:
+        v = knode.node_voltage(p, t, y)
+        vals = knode.split_currents(p, t, v, y, i)
     d = np.zeros_like(y)
-    emf = 0.0
-    if p[MOTOR] != 0.0:
-        emf = p[K_EMF] * (y[int(p[IW])] if p[MECH] != 0.0 else p[SPEED])
+    emf = emf_of(p, y)
     d[0] = (p[VS] - v - p[R_] * i - emf) * state_gain(p, i)[1]
     if p[MOTOR] != 0.0:
         d[d.size - 1] = emf * i
         if p[MECH] != 0.0:
             iw = int(p[IW])
             d[iw] = (p[K_EMF] * i - p[VISC] * y[iw] - p[LOAD]) / p[INERTIA]
-    dv = (i - _sum(vals)) / p[C_NODE] if pinned < 0 else 0.0
-    d[1] = dv
+    dv = (i - _sum(vals)) / p[C_NODE] if capacitive and pinned < 0 else 0.0
+    if capacitive:
+        d[1] = dv
     i_supply = i - p[C_PLUS] * dv
     nc = int(p[N_CHAINS])
     for n in range(nc):
@@ -261,21 +236,14 @@ def rhs_core(t, y, p):
 
 @jit
 def jac_dynamic(t, y, p):
-    """Circuit.jacobian of a capacitive node: the analytic dynamic block, energy rows zero."""
+    """Circuit.jacobian: the analytic dynamic block, energy rows zero."""
     n = y.size
     jm = np.zeros((n, n))
+    if p[CAPACITIVE] == 0.0:
+        return knode.jac_algebraic(t, y, p, jm)
     v = y[1]
     nc = int(p[N_CHAINS])
-    g = np.empty(2 + nc)
-    g_ch = p[G_LEAK]
-    if p[CONDUCTING] != 0.0 or (_in_fall(p, t) and pwl_current(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
-                                < _limit(p, t)):
-        g_ch += pwl_slope(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
-    g[0] = g_ch
-    g[1] = pwl_slope(p[OFF], p[OFF + 1], p[OFF + 2], p[OFF + 3], v)
-    for k in range(nc):
-        o = _chain_off(p, k)
-        g[2 + k] = chain_conductance(p, o, v - p[VS] * p[o + 1], _vcap(p, o, y))
+    g = conductances(p, t, v, y)
     pinned = p[PIN_ACTIVE] != 0.0
     if pinned:
         g[int(p[PIN_N])] = math.inf
@@ -352,3 +320,16 @@ def PIN_RELEASE(t, y, p):  # noqa: N802 - the contract's name
     vals = currents_at(p, t, p[PIN_V], y)
     vals[int(p[PIN_N])] = 0.0
     return p[PIN_SIDE] * (coil_current(p, y[0]) - _sum(vals))
+
+
+# the algebraic node's functions the floating events read (PhaseRunner._float_events), for a
+# compiled event function: NODE_VOLTAGE(p, t, y), FORCED_VOLTAGE(p, t, y),
+# NODE_CONDUCTANCE(p, t, v, y), FLOAT_LIMIT(p, t, v, y, di), FLOAT_RESIDUAL(p, t, y),
+# EDGE_MARGIN(p, t, y, di), FORCED_SLOPE(p, t) (di: PhaseRunner.float_tolerance)
+NODE_VOLTAGE = knode.node_voltage
+FORCED_VOLTAGE = kfloat.forced_voltage
+NODE_CONDUCTANCE = kbase.node_conductance
+FLOAT_LIMIT = kfloat.float_limit
+FLOAT_RESIDUAL = kfloat.float_residual
+EDGE_MARGIN = kfloat.edge_margin
+FORCED_SLOPE = kfloat.forced_slope
