@@ -5,8 +5,11 @@ Run from the repository top:  PYTHONPATH=$PWD python benchmarks/bench_kcircuit.p
 For a few wide-range draws (tests/wide_range.py, demo data): ``Circuit.rhs`` and
 ``PhaseRunner.jac`` against ``kcircuit.RHS`` and ``JAC`` called from Python, and ``rhs_core`` /
 ``jac_core`` called inside compiled code (as radau5's loop calls them), at a state with the node
-past the supply (the clamps conducting). ``--compile``: the first compile (an empty numba cache
-folder) and the load from the cache, each in a fresh process, imports included.
+past the supply (the clamps conducting); a node without capacitance (``--algebraic``: the draws
+whose node is algebraic) at the on-state's coil current with the switch off, where the node
+voltage is solved from the balance (the clamps taking the current). ``--compile``: the first
+compile (an empty numba cache folder) and the load from the cache, each in a fresh process,
+imports included.
 """
 
 from __future__ import annotations
@@ -25,6 +28,7 @@ _COMPILE = """
 import time
 t0, c0 = time.perf_counter(), time.process_time()
 import sys; sys.path.insert(0, 'tests')
+import numpy as np
 from wide_range import draw
 from kickback.caseio import load_case
 from kickback.circuit import Circuit
@@ -44,8 +48,9 @@ def per_call(fn, n):
 
 def main() -> None:
     ap = argparse.ArgumentParser()
-    ap.add_argument("seeds", nargs="*", type=int, default=[46, 322, 4361, 25, 117, 19])
+    ap.add_argument("seeds", nargs="*", type=int)
     ap.add_argument("--compile", action="store_true")
+    ap.add_argument("--algebraic", action="store_true", help="the draws with an algebraic node")
     args = ap.parse_args()
     if args.compile:
         with tempfile.TemporaryDirectory() as d:
@@ -63,8 +68,13 @@ def main() -> None:
     from kickback.engine import kcircuit as K
     from kickback.engine.detailed import PhaseRunner
 
+    seeds = args.seeds
+    if args.algebraic and not seeds:
+        seeds = [0, 1, 15, 72, 74, 113, 135, 158]
+    elif not seeds:
+        seeds = [46, 322, 4361, 25, 117, 19]
     print("per call [µs]: Python rhs, RHS from Python, rhs in compiled code; Python jac, JAC, jac in compiled code")
-    for s in args.seeds:
+    for s in seeds:
         c = Circuit(load_case(draw(s).text, source=f"case {s}"))
         if K.supported(c):
             print(f"{s:>6}  refused: {K.supported(c)}")
@@ -72,7 +82,9 @@ def main() -> None:
         pr = PhaseRunner(c, 1e-8, c.initial_state())
         r, j = time_case(c, pr, K.pack(c, pr.scale))
         kinds = ",".join(str(kchain.chain_kind(c.chains[k])) for k in c.active_chains)
-        print(f"{s:>6}  chains {kinds:<6} n={c.n_states:<3} rhs {r[0]*1e6:6.2f} {r[1]*1e6:6.2f} {r[2]*1e6:6.3f}"
+        node = "C" if c.capacitive else "alg"
+        print(f"{s:>6} {node:<3} chains {kinds:<6} n={c.n_states:<3} "
+              f"rhs {r[0]*1e6:6.2f} {r[1]*1e6:6.2f} {r[2]*1e6:6.3f}"
               f"   jac {j[0]*1e6:6.1f} {j[1]*1e6:6.2f} {j[2]*1e6:6.3f}")
 
 
@@ -97,7 +109,12 @@ def time_case(c, pr, p):
         return s
 
     y = c.initial_state()
-    y[1] = 1.3 * c.Vs + 5.0  # past the supply: the clamps conduct
+    if c.capacitive:
+        y[1] = 1.3 * c.Vs + 5.0  # past the supply: the clamps conduct
+    else:
+        c.conducting = False  # switch off at t = 0 with no fall: the clamps take the coil current
+        c.t_turnoff = -1.0
+        K.set_mode(p, c)
     loop_rhs(0.0, y, p, 10)
     loop_jac(0.0, y, p, 10)
     r = [per_call(lambda: c.rhs(0.0, y), 2000), per_call(lambda: K.RHS(0.0, y, p), 20000),

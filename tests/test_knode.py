@@ -339,3 +339,29 @@ def test_two_vertical_laws_share_what_the_others_leave():
         np.testing.assert_allclose(vals[2:], [half, half], rtol=1e-15)
         assert vals[0] == c.g_leak * 40.0 and vals[1] == 0.0
         np.testing.assert_allclose(K.RHS(0.0, y, p), c.rhs(0.0, y), rtol=1e-15, atol=0.0)
+
+
+@pytest.mark.parametrize("seed", [1, 72, 135])
+def test_radau5_integrates_the_algebraic_node(seed):
+    # the compiled equations of an algebraic node plug into kickback's radau5 and give the
+    # trajectory scipy's Radau gives on Circuit.rhs at a tighter tolerance (scipy as the
+    # reference solver of the same equations); switch off, clamps taking the coil current
+    from scipy.integrate import solve_ivp
+
+    from kickback.engine import radau5
+    from kickback.engine.detailed import tolerances
+
+    c = Circuit(load_case(draw(seed).text, source=f"wide-range case {seed}"))
+    assert not c.capacitive
+    rtol = 1e-8
+    atol = tolerances(c, rtol)
+    pr = PhaseRunner(c, rtol, c.initial_state())
+    c.conducting, c.t_turnoff, c.pin = False, -1.0, None
+    p = K.pack(c, pr.scale)
+    y0 = c.initial_state()
+    t_end = 0.05 * c.L / c.R
+    r = radau5.solve(K.RHS, K.JAC, (0.0, t_end), y0, p, rtol=rtol, atol=atol)
+    assert r.status == 0, r.message
+    ref = solve_ivp(c.rhs, (0.0, t_end), y0, method="Radau", rtol=1e-11, atol=atol * 1e-3, jac=pr.jac)
+    assert ref.status == 0
+    np.testing.assert_array_less(np.abs(r.y[:, -1] - ref.y[:, -1]), 100 * (rtol * np.abs(ref.y[:, -1]) + atol))
