@@ -241,14 +241,14 @@ def test_floating_events_match_the_python_circuit(drawn):
             _set(c, p, False, pin)
             di = pr.float_tolerance(t, y)
             vf = c.forced_voltage(t, y)
-            assert K.FORCED_VOLTAGE(p, t, y) == pytest.approx(vf, rel=1e-13, abs=1e-13 * c.v_scale)
-            assert K.NODE_VOLTAGE(p, t, y) == pytest.approx(c.node_voltage(t, y), rel=1e-13, abs=1e-13 * c.v_scale)
+            assert K.FORCED_VOLTAGE(p, t, y) == pytest.approx(vf, rel=1e-12, abs=1e-13 * c.v_scale)
+            assert K.NODE_VOLTAGE(p, t, y) == pytest.approx(c.node_voltage(t, y), rel=1e-12, abs=1e-13 * c.v_scale)
             assert K.FORCED_SLOPE(p, t) == c.forced_slope(t)
             g_py = c.node_conductance(t, vf, y)
             assert K.NODE_CONDUCTANCE(p, t, vf, y) == pytest.approx(g_py, rel=1e-12)
             assert K.FLOAT_RESIDUAL(p, t, y) == pytest.approx(c.float_residual(t, y), rel=1e-12, abs=1e-13 * c.i0)
-            assert K.FLOAT_LIMIT(p, t, vf, y, di) == pytest.approx(c.float_limit(t, vf, y, di), rel=1e-9)
-            assert K.EDGE_MARGIN(p, t, y, di) == pytest.approx(c.edge_margin(t, y, di), rel=1e-9, abs=1e-12)
+            assert K.FLOAT_LIMIT(p, t, vf, y, di) == pytest.approx(c.float_limit(t, vf, y, di), rel=1e-12)
+            assert K.EDGE_MARGIN(p, t, y, di) == pytest.approx(c.edge_margin(t, y, di), rel=1e-12, abs=1e-12)
             checked += 1
     assert checked > 100
 
@@ -365,3 +365,40 @@ def test_radau5_integrates_the_algebraic_node(seed):
     ref = solve_ivp(c.rhs, (0.0, t_end), y0, method="Radau", rtol=1e-11, atol=atol * 1e-3, jac=pr.jac)
     assert ref.status == 0
     np.testing.assert_array_less(np.abs(r.y[:, -1] - ref.y[:, -1]), 100 * (rtol * np.abs(ref.y[:, -1]) + atol))
+
+
+def test_floating_events_match_the_phase_runner(drawn):
+    # the compiled entry and landing events against PhaseRunner._float_events' closures
+    checked = 0
+    for s, c in drawn:
+        if not c.switch.fall_time > 0:
+            continue
+        rtol = 1e-8
+        pr = PhaseRunner(c, rtol, c.initial_state())
+        p = K.pack(c, pr.scale)
+        rng = np.random.default_rng([s, 22])
+        tf = c.switch.fall_time
+        for y, _, _, _ in _states(c, pr, rng):
+            t = tf * rng.uniform(0.0, 1.0)
+            pr.t, pr.y, pr.no_float = t, y, False  # as PhaseRunner.run sets it
+            pr.float_hold = t - tf * rng.uniform(-0.1, 1.0)
+            pr.float_gate = t + tf * rng.uniform(-1.0, 1.0)
+            _set(c, p, False, None)
+            (g,) = pr._float_events()
+            v = K.NODE_VOLTAGE(p, t, y)
+            band = 10.0 * rtol * c.v_scale
+            got = K.FLOAT_ENTRY(p, t, y, v, pr.float_hold, pr.float_gate, band, pr.float_entry, rtol, pr.atol[0])
+            assert got == pytest.approx(g(t, y), rel=1e-12, abs=1e-12), s
+            assert K.FLOAT_TOLERANCE(p, t, y, rtol, pr.atol[0]) == pytest.approx(pr.float_tolerance(t, y), rel=1e-15)
+            _set(c, p, False, FLOAT)
+            evs = pr._float_events()
+            assert len(evs) == 4  # two drifts, the rise, the edge (a current fall)
+            di = K.FLOAT_TOLERANCE(p, t, y, rtol, pr.atol[0])
+            for sign, ev in zip((1, -1), evs[:2], strict=True):
+                want = ev(t, y)
+                assert sign * K.FLOAT_RESIDUAL(p, t, y) - pr.land_residual == pytest.approx(
+                    want, rel=1e-12, abs=1e-13 * c.i0), s
+            assert K.FLOAT_RISE(p, t, y, rtol, pr.atol[0]) == pytest.approx(evs[2](t, y), rel=1e-12, abs=1e-12), s
+            assert K.EDGE_MARGIN(p, t, y, di) == pytest.approx(evs[3](t, y), rel=1e-12, abs=1e-12), s
+            checked += 1
+    assert checked > 100

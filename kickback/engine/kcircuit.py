@@ -325,7 +325,10 @@ def PIN_RELEASE(t, y, p):  # noqa: N802 - the contract's name
 # the algebraic node's functions the floating events read (PhaseRunner._float_events), for a
 # compiled event function: NODE_VOLTAGE(p, t, y), FORCED_VOLTAGE(p, t, y),
 # NODE_CONDUCTANCE(p, t, v, y), FLOAT_LIMIT(p, t, v, y, di), FLOAT_RESIDUAL(p, t, y),
-# EDGE_MARGIN(p, t, y, di), FORCED_SLOPE(p, t) (di: PhaseRunner.float_tolerance)
+# EDGE_MARGIN(p, t, y, di), FORCED_SLOPE(p, t) (di: PhaseRunner.float_tolerance, which is
+# FLOAT_TOLERANCE(p, t, y, rtol, atol0)); the events themselves: FLOAT_ENTRY(p, t, y, v, hold, gate,
+# band, entry, rtol, atol0) (v = NODE_VOLTAGE) and FLOAT_RISE(p, t, y, rtol, atol0); the drift
+# events are ±FLOAT_RESIDUAL − eps, the edge event EDGE_MARGIN (see s10/kernel_E.md)
 NODE_VOLTAGE = knode.node_voltage
 FORCED_VOLTAGE = kfloat.forced_voltage
 NODE_CONDUCTANCE = kbase.node_conductance
@@ -333,3 +336,6 @@ FLOAT_LIMIT = kfloat.float_limit
 FLOAT_RESIDUAL = kfloat.float_residual
 EDGE_MARGIN = kfloat.edge_margin
 FORCED_SLOPE = kfloat.forced_slope
+FLOAT_TOLERANCE = kfloat.float_tolerance
+FLOAT_ENTRY = kfloat.entry_level
+FLOAT_RISE = kfloat.rise_level

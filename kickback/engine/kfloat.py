@@ -132,3 +132,37 @@ def edge_margin(p, t, y, di):
     return pymin(a, (lim - gf) / (lim + gf))
 
 
+
+
+# --------------------------------------------------------------------------- the engine's events
+@jit
+def float_tolerance(p, t, y, rtol, atol0):
+    """PhaseRunner.float_tolerance [A]: rtol·|i| + atol_0·di/dx0 during a current fall, else 0
+    (``atol0``: the runner's absolute tolerance of the first state)."""
+    if not forced_slope(p, t):
+        return 0.0
+    i = coil_current(p, y[0])
+    return rtol * abs(i) + atol0 * state_gain(p, i)[0]
+
+
+@jit
+def entry_level(p, t, y, v, hold, gate, band, entry, rtol, atol0):
+    """The floating mode's entry event of PhaseRunner._float_events (node free; v: its voltage):
+    (G − g_lim)/(G + g_lim), g_lim = ``entry`` × float_limit; 1 before ``hold``, and before
+    ``gate`` while the forced voltage is more than ``band`` [V] off v, and on a vertical law."""
+    if t < hold:
+        return 1.0
+    if t < gate and abs(forced_voltage(p, t, y) - v) > band:
+        return 1.0
+    G = node_conductance(p, t, v, y)
+    g_lim = entry * float_limit(p, t, v, y, float_tolerance(p, t, y, rtol, atol0))
+    return 1.0 if not math.isfinite(G) else (G - g_lim) / (G + g_lim)
+
+
+@jit
+def rise_level(p, t, y, rtol, atol0):
+    """The landing event of a floating node whose conductance rises (PhaseRunner's g_rise)."""
+    v = forced_voltage(p, t, y)
+    G = node_conductance(p, t, v, y)
+    g_lim = FLOAT_LANDING * float_limit(p, t, v, y, float_tolerance(p, t, y, rtol, atol0))
+    return 1.0 if not math.isfinite(G) else (G - g_lim) / (G + g_lim)
