@@ -63,7 +63,9 @@ def _states(c, pr, rng):
             # there sits on the kink, one side of which may hold only the leakage
             c.conducting, c.t_turnoff = conducting, 0.0
             knee = knees[int(rng.integers(len(knees)))]
-            y[0] = c.coil_state(sum(x for x in c.currents_at(t, knee, y) if math.isfinite(x)))
+            i_knee = sum(x for x in c.currents_at(t, knee, y) if math.isfinite(x))
+            if abs(i_knee) <= 1e3 * c.i0:  # not a diode's overflowing current past its knee
+                y[0] = c.coil_state(i_knee)
         pin = None
         kind = (trial // 4) % 3  # free, held, floating: each with every switch mode
         if kind == 1 and c.pin_points:
@@ -89,14 +91,12 @@ def _set(c, p, conducting, pin):
     K.set_mode(p, c)
 
 
-def _terms(c, t, y, f, v, dv):
+def _terms(c, t, y, f, v):
     """Size of each rate's terms at state y (the magnitudes it adds up, so that a rate that is a
     small difference of large terms is compared at their rounding), written here from the state
-    equations (DESIGN.md: node balance, coil voltage); the branch currents widened by
-    G_k·|dv|, the change a node voltage off by dv makes."""
+    equations (DESIGN.md: node balance, coil voltage)."""
     i = float(c.coil_current(y[0]))
-    g = [x if math.isfinite(x) else 0.0 for x in c._conductances(t, v, y)]
-    vals = np.abs(c.split_currents(t, v, y)[0:2] + tuple(c.split_currents(t, v, y)[2])) + np.abs(g) * dv
+    vals = np.abs(c.split_currents(t, v, y)[0:2] + tuple(c.split_currents(t, v, y)[2]))
     i_s = [sum(law.i_s for law in c.chains[k].laws if isinstance(law, ShockleyDiode)) for k in c.active_chains]
     vals = vals + np.array([0.0, 0.0, *i_s])
     # a branch that takes what the others leave (held, floating: the channel; a vertical law)
@@ -108,24 +108,49 @@ def _terms(c, t, y, f, v, dv):
     out = np.abs(f).astype(float)
     emf = c.k_emf * c.speed_of(y) if c.motor else 0.0
     gain = c.state_gain(i)[1] if c.flux else 1.0 / c.L
-    out[0] = (abs(c.Vs) + abs(v) + dv + abs(c.R * i) + abs(emf) + abs(f[0] / gain)) * gain
+    out[0] = (abs(c.Vs) + abs(v) + abs(c.R * i) + abs(emf) + abs(f[0] / gain)) * gain
+    return out + _branch_sizes(c, y, v, vals, 0.0)
+
+
+def _branch_sizes(c, y, v, d, dv):
+    """The rates' sizes from branch current sizes d [A] (and a node voltage change dv [V] times
+    the currents themselves, at v): capacitor rates, supply, channel, off-state, element powers."""
+    out = np.zeros(c.n_states)
+    cur = np.abs(c.split_currents(0.0, v, y)[0:2] + tuple(c.split_currents(0.0, v, y)[2])) if dv else 0 * d
     for n, k in enumerate(c.active_chains):
         if k in c.icap:
-            out[c.icap[k]] += vals[2 + n] / c.chains[k].capacitance
+            out[c.icap[k]] += d[2 + n] / c.chains[k].capacitance
     e = c.ie
-    out[e + 1] = abs(c.Vs) * (abs(i) + sum(vals[2 + n] for n, k in enumerate(c.active_chains)
-                                           if c.chains[k].reference))
-    out[e + 2] += (abs(v) + dv) * vals[0]
-    out[e + 3:e + 5] += (abs(v) + dv) * vals[1]
+    out[e + 1] = abs(c.Vs) * sum(d[2 + n] for n, k in enumerate(c.active_chains) if c.chains[k].reference)
+    out[e + 2] += abs(v) * d[0] + dv * cur[0]
+    out[e + 3:e + 5] += abs(v) * d[1] + dv * cur[1]
     m = e + 5
     for n, k in enumerate(c.active_chains):
         ch = c.chains[k]
         vcap = y[c.icap[k]] if k in c.icap else 0.0
         nl = sum(law is not None for law in ch.laws)
         band = sum(abs(x) for x in ch.band if math.isfinite(x))
-        out[m:m + nl] += (abs(v - c.Vs * ch.reference) + dv + abs(vcap) + band) * vals[2 + n]
+        out[m:m + nl] += (abs(v - c.Vs * ch.reference) + abs(vcap) + band) * d[2 + n] + dv * cur[2 + n]
         m += nl
     return out
+
+
+def _tolerance(c, t, y, f, v, dv):
+    """The rates' tolerance: 1e-12 of their terms' size, and the change a node voltage off by dv
+    makes (each branch by G_k·dv, G_k the largest conductance within dv of v: a knee may lie
+    between the two voltages; the branch that takes what the others leave by their sum)."""
+    tol = 1e-12 * _terms(c, t, y, f, v)
+    if not dv:
+        return tol
+    gs = [c._conductances(t, v + d, y) for d in (-dv, 0.0, dv)]
+    g = np.array([max(abs(x) if math.isfinite(x) else 0.0 for x in col) for col in zip(*gs, strict=True)])
+    d = g * dv
+    takers = [c.pin[1]] if c.pin is not None else c._vertical_at(t, v)
+    for n in takers:
+        d[n] = d.sum()
+    shift = _branch_sizes(c, y, v, d, dv)
+    shift[0] = dv * (c.state_gain(float(c.coil_current(y[0])))[1] if c.flux else 1.0 / c.L)
+    return tol + 2 * shift
 
 
 def test_node_solve_against_brentq(drawn):
@@ -154,19 +179,21 @@ def test_node_solve_against_brentq(drawn):
                     break
                 lo, hi = (mid, hi) if b(mid) < 0 else (lo, mid)
             v_k = knode.node_voltage(p, t, y)
-            # the sign change, to the solve's offset either side of a vertical law and the
-            # balance's rounding (ε: a few ulps of its terms; where the balance is flat, as on the
-            # leakage alone, every voltage within ε of zero is a root)
-            tol = 1e-12 * max(1.0, abs(v_k))
+            # the sign change, to the solve's tolerance — its xtol, 1e-14 × its bracket's larger
+            # end (within a few v_scale, its first span, and twice the root), or its offset
+            # 1e-12·max(1, |x|) either side of a law's voltage x — and the balance's rounding
+            # (ε: a few ulps of its terms; where the balance is flat, as on the leakage alone,
+            # every voltage within ε of zero is a root)
+            xtol = 1e-14 * (4 * max(1.0, c.v_scale) + 2 * abs(v_k))
+            if v_k in c._thresholds[conducting or c._in_fall(t)]:
+                xtol = max(xtol, 1e-12 * max(1.0, abs(v_k)))
+            tol = max(xtol, 1e-12 * max(1.0, abs(v_k)))
             eps = 8 * np.finfo(float).eps * (abs(i) + sum(abs(x) for x in c.currents_at(t, v_k, y)
                                                           if math.isfinite(x)))
             assert b(v_k - tol) <= eps and b(v_k + tol) >= -eps, (s, t, lo, hi, v_k)
             # away from the bisection's sign change only where the balance is flat within ε
             # between them (b is nondecreasing: then |b| ≤ ε all along)
             flat += not lo - tol <= v_k <= hi + tol
-            # the solve's xtol is 1e-14 × its bracket's larger end, which lies within a few
-            # v_scale (its first span) and twice the root
-            xtol = 1e-14 * (4 * max(1.0, c.v_scale) + 2 * abs(v_k))
             a, z = v_k - 4 * tol, v_k + 4 * tol
             ba, bz = b(a), b(z)
             if math.isfinite(ba) and math.isfinite(bz) and ba < 0 < bz and bz - ba < 1e-3 * abs(i) + 1e-9 * c.i0:
@@ -174,7 +201,7 @@ def test_node_solve_against_brentq(drawn):
                 # than xtol: brentq's root there
                 if eps / ((bz - ba) / (z - a)) < 0.1 * xtol:
                     want = brentq(b, a, z, xtol=1e-15 * max(1.0, abs(v_k)), rtol=4 * np.finfo(float).eps)
-                    assert v_k == pytest.approx(want, rel=0, abs=xtol), (s, t)
+                    assert v_k == pytest.approx(want, rel=0, abs=xtol), (s, t, v_k, want)
                     brentq_checked += 1
             else:
                 verticals += 1
@@ -184,6 +211,7 @@ def test_node_solve_against_brentq(drawn):
 
 def test_rhs_and_jac_match_the_python_circuit(drawn):
     modes = set()
+    straddled = checked = 0
     for s, c in drawn:
         pr = PhaseRunner(c, 1e-8, c.initial_state())
         p = K.pack(c, pr.scale)
@@ -201,12 +229,17 @@ def test_rhs_and_jac_match_the_python_circuit(drawn):
                        "float" if pin is FLOAT else "pinned" if pin else "vertical" if vert else "free"))
             f_py, f_k = c.rhs(t, y), K.RHS(t, y, p)
             j_py, j_k = pr.jac(t, y), K.JAC(t, y, p)
-            f_scale = _terms(c, t, y, f_py, v_py, dv)
-            np.testing.assert_array_less(np.abs(f_py - f_k), 1e-12 * f_scale + 1e-300, err_msg=f"RHS, case {s}")
+            f_tol = _tolerance(c, t, y, f_py, v_py, dv)
+            np.testing.assert_array_less(np.abs(f_py - f_k), f_tol + 1e-300, err_msg=f"RHS, case {s}")
             if pin is not None and pin is not FLOAT:
                 g = pr._release_events()[0]
                 assert K.PIN_RELEASE(t, y, p) == pytest.approx(g(t, y), rel=1e-12, abs=1e-13 * c.i0)
             n = c.ie
+            if dv and c._conductances(t, v_py, y) != c._conductances(t, v_k, y):
+                # the two node voltages (the solve's tolerance apart) straddle a law's knee,
+                # where the Jacobian jumps: no comparison
+                straddled += 1
+                continue
             j_row = np.max(np.where(np.isfinite(j_py[:n]), np.abs(j_py[:n]), 0.0), axis=1, keepdims=True)
             np.testing.assert_array_less(np.abs(j_py[:n] - j_k[:n]), 1e-12 * np.maximum(np.abs(j_py[:n]), j_row)
                                          + 1e-300, err_msg=f"JAC dynamic block, case {s}")
@@ -217,11 +250,15 @@ def test_rhs_and_jac_match_the_python_circuit(drawn):
                 h = 1e-8 * max(abs(y[j]), pr.scale[j])
                 yp = y.copy()
                 yp[j] += h
-                scale_p = np.maximum(f_scale, _terms(c, t, yp, c.rhs(t, yp), c.node_voltage(t, yp), dv))
-                tol[:, j] += 1e-12 * scale_p[n:] / h
+                vp = c.node_voltage(t, yp)
+                dvp = abs(knode.node_voltage(p, t, yp) - vp)
+                tol_p = np.maximum(f_tol, _tolerance(c, t, yp, c.rhs(t, yp), vp, dvp))
+                tol[:, j] += tol_p[n:] / h
             np.testing.assert_array_less(np.abs(j_py[n:, :n] - j_k[n:, :n]), tol + 1e-300,
                                          err_msg=f"JAC energy rows, case {s}")
             assert not j_k[:, n:].any()
+            checked += 1
+    assert straddled <= 0.01 * checked
     for m in ("conducting", "fall", "off"):
         assert {(m, "free"), (m, "pinned")} <= modes, modes
     assert {("fall", "float"), ("off", "float"), ("off", "vertical")} <= modes, modes
