@@ -1,6 +1,6 @@
 """CPU per call of the compiled circuit (kickback.engine.kcircuit) against the Python circuit.
 
-Run from the repository top:  PYTHONPATH=$PWD python benchmarks/bench_kcircuit.py [SEED ...] [--compile]
+Run from the repository top:  PYTHONPATH=$PWD python benchmarks/bench_kcircuit.py [SEED ...] [--algebraic] [--compile]
 
 For a few wide-range draws (tests/wide_range.py, demo data): ``Circuit.rhs`` and
 ``PhaseRunner.jac`` against ``kcircuit.RHS`` and ``JAC`` called from Python, and ``rhs_core`` /
