@@ -12,7 +12,7 @@ from kickback.chainsolve import SeriesSolve
 from kickback.models import ElementLaw, LinearPieces, ShockleyDiode, Varistor, element_law
 from kickback.models.base import PiecewiseLinearLaw
 
-_NO_REST = LinearPieces(0.0, 0.0, 0.0, 0.0)
+NO_REST = LinearPieces(0.0, 0.0, 0.0, 0.0)
 
 
 def regularized(pieces: LinearPieces, r_min: float) -> LinearPieces:
@@ -166,7 +166,7 @@ class Chain(SeriesSolve):
         if self._smooth is None:
             return self._solve_numeric(float(vx))
         law, rest = self._smooth
-        if rest == _NO_REST:
+        if rest == NO_REST:
             if hasattr(law, "current_at"):  # a lone varistor: its scalar law
                 return law.current_at(float(vx))
             return float(law.current(vx))

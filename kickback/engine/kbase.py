@@ -67,7 +67,13 @@ def state_gain(p, i):
     """CoilStates.state_gain: (di/dx0, dx0/dt per volt)."""
     if p[FLUX] == 0.0:
         return 1.0, 1.0 / p[L_]
-    return 1.0 / (p[L_] / (1.0 + abs(i) / p[I_SAT]) ** 2), 1.0
+    L, i_sat = p[L_], p[I_SAT]
+    lam_max = 0.999 * L * i_sat
+    i_end = lam_max * i_sat / (L * i_sat - lam_max)  # past the law's end: the slope at the end
+    a = abs(i)
+    if a > i_end:
+        a = i_end
+    return 1.0 / (L / (1.0 + a / i_sat) ** 2), 1.0
 
 
 @jit
@@ -79,23 +85,23 @@ def emf_of(p, y):
 
 
 @jit
-def _in_fall(p, t):
+def in_fall(p, t):
     tf = p[FALL]
     return 0 < tf and 0 <= t - p[T_TURNOFF] < tf
 
 
 @jit
-def _limit(p, t):
+def fall_limit(p, t):
     return p[I_ON] * (1.0 - (t - p[T_TURNOFF]) / p[FALL])
 
 
 @jit
-def _chain_off(p, n):
+def chain_off(p, n):
     return int(p[HEAD + n])
 
 
 @jit
-def _vcap(p, o, y):
+def vcap_of(p, o, y):
     ic = int(p[o + 2])
     return y[ic] if ic >= 0 else 0.0
 
@@ -108,16 +114,16 @@ def currents_at(p, t, v, y):
     on = pwl_current(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
     if p[CONDUCTING] != 0.0:
         ich = on
-    elif _in_fall(p, t):
-        lim = _limit(p, t)
+    elif in_fall(p, t):
+        lim = fall_limit(p, t)
         ich = lim if lim < on else on
     else:
         ich = 0.0
     vals[0] = ich + p[G_LEAK] * v
     vals[1] = pwl_current(p[OFF], p[OFF + 1], p[OFF + 2], p[OFF + 3], v)
     for n in range(nc):
-        o = _chain_off(p, n)
-        vals[2 + n] = chain_current(p, o, v - p[VS] * p[o + 1], _vcap(p, o, y))
+        o = chain_off(p, n)
+        vals[2 + n] = chain_current(p, o, v - p[VS] * p[o + 1], vcap_of(p, o, y))
     return vals
 
 
@@ -128,19 +134,19 @@ def conductances(p, t, v, y):
     nc = int(p[N_CHAINS])
     g = np.empty(2 + nc)
     g_ch = p[G_LEAK]
-    if p[CONDUCTING] != 0.0 or (_in_fall(p, t) and pwl_current(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
-                                < _limit(p, t)):
+    if p[CONDUCTING] != 0.0 or (in_fall(p, t) and pwl_current(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
+                                < fall_limit(p, t)):
         g_ch += pwl_slope(p[ON], p[ON + 1], p[ON + 2], p[ON + 3], v)
     g[0] = g_ch
     g[1] = pwl_slope(p[OFF], p[OFF + 1], p[OFF + 2], p[OFF + 3], v)
     for k in range(nc):
-        o = _chain_off(p, k)
-        g[2 + k] = chain_conductance(p, o, v - p[VS] * p[o + 1], _vcap(p, o, y))
+        o = chain_off(p, k)
+        g[2 + k] = chain_conductance(p, o, v - p[VS] * p[o + 1], vcap_of(p, o, y))
     return g
 
 
 @jit
-def _sum(vals):
+def fsum_list(vals):
     """Python's ``sum`` of the values in order (from 0.0)."""
     s = 0.0
     for x in vals:
@@ -159,11 +165,11 @@ def vertical_at(p, t, v):
     vertical at v."""
     nc = int(p[N_CHAINS])
     out = np.zeros(2 + nc, dtype=np.bool_)
-    if p[CONDUCTING] != 0.0 or _in_fall(p, t):
+    if p[CONDUCTING] != 0.0 or in_fall(p, t):
         out[0] = (p[ON + 1] == 0 and _at(v, p[ON])) or (p[ON + 3] == 0 and _at(v, p[ON + 2]))
     out[1] = (p[OFF + 1] == 0 and _at(v, p[OFF])) or (p[OFF + 3] == 0 and _at(v, p[OFF + 2]))
     for n in range(nc):
-        o = _chain_off(p, n)
+        o = chain_off(p, n)
         if int(p[o]) != 0:  # thresholds only of a piecewise-linear chain
             continue
         ref = p[VS] * p[o + 1]
@@ -179,4 +185,4 @@ def node_conductance(p, t, v, y):
     for b in range(g.size):
         if vert[b]:
             g[b] = math.inf
-    return _sum(g)
+    return fsum_list(g)

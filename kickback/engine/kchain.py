@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import math
 
-from kickback.chain import _NO_REST, Chain
+from kickback.chain import NO_REST, Chain
 from kickback.engine import kcache
 from kickback.engine.klaws import (
     LAW_WIDTH,
@@ -59,7 +59,7 @@ def chain_kind(ch: Chain) -> int:
     law, rest = ch._smooth
     if isinstance(law, ShockleyDiode):
         return CH_SHOCKLEY
-    if rest == _NO_REST and hasattr(law, "current_at"):
+    if rest == NO_REST and hasattr(law, "current_at"):
         return CH_VARISTOR
     return CH_SMOOTH_REST
 

@@ -70,16 +70,16 @@ from kickback.engine.kbase import (  # noqa: F401 - the layout's names, re-expor
     V_SCALE,
     VISC,
     VS,
-    _chain_off,
-    _in_fall,
-    _limit,
-    _sum,
-    _vcap,
+    chain_off,
     coil_current,
     conductances,
     currents_at,
     emf_of,
+    fall_limit,
+    fsum_list,
+    in_fall,
     state_gain,
+    vcap_of,
 )
 from kickback.engine.kchain import chain_powers, chain_record
 from kickback.engine.klaws import pieces_record, pymax
@@ -194,7 +194,7 @@ def rhs_core(t, y, p):
         vals = currents_at(p, t, v, y)
         if pinned >= 0:
             vals[pinned] = 0.0
-            vals[pinned] = i - _sum(vals)
+            vals[pinned] = i - fsum_list(vals)
     else:
         v = knode.node_voltage(p, t, y)
         vals = knode.split_currents(p, t, v, y, i)
@@ -206,13 +206,13 @@ def rhs_core(t, y, p):
         if p[MECH] != 0.0:
             iw = int(p[IW])
             d[iw] = (p[K_EMF] * i - p[VISC] * y[iw] - p[LOAD]) / p[INERTIA]
-    dv = (i - _sum(vals)) / p[C_NODE] if capacitive and pinned < 0 else 0.0
+    dv = (i - fsum_list(vals)) / p[C_NODE] if capacitive and pinned < 0 else 0.0
     if capacitive:
         d[1] = dv
     i_supply = i - p[C_PLUS] * dv
     nc = int(p[N_CHAINS])
     for n in range(nc):
-        o = _chain_off(p, n)
+        o = chain_off(p, n)
         ic = vals[2 + n]
         if p[o + 1] != 0.0:
             i_supply -= ic
@@ -228,8 +228,8 @@ def rhs_core(t, y, p):
     d[e + 4] = v * ioff if side < 0 and ioff < 0 else 0.0
     m = e + N_ENERGY_FIXED
     for n in range(nc):
-        o = _chain_off(p, n)
-        chain_powers(p, o, vals[2 + n], v - p[VS] * p[o + 1], _vcap(p, o, y), 2 + n == pinned, d, m)
+        o = chain_off(p, n)
+        chain_powers(p, o, vals[2 + n], v - p[VS] * p[o + 1], vcap_of(p, o, y), 2 + n == pinned, d, m)
         m += int(p[o + 20])
     return d
 
@@ -247,7 +247,7 @@ def jac_dynamic(t, y, p):
     pinned = p[PIN_ACTIVE] != 0.0
     if pinned:
         g[int(p[PIN_N])] = math.inf
-    G = _sum(g)
+    G = fsum_list(g)
     g0, k0 = state_gain(p, coil_current(p, y[0]))
     if p[MECH] != 0.0:
         iw = int(p[IW])
@@ -261,11 +261,11 @@ def jac_dynamic(t, y, p):
         jm[1, 0] = g0 / C
         jm[1, 1] = -G / C
         for k in range(nc):
-            o = _chain_off(p, k)
+            o = chain_off(p, k)
             if int(p[o + 2]) >= 0:
                 jm[1, int(p[o + 2])] = g[2 + k] / C
     for k in range(nc):
-        o = _chain_off(p, k)
+        o = chain_off(p, k)
         ic = int(p[o + 2])
         if ic >= 0:
             gk, ck = g[2 + k], p[o + 3]
@@ -310,7 +310,7 @@ JAC = radau5.njit_jac(_jac)
 @jit
 def NODE_BALANCE(t, y, p):  # noqa: N802 - the contract's name
     """Coil current less the branch currents at v = y[1] [A] (PhaseRunner.ev_peak)."""
-    return coil_current(p, y[0]) - _sum(currents_at(p, t, y[1], y))
+    return coil_current(p, y[0]) - fsum_list(currents_at(p, t, y[1], y))
 
 
 @jit
@@ -319,7 +319,7 @@ def PIN_RELEASE(t, y, p):  # noqa: N802 - the contract's name
     g): zero where the pin ends."""
     vals = currents_at(p, t, p[PIN_V], y)
     vals[int(p[PIN_N])] = 0.0
-    return p[PIN_SIDE] * (coil_current(p, y[0]) - _sum(vals))
+    return p[PIN_SIDE] * (coil_current(p, y[0]) - fsum_list(vals))
 
 
 # the algebraic node's functions the floating events read (PhaseRunner._float_events), for a

@@ -24,11 +24,11 @@ from kickback.engine.kbase import (
     R_,
     V_SCALE,
     VS,
-    _in_fall,
-    _sum,
     coil_current,
     currents_at,
     emf_of,
+    fsum_list,
+    in_fall,
     node_conductance,
     state_gain,
 )
@@ -42,7 +42,7 @@ kcache.register()
 @jit
 def forced_slope(p, t):
     """FloatingNode.forced_slope [A/s]: the channel's fall rate, else 0."""
-    if p[CONDUCTING] == 0.0 and _in_fall(p, t):
+    if p[CONDUCTING] == 0.0 and in_fall(p, t):
         return -p[I_ON] / p[FALL]
     return 0.0
 
@@ -111,7 +111,7 @@ def float_limit(p, t, v, y, di):
 def float_residual(p, t, y):
     """FloatingNode.float_residual [A]: the balance at the forced voltage, clipped to ±i0."""
     v = forced_voltage(p, t, y)
-    r = _sum(currents_at(p, t, v, y)) - coil_current(p, y[0])
+    r = fsum_list(currents_at(p, t, v, y)) - coil_current(p, y[0])
     i0 = p[I0]
     if not math.isfinite(r):
         r = -i0 if r == -math.inf else i0

@@ -43,12 +43,12 @@ from kickback.engine.kbase import (
     THR_DURING,
     V_SCALE,
     VISC,
-    _chain_off,
-    _in_fall,
-    _sum,
+    chain_off,
     coil_current,
     conductances,
     currents_at,
+    fsum_list,
+    in_fall,
     state_gain,
     vertical_at,
 )
@@ -67,7 +67,7 @@ _MAXITER = 100
 @jit
 def balance(p, t, v, y, i):
     """Residual [A] of the node's current balance at node voltage v: Σ branch currents − i."""
-    return _sum(currents_at(p, t, v, y)) - i
+    return fsum_list(currents_at(p, t, v, y)) - i
 
 
 @jit
@@ -155,7 +155,7 @@ def bracketed(p, t, y, i, a, b, scale):
 def solve_node(p, t, y, i):
     """nodebalance.solve_monotone on the node balance: the root, or the vertical law's voltage
     where the balance jumps over zero there (thresholds as Circuit._node_thresholds)."""
-    if p[CONDUCTING] != 0.0 or _in_fall(p, t):
+    if p[CONDUCTING] != 0.0 or in_fall(p, t):
         o, n = int(p[THR_DURING]), int(p[N_DURING])
     else:
         o, n = int(p[THR_AFTER]), int(p[N_AFTER])
@@ -197,7 +197,7 @@ def split_currents(p, t, v, y, i):
                 vals[k] = 0.0
         if n:
             vals[n] = 0.0
-        vals[n] += i - _sum(vals)
+        vals[n] += i - fsum_list(vals)
         return vals
     vert = vertical_at(p, t, v)
     nv = 0
@@ -233,7 +233,7 @@ def jac_algebraic(t, y, p, jm):
             jm[iw, 0] = p[K_EMF] * g0 / p[INERTIA]
             jm[iw, iw] = -p[VISC] / p[INERTIA]
         for k in range(nc):
-            o = _chain_off(p, k)
+            o = chain_off(p, k)
             ic = int(p[o + 2])
             if ic < 0:
                 continue
@@ -251,7 +251,7 @@ def jac_algebraic(t, y, p, jm):
         for b in range(g.size):
             if vert[b]:
                 g[b] = math.inf
-    G = _sum(g)
+    G = fsum_list(g)
     if mech:
         jm[0, iw] = -k0 * p[K_EMF]
         jm[iw, 0] = p[K_EMF] * g0 / p[INERTIA]
@@ -259,13 +259,13 @@ def jac_algebraic(t, y, p, jm):
     if math.isfinite(G) and G < 1e-6 * p[I0] / p[V_SCALE]:
         d = 1e-9 * p[V_SCALE]
         for side in (v - d, v + d):
-            gs = _sum(conductances(p, t, side, y))
+            gs = fsum_list(conductances(p, t, side, y))
             G = pymax(G, gs) if math.isfinite(gs) else G
     finite = math.isfinite(G) and G > 0
     dv_di = 1.0 / G if finite else 0.0
     jm[0, 0] = -k0 * (p[R_] + dv_di) * g0
     for k in range(nc):
-        o = _chain_off(p, k)
+        o = chain_off(p, k)
         ic = int(p[o + 2])
         if ic < 0:
             continue
@@ -273,7 +273,7 @@ def jac_algebraic(t, y, p, jm):
         jm[0, ic] = -k0 * (gk / G if finite else 0.0)
         jm[ic, 0] = gk * dv_di * g0 / ck
         for m in range(nc):
-            om = _chain_off(p, m)
+            om = chain_off(p, m)
             im = int(p[om + 2])
             if im < 0:
                 continue
