@@ -135,7 +135,7 @@ class Kernel:
             if self.why_not is not None:
                 return
             self.kc = kcircuit
-            self.p = np.asarray(kcircuit.pack(c), dtype=float)
+            self.p = np.asarray(kcircuit.pack(c, runner.scale), dtype=float)
             self.rhs, self.jac = kcircuit.RHS, kcircuit.JAC
             self.events = _compiled_events(kcircuit)
             return
@@ -210,6 +210,13 @@ def _integrate(runner, k: Kernel, t0, t1, y0, p, ev, dirs, terms, kw, max_calls)
                  compiled=k.which == "compiled")
 
 
+def _count(runner, k: Kernel, r) -> None:
+    """Add a compiled run's evaluations to the runner's count, as scipy's would count them
+    (each Jacobian one evaluation per dynamic state and one at its point, PhaseRunner.jac)."""
+    if k.which == "compiled":
+        runner.calls += r.counts["nfev"] + r.counts["njev"] * (runner.c.ie + 1)
+
+
 def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict) -> PhaseSolution | None:
     """Step the runner's present phase to ``t_end`` or a terminal event of ``evs``; None when it
     is not opted in or cannot be done here (the caller then steps it with scipy).
@@ -244,8 +251,7 @@ def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict) -> PhaseSo
         raise
     except (ValueError, ArithmeticError, FloatingPointError) as exc:
         raise SolverError(f"the solver failed in the {name} phase at t ≈ {runner.t:.3g} s: {exc}") from exc
-    if k.which == "compiled":
-        runner.calls += r.counts["nfev"]
+    _count(runner, k, r)
     if r.status == -1 or runner.calls > MAX_RHS_CALLS:
         raise SolverError(f"the solver did not finish within {MAX_RHS_CALLS} evaluations "
                           f"(reached t = {r.t[-1]:.3g} s); the case is too stiff or ill-posed")
@@ -278,8 +284,7 @@ def _step_to_event(runner, k: Kernel, r, dense, y, kw):
                             max(1, MAX_RHS_CALLS - runner.calls))
     except (ValueError, ArithmeticError, FloatingPointError, SolverError):
         return dense  # the continuous output stands
-    if k.which == "compiled":
-        runner.calls += re.counts["nfev"]
+    _count(runner, k, re)
     if re.status != 0 or not np.all(np.isfinite(re.y)):
         return dense
     y[:, -1] = re.y[:, -1]
