@@ -135,10 +135,10 @@ def test_unspecced_event_or_algebraic_node_stays_on_scipy(monkeypatch):
 
     def g(t, y):
         return y[0] - 0.5 * c.i0
-    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}) is None
+    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}, 10**6) is None
     g.spec = ("level", 0, 0.5 * c.i0)
-    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}) is not None
-    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {"method": "x"}) is None
+    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}, 10**6) is not None
+    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {"method": "x"}, 10**6) is None
     monkeypatch.setenv(kstep.ENV, "0")
-    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}) is None
+    assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}, 10**6) is None
     assert not math.isnan(runner.t)

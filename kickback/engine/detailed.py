@@ -625,7 +625,7 @@ class PhaseRunner:
             kw = {**kw, "first_step": (t_end - self.t) / 2}
         if getattr(self, "kernel", None) or os.environ.get("KICKBACK_KERNEL"):  # opt-in: kickback/engine/kstep.py
             from kickback.engine.kstep import solve_phase
-            sol = solve_phase(self, name, t_end, evs, kw)
+            sol = solve_phase(self, name, t_end, evs, kw, MAX_RHS_CALLS)
             if sol is not None:
                 return sol, evs, pe
         try:

@@ -217,9 +217,10 @@ def _count(runner, k: Kernel, r) -> None:
         runner.calls += r.counts["nfev"] + r.counts["njev"] * (runner.c.ie + 1)
 
 
-def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict) -> PhaseSolution | None:
+def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict, max_calls: int) -> PhaseSolution | None:
     """Step the runner's present phase to ``t_end`` or a terminal event of ``evs``; None when it
-    is not opted in or cannot be done here (the caller then steps it with scipy).
+    is not opted in or cannot be done here (the caller then steps it with scipy). ``max_calls``:
+    the runner's limit on its evaluations (``detailed.MAX_RHS_CALLS``).
 
     Same contract as ``PhaseRunner._solve``'s solve: the runner's tolerances, the events'
     ``direction`` and ``terminal``, a terminal event inside a step of a pinned node integrated
@@ -235,14 +236,12 @@ def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict) -> PhaseSo
     table = event_table(c, [getattr(g, "spec", None) for g in evs])
     if table is None:
         return None
-    from kickback.engine.detailed import MAX_RHS_CALLS
-
     k.set_mode(c)
     p = np.concatenate([k.p, table])
     dirs = [float(getattr(g, "direction", 0.0)) for g in evs]
     terms = [bool(getattr(g, "terminal", False)) for g in evs]
     ev = k.events if evs else None
-    left = MAX_RHS_CALLS - runner.calls
+    left = max_calls - runner.calls
     try:
         with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
             r = _integrate(runner, k, runner.t, t_end, runner.y, p, ev, np.sign(dirs) if evs else None,
@@ -252,21 +251,21 @@ def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict) -> PhaseSo
     except (ValueError, ArithmeticError, FloatingPointError) as exc:
         raise SolverError(f"the solver failed in the {name} phase at t ≈ {runner.t:.3g} s: {exc}") from exc
     _count(runner, k, r)
-    if r.status == -1 or runner.calls > MAX_RHS_CALLS:
-        raise SolverError(f"the solver did not finish within {MAX_RHS_CALLS} evaluations "
+    if r.status == -1 or runner.calls > max_calls:
+        raise SolverError(f"the solver did not finish within {max_calls} evaluations "
                           f"(reached t = {r.t[-1]:.3g} s); the case is too stiff or ill-posed")
     if r.status < 0:
         raise SolverError(f"the solver failed in the {name} phase at t = {r.t[-1]:.3g} s: {r.message}")
     dense = r.dense_output()
     y = r.y.copy()
     if r.status == 1 and r.t.size > 1 and c.pin is not None:
-        dense = _step_to_event(runner, k, r, dense, y, kw)
+        dense = _step_to_event(runner, k, r, dense, y, kw, max_calls)
     if not np.all(np.isfinite(y)):
         raise SolverError(f"the solution became non-finite in the {name} phase")
     return PhaseSolution(r.t, y, r.status, r.message, [np.asarray(x) for x in r.t_events], dense, r.counts)
 
 
-def _step_to_event(runner, k: Kernel, r, dense, y, kw):
+def _step_to_event(runner, k: Kernel, r, dense, y, kw, max_calls):
     """``PhaseRunner._step_to_event``: the last stretch, from the last step's start to the
     terminal event, integrated again in the same mode, so that the event's state is a step's
     end (not the step's continuous output, fitted to stages past the event where a law held at
@@ -274,14 +273,12 @@ def _step_to_event(runner, k: Kernel, r, dense, y, kw):
     t_a, t_b = float(r.t[-2]), float(r.t[-1])
     if not t_b > t_a:
         return dense
-    from kickback.engine.detailed import MAX_RHS_CALLS
-
     p = np.concatenate([k.p, event_table(runner.c, [])])
     kw2 = {"first_step": t_b - t_a, **{x: v for x, v in kw.items() if x == "max_step"}}
     try:
         with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
             re = _integrate(runner, k, t_a, t_b, r.y[:, -2], p, None, None, None, kw2,
-                            max(1, MAX_RHS_CALLS - runner.calls))
+                            max(1, max_calls - runner.calls))
     except (ValueError, ArithmeticError, FloatingPointError, SolverError):
         return dense  # the continuous output stands
     _count(runner, k, re)
