@@ -103,13 +103,17 @@ def test_tight_tolerance_converges_to_the_same_figures(monkeypatch):
     assert b.clamps[0].peak_current_A == pytest.approx(a.clamps[0].peak_current_A, rel=1e-7)
 
 
-def test_event_specs_evaluate_like_the_event_functions():
+KERNELS = ["standin"] + (["compiled"] if len(WHICH) > 1 else [])
+
+
+@pytest.mark.parametrize("which", KERNELS)
+def test_event_specs_evaluate_like_the_event_functions(which):
     # the one event function of the specs against each closure the runner builds (its own
     # definition of the event), free and pinned, at states around the start
     c = Circuit(load_case("cases/irrigation_valve.toml"))
     runner = detailed.PhaseRunner(c, 1e-5, c.initial_state(), steep=True)
     runner.phase_name = "edge"
-    k = kstep.Kernel(runner, "standin")
+    k = kstep.Kernel(runner, which)
     rng = np.random.default_rng(18)
     pins = [None] + list(c.pin_points)
     assert len(pins) > 1, "the case needs a vertical law to pin at"
@@ -117,6 +121,7 @@ def test_event_specs_evaluate_like_the_event_functions():
         c.pin = pin
         evs = runner._pin_events() + ([runner.ev_peak] if pin is None else [])
         table = kstep.event_table(c, [g.spec for g in evs])
+        k.set_mode(c)
         p = np.concatenate([k.p, table])
         for _ in range(5):
             y = runner.y * (1 + 0.1 * rng.standard_normal(runner.y.size))
@@ -124,7 +129,7 @@ def test_event_specs_evaluate_like_the_event_functions():
             t = float(rng.uniform(0, 1e-6))
             got = k.events(t, y, p)
             want = np.array([g(t, y) for g in evs])
-            np.testing.assert_allclose(got, want, rtol=1e-13, atol=1e-13 * c.i0)
+            np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-12 * c.i0)
     c.pin = None
 
 
@@ -142,3 +147,25 @@ def test_unspecced_event_or_algebraic_node_stays_on_scipy(monkeypatch):
     monkeypatch.setenv(kstep.ENV, "0")
     assert kstep.solve_phase(runner, "edge", 1e-7, [g], {}, 10**6) is None
     assert not math.isnan(runner.t)
+
+
+@pytest.mark.parametrize("which", KERNELS)
+@pytest.mark.parametrize("ramp", [False, True])
+def test_affine_model_defect_spec_evaluates_like_linear_event(ramp, which):
+    # linphase.linear_event's closure (the model's own defect) against its spec evaluated by the
+    # one event function, at states around the probe (inside and outside the model's reach)
+    from kickback.engine.linphase import AffineModel, linear_event
+
+    c = Circuit(load_case("cases/irrigation_valve.toml"))
+    runner = detailed.PhaseRunner(c, 1e-5, c.initial_state())
+    k = kstep.Kernel(runner, which)
+    k.set_mode(c)
+    y0 = c.initial_state()
+    model = AffineModel(c, 0.0, y0, runner.scale[:c.ie], 1e-6, ramp=ramp)
+    g = linear_event(model, 0.5)
+    p = np.concatenate([k.p, kstep.event_table(c, [g.spec])])
+    rng = np.random.default_rng(7)
+    for rel in (0.0, 1e-12, 1e-6, 1e-2):
+        y = y0 * (1 + rel * rng.standard_normal(y0.size))
+        t = float(rng.uniform(0, 1e-6))
+        assert k.events(t, y, p)[0] == pytest.approx(g(t, y), abs=1e-9)

@@ -39,12 +39,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from kickback.circuit import FLOAT
+from kickback.engine.radau5_jit import jit
 from kickback.errors import SolverError
 
 #: columns of one event row in the parameter array: kind, state index, a, b, c
 ROW = 5
-LEVEL, BALANCE, RELEASE, RING_ENERGY = 0, 1, 2, 3
-_KINDS = {"level": LEVEL, "balance": BALANCE, "release": RELEASE, "ring_energy": RING_ENERGY}
+LEVEL, BALANCE, RELEASE, RING_ENERGY, DEFECT = 0, 1, 2, 3, 4
+_KINDS = {"level": LEVEL, "balance": BALANCE, "release": RELEASE, "ring_energy": RING_ENERGY, "defect": DEFECT}
 ENV = "KICKBACK_KERNEL"
 
 
@@ -71,10 +72,10 @@ def mode(runner) -> str | None:
     return m if m in ("compiled", "standin") else None
 
 
-def make_events(node_balance, pin_release):
+def make_events(node_balance, pin_release, rates):
     """The event function ``events(t, y, p)`` of the rows :func:`event_table` appended to ``p``
-    (plain Python; :class:`Kernel` compiles it with the kernel's ``node_balance`` and
-    ``pin_release``)."""
+    (plain Python; :class:`Kernel` compiles it with the kernel's ``node_balance``,
+    ``pin_release`` and right-hand side ``rates``)."""
 
     def events(t, y, p):
         m = int(p[p.size - 1])
@@ -89,18 +90,47 @@ def make_events(node_balance, pin_release):
                 out[e] = node_balance(t, y, p)
             elif kind == RELEASE:
                 out[e] = pin_release(t, y, p)
-            else:  # RING_ENERGY: a·y0² + b·(y1 − c) ² − level (the level in the index slot)
+            elif kind == RING_ENERGY:  # a·y0² + b·(y1 − c)² − level (the level in the index slot)
                 dv = y[1] - p[r + 4]
                 out[e] = p[r + 2] * y[0] * y[0] + p[r + 3] * dv * dv - p[r + 1]
+            else:  # DEFECT: its data p[r+1] from the array's end, ie states, level, t_ref
+                out[e] = _defect(t, y, p, rates(t, y, p), p.size - int(p[r + 1]), int(p[r + 2]), p[r + 3], p[r + 4])
         return out
 
     return events
 
 
+@jit
+def _defect(t, y, p, f, o, ie, level, t_ref):
+    """``linphase.linear_event``'s value: log10(2·d/level), d the largest departure of the rates
+    ``f`` from the affine model ẋ = A·x + b + g·(t − t_ref) relative to what it allows
+    (``AffineModel.defect``); data at ``p[o:]``: A (ie × ie), b, g, the allowance's constant
+    part LIN_TOL·scale/span (ie each), the rounding factor."""
+    a0, b0, g0, w0 = o, o + ie * ie, o + ie * ie + ie, o + ie * ie + 2 * ie
+    rounding = p[w0 + ie]
+    dt = t - t_ref
+    worst = 0.0
+    for i in range(ie):
+        ax = 0.0
+        terms = 0.0
+        for j in range(ie):
+            ax += p[a0 + i * ie + j] * y[j]
+            terms += abs(p[a0 + i * ie + j]) * abs(y[j])
+        ramp = p[g0 + i] * dt
+        d = abs(f[i] - ax - p[b0 + i] - ramp)
+        if d == 0.0:
+            continue
+        allow = p[w0 + i] + rounding * (terms + abs(p[b0 + i]) + abs(ramp))
+        ratio = d / allow if allow > 0.0 else np.inf
+        worst = max(worst, ratio)
+    return np.log10(max(2.0 * worst / level, 1e-300))
+
+
 def event_table(c, specs) -> np.ndarray | None:
-    """Rows (flattened) for ``specs``, then their number; None when one is missing or not
-    evaluable here (a ring energy of a saturating coil, a motor, no node capacitance)."""
-    rows = []
+    """The specs' data blocks, then one row of :data:`ROW` numbers each, then their number;
+    None when one is missing or not evaluable here (a ring energy of a saturating coil, a motor,
+    no node capacitance)."""
+    rows, data = [], []
     for s in specs:
         kind = _KINDS.get(s[0]) if s else None
         if kind is None:
@@ -112,9 +142,19 @@ def event_table(c, specs) -> np.ndarray | None:
                 return None
             _, v_fin, level = s
             rows.append([RING_ENERGY, float(level), 0.5 * c.L, 0.5 * c.C_node, float(v_fin)])
+        elif kind == DEFECT:
+            _, A, b, g, allow, rounding, t_ref, level = s
+            ie = len(b)
+            rows.append([DEFECT, float(sum(len(x) for x in data)), float(ie), float(level), float(t_ref)])
+            data.append(np.concatenate([np.ravel(A), b, np.zeros(ie) if g is None else g,
+                                         np.broadcast_to(np.asarray(allow, dtype=float), (ie,)), [rounding]]))
         else:
             rows.append([kind, 0.0, 0.0, 0.0, 0.0])
-    return np.append(np.asarray(rows, dtype=float).ravel(), float(len(rows)))
+    size = sum(len(x) for x in data) + ROW * len(rows) + 1
+    for r in rows:
+        if r[0] == DEFECT:
+            r[1] = float(size - r[1])  # counted from the array's end (the kernel's constants come first)
+    return np.concatenate(data + [np.asarray(rows, dtype=float).ravel(), [float(len(rows))]])
 
 
 class Kernel:
@@ -161,7 +201,10 @@ class Kernel:
             return pin[2] * (float(c.coil_current(y[0])) - sum(vals))
 
         self.rhs, self.jac = rhs, jac
-        self.events = make_events(node_balance, pin_release)
+        def rates(t, y, p):
+            return np.asarray(c.rhs(t, y), dtype=float)
+
+        self.events = make_events(node_balance, pin_release, rates)
 
     def set_mode(self, c) -> None:
         if self.kc is not None:
@@ -180,7 +223,8 @@ def _compiled_events(kcircuit):
 
         from kickback.engine.radau5 import EVENTS_SIGNATURE
 
-        _EVENTS[key] = numba.njit(EVENTS_SIGNATURE)(make_events(kcircuit.NODE_BALANCE, kcircuit.PIN_RELEASE))
+        _EVENTS[key] = numba.njit(EVENTS_SIGNATURE)(make_events(kcircuit.NODE_BALANCE, kcircuit.PIN_RELEASE,
+                                                                      kcircuit.RHS))
     return _EVENTS[key]
 
 
