@@ -26,6 +26,7 @@ from kickback.circuit import FLOAT, FLOAT_ENTRY, FLOAT_LANDING, FLOAT_RESIDUAL, 
 from kickback.conventions import RING_END_FRACTION, ZERO_FRACTION
 from kickback.engine.radau_check import CheckedNewton
 from kickback.engine.step_events import bracketed
+from kickback.engine.steptol import tolerances
 from kickback.errors import SolverError
 
 #: a snubber capacitor is held (its charge left in it at the run's end) when the energy its chain
@@ -166,22 +167,6 @@ class Waveforms:
             if ph.t0 <= t <= ph.t1:
                 return ph.sol(t)
         return self.y[:, -1] if t > self.t[-1] else self.y[:, 0]
-
-
-def tolerances(c: Circuit, rtol: float) -> np.ndarray:
-    """Absolute tolerance per state, scaled to the initial current, the voltage scale and the
-    stored energy."""
-    e0 = c.coil_energy(c.i0) + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
-    atol = np.empty(c.n_states)
-    atol[0] = rtol * 1e-6 * abs(c.coil_state(c.i0))
-    if c.capacitive:
-        atol[1] = rtol * 1e-3 * c.v_scale
-    for idx in c.icap.values():
-        atol[idx] = rtol * 1e-3 * c.v_scale
-    if c.mech:
-        atol[c.iw] = rtol * 1e-6 * max(abs(c.on_speed()), 1.0)
-    atol[c.ie:] = rtol * 1e-6 * e0
-    return atol
 
 
 def relative_tolerances(c: Circuit, rtol: float) -> np.ndarray:

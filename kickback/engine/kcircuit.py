@@ -76,7 +76,7 @@ def pack(circuit, scale=None) -> np.ndarray:
         raise ValueError(f"the compiled circuit does not cover this case: {why}")
     c = circuit
     if scale is None:
-        from kickback.engine.detailed import tolerances
+        from kickback.engine.steptol import tolerances
 
         scale = np.maximum(tolerances(c, 1e-8) / 1e-8, 1e-300)
     scale = np.asarray(scale, dtype=float)
