@@ -31,7 +31,8 @@ if os.environ.get("KICKBACK_KERNEL"):
     from kickback.engine import kcircuit, kstep
     kstep._compiled_events(kcircuit)
 case = load_case(draw(int(sys.argv[1])).text, source=sys.argv[1])
-resource.setrlimit(resource.RLIMIT_CPU, (int(float(sys.argv[2])) + int(time.process_time()) + 1, resource.RLIM_INFINITY))
+cap = int(float(sys.argv[2])) + int(time.process_time()) + 1
+resource.setrlimit(resource.RLIMIT_CPU, (cap, resource.RLIM_INFINITY))
 t = time.process_time()
 f = simulate(case).figures
 cpu = time.process_time() - t
