@@ -169,3 +169,26 @@ def test_affine_model_defect_spec_evaluates_like_linear_event(ramp, which):
         y = y0 * (1 + rel * rng.standard_normal(y0.size))
         t = float(rng.uniform(0, 1e-6))
         assert k.events(t, y, p)[0] == pytest.approx(g(t, y), abs=1e-9)
+
+
+@pytest.mark.parametrize("seed", [18, 32, 43])
+def test_pin_switches_fire_at_the_same_times(opt_in, seed, monkeypatch, request):
+    # wide-range draws whose node is pinned at vertical laws and released: the same sequence of
+    # phases (each ends at an event: a pin, its release, the zero), each end within 1e-5 relative
+    # of the default path's (same method, same rtol 1e-5; common practice, no source)
+    from wide_range import draw
+
+    which = request.node.callspec.params["opt_in"]
+    ends = []
+    for mode in (None, which):
+        if mode is None:
+            monkeypatch.delenv(kstep.ENV, raising=False)
+        else:
+            monkeypatch.setenv(kstep.ENV, mode)
+        w = detailed.integrate(Circuit(load_case(draw(seed).text, source=str(seed))))
+        ends.append(([(p.name, p.pin) for p in w.phases], np.array([p.t1 for p in w.phases])))
+    assert any(opt_in)
+    assert any(pin is not None for _, pin in ends[0][0]), "the draw should pin its node"  # (FLOAT: no capacitance)
+    assert [n for n, _ in ends[1][0]] == [n for n, _ in ends[0][0]]
+    assert [p is None for _, p in ends[1][0]] == [p is None for _, p in ends[0][0]]
+    np.testing.assert_allclose(ends[1][1], ends[0][1], rtol=1e-5)
