@@ -15,6 +15,7 @@ E. Hairer and G. Wanner, Solving Ordinary Differential Equations II, 2nd ed., Sp
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -26,6 +27,7 @@ from kickback.conventions import RING_END_FRACTION, ZERO_FRACTION
 from kickback.engine.radau_check import CheckedNewton
 from kickback.engine.ringsteps import stepped_ring
 from kickback.engine.step_events import bracketed
+from kickback.engine.steptol import tolerances
 from kickback.errors import SolverError
 
 #: a snubber capacitor is held (its charge left in it at the run's end) when the energy its chain
@@ -163,22 +165,6 @@ class Waveforms:
         return self.y[:, -1] if t > self.t[-1] else self.y[:, 0]
 
 
-def tolerances(c: Circuit, rtol: float) -> np.ndarray:
-    """Absolute tolerance per state, scaled to the initial current, the voltage scale and the
-    stored energy."""
-    e0 = c.coil_energy(c.i0) + float(c.capacitor_energy(c.on.node_voltage, c.initial_state()))
-    atol = np.empty(c.n_states)
-    atol[0] = rtol * 1e-6 * abs(c.coil_state(c.i0))
-    if c.capacitive:
-        atol[1] = rtol * 1e-3 * c.v_scale
-    for idx in c.icap.values():
-        atol[idx] = rtol * 1e-3 * c.v_scale
-    if c.mech:
-        atol[c.iw] = rtol * 1e-6 * max(abs(c.on_speed()), 1.0)
-    atol[c.ie:] = rtol * 1e-6 * e0
-    return atol
-
-
 def relative_tolerances(c: Circuit, rtol: float) -> np.ndarray:
     """Relative tolerance per state: the energies at ``ENERGY_RTOL_FACTOR`` × ``rtol``, the node
     and snubber voltages tightened for steep laws, the rest at ``rtol``.
@@ -298,6 +284,7 @@ class PhaseRunner:
         def ev_peak(t, y):
             return c.coil_current(y[0]) - sum(c.currents_at(t, float(y[1]), y))
         ev_peak.direction = -1
+        ev_peak.spec = ("balance",)  # events as data for kstep (kickback/engine/kstep.py)
         self.ev_peak = ev_peak
 
     def rhs(self, t, y):
@@ -572,6 +559,7 @@ class PhaseRunner:
                 def g_knee(t, y, level=level):
                     return y[1] - level
                 g_knee.direction = direction
+                g_knee.spec = ("level", 1, level)
                 g_knee.terminal = True
                 g_knee.pin = None
                 g_knee.knee = v_k
@@ -586,6 +574,7 @@ class PhaseRunner:
                 def g(t, y, ahead=ahead):
                     return y[1] - ahead
                 g.direction = p[2]
+                g.spec = ("level", 1, ahead)
                 g.terminal = True
                 g.pin = p
                 evs.append(g)
@@ -603,6 +592,7 @@ class PhaseRunner:
             vals[pin[1]] = 0.0
             return pin[2] * (float(c.coil_current(y[0])) - sum(vals))
         g.direction = -1
+        g.spec = ("release",)
         g.terminal = True
         g.pin = None
         return [g]
@@ -614,6 +604,11 @@ class PhaseRunner:
         if kw.get("first_step") is not None and 0 < t_end - self.t < 2 * kw["first_step"]:
             # a phase shorter than the step guessed from the fall time (a fast decay after a slow fall)
             kw = {**kw, "first_step": (t_end - self.t) / 2}
+        if getattr(self, "kernel", None) or os.environ.get("KICKBACK_KERNEL"):  # opt-in: kickback/engine/kstep.py
+            from kickback.engine.kstep import solve_phase
+            sol = solve_phase(self, name, t_end, evs, kw, MAX_RHS_CALLS)
+            if sol is not None:
+                return sol, evs, pe
         try:
             # scipy's step-size predictor divides by the error norm, which an exactly integrated
             # step (a linear stretch) makes zero; the resulting inf is capped by its own limit
@@ -812,6 +807,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
         def g(t, y):
             return y[0] - level
         g.direction = -1
+        g.spec = ("level", 0, level)
         return g
 
     ev10, ev1 = ev_frac(0.1), ev_frac(0.01)
@@ -820,6 +816,7 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
     def ev_zero(t, y):
         return y[0] - zero_state
     ev_zero.direction = -1
+    ev_zero.spec = ("level", 0, zero_state)
     ev_zero.terminal = True
 
     v_fin, _ = c.final_capacitor_voltages()
@@ -868,10 +865,12 @@ def integrate(circuit: Circuit, *, rtol: float | None = None, samples_per_step: 
     def ev_rest(t, y):
         return dyn_energy(y, t) - rest_level
     ev_rest.direction = -1
+    ev_rest.spec = ("ring_energy", v_fin, rest_level) if not dyn_caps and not c.mech else None
     ev_rest.terminal = True
 
     def ev_cross(t, y):
         return y[0]
+    ev_cross.spec = ("level", 0, 0.0)
     ev_cross.terminal = True
 
     ev_times = {"10%": None, "1%": None, "zero": None}

@@ -260,6 +260,8 @@ def linear_event(model: AffineModel, level: float = 1.0):
         return math.log10(max(2.0 * d / level, 1e-300))
     g.terminal = True
     g.direction = -1
+    # the same event as data, for kickback/engine/kstep.py
+    g.spec = ("defect", model.A, model.b, model.g, LIN_TOL * model.scale / model.span, ROUNDING, model.t_ref, level)
     return g
 
 

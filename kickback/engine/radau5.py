@@ -27,6 +27,7 @@ import numpy as np
 from numba import types
 
 from kickback.engine import radau5_core as _core
+from kickback.engine.radau5_dense import DenseSolution
 from kickback.engine.radau5_jit import jit
 from kickback.engine.radau5_tableau import dense_eval
 from kickback.errors import KickbackError
@@ -36,7 +37,7 @@ JAC_SIGNATURE = types.float64[:, ::1](types.float64, types.float64[::1], types.f
 EVENTS_SIGNATURE = RHS_SIGNATURE
 _LOOP_SIGNATURE = (types.FunctionType(RHS_SIGNATURE), types.FunctionType(JAC_SIGNATURE),
                    types.FunctionType(EVENTS_SIGNATURE), types.float64, types.float64, types.float64[::1],
-                   types.float64[::1], types.float64, types.float64[::1], types.float64, types.float64,
+                   types.float64[::1], types.float64[::1], types.float64[::1], types.float64, types.float64,
                    types.int64, types.int64[::1], types.int64[::1], types.float64, types.int64, types.float64)
 
 MESSAGES = {
@@ -126,6 +127,11 @@ class Radau5Result:
     def success(self) -> bool:
         return self.status >= 0
 
+    def dense_output(self) -> DenseSolution:
+        """The run's collocation polynomials, callable at one time or an array of times
+        (like scipy's ``OdeSolution``)."""
+        return DenseSolution(self.t, self.y, self.h, self.dense)
+
     def sol(self, t: float) -> np.ndarray:
         """State at time ``t`` from the collocation polynomial of the step holding it."""
         if not self.t[0] <= t <= self.t[-1]:
@@ -154,7 +160,7 @@ def _check_shapes(rhs, jac, events, t0, y0, p, m):
             raise IntegratorArgumentError(f"{name}(t0, y0, params) has shape {out.shape}, expected {shape}")
 
 
-def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, first_step: float | None = None,
+def solve(rhs, jac, t_span, y0, params=None, *, rtol=1e-6, atol=1e-9, first_step: float | None = None,
           max_step: float = np.inf, max_steps: int = 100_000, events=None, directions=None, terminal=None,
           fixed_step: float | None = None, residual_check: int = 2, newton_tol: float | None = None,
           compiled: bool = True) -> Radau5Result:
@@ -171,8 +177,9 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
         Initial state (n,).
     params : array_like, optional
         1-D float parameter array handed to every function.
-    rtol : float
-        Relative tolerance (scalar).
+    rtol : float or array_like
+        Relative tolerance, scalar or one per component (the error scale of component i is
+        atol_i + rtol_i·|y_i|; entries are floored at 100·ε).
     atol : float or array_like
         Absolute tolerance, scalar or one per component.
     first_step, max_step : float, optional
@@ -195,7 +202,7 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
         switching within it); the accepted end Jacobian serves the next step.
     newton_tol : float, optional
         κ·Tol of the Newton stopping rule in units of the error scale; default
-        max(10·ε/rtol, min(0.03, √rtol)).
+        max(10·ε/rtol, min(0.03, √rtol)) with the largest entry of ``rtol``.
     compiled : bool
         False runs the same loop as plain Python (slow; for debugging).
 
@@ -211,8 +218,13 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
     if n == 0 or not np.all(np.isfinite(y0)):
         raise IntegratorArgumentError("y0 must be a non-empty finite vector")
     atol_v = np.array(np.broadcast_to(np.asarray(atol, dtype=float), (n,)), dtype=float)
-    if not (rtol > 0 and np.all(atol_v > 0)):
-        raise IntegratorArgumentError("rtol and every atol must be > 0")
+    try:
+        rtol_v = np.array(np.broadcast_to(np.asarray(rtol, dtype=float), (n,)), dtype=float)
+    except ValueError as exc:
+        raise IntegratorArgumentError(f"rtol must be a scalar or one entry per component ({n}): {exc}") from exc
+    if not (np.all(rtol_v > 0) and np.all(atol_v > 0)):
+        raise IntegratorArgumentError("every rtol and atol must be > 0")
+    rtol_v = np.maximum(rtol_v, 100 * np.finfo(float).eps)
     p = np.array(np.zeros(0) if params is None else params, dtype=float).ravel()
     m = 0
     if events is not None:
@@ -227,8 +239,9 @@ def solve(rhs, jac, t_span, y0, params=None, *, rtol: float = 1e-6, atol=1e-9, f
     if residual_check not in (0, 1, 2):
         raise IntegratorArgumentError(f"residual_check must be 0, 1 or 2, got {residual_check!r}")
     if newton_tol is None:
-        newton_tol = max(10 * np.finfo(float).eps / rtol, min(0.03, rtol ** 0.5))
-    args = (t0, t1, y0, p, float(rtol), atol_v, float(first_step or 0.0), float(max_step), int(max_steps),
+        r_max = float(np.max(rtol_v))
+        newton_tol = max(10 * np.finfo(float).eps / r_max, min(0.03, r_max ** 0.5))
+    args = (t0, t1, y0, p, rtol_v, atol_v, float(first_step or 0.0), float(max_step), int(max_steps),
             ev_dir, ev_term, float(fixed_step or 0.0), int(residual_check), float(newton_tol))
     if compiled and numba.config.DISABLE_JIT:
         compiled = False  # NUMBA_DISABLE_JIT=1: every function is plain Python
