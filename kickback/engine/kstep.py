@@ -63,6 +63,10 @@ class PhaseSolution:
     counts: dict
 
 
+#: values of ``KICKBACK_KERNEL`` that keep every phase on scipy (the periodic steady state too)
+OFF = ("0", "off", "scipy")
+
+
 def mode(runner) -> str | None:
     """``"compiled"``, ``"standin"`` or None (scipy) for this runner."""
     m = getattr(runner, "kernel", None)
@@ -70,6 +74,54 @@ def mode(runner) -> str | None:
         env = os.environ.get(ENV, "")
         m = {"1": "compiled", "compiled": "compiled", "standin": "standin"}.get(env)
     return m if m in ("compiled", "standin") else None
+
+
+def cycle_mode() -> str:
+    """The mode of the periodic steady state's cycles (``periodic.one_cycle``): compiled unless
+    ``KICKBACK_KERNEL`` says ``0``/``off``/``scipy`` (or ``standin``). The cycles are where the
+    stepping costs most (10³–10⁵ steps a cycle, tens of cycles); a single turn-off stays on scipy
+    unless opted in, so that a plain ``kickback run`` imports no numba."""
+    env = os.environ.get(ENV, "")
+    return "off" if env in OFF else "standin" if env == "standin" else "compiled"
+
+
+_WARM = {"done": False}
+
+
+def _cache_is_cold() -> bool:
+    """Whether the compiled integrator's loop has no cache index next to its module yet."""
+    from pathlib import Path
+
+    folder = Path(__file__).parent / "__pycache__"
+    return not any(folder.glob("radau5_core.integrate_loop-*.nbi"))
+
+
+def warm_up() -> None:
+    """Load (or, on first use, compile) the compiled circuit, the integrator's loop and the event
+    function once per process; on first use say on stderr what it does and how long it took
+    (issue 18: no first-run surprise)."""
+    if _WARM["done"]:
+        return
+    import sys
+    import time
+
+    cold = _cache_is_cold()
+    if cold:
+        print("kickback: compiling the stepping engine for this machine (first use; it is cached for "
+              "later runs)…", file=sys.stderr, flush=True)
+    t0 = time.perf_counter()
+    from kickback.engine import kcircuit, radau5
+
+    radau5._compiled()
+    _compiled_events(kcircuit)
+    took = time.perf_counter() - t0
+    _WARM["done"] = True
+    if cold or took > 5.0:
+        from kickback.engine.radau5_jit import CACHE_UNAVAILABLE
+
+        where = ("no writable cache folder: compiled again in each process" if CACHE_UNAVAILABLE
+                 else "cached")
+        print(f"kickback: the stepping engine was ready in {took:.1f} s ({where})", file=sys.stderr, flush=True)
 
 
 def make_events(node_balance, pin_release, rates):
@@ -174,6 +226,7 @@ class Kernel:
             self.why_not = kcircuit.supported(c)
             if self.why_not is not None:
                 return
+            warm_up()
             self.kc = kcircuit
             self.p = np.asarray(kcircuit.pack(c, runner.scale), dtype=float)
             self.rhs, self.jac = kcircuit.RHS, kcircuit.JAC
@@ -247,18 +300,34 @@ def _integrate(runner, k: Kernel, t0, t1, y0, p, ev, dirs, terms, kw, max_calls)
     rtol = runner.rtol_vector if runner.rtol_vector is not None else runner.rtol
     # every step takes ≥ 4 evaluations (3 stages, the next start's slope): the runner's
     # evaluation budget bounds the steps
-    max_steps = max(1, max_calls // 4)
+    max_steps = max(1, int(max_calls / (4 * share(k))))
     return solve(k.rhs, k.jac, (t0, t1), y0, p, rtol=rtol, atol=runner.atol, first_step=kw.get("first_step"),
                  max_step=kw.get("max_step", np.inf), max_steps=max_steps, events=ev,
                  directions=dirs, terminal=terms, newton_tol=newton_tol(runner.rtol),
                  compiled=k.which == "compiled")
 
 
+#: share of the runner's evaluation budget (``detailed.MAX_RHS_CALLS``, a bound on the CPU a case
+#: may take) one compiled evaluation uses: a compiled rate costs 0.2-5 µs against 5-130 µs for
+#: ``Circuit.rhs`` and a step ~1 µs of loop against ~200 µs of scipy's (benchmarks/bench_kcircuit.py,
+#: issue 18), so ten compiled evaluations still cost less than one in Python. A motor's LC ring
+#: stepped over a whole off phase (tests/test_periodic_slow.py, 48 000 steps with a fresh Jacobian
+#: each) overran the Python budget at full weight, in 0.3 s
+COMPILED_SHARE = 0.1
+
+
+def share(k: Kernel) -> float:
+    """The budget share of one evaluation of ``k`` (:data:`COMPILED_SHARE` compiled, 1 plain)."""
+    return COMPILED_SHARE if k.which == "compiled" else 1.0
+
+
 def _count(runner, k: Kernel, r) -> None:
     """Add a compiled run's evaluations to the runner's count, as scipy's would count them
-    (each Jacobian one evaluation per dynamic state and one at its point, PhaseRunner.jac)."""
+    (each Jacobian one evaluation per dynamic state and one at its point, PhaseRunner.jac), at
+    :data:`COMPILED_SHARE` of their number."""
     if k.which == "compiled":
-        runner.calls += r.counts["nfev"] + r.counts["njev"] * (runner.c.ie + 1)
+        n = r.counts["nfev"] + r.counts["njev"] * (runner.c.ie + 1)
+        runner.calls += int(np.ceil(n * COMPILED_SHARE))
 
 
 def solve_phase(runner, name: str, t_end: float, evs: list, kw: dict, max_calls: int) -> PhaseSolution | None:

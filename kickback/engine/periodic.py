@@ -117,6 +117,11 @@ def one_cycle(c: Circuit, x0: np.ndarray, duty: float, frequency: float, rtol: f
     c.conducting, c.t_turnoff = True, t_on
     try:
         runner = PhaseRunner(c, rtol, y, 0.0)
+        from kickback.engine.kstep import cycle_mode
+
+        # the cycles stepped by the compiled Radau IIA on the compiled circuit (kstep.py; the
+        # phases it cannot take stay on scipy): 4-20x faster on the slow drives of issue 14
+        runner.kernel = cycle_mode()
         if fast and not energies:
             # the energies are not wanted: keep them out of the step-size control
             runner.atol = runner.atol.copy()
