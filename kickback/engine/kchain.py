@@ -36,13 +36,13 @@ from kickback.engine.klaws import (
     shockley_current,
 )
 from kickback.engine.radau5_jit import jit
-from kickback.models import ShockleyDiode
+from kickback.models import ShockleyDiode, Varistor
 
 kcache.register()  # the cache of these functions follows klaws.py too
 
 #: chain kinds: piecewise-linear total; one Shockley diode with a linear rest; a lone varistor;
-#: the numeric series solve (several nonlinear laws); one varistor with a linear rest (numeric
-#: solve, conductance by a central difference)
+#: the numeric series solve (several nonlinear laws); one varistor with a linear rest (its Newton
+#: descent in ln|i|, SeriesSolve._solve_varistor_rest; conductance by a central difference)
 CH_PIECES, CH_SHOCKLEY, CH_VARISTOR, CH_NUMERIC, CH_SMOOTH_REST = 0, 1, 2, 3, 4
 #: floats before a chain's law records (see chain_record)
 CHAIN_HEAD = 28
@@ -61,6 +61,8 @@ def chain_kind(ch: Chain) -> int:
         return CH_SHOCKLEY
     if rest == NO_REST and hasattr(law, "current_at"):
         return CH_VARISTOR
+    if not isinstance(law, Varistor):  # the compiled laws: piecewise linear, Shockley, varistor
+        raise ValueError(f"no compiled chain for a {type(law).__name__} beside linear laws")
     return CH_SMOOTH_REST
 
 
@@ -285,6 +287,40 @@ def solve_numeric(p, o, vx):
 
 
 @jit
+def solve_varistor_rest(p, o, vx):
+    """SeriesSolve._solve_varistor_rest: the current [A] of one varistor (law record ``big``)
+    and piecewise-linear laws summed in the rest pieces, at chain voltage vx: Newton's method in
+    s = ln|i| on |V(i)| + r·|i| = |w| from the smaller current either part alone carries (the
+    general series solve where that is not a positive float or after 100 steps)."""
+    vf, rf, vr, rr = p[o + 8], p[o + 9], p[o + 10], p[o + 11]
+    if vr <= vx <= vf:
+        return 0.0
+    if vx > vf:
+        w, r = vx - vf, rf
+    else:
+        w, r = vx - vr, rr
+    sign, aw = math.copysign(1.0, w), abs(w)
+    lo_ = _law_off(o, int(p[o + 21]))
+    hi = abs(law_current(p, lo_, w))
+    if r > 0:
+        hi = pymin(hi, aw / r)
+    if not 0.0 < hi < math.inf:
+        return solve_numeric(p, o, vx)
+    v_round = 4e-16 * abs(vx)
+    s = math.log(hi)
+    for _ in range(100):
+        i = sign * math.exp(s)
+        g = abs(law_voltage(p, lo_, i)) + r * abs(i) - aw
+        if g <= v_round:
+            return i
+        ds = g / (abs(law_log_slope(p, lo_, i)) + r * abs(i))
+        s -= ds
+        if ds <= 1e-14:
+            return sign * math.exp(s)
+    return solve_numeric(p, o, vx)
+
+
+@jit
 def _shockley_side(p, o, vx):
     """Chain.current_at of a Shockley chain: offset of the conducting diode's record, or −1."""
     if vx > p[o + 8]:
@@ -309,13 +345,22 @@ def chain_current(p, o, voltage, v_cap):
         return shockley_current(p[d], p[d + 1], p[d + 2], p[d + 3], vx - ref)
     if kind == CH_VARISTOR:
         return law_current(p, _law_off(o, 0), vx)
+    if kind == CH_SMOOTH_REST:
+        return solve_varistor_rest(p, o, vx)
     return solve_numeric(p, o, vx)
 
 
 @jit
 def chain_conductance(p, o, voltage, v_cap):
-    """Chain.conductance_at [S]: exact for pieces, the Shockley chain and the numeric solve;
-    a central difference (h = 1e-6·max(|vx|, 1)) for a varistor alone or with a linear rest."""
+    """Chain.conductance_at [S] without the current known (solved here where needed)."""
+    return chain_conductance_at(p, o, voltage, v_cap, 0.0, False)
+
+
+@jit
+def chain_conductance_at(p, o, voltage, v_cap, current, has_current):
+    """Chain.conductance_at [S]: exact for pieces, the Shockley chain and the numeric solve (at
+    ``current`` where ``has_current``: the chain's current there, already solved); a central
+    difference (h = 1e-6·max(|vx|, 1)) for a varistor alone or with a linear rest."""
     vx = voltage - v_cap
     kind = int(p[o])
     if kind == CH_PIECES:
@@ -324,11 +369,11 @@ def chain_conductance(p, o, voltage, v_cap):
         d = _shockley_side(p, o, vx)
         if d < 0:
             return 0.0
-        i = chain_current(p, o, voltage, v_cap)
+        i = current if has_current else chain_current(p, o, voltage, v_cap)
         den = p[d] / pymax(p[d + 1] + i, 1e-300) + p[d + 2]
         return 1.0 / den if den > 0 else math.inf
     if kind == CH_NUMERIC and int(p[o + 20]) > 0:
-        i = chain_current(p, o, voltage, v_cap)
+        i = current if has_current else chain_current(p, o, voltage, v_cap)
         if i == 0.0 or not math.isfinite(i):
             return 0.0 if i == 0.0 else math.inf
         r = _sum_slope(p, o, i)
