@@ -425,11 +425,12 @@ def test_supported_names_what_is_not_covered():
 
 def test_cache_follows_the_called_modules():
     # numba keys a cached function by its own file only; the compiled circuit's cache must also
-    # follow the files it calls into (an edit of kchain.py, klaws.py, kbase.py, knode.py or
+    # follow the files it calls into (an edit of kchain.py, kseries.py, klaws.py, kbase.py, knode.py or
     # kfloat.py recompiles RHS)
     from kickback.engine import kcache
 
-    assert set(kcache.DEPENDS["kcircuit.py"]) == {"kbase.py", "knode.py", "kfloat.py", "kchain.py", "klaws.py"}
+    assert set(kcache.DEPENDS["kcircuit.py"]) == {"kbase.py", "knode.py", "kfloat.py", "kchain.py", "kseries.py",
+                                                  "klaws.py"}
     for fn in (K.RHS, K.JAC, kchain.chain_current):
         locator = fn._cache._impl._locator
         assert type(locator).__name__ in ("TreeLocator", "UserDirLocator")
