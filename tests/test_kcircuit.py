@@ -243,6 +243,26 @@ def test_varistor_rest_chain_against_brentq(vx):
         assert kchain.chain_conductance(p, o, vx, 0.0) == pytest.approx(g_want, rel=1e-6), vx
 
 
+@pytest.mark.parametrize("r", [0.0, 10.0], ids=["diode", "diode+resistor"])
+def test_shockley_chain_conductance_at_zero_bias(r):
+    # i = I_s·(e^{v_d/(n·V_T)} − 1) (Sedra & Smith, Microelectronic Circuits, ch. 4): at zero bias
+    # di/dv_d = I_s/(n·V_T); in series with R_s and a resistor r the chain's conductance at 0 V is
+    # 1/(n·V_T/I_s + R_s + r), either way (no band where the linear laws block: the diode conducts
+    # at once both ways; a node solved onto exactly its zero, wide-range case 4886)
+    text = _CHAIN_CASE.split("[[clamp.element]]\nname = \"V\"")[0]
+    if r:
+        text += f'[[clamp.element]]\nname = "R"\ntype = "resistor"\nresistance = "{r} Ω"\n'
+    c = Circuit(load_case(text, source="zero-bias test"))
+    p = K.pack(c, np.ones(c.n_states))
+    o = int(p[K.HEAD])
+    assert int(p[o]) == kchain.CH_SHOCKLEY
+    want = 1.0 / (1.7 * V_T25 / 3e-9 + 0.2 + r)
+    assert kchain.chain_conductance(p, o, 0.0, 0.0) == pytest.approx(want, rel=1e-12)
+    assert c.chains[c.active_chains[0]].conductance_at(0.0) == pytest.approx(want, rel=1e-12)
+    for vx in (-1e-9, 1e-9):  # and continuous through it (the slope 1e-9 V either side)
+        assert kchain.chain_conductance(p, o, vx, 0.0) == pytest.approx(want, rel=1e-6)
+
+
 # ----------------------------------------------------------------------------------- circuit
 SEEDS = range(0, 160)
 N_TRIALS = 10

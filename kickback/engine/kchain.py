@@ -131,7 +131,9 @@ def chain_conductance_at(p, o, voltage, v_cap, current, has_current):
     if kind == CH_SHOCKLEY:
         d = _shockley_side(p, o, vx)
         if d < 0:
-            return 0.0
+            if not (vx == p[o + 8] and vx == p[o + 10]):
+                return 0.0
+            d = o + 12 if p[o + 9] <= p[o + 11] else o + 16  # no band: the larger one-sided slope
         i = current if has_current else chain_current(p, o, voltage, v_cap)
         den = p[d] / pymax(p[d + 1] + i, 1e-300) + p[d + 2]
         return 1.0 / den if den > 0 else math.inf
