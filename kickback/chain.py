@@ -189,6 +189,12 @@ class Chain(SeriesSolve):
                 d = self._fwd
             elif vx < rest.v_rev:
                 d = self._rev
+            elif vx == rest.v_fwd == rest.v_rev:
+                # the diode's own zero with no band of the linear laws (a lone diode, a diode and a
+                # resistor): it conducts either way, the larger one-sided slope (as
+                # LinearPieces.slope_at; 0 left the diodes out of the Jacobian of a node solved
+                # onto exactly the supply by Newton's method, wide-range case 4886)
+                d = self._fwd if rest.r_fwd <= rest.r_rev else self._rev
             else:
                 return 0.0
             i = self.current_at(voltage, v_cap) if current is None else current

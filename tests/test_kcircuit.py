@@ -1,10 +1,10 @@
 """The compiled circuit (kickback.engine.kcircuit, klaws, kchain) against closed forms, a series
 solve written here, and the Python circuit it ports.
 
-Element laws against their closed forms; a chain of several nonlinear laws against
-scipy.optimize.brentq on Σ v_k(i) = V written here; RHS and JAC against Circuit.rhs and
-PhaseRunner.jac at random states of seeded wide-range draws in every switch and pin mode; JAC
-against a central difference of RHS done here.
+Element laws against their closed forms; a chain of several nonlinear laws, and a varistor in
+series with a Zener, against scipy.optimize.brentq on Σ v_k(i) = V written here; RHS and JAC
+against Circuit.rhs and PhaseRunner.jac at random states of seeded wide-range draws in every
+switch and pin mode; JAC against a central difference of RHS done here.
 """
 
 from __future__ import annotations
@@ -202,6 +202,67 @@ def test_series_chain_against_brentq():
             assert out[1] == pytest.approx(vv * got, rel=1e-13) and out[2] == pytest.approx(vz * got, rel=1e-13)
 
 
+_REST_CASE = _CHAIN_CASE.split("[[clamp.element]]")[0] + """[[clamp.element]]
+name = "V"
+type = "varistor"
+voltage = "39 V"
+exponent = 25
+[[clamp.element]]
+name = "Z"
+type = "zener"
+voltage = "6.8 V"
+dynamic_resistance = "1.5 Ω"
+"""
+
+
+@pytest.mark.parametrize("vx", [-400.0, -60.0, -30.0, -0.7000001, 6.800000000001, 6.8000001, 6.9, 20.0, 45.0,
+                                60.0, 400.0, 1e4])
+def test_varistor_rest_chain_against_brentq(vx):
+    # a varistor (V_1 = 39 V at I_1 = 1 mA, α = 25; Levinson & Philipp, Am. Ceram. Soc. Bull.
+    # 65(4), 1986) in series with a Zener (6.8 V + 1.5 Ω·i forward, −0.7 V + 1.5 Ω·i reverse: the
+    # Zener's forward drop, kickback's default 0.7 V, common practice, no source): one current,
+    # the voltages add (KVL). Past the Zener's knee the varistor's voltage x and 1.5 Ω share
+    # u = vx − 6.8 V (or vx + 0.7 V): x + 1.5 Ω·I_1·(x/V_1)^α = u, solved here by brentq in x
+    # (scipy), i = I_1·(x/V_1)^α — currents from below 1e-300 A just past the knee to amperes
+    c = Circuit(load_case(_REST_CASE, source="varistor + rest test"))
+    p = K.pack(c, np.ones(c.n_states))
+    o = int(p[K.HEAD])
+    assert int(p[o]) == kchain.CH_SMOOTH_REST
+    v1, i1, alpha, r = 39.0, 1e-3, 25.0, 1.5
+    got = kchain.chain_current(p, o, vx, 0.0)
+    u = vx - 6.8 if vx > 0 else vx + 0.7
+    x = brentq(lambda x: x + r * i1 * (x / v1) ** alpha - abs(u), 0.0, abs(u), xtol=1e-300, rtol=1e-15)
+    want = math.copysign(i1 * (x / v1) ** alpha, u)
+    assert got == pytest.approx(want, rel=1e-12, abs=1e-300), vx
+    # and the Python chain's own solve (chainsolve.SeriesSolve._solve_varistor_rest), step for step
+    assert got == pytest.approx(c.chains[c.active_chains[0]].current_at(vx), rel=1e-14, abs=1e-300), vx
+    if abs(u) > 1.0:
+        # the conductance (a central difference, h = 1e-6·|vx|) against 1/(dv/di of the varistor
+        # + 1.5 Ω), dv/di = (V_1/(α·I_1))·|i/I_1|^(1/α − 1): truncation ~ (α·h/u)² below 1e-7
+        g_want = 1.0 / (v1 / (alpha * i1) * abs(want / i1) ** (1 / alpha - 1) + r)
+        assert kchain.chain_conductance(p, o, vx, 0.0) == pytest.approx(g_want, rel=1e-6), vx
+
+
+@pytest.mark.parametrize("r", [0.0, 10.0], ids=["diode", "diode+resistor"])
+def test_shockley_chain_conductance_at_zero_bias(r):
+    # i = I_s·(e^{v_d/(n·V_T)} − 1) (Sedra & Smith, Microelectronic Circuits, ch. 4): at zero bias
+    # di/dv_d = I_s/(n·V_T); in series with R_s and a resistor r the chain's conductance at 0 V is
+    # 1/(n·V_T/I_s + R_s + r), either way (no band where the linear laws block: the diode conducts
+    # at once both ways; a node solved onto exactly its zero, wide-range case 4886)
+    text = _CHAIN_CASE.split("[[clamp.element]]\nname = \"V\"")[0]
+    if r:
+        text += f'[[clamp.element]]\nname = "R"\ntype = "resistor"\nresistance = "{r} Ω"\n'
+    c = Circuit(load_case(text, source="zero-bias test"))
+    p = K.pack(c, np.ones(c.n_states))
+    o = int(p[K.HEAD])
+    assert int(p[o]) == kchain.CH_SHOCKLEY
+    want = 1.0 / (1.7 * V_T25 / 3e-9 + 0.2 + r)
+    assert kchain.chain_conductance(p, o, 0.0, 0.0) == pytest.approx(want, rel=1e-12)
+    assert c.chains[c.active_chains[0]].conductance_at(0.0) == pytest.approx(want, rel=1e-12)
+    for vx in (-1e-9, 1e-9):  # and continuous through it (the slope 1e-9 V either side)
+        assert kchain.chain_conductance(p, o, vx, 0.0) == pytest.approx(want, rel=1e-6)
+
+
 # ----------------------------------------------------------------------------------- circuit
 SEEDS = range(0, 160)
 N_TRIALS = 10
@@ -319,7 +380,8 @@ def test_rhs_and_jac_match_the_python_circuit(drawn):
         for k in c.active_chains:
             kinds.add(kchain.chain_kind(c.chains[k]))
     # the draws reach every chain kind and every mode
-    assert kinds >= {kchain.CH_PIECES, kchain.CH_SHOCKLEY, kchain.CH_VARISTOR, kchain.CH_NUMERIC}, kinds
+    assert kinds >= {kchain.CH_PIECES, kchain.CH_SHOCKLEY, kchain.CH_VARISTOR, kchain.CH_NUMERIC,
+                     kchain.CH_SMOOTH_REST}, kinds
     assert {m[0] for m in modes} == {"conducting", "fall", "off"} and any(m[1] for m in modes), modes
 
 
@@ -383,11 +445,12 @@ def test_supported_names_what_is_not_covered():
 
 def test_cache_follows_the_called_modules():
     # numba keys a cached function by its own file only; the compiled circuit's cache must also
-    # follow the files it calls into (an edit of kchain.py, klaws.py, kbase.py, knode.py or
+    # follow the files it calls into (an edit of kchain.py, kseries.py, klaws.py, kbase.py, knode.py or
     # kfloat.py recompiles RHS)
     from kickback.engine import kcache
 
-    assert set(kcache.DEPENDS["kcircuit.py"]) == {"kbase.py", "knode.py", "kfloat.py", "kchain.py", "klaws.py"}
+    assert set(kcache.DEPENDS["kcircuit.py"]) == {"kbase.py", "knode.py", "kfloat.py", "kchain.py", "kseries.py",
+                                                  "klaws.py"}
     for fn in (K.RHS, K.JAC, kchain.chain_current):
         locator = fn._cache._impl._locator
         assert type(locator).__name__ in ("TreeLocator", "UserDirLocator")

@@ -199,9 +199,12 @@ def test_node_solve_against_brentq(drawn):
             a, z = v_k - 4 * tol, v_k + 4 * tol
             ba, bz = b(a), b(z)
             if math.isfinite(ba) and math.isfinite(bz) and ba < 0 < bz and bz - ba < 1e-3 * abs(i) + 1e-9 * c.i0:
-                # continuous, and steep enough that the balance's rounding moves the root by less
-                # than xtol: brentq's root there
-                if eps / ((bz - ba) / (z - a)) < 0.1 * xtol:
+                # continuous, and steep enough on both sides (a branch's knee may sit at the root:
+                # flat below it, steep above, wide-range case 608 with KICKBACK_KNODE_SEEDS) that the
+                # balance's rounding moves the root by less than xtol: brentq's root there
+                b0 = b(v_k)
+                slope = min((bz - b0) / (z - v_k), (b0 - ba) / (v_k - a))
+                if slope > 0 and eps / slope < 0.1 * xtol:
                     want = brentq(b, a, z, xtol=1e-15 * max(1.0, abs(v_k)), rtol=4 * np.finfo(float).eps)
                     assert v_k == pytest.approx(want, rel=0, abs=xtol), (s, t, v_k, want)
                     brentq_checked += 1

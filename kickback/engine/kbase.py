@@ -14,7 +14,7 @@ import math
 import numpy as np
 
 from kickback.engine import kcache
-from kickback.engine.kchain import chain_conductance, chain_current
+from kickback.engine.kchain import chain_conductance_at, chain_current
 from kickback.engine.klaws import pwl_current, pwl_slope, pymax
 from kickback.engine.radau5_jit import jit
 
@@ -131,6 +131,13 @@ def currents_at(p, t, v, y):
 def conductances(p, t, v, y):
     """Circuit._conductances: small-signal conductance [S] of each branch at node voltage v
     (channel with the leakage, off-state, then each active chain)."""
+    return conductances_with(p, t, v, y, np.empty(0), False)
+
+
+@jit
+def conductances_with(p, t, v, y, currents, has_currents):
+    """Circuit._conductances with the branches' ``currents`` at v (from :func:`currents_at`,
+    where ``has_currents``), so that a chain is not solved again."""
     nc = int(p[N_CHAINS])
     g = np.empty(2 + nc)
     g_ch = p[G_LEAK]
@@ -141,7 +148,8 @@ def conductances(p, t, v, y):
     g[1] = pwl_slope(p[OFF], p[OFF + 1], p[OFF + 2], p[OFF + 3], v)
     for k in range(nc):
         o = chain_off(p, k)
-        g[2 + k] = chain_conductance(p, o, v - p[VS] * p[o + 1], vcap_of(p, o, y))
+        ik = currents[2 + k] if has_currents else 0.0
+        g[2 + k] = chain_conductance_at(p, o, v - p[VS] * p[o + 1], vcap_of(p, o, y), ik, has_currents)
     return g
 
 

@@ -1,7 +1,7 @@
 """numba's on-disk cache of the compiled circuit, invalidated by the modules it calls into.
 
 numba keys a cached function by the source of the file that defines it only; a function that
-calls into another module (RHS in ``kcircuit`` calling the chain solve in ``kchain`` and the laws
+calls into another module (RHS in ``kcircuit`` calling the chain solve in ``kseries`` and the laws
 in ``klaws``) was loaded from the cache unchanged after an edit of the callee's module: stale
 code, silently (a test of a changed law then ran the old one). This module registers, ahead of
 numba's own, a cache locator for the files listed in :data:`DEPENDS` whose source stamp is the
@@ -19,11 +19,12 @@ import os
 _HERE = os.path.dirname(os.path.abspath(__file__))
 #: file -> the files (same folder) whose compiled functions it calls
 DEPENDS = {
-    "kcircuit.py": ("kbase.py", "knode.py", "kfloat.py", "kchain.py", "klaws.py"),
-    "knode.py": ("kbase.py", "kfloat.py", "kchain.py", "klaws.py"),
-    "kfloat.py": ("kbase.py", "kchain.py", "klaws.py"),
-    "kbase.py": ("kchain.py", "klaws.py"),
-    "kchain.py": ("klaws.py",),
+    "kcircuit.py": ("kbase.py", "knode.py", "kfloat.py", "kchain.py", "kseries.py", "klaws.py"),
+    "knode.py": ("kbase.py", "kfloat.py", "kchain.py", "kseries.py", "klaws.py"),
+    "kfloat.py": ("kbase.py", "kchain.py", "kseries.py", "klaws.py"),
+    "kbase.py": ("kchain.py", "kseries.py", "klaws.py"),
+    "kchain.py": ("kseries.py", "klaws.py"),
+    "kseries.py": ("klaws.py",),
 }
 REGISTERED = False
 

@@ -3,9 +3,10 @@
 Without node capacitance the node voltage is not a state: it is solved from the node's current
 balance at every evaluation. These are the compiled twins of :meth:`Circuit.node_voltage` (the
 monotone solve of :func:`kickback.nodebalance.solve_monotone`: the same bracketing over the
-vertical laws' voltages, the same tolerances, Brent's method with the steps of scipy's
-``brentq``), :meth:`Circuit.split_currents` and ``_vertical_at`` (a vertical law takes what the
-others leave), the pinned and the floating mode (its forced voltage from
+vertical laws' voltages, the same tolerances, Newton's method on the branches' conductances
+inside the bracket safeguarded by bisection, and where that does not finish Brent's method
+with the steps of scipy's ``brentq``), :meth:`Circuit.split_currents` and ``_vertical_at`` (a
+vertical law takes what the others leave), the pinned and the floating mode (its forced voltage from
 :mod:`kickback.engine.kfloat`) and the algebraic branch of :meth:`Circuit.jacobian` (incl.
 ``_floating_jacobian``), branch for branch in the same order. ``_vertical_at`` and
 ``node_conductance`` are in :mod:`kickback.engine.kbase`.
@@ -15,6 +16,8 @@ References
 R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4
 (the bracketed root by inverse interpolation safeguarded by bisection). C. K. Alexander and
 M. N. O. Sadiku, Fundamentals of Electric Circuits, ch. 3 (Kirchhoff's current law at a node).
+W. H. Press et al., Numerical Recipes, 3rd ed., §9.4 (Newton's method safeguarded by bisection;
+from memory).
 """
 
 from __future__ import annotations
@@ -46,6 +49,7 @@ from kickback.engine.kbase import (
     chain_off,
     coil_current,
     conductances,
+    conductances_with,
     currents_at,
     fsum_list,
     in_fall,
@@ -68,6 +72,46 @@ _MAXITER = 100
 def balance(p, t, v, y, i):
     """Residual [A] of the node's current balance at node voltage v: Σ branch currents − i."""
     return fsum_list(currents_at(p, t, v, y)) - i
+
+
+@jit
+def balance_with_slope(p, t, v, y, i):
+    """Circuit.node_voltage's ``with_slope``: the balance's residual [A] and its derivative [S]
+    (the branches' conductances at the currents just solved) at node voltage v."""
+    vals = currents_at(p, t, v, y)
+    return fsum_list(vals) - i, fsum_list(conductances_with(p, t, v, y, vals, True))
+
+
+@jit
+def newton(p, t, y, i, a, b, ra, rb, xtol):
+    """nodebalance._newton: the root in [a, b] (ra < 0 < rb) by Newton's method on the
+    branches' conductances from the chord's root (the middle where that is not inside),
+    safeguarded by bisection (a step leaving the shrinking bracket or not at most half the
+    step before last); (root, True), or (nan, False) after 100 iterates."""
+    x = a - ra * (b - a) / (rb - ra)
+    if not a < x < b:
+        x = 0.5 * (a + b)
+    step_before = step = b - a
+    for _ in range(_MAXITER):
+        r, g = balance_with_slope(p, t, x, y, i)
+        if r == 0:
+            return x, True
+        if r < 0:
+            a = x
+        else:
+            b = x
+        tol = xtol + _RTOL * abs(x)
+        xn = x - r / g if 0 < g < math.inf else math.nan
+        if abs(xn - x) <= tol and a <= xn <= b:
+            return xn, True
+        step_before, step = step, abs(xn - x)
+        if not (a < xn < b and step <= 0.5 * step_before):
+            xn = 0.5 * (a + b)
+            step = abs(xn - x)
+        if b - a <= tol:
+            return xn, True
+        x = xn
+    return math.nan, False
 
 
 @jit
@@ -112,7 +156,8 @@ def brent(p, t, y, i, xpre, xcur, fpre, fcur, xtol, rtol):
 @jit
 def bracketed(p, t, y, i, a, b, scale):
     """nodebalance.bracketed: widen [a, b] (infinite ends from ``scale``) until the balance
-    changes sign, then the root (nan where 200 doublings find no bracket: nothing conducts)."""
+    changes sign, then the root by :func:`newton` (Brent's method where that does not finish;
+    nan where 200 doublings find no bracket: nothing conducts)."""
     span = pymax(scale, 1.0)
     if not math.isfinite(a) and not math.isfinite(b):
         a, b = -span, span
@@ -148,7 +193,11 @@ def bracketed(p, t, y, i, a, b, scale):
         return a
     if rb == 0:
         return b
-    return brent(p, t, y, i, a, b, ra, rb, 1e-14 * max(1.0, abs(a), abs(b)), _RTOL)
+    xtol = 1e-14 * max(1.0, abs(a), abs(b))
+    x, ok = newton(p, t, y, i, a, b, ra, rb, xtol)
+    if ok:
+        return x
+    return brent(p, t, y, i, a, b, ra, rb, xtol, _RTOL)
 
 
 @jit
