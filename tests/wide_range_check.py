@@ -227,7 +227,12 @@ def run_pool(tasks, *, workers: int = 2, limit: float = 60.0, on_record=None) ->
     import kickback.audit  # noqa: F401 - imported once here, inherited by every forked worker
     import kickback.simulation  # noqa: F401
     import kickback.studies.many  # noqa: F401
+    from kickback.engine import kstep
 
+    if kstep.cycle_mode() == "compiled":
+        # the compiled stepping of the [drive] cycles, loaded once here (~1 s) and inherited by
+        # every forked worker, not charged to the first [drive] case of each
+        kstep.warm_up()
     ctx = mp.get_context("fork")
     todo = list(tasks)[::-1]
     out: list[dict] = []
