@@ -85,9 +85,6 @@ def pwl_slope(vf, rf, vr, rr, v):
         return 1.0 / rf if rf > 0 else math.inf
     if v < vr:
         return 1.0 / rr if rr > 0 else math.inf
-    if v == vf and v == vr:
-        r = rf if rf < rr else rr  # no band: the larger one-sided slope where the pieces meet
-        return 1.0 / r if r > 0 else math.inf
     return 0.0
 
 

@@ -79,12 +79,6 @@ class LinearPieces:
             return 1.0 / self.r_fwd if self.r_fwd > 0 else math.inf
         if v < self.v_rev:
             return 1.0 / self.r_rev if self.r_rev > 0 else math.inf
-        if v == self.v_fwd == self.v_rev:
-            # pieces meeting with no band between them (a resistor, a channel's on-state): at the
-            # meeting point the law conducts either way, the larger one-sided slope (0 there left
-            # 1/r_on out of the Jacobian of a node solved onto exactly 0 V, wide-range case 17)
-            r = min(self.r_fwd, self.r_rev)
-            return 1.0 / r if r > 0 else math.inf
         return 0.0
 
     def voltage_at(self, i: float) -> float:
